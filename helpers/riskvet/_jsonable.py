@@ -1,0 +1,49 @@
+"""Conversion of result objects to plain JSON-ready Python values."""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from typing import Any
+
+import numpy as np
+
+__all__ = ["to_jsonable"]
+
+
+def to_jsonable(value: Any) -> Any:
+    """Return ``value`` as plain dicts, lists, str, int, float, bool and None.
+
+    numpy scalars and arrays become Python numbers and lists, pandas objects
+    become dicts/lists, dataclasses become dicts of their fields, and
+    non-finite floats become ``None`` (JSON has no NaN), so that
+    ``json.dumps(to_jsonable(x), allow_nan=False)`` always succeeds.
+    """
+    import pandas as pd
+
+    if value is None or isinstance(value, (bool, str)):
+        return value
+    if isinstance(value, (np.bool_,)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        v = float(value)
+        return v if math.isfinite(v) else None
+    if hasattr(value, "to_dict") and not isinstance(value, (pd.DataFrame, pd.Series)) and not isinstance(value, type):
+        return to_jsonable(value.to_dict())
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return {f.name: to_jsonable(getattr(value, f.name)) for f in dataclasses.fields(value)}
+    if isinstance(value, pd.DataFrame):
+        return [to_jsonable(r) for r in value.reset_index().to_dict(orient="records")] if not isinstance(value.index, pd.RangeIndex) else [to_jsonable(r) for r in value.to_dict(orient="records")]
+    if isinstance(value, pd.Series):
+        return {str(k): to_jsonable(v) for k, v in value.items()}
+    if isinstance(value, np.ndarray):
+        return [to_jsonable(v) for v in value.tolist()]
+    if isinstance(value, dict):
+        return {str(k): to_jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple, set, frozenset)):
+        return [to_jsonable(v) for v in value]
+    if hasattr(value, "isoformat"):
+        return value.isoformat()
+    raise TypeError(f"to_jsonable: cannot convert a {type(value).__name__} to JSON")
