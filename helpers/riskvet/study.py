@@ -15,6 +15,7 @@ from __future__ import annotations
 import difflib
 import hashlib
 import json
+import re
 import types
 import typing
 from pathlib import Path
@@ -53,7 +54,28 @@ STAGES = (
 
 
 class _Section(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    # Numbers become text where text is expected: YAML reads ``levels: [0, 1]``,
+    # ``event: 1`` and ``thresholds: {1: [0.1]}`` as numbers, and level names
+    # are compared as text with the data.
+    model_config = ConfigDict(extra="forbid", frozen=True, coerce_numbers_to_str=True)
+
+
+class _StudyLoader(yaml.SafeLoader):
+    """YAML loader reading only true/false as booleans (the YAML 1.2 rule).
+
+    YAML 1.1 also reads yes/no/on/off as booleans, which would turn
+    ``levels: [no, yes]`` into ``False``/``True`` and no longer match the data.
+    """
+
+
+_BOOL_TAG = "tag:yaml.org,2002:bool"
+_StudyLoader.yaml_implicit_resolvers = {
+    first: [(tag, rx) for tag, rx in resolvers if tag != _BOOL_TAG]
+    for first, resolvers in yaml.SafeLoader.yaml_implicit_resolvers.items()
+}
+_StudyLoader.add_implicit_resolver(
+    _BOOL_TAG, re.compile(r"^(?:true|True|TRUE|false|False|FALSE)$"), list("tTfF")
+)
 
 
 def _resolve(value: str | Path | None, info: ValidationInfo) -> Path | None:
@@ -619,7 +641,7 @@ def load_study(path: str | Path) -> Study:
     if not path.is_file():
         raise StudyError(f"{path}: study file not found")
     try:
-        raw = yaml.safe_load(path.read_text(encoding="utf-8"))
+        raw = yaml.load(path.read_text(encoding="utf-8"), Loader=_StudyLoader)
     except yaml.YAMLError as exc:
         raise StudyError(f"{path}: not valid YAML: {exc}") from None
     return study_from_dict(raw, base_dir=path.resolve().parent, source=str(path))
