@@ -32,8 +32,8 @@ The true model is a proportional-odds cumulative logit,
 
 from __future__ import annotations
 
+import copy
 import dataclasses
-import math
 import numbers
 from dataclasses import dataclass
 from pathlib import Path
@@ -41,7 +41,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy.special import expit, logit
+from scipy.special import expit
 
 from ._jsonable import to_jsonable
 from .errors import DataError, RiskvetError, problem
@@ -238,7 +238,7 @@ class DemoTruth:
             if t.form == "level":
                 detail = f"1 if {t.column} == {t.level!r}"
             elif t.form == "linear":
-                detail = f"{t.column} - {t.at:g}"
+                detail = t.column if t.at == 0 else f"{t.column} - {t.at:g}"
             elif t.form == "above":
                 detail = f"max(0, {t.column} - {t.at:g})"
             else:
@@ -282,6 +282,10 @@ _TERMS = (
 
 _THETA_DERIVATION = (1.02, 3.26)
 _THRESHOLD_SHIFT = 0.50
+_THRESHOLDS = {
+    "derivation": _THETA_DERIVATION,
+    "validation": tuple(round(t + _THRESHOLD_SHIFT, 10) for t in _THETA_DERIVATION),
+}
 
 _POPULATIONS: dict[str, dict[str, Any]] = {
     "derivation": {
@@ -338,9 +342,9 @@ _RATINGS = {
     "scheme": "columns <sign>_rater_a and <sign>_rater_b for sign in confusion, dry_skin, cramps, resp_rate",
     "binary_signs": {
         # sensitivity, specificity of each rater against the true sign
-        "confusion": {"rater_a": (0.85, 0.96), "rater_b": (0.80, 0.94)},
-        "dry_skin": {"rater_a": (0.78, 0.90), "rater_b": (0.72, 0.88)},
-        "cramps": {"rater_a": (0.88, 0.95), "rater_b": (0.85, 0.93)},
+        "confusion": {"rater_a": (0.88, 0.98), "rater_b": (0.82, 0.97)},
+        "dry_skin": {"rater_a": (0.80, 0.95), "rater_b": (0.75, 0.93)},
+        "cramps": {"rater_a": (0.90, 0.95), "rater_b": (0.86, 0.94)},
     },
     "resp_rate": {
         "method": "breaths counted over 30 s and doubled (even numbers)",
@@ -391,19 +395,18 @@ def truth() -> DemoTruth:
     models: a study on sample size and shrinkage. Stat Med.
     2004;23(16):2567-2586.
     """
-    theta_d = _THETA_DERIVATION
-    theta_v = tuple(t + _THRESHOLD_SHIFT for t in theta_d)
     return DemoTruth(
         levels=LEVELS,
         outcome=OUTCOME,
         terms=_TERMS,
-        thresholds={"derivation": theta_d, "validation": theta_v},
+        thresholds=dict(_THRESHOLDS),
         threshold_shift=_THRESHOLD_SHIFT,
         season_labels={s: _POPULATIONS[s]["season"] for s in _SEASONS},
-        populations=_POPULATIONS,
+        # Copies, so that editing a returned truth cannot change the generator.
+        populations=copy.deepcopy(_POPULATIONS),
         missingness=_MISSINGNESS,
-        triage=_TRIAGE,
-        ratings=_RATINGS,
+        triage=copy.deepcopy(_TRIAGE),
+        ratings=copy.deepcopy(_RATINGS),
         update="recalibration in the large: thresholds shift, coefficients unchanged",
     )
 
@@ -488,7 +491,7 @@ def true_prob(frame: pd.DataFrame, *, season: str | None = None) -> np.ndarray:
     1980;42(2):109-142.
     """
     lp = true_linear_predictor(frame)
-    thresholds = truth().thresholds
+    thresholds = _THRESHOLDS
     if season is None:
         _check_frame(frame, ["season"], "true_prob")
         by_label = {_POPULATIONS[s]["season"]: thresholds[s] for s in _SEASONS}
