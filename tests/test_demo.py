@@ -487,6 +487,7 @@ def test_truth_to_dict_and_to_frame():
     assert (table["part"] == "coefficient").sum() == len(t.terms) == 16
     assert (table["part"] == "threshold").sum() == 4
     assert (table["part"] == "missing_rate").sum() == len(t.missingness)
+    assert set(t.predictor_model) == set(PREDICTORS) | {"event", "disposition"}
     zero = {term.name for term in t.terms if term.coefficient == 0}
     assert zero == {"cramps", "distance_km"}
     with pytest.raises(dataclasses.FrozenInstanceError):
@@ -510,6 +511,7 @@ def test_truth_to_dict_and_to_frame():
         (lambda: demo.paired_ratings(n=1), "n"),
         (lambda: demo.write_demo_data("/nonexistent-never-written", seed=np.random.default_rng(1)), "seed"),
         (lambda: demo.true_prob(demo.draw(5, seed=1), season="2024"), "season"),
+        (lambda: demo.true_linear_predictor(demo.draw(5, seed=1).drop(columns="age")), "age"),
     ],
 )
 def test_bad_input_is_refused_with_a_named_parameter(call, word):

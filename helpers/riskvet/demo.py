@@ -193,6 +193,9 @@ class DemoTruth:
     populations : dict
         For each season, the parameters of the predictor distributions
         (course, events with their distances, shares and WBGT, age, sex).
+    predictor_model : dict
+        For each column, how it is drawn (the same equations in both
+        seasons; only the ``populations`` parameters differ).
     missingness : tuple of MissingSpec
         Deletion applied by :func:`derivation_cohort` and
         :func:`validation_cohort` (the same specification in both).
@@ -211,6 +214,7 @@ class DemoTruth:
     threshold_shift: float
     season_labels: dict[str, str]
     populations: dict[str, dict[str, Any]]
+    predictor_model: dict[str, str]
     missingness: tuple[MissingSpec, ...]
     triage: dict[str, Any]
     ratings: dict[str, Any]
@@ -336,6 +340,27 @@ _TRIAGE = {
     "temp_noise_sd": 0.35,
 }
 
+# How each predictor is drawn (mirrors _simulate; e ~ Normal(0, sd) noise,
+# each value rounded to the precision of a tent record).
+_PREDICTOR_MODEL = {
+    "event": "drawn with the event shares of the season",
+    "age": "Normal(age_mean, age_sd), clipped to 16-85, whole years",
+    "sex": "male with probability male_share",
+    "distance_km": "event distance x 1 (40% finished) or x Uniform(0.2, 1), 0.1 km",
+    "wbgt": "Normal(event wbgt_mean, wbgt_sd), 0.1 degC",
+    "prior_heat_illness": "Bernoulli(clip(0.06 + 0.001 (age - 40), 0.01, 0.2))",
+    "core_temp": "36.7 + Gamma(2, 0.6) + 0.08 (wbgt - 26) + 0.15 prior_heat_illness, clipped 35.8-42.4, 0.1 degC",
+    "heart_rate": "92 + 10 (core_temp - 37.9) - 0.15 (age - 40) + e(14), clipped 48-195",
+    "systolic_bp": "128 + 0.3 (age - 40) - 5 (core_temp - 37.9) + e(15), clipped 70-210",
+    "resp_rate": "18 + 1.8 (core_temp - 37.9) + e(3.5), clipped 8-44",
+    "confusion": "Bernoulli(expit(-3.2 + 1.6 (core_temp - 38.5)))",
+    "collapse": "Bernoulli(expit(-1.9 + 0.8 (core_temp - 38.5) + 0.02 (age - 40)))",
+    "vomiting": "min(6, Poisson(exp(-0.9 + 0.35 (core_temp - 37.9))))",
+    "dry_skin": "Bernoulli(expit(-1.6 + 0.7 (core_temp - 38.5)))",
+    "cramps": "Bernoulli(expit(-1.0 + 0.03 (distance_km - 15)))",
+    "disposition": "drawn from true_prob of the rounded predictors",
+}
+
 _RATINGS = {
     "season": "derivation",
     "id_prefix": "RS",
@@ -404,6 +429,7 @@ def truth() -> DemoTruth:
         season_labels={s: _POPULATIONS[s]["season"] for s in _SEASONS},
         # Copies, so that editing a returned truth cannot change the generator.
         populations=copy.deepcopy(_POPULATIONS),
+        predictor_model=dict(_PREDICTOR_MODEL),
         missingness=_MISSINGNESS,
         triage=copy.deepcopy(_TRIAGE),
         ratings=copy.deepcopy(_RATINGS),
@@ -601,8 +627,7 @@ def _simulate(n: int, season: str, rng: np.random.Generator) -> pd.DataFrame:
     prob = true_prob(frame, season=season)
     u = rng.random(n)
     level = (u[:, None] > np.cumsum(prob, axis=1)[:, :2]).sum(axis=1)
-    frame[OUTCOME] = np.array(LEVELS, dtype=object)[level]
-    frame[OUTCOME] = frame[OUTCOME].astype("str")
+    frame[OUTCOME] = pd.array(np.array(LEVELS, dtype=object)[level], dtype="str")
     return frame
 
 
