@@ -595,6 +595,9 @@ class ValidationSize(_Result):
         net-benefit) criteria.
     lp_source : str
         ``"given"`` or ``"matched to prevalence, C, O/E and slope"``.
+    outcome_intercept : float
+        a in the assumed true risk expit(a + slope·LP) (0 for a model
+        calibrated in the large with slope 1).
     net_benefit_threshold : float or None
         Risk threshold of the net-benefit criterion.
     sensitivity, specificity : float or None
@@ -620,6 +623,7 @@ class ValidationSize(_Result):
     lp_mean: float
     lp_sd: float
     lp_source: str
+    outcome_intercept: float
     net_benefit_threshold: float | None
     sensitivity: float | None
     specificity: float | None
@@ -880,6 +884,7 @@ def validation_size(
         lp_mean=float(mu),
         lp_sd=float(sd),
         lp_source=lp_source,
+        outcome_intercept=float(a),
         net_benefit_threshold=thr,
         sensitivity=None if sens is None else float(sens),
         specificity=None if spec is None else float(spec),
