@@ -1133,8 +1133,9 @@ def descriptive_table(
     DescriptiveTable
         Numeric predictors: ``median [Q1, Q3]`` and ``mean (SD)``; categorical
         predictors and numeric predictors taking only 0 and 1: ``n (%)`` per
-        level, the percentage of the column's rows.  The first row gives the
-        number of rows per column.
+        level, the percentage of the column's rows (the count alone when the
+        column's total is hidden).  The first row gives the number of rows
+        per column.
 
     Notes
     -----
@@ -1230,9 +1231,10 @@ def descriptive_table(
                     cells.append(f"<{m}")
                 elif r == 0:
                     cells.append(str(n))
+                elif (0, c) in hidden or not group_n[c]:
+                    cells.append(str(n))  # a percentage would reveal the hidden column total
                 else:
-                    pct = 100.0 * n / group_n[c] if group_n[c] else float("nan")
-                    cells.append(f"{n} ({pct:.{digits}f}%)" if group_n[c] else "0")
+                    cells.append(f"{n} ({100.0 * n / group_n[c]:.{digits}f}%)")
             else:
                 cell = row["cells"][c]
                 if cell is None and group_n[c] > 0:
