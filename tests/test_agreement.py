@@ -107,7 +107,7 @@ def test_icc_formulas_by_hand_and_intervals():
     fl3 = f3 / stats.f.ppf(0.975, n - 1, (n - 1) * (k - 1))
     assert r3k.lower == pytest.approx(1 - 1 / fl3, rel=1e-10)
     # Form 2: the Spearman-Brown step-up of the single-rating limits equals
-    # McGraw & Wong (1996, Table 7) ICC(A,k) limit n(BMS - F*EMS)/(F*(JMS - EMS) + n BMS).
+    # McGraw & Wong (1996) ICC(A,k) limit n(BMS - F*EMS)/(F*(JMS - EMS) + n BMS).
     r2 = icc(SHROUT_FLEISS, form="2,1")
     r2k = icc(SHROUT_FLEISS, form="2,k")
     rho = r2.value
@@ -196,6 +196,10 @@ def test_icc_bad_input():
         icc(np.ones((4, 2)), form="1,1")
     with pytest.raises(StudyError):
         icc_table(SHROUT_FLEISS)["2,4"]
+    with pytest.raises(StudyError, match="confidence"):
+        icc_table(SHROUT_FLEISS, confidence=0)
+    with pytest.raises(DataError, match="n subjects"):
+        icc_table([1.0, 2.0, 3.0])
 
 
 # --------------------------------------------------------------------------

@@ -165,6 +165,10 @@ def test_r2_from_c_invariants():
         r2_from_c(0.7, 0.2, method="simulation", seed="x")
     with pytest.raises(StudyError, match="n_sim"):
         r2_from_c(0.7, 0.2, method="simulation", n_sim=10)
+    with pytest.raises(StudyError, match="c_statistic"):
+        r2_from_c(1.2, 0.2)
+    with pytest.raises(StudyError, match="prevalence"):
+        max_r2_cs(0.0)
 
 
 # --------------------------------------------------------------------------

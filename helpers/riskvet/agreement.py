@@ -273,7 +273,7 @@ def _icc_from(ms: _MeanSquares, form: str, confidence: float) -> ICCResult:
                 lower = upper = 1.0
             else:
                 # Satterthwaite degrees of freedom for the denominator
-                # (Shrout & Fleiss 1979, eq. 9; McGraw & Wong 1996, Table 7).
+                # (Shrout & Fleiss 1979; McGraw & Wong 1996).
                 fj = msc / mse
                 a_coef = k * single
                 b_coef = n * (1 + (k - 1) * single) - k * single
@@ -352,7 +352,7 @@ def icc(ratings: Any, *, form: Literal["1,1", "2,1", "3,1", "1,k", "2,k", "3,k"]
     and (F_U − 1)/(F_U + k − 1) for a single rating, 1 − 1/F_L and
     1 − 1/F_U for the mean.  For form 2 the interval uses Satterthwaite's
     approximate degrees of freedom ν for a linear combination of JMS and EMS
-    (Shrout & Fleiss 1979, eq. 9; McGraw & Wong 1996, Table 7), and the
+    (Shrout & Fleiss 1979; McGraw & Wong 1996), and the
     mean-of-k limits are the single-rating limits stepped up by
     Spearman–Brown, kL/(1 + (k − 1)L).
 
@@ -604,8 +604,9 @@ def kappa(
         lv = [_plain(v) for v in list(levels)]
         if len(set(lv)) != len(lv):
             raise DataError(problem("kappa(levels)", allowed="each category once", received=lv))
+        known = set(lv)
         for nm, vals in (("a", va), ("b", vb)):
-            unknown = sorted({repr(v) for v in vals if v not in set(lv)})
+            unknown = sorted({repr(v) for v in vals if v not in known})
             if unknown:
                 raise DataError(problem(f"kappa({nm})", allowed=f"values among levels {lv}", received=f"other values {unknown[:10]}"))
     c = len(lv)
@@ -777,7 +778,7 @@ def bland_altman(
     t_{1−α/2} the upper limit's interval is (d̄ + s·t_{α/2}/√n,
     d̄ + s·t_{1−α/2}/√n) and the lower limit's is its mirror image.
     Proportional bias is the least-squares slope of d on (a + b)/2
-    (Bland & Altman 1999, section 3).
+    (Bland & Altman 1999).
 
     References
     ----------
