@@ -157,7 +157,7 @@ def _blank_missing(frame: pd.DataFrame, missing_values: Sequence[str]) -> pd.Dat
     for column in frame.columns:
         series = frame[column]
         uniques = pd.unique(series.dropna())
-        hits = [u for u in uniques if _scalar_text(u) in codes or (isinstance(u, str) and u in codes)]
+        hits = [u for u in uniques if _scalar_text(u) in codes]
         if hits:
             if isinstance(series.dtype, pd.CategoricalDtype):
                 series = series.cat.remove_categories([h for h in hits if h in series.cat.categories])
