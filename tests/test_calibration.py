@@ -252,3 +252,36 @@ def test_bad_input_and_serialisation():
     ores = ordinal_calibration(yo, po_probs(fit_cumulative(x, yo), x))
     json.dumps(ores.to_dict(), allow_nan=False)
     assert "ordinal_hosmer_lemeshow" in set(ores.to_frame()["measure"])
+
+
+@pytest.mark.parametrize("k", [2, 3, 4])
+def test_performance_summary_equals_the_full_results(k):
+    from riskvet import metrics
+
+    x, y = ordinal_data(n=400, seed=20 + k, k=k)
+    prob = po_probs(fit_cumulative(x, y), x)
+    prob = prob * 0.9 + 0.1 / k  # shrink towards uniform so the calibration fits do real work
+    summary = metrics.performance_summary(y, prob)
+    assert tuple(summary) == metrics.summary_keys(k)
+    disc = metrics.ordinal_discrimination(y, prob)
+    cal = metrics.ordinal_calibration(y, prob)
+    acc = metrics.overall_accuracy(y, prob)
+    for j in range(k - 1):
+        assert summary[f"auc_cut{j}"] == disc.cuts[j].estimate
+        assert summary[f"calibration_intercept_cut{j}"] == cal.cuts[j].calibration_in_the_large
+        assert summary[f"calibration_slope_cut{j}"] == cal.cuts[j].slope
+        assert summary[f"ici_cut{j}"] == pytest.approx(cal.cuts[j].ici, rel=1e-12)
+    assert summary["average_cut_auc"] == disc.average_cut_c
+    assert summary["ordinal_c"] == pytest.approx(disc.ordinal_c, rel=1e-12)
+    assert summary["generalised_c"] == pytest.approx(disc.generalised_c, rel=1e-12)
+    assert summary["brier"] == acc.brier.brier and summary["scaled_brier"] == acc.brier.scaled_brier
+    assert summary["nagelkerke_r2"] == acc.nagelkerke_r2
+    assert summary["n_fit_warnings"] == 0.0
+    assert all(isinstance(v, float) for v in summary.values())
+
+
+def test_performance_summary_refuses_a_missing_level():
+    from riskvet import metrics
+
+    with pytest.raises(DataError, match=r"performance_summary\(y=\).*every level"):
+        metrics.performance_summary([0, 0, 2, 2], np.full((4, 3), 1 / 3))
