@@ -947,7 +947,7 @@ def _development_sentences(r: DevelopmentSize, *, lead: bool) -> list[str]:
     return out
 
 
-def justification_text(result: DevelopmentSize | OrdinalDevelopmentSize | ValidationSize) -> str:
+def justification_text(result: DevelopmentSize | OrdinalDevelopmentSize | ValidationSize, *, levels: Sequence[str] | None = None) -> str:
     """A paragraph for a study protocol that justifies the sample size.
 
     Parameters
@@ -955,6 +955,10 @@ def justification_text(result: DevelopmentSize | OrdinalDevelopmentSize | Valida
     result : DevelopmentSize, OrdinalDevelopmentSize or ValidationSize
         The result of :func:`development_size`, :func:`ordinal_development_size`
         or :func:`validation_size`.
+    levels : sequence of str, optional
+        For an ordered outcome, the level names lowest first; the cuts are
+        then named by their levels ("observed or higher versus lower")
+        instead of numbered.
 
     Returns
     -------
@@ -965,7 +969,7 @@ def justification_text(result: DevelopmentSize | OrdinalDevelopmentSize | Valida
     Raises
     ------
     StudyError
-        Any other object.
+        Any other object, or ``levels`` of the wrong length.
     """
     if isinstance(result, DevelopmentSize):
         return " ".join(_development_sentences(result, lead=True))
@@ -978,11 +982,20 @@ def justification_text(result: DevelopmentSize | OrdinalDevelopmentSize | Valida
             f"{len(result.cuts)} cuts of the outcome (higher versus lower levels) and taking the largest; this extension is our "
             f"pragmatic choice, not a published criterion for ordered outcomes."
         ]
+        if levels is not None and len(levels) != len(result.proportions):
+            raise StudyError(problem("justification_text(levels)", allowed=f"{len(result.proportions)} level names, lowest first", received=levels))
+
+        def cut_name(j: int) -> str:
+            if levels is None:
+                return f"cut {j + 1}"
+            above = f"{levels[j + 1]}" if j + 2 == len(levels) else f"{levels[j + 1]} or higher"
+            return f"the cut {above} versus lower"
+
         for j, cut in enumerate(result.cuts):
             sentence = _development_sentences(cut, lead=False)[0]
-            parts.append(f"At cut {j + 1} (outcome proportion {cut.prevalence:.3g}, anticipated Cox–Snell R² {cut.r2_cs:.3f}, {cut.r2_source}), " + sentence[0].lower() + sentence[1:])
+            parts.append(f"At {cut_name(j)} (outcome proportion {cut.prevalence:.3g}, anticipated Cox–Snell R² {cut.r2_cs:.3f}, {cut.r2_source}), " + sentence[0].lower() + sentence[1:])
         counts = ", ".join(f"{v:.0f}" for v in result.level_counts)
-        parts.append(f"The largest requirement is {_fmt_n(result.n)} participants (cut {result.binding_cut + 1}), with about {counts} expected in the levels from lowest to highest.")
+        parts.append(f"The largest requirement is {_fmt_n(result.n)} participants ({cut_name(result.binding_cut)}), with about {counts} expected in the levels from lowest to highest.")
         return " ".join(parts)
     if isinstance(result, ValidationSize):
         r = result
