@@ -1,0 +1,1230 @@
+"""Cumulative-link models for binary and ordered outcomes, fitted by Newton-Raphson.
+
+The model for an outcome with levels ``0 < 1 < ... < K-1`` is
+
+    P(Y <= j | x) = F(theta_j - x beta - offset),   j = 0, ..., K-2,
+
+with increasing thresholds ``theta`` and a link distribution ``F`` (logit,
+probit or complementary log-log).  ``K = 2`` is ordinary binary regression
+with intercept ``-theta_0``.  A positive coefficient shifts probability to
+higher levels.  The non-proportional model has one coefficient vector per cut
+(``beta_j``), and its cumulative probabilities can cross.
+
+:func:`fit_cumulative` is the public entry; :func:`_fit_arrays` is the lean
+array-level fitter used by variable selection and resampling.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import warnings
+from typing import Any, NamedTuple
+
+import numpy as np
+import pandas as pd
+from scipy import linalg, optimize, special, stats
+
+from ._jsonable import to_jsonable
+from ._links import LINKS, link_cdf, link_parts, link_ppf
+from .errors import (
+    ConvergenceWarning,
+    CrossingWarning,
+    DataError,
+    FitError,
+    SeparationWarning,
+    problem,
+)
+
+__all__ = ["fit_cumulative", "CumulativeFit", "LRTest"]
+
+# Newton-Raphson stops when the Newton decrement g' H^{-1} g (twice the
+# predicted log-likelihood gain of the next step) falls below this; a last
+# full step then leaves a decrement of order tol**2.
+DEFAULT_TOL = 1e-8
+DEFAULT_MAX_ITER = 100
+# A Cholesky pivot of the unit-diagonal information below this (squared) means
+# one parameter is, to 12 digits, a combination of the others.
+_PIVOT_FLOOR = 1e-12
+# Eigenvalue floor of the correlation matrix of the columns of X.
+_COLLINEAR_FLOOR = 1e-9
+# An observed-level probability this close to one hints at separation.
+_SEPARATION_HINT = 1e-6
+_MAX_HALVINGS = 50
+
+
+# --------------------------------------------------------------------------
+# Array-level machinery
+# --------------------------------------------------------------------------
+
+
+class _Design(NamedTuple):
+    """Precomputed arrays of one fit.
+
+    Rows with positive weight only, sorted by outcome level (stable), so that
+    the rows with an upper threshold (levels 0..K-2) are the first ``n_a``
+    and the rows with a lower threshold (levels 1..K-1) are those from
+    ``s1 = starts[1]`` on; ``order`` maps sorted rows back to input rows.
+    """
+
+    X: np.ndarray  # n x p, float64, sorted rows
+    XT: np.ndarray  # p x n, C-contiguous copy of X.T
+    y: np.ndarray  # n, int64 levels, sorted
+    K: int
+    starts: np.ndarray  # K + 1 row offsets of the levels
+    w: np.ndarray  # n positive weights
+    unit: bool  # all weights equal to one
+    off: np.ndarray | None  # n offsets or None
+    order: np.ndarray | None  # sorted row i is input row order[i]; None if already sorted
+    link: str
+    proportional: bool
+    A: np.ndarray | None  # non-proportional: a = A phi - offset (rows of the top level unused)
+    B: np.ndarray | None  # non-proportional: b = B phi - offset (rows of the bottom level unused)
+
+    @property
+    def n_params(self) -> int:
+        p = self.X.shape[1]
+        m = self.K - 1
+        return m + p if self.proportional else m + p * m
+
+    @property
+    def n_a(self) -> int:
+        return int(self.starts[self.K - 1])
+
+    @property
+    def s1(self) -> int:
+        return int(self.starts[1])
+
+    def cut_indices(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Upper and lower threshold index of every row (clipped) and their masks."""
+        m = self.K - 1
+        return np.minimum(self.y, m - 1), np.maximum(self.y - 1, 0), self.y < m, self.y > 0
+
+
+class _RawFit(NamedTuple):
+    """What :func:`_fit_arrays` returns: natural-scale parameters and state."""
+
+    params: np.ndarray  # thresholds, then coefficients (per column; per cut within a column)
+    loglik: float
+    cov: np.ndarray | None  # inverse observed information (natural scale), if asked for
+    converged: bool
+    iterations: int
+    singular: bool  # information could not be factorised at the last iterate
+    suspect_separation: bool  # worth running the separation check
+    pieces: tuple  # per-row derivative pieces at the returned parameters (sorted rows)
+    design: _Design
+
+
+def _ab_matrices(X: np.ndarray, iu: np.ndarray, il: np.ndarray, m: int, proportional: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Matrices with ``a = A phi`` and ``b = B phi`` (before the offset).
+
+    Parameters are the ``m`` thresholds then, for each column of ``X``, one
+    coefficient (proportional) or ``m`` coefficients, one per cut.
+    """
+    n, p = X.shape
+    Zu = np.zeros((n, m))
+    Zu[np.arange(n), iu] = 1.0
+    Zl = np.zeros((n, m))
+    Zl[np.arange(n), il] = 1.0
+    if proportional:
+        return np.hstack([Zu, -X]), np.hstack([Zl, -X])
+    Au = -(X[:, :, None] * Zu[:, None, :]).reshape(n, p * m)
+    Bl = -(X[:, :, None] * Zl[:, None, :]).reshape(n, p * m)
+    return np.hstack([Zu, Au]), np.hstack([Zl, Bl])
+
+
+def _make_design(X, y, K, w, off, link, proportional, unit=False) -> _Design:
+    if y.shape[0] > 1 and np.any(y[1:] < y[:-1]):
+        order = np.argsort(y, kind="stable")
+        X = X[order]
+        y = y[order]
+        w = w[order]
+        off = None if off is None else off[order]
+    else:
+        order = None
+    X = np.ascontiguousarray(X, dtype=float)
+    starts = np.zeros(K + 1, dtype=np.int64)
+    starts[1:] = np.cumsum(np.bincount(y, minlength=K)[:K])
+    A = B = None
+    if not proportional:
+        m = K - 1
+        A, B = _ab_matrices(X, np.minimum(y, m - 1), np.maximum(y - 1, 0), m, False)
+    return _Design(X, np.ascontiguousarray(X.T), y, K, starts, w, unit, off, order, link, proportional, A, B)
+
+
+def _logit_parts(t: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    # Clipping at +-700 keeps exp finite; F(-700) is 1e-304, so no value moves.
+    e = np.exp(-np.clip(t, -700.0, 700.0))
+    F = 1.0 / (1.0 + e)
+    S = e * F
+    f = F * S
+    return F, S, f, f * (S - F)
+
+
+def _parts(link: str, t: np.ndarray):
+    return _logit_parts(t) if link == "logit" else link_parts(link, t)
+
+
+def _eta(d: _Design, beta: np.ndarray):
+    if d.X.shape[1]:
+        eta = d.X @ beta
+        return eta if d.off is None else eta + d.off
+    return np.zeros(d.y.shape[0]) if d.off is None else d.off
+
+
+def _cut_arguments(d: _Design, phi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``a`` for the rows with an upper threshold, ``b`` for those with a lower one."""
+    m = d.K - 1
+    n_a, s1 = d.n_a, d.s1
+    if d.proportional:
+        counts = np.diff(d.starts)
+        eta = _eta(d, phi[m:])
+        theta = phi[:m]
+        a = np.repeat(theta, counts[:m]) - eta[:n_a]
+        b = np.repeat(theta, counts[1:]) - eta[s1:]
+        return a, b
+    a = d.A[:n_a] @ phi
+    b = d.B[s1:] @ phi
+    if d.off is not None:
+        a = a - d.off[:n_a]
+        b = b - d.off[s1:]
+    return a, b
+
+
+def _evaluate(d: _Design, phi: np.ndarray) -> tuple[float, tuple]:
+    """Log-likelihood and per-row derivative pieces at ``phi``.
+
+    Notes
+    -----
+    For a row in level k, ``P = F(a) - F(b)`` with ``a = theta_k - eta`` and
+    ``b = theta_{k-1} - eta`` (``F(a) = 1`` at the top level, ``F(b) = 0`` at
+    the bottom).  With ``r_a = f(a)/P`` and ``r_b = f(b)/P`` the pieces are
+    ``dl/da = r_a``, ``dl/db = -r_b``, ``d2l/da2 = f'(a)/P - r_a^2``,
+    ``d2l/db2 = -f'(b)/P - r_b^2`` and ``d2l/da db = r_a r_b``, each times
+    the row weight.  ``P`` is taken as ``S(b) - S(a)`` when ``b > 0`` so that
+    small probabilities in the upper tail keep their precision.
+
+    The pieces are full-length arrays over the sorted rows: ``l_a`` and
+    ``l_aa`` are zero on the top level, ``l_b`` and ``l_bb`` on the bottom
+    level, ``l_ab`` outside the middle levels.
+    """
+    n = d.y.shape[0]
+    n_a, s1 = d.n_a, d.s1
+    n_mid = n_a - s1
+    a, b = _cut_arguments(d, phi)
+    Fa, Sa, fa, dfa = _parts(d.link, a)
+    Fb, Sb, fb, dfb = _parts(d.link, b)
+    P = np.empty(n)
+    P[:s1] = Fa[:s1]
+    if n_mid > 0:
+        P[s1:n_a] = np.where(b[:n_mid] > 0.0, Sb[:n_mid] - Sa[s1:], Fa[s1:] - Fb[:n_mid])
+    P[n_a:] = Sb[n_mid:]
+    Pa = P[:n_a]
+    Pb = P[s1:]
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        logP = np.log(P)
+        ll = float(logP.sum()) if d.unit else float(d.w @ logP)
+        ra = fa / Pa
+        rb = fb / Pb
+        la = ra
+        laa = dfa / Pa - ra * ra
+        lb = -rb
+        lbb = -dfb / Pb - rb * rb
+        lab = ra[s1:] * rb[:n_mid]
+    if not d.unit:
+        la = la * d.w[:n_a]
+        laa = laa * d.w[:n_a]
+        lb = lb * d.w[s1:]
+        lbb = lbb * d.w[s1:]
+        lab = lab * d.w[s1:n_a]
+    ga = np.zeros(n)
+    ga[:n_a] = la
+    gb = np.zeros(n)
+    gb[s1:] = lb
+    haa = np.zeros(n)
+    haa[:n_a] = laa
+    hbb = np.zeros(n)
+    hbb[s1:] = lbb
+    hab = np.zeros(n)
+    hab[s1:n_a] = lab
+    return ll, (ga, gb, haa, hbb, hab, P)
+
+
+def _loglik_only(d: _Design, phi: np.ndarray) -> float:
+    return _evaluate(d, phi)[0]
+
+
+def _row_logprob(d: _Design, phi: np.ndarray) -> np.ndarray:
+    """log P(observed level) of every (sorted) row, unweighted."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.log(_evaluate(d, phi)[1][5])
+
+
+def _grad_hess(d: _Design, pieces: tuple, X: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Gradient and Hessian of the log-likelihood from the per-row pieces.
+
+    ``X`` (same sorted rows as the design) replaces the design's columns; the
+    selection score test uses it to differentiate with respect to columns not
+    in the model, at coefficients zero.
+
+    Notes
+    -----
+    Proportional model, ``m = K - 1`` thresholds, sums over rows in level k:
+    ``dl/dtheta_j = sum_{k=j} l_a + sum_{k=j+1} l_b``,
+    ``dl/dbeta = -X'(l_a + l_b)``,
+    ``d2l/dbeta2 = X' diag(l_aa + 2 l_ab + l_bb) X``,
+    ``d2l/dtheta_j dbeta = -sum_{k=j} (l_aa + l_ab) x - sum_{k=j+1} (l_bb + l_ab) x``,
+    ``d2l/dtheta_j^2 = sum_{k=j} l_aa + sum_{k=j+1} l_bb`` and
+    ``d2l/dtheta_j dtheta_{j+1} = sum_{k=j+1} l_ab``.
+    Non-proportional model: with ``a = A phi``, ``b = B phi``, gradient
+    ``A' l_a + B' l_b`` and Hessian ``A'(L_aa A + L_ab B) + B'(L_bb B + L_ab A)``.
+    """
+    ga, gb, haa, hbb, hab, _ = pieces
+    K = d.K
+    m = K - 1
+    if not d.proportional:
+        if X is None:
+            A, B = d.A, d.B
+        else:
+            iu, il, _, _ = d.cut_indices()
+            A, B = _ab_matrices(X, iu, il, m, False)
+        g = A.T @ ga + B.T @ gb
+        H = A.T @ (A * haa[:, None] + B * hab[:, None]) + B.T @ (B * hbb[:, None] + A * hab[:, None])
+        return g, H
+    if X is None:
+        X, XT = d.X, d.XT
+    else:
+        XT = np.ascontiguousarray(X.T)
+    p = X.shape[1]
+    st = d.starts
+    q = m + p
+    g = np.empty(q)
+    H = np.zeros((q, q))
+    # Levels are never empty, so each reduceat group is a level's rows; the
+    # last group runs to the end, over rows where that piece is zero.
+    g[:m] = np.add.reduceat(ga, st[:m]) + np.add.reduceat(gb, st[1:K])
+    idx = np.arange(m)
+    H[idx, idx] = np.add.reduceat(haa, st[:m]) + np.add.reduceat(hbb, st[1:K])
+    if m > 1:
+        off = np.add.reduceat(hab, st[1:m])
+        H[idx[:-1], idx[1:]] = off
+        H[idx[1:], idx[:-1]] = off
+    if p:
+        u = haa + hab
+        v = hbb + hab
+        g[m:] = -(XT @ (ga + gb))
+        C = np.zeros((m, ga.shape[0]))
+        for j in range(m):
+            C[j, st[j]:st[j + 1]] = u[st[j]:st[j + 1]]
+            C[j, st[j + 1]:st[j + 2]] = v[st[j + 1]:st[j + 2]]
+        Htb = -(C @ X)
+        H[:m, m:] = Htb
+        H[m:, :m] = Htb.T
+        H[m:, m:] = (XT * (u + v)) @ X
+    return g, H
+
+
+def _chol_scaled(info: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+    """Cholesky factor of the unit-diagonal information, or None if singular."""
+    dsc = np.sqrt(np.diag(info))
+    if not np.all(np.isfinite(info)) or not np.all(dsc > 0.0):
+        return None
+    Is = info / dsc[:, None] / dsc[None, :]
+    try:
+        L = np.linalg.cholesky(Is)
+    except np.linalg.LinAlgError:
+        return None
+    if np.min(np.diag(L)) ** 2 < _PIVOT_FLOOR:
+        return None
+    return L, dsc
+
+
+def _chol_solve(fac: tuple[np.ndarray, np.ndarray], rhs: np.ndarray) -> np.ndarray:
+    L, dsc = fac
+    if rhs.ndim == 1:
+        return linalg.cho_solve((L, True), rhs / dsc, check_finite=False) / dsc
+    return linalg.cho_solve((L, True), rhs / dsc[:, None], check_finite=False) / dsc[:, None]
+
+
+def _ordered(d: _Design, phi: np.ndarray) -> bool:
+    m = d.K - 1
+    return m == 1 or bool(np.all(np.diff(phi[:m]) > 0.0))
+
+
+def _default_start(d: _Design) -> np.ndarray:
+    m = d.K - 1
+    counts = np.bincount(d.y, weights=d.w, minlength=d.K)
+    cum = np.cumsum(counts)[:m] / counts.sum()
+    theta = link_ppf(d.link, np.clip(cum, 1e-10, 1 - 1e-10))
+    if d.off is not None:
+        theta = theta + float(d.w @ d.off) / float(d.w.sum())
+    phi = np.zeros(d.n_params)
+    phi[:m] = theta
+    return phi
+
+
+def _collinear_columns(X: np.ndarray, w: np.ndarray) -> tuple[list[int], list[int]]:
+    """Columns that are constant, and columns involved in a linear dependence.
+
+    The constant is part of every model (the thresholds), so a column that is
+    constant, or a set of columns whose weighted centred values are linearly
+    dependent, leaves the information matrix singular.
+    """
+    W = float(w.sum())
+    mu = (w @ X) / W
+    Xc = X - mu
+    sd = np.sqrt((w @ (Xc * Xc)) / W)
+    const = [j for j in range(X.shape[1]) if sd[j] <= 1e-10 * max(1.0, abs(mu[j]))]
+    rest = [j for j in range(X.shape[1]) if j not in const]
+    involved: list[int] = []
+    if len(rest) > 1:
+        Z = Xc[:, rest] / sd[rest]
+        C = Z.T @ (Z * (w / W)[:, None])
+        lam, V = np.linalg.eigh(C)
+        null = lam < _COLLINEAR_FLOOR
+        if np.any(null):
+            load = np.sqrt(np.sum(V[:, null] ** 2, axis=1))
+            involved = [rest[i] for i in np.flatnonzero(load > 0.1)]
+    return const, involved
+
+
+def _raise_if_collinear(X: np.ndarray, w: np.ndarray, names) -> None:
+    if X.shape[1] == 0:
+        return
+    const, involved = _collinear_columns(X, w)
+    names = _column_names(names, X.shape[1])
+    if const:
+        raise FitError(
+            problem(
+                "X",
+                allowed="columns that vary (a constant column duplicates the thresholds)",
+                received=f"constant column(s) {[names[j] for j in const]}",
+            )
+        )
+    if involved:
+        raise FitError(
+            problem(
+                "X",
+                allowed="columns that are not linear combinations of each other and the constant",
+                received=f"collinear columns {[names[j] for j in involved]}; drop one of them",
+            )
+        )
+
+
+def _column_names(names, p: int) -> list[str]:
+    return list(names) if names is not None else [f"x{j + 1}" for j in range(p)]
+
+
+def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, names, need_cov: bool) -> tuple:
+    ll, pc = _evaluate(d, phi)
+    iterations = 0
+    converged = False
+    singular = False
+    fac = None
+    fac_at_phi = False  # whether fac is the factor of the information at phi
+    while True:
+        g, H = _grad_hess(d, pc)
+        fac = _chol_scaled(-H)
+        if fac is None:
+            _raise_if_collinear(d.X, d.w, names)
+            singular = True
+            break
+        fac_at_phi = True
+        step = _chol_solve(fac, g)
+        dec = float(g @ step)
+        if dec <= tol:
+            # One last full step: Newton's quadratic convergence takes the
+            # decrement from below tol to the order of tol squared.
+            trial = phi + step
+            if _ordered(d, trial):
+                ll_t, pc_t = _evaluate(d, trial)
+                if np.isfinite(ll_t) and ll_t >= ll - 1e-12 * (1.0 + abs(ll)):
+                    phi, ll, pc = trial, ll_t, pc_t
+                    iterations += 1
+                    fac_at_phi = False
+            converged = True
+            break
+        if iterations >= max_iter:
+            break
+        t = 1.0
+        accepted = False
+        for _ in range(_MAX_HALVINGS):
+            trial = phi + t * step
+            if _ordered(d, trial):
+                ll_t, pc_t = _evaluate(d, trial)
+                if np.isfinite(ll_t) and ll_t >= ll:
+                    accepted = True
+                    break
+            t *= 0.5
+        if not accepted:
+            # No ascent possible in floating point: converged only if close.
+            converged = dec <= math.sqrt(tol)
+            break
+        phi, ll, pc = trial, ll_t, pc_t
+        iterations += 1
+    cov = None
+    if need_cov:
+        if fac is not None and not fac_at_phi:
+            fac = _chol_scaled(-_grad_hess(d, pc)[1])
+        if fac is not None:
+            cov = _chol_solve(fac, np.eye(phi.shape[0]))
+        else:
+            info = -_grad_hess(d, pc)[1]
+            cov = np.linalg.pinv(info) if np.all(np.isfinite(info)) else np.full(info.shape, np.nan)
+    return phi, ll, pc, cov, converged, iterations, singular
+
+
+def _check_levels(y: np.ndarray, K: int, w: np.ndarray, level_names) -> None:
+    counts = np.bincount(y, weights=w, minlength=K)[:K]
+    empty = np.flatnonzero(counts <= 0)
+    if empty.size:
+        labels = list(level_names) if level_names is not None else [str(j) for j in range(K)]
+        tally = {labels[j]: float(counts[j]) for j in range(K)}
+        raise FitError(
+            problem(
+                "y",
+                allowed=f"every one of the {K} outcome levels observed (with positive weight)",
+                received=f"empty level(s) {[labels[j] for j in empty]}; weighted counts by level {tally}",
+            )
+        )
+
+
+def _fit_arrays(
+    X: np.ndarray,
+    y: np.ndarray,
+    K: int,
+    *,
+    proportional: bool = True,
+    link: str = "logit",
+    offset: np.ndarray | None = None,
+    weights: np.ndarray | None = None,
+    start: np.ndarray | None = None,
+    max_iter: int = DEFAULT_MAX_ITER,
+    tol: float = DEFAULT_TOL,
+    names=None,
+    level_names=None,
+    need_cov: bool = True,
+) -> _RawFit:
+    """Fit a cumulative model on validated arrays; never warns.
+
+    ``X`` is a float (n, p) array, ``y`` int64 levels in ``0..K-1``.  Rows
+    with zero weight are dropped.  Raises :class:`FitError` for an empty
+    level or collinear columns; everything else is reported on the returned
+    :class:`_RawFit`.  ``start`` is a natural-scale parameter vector; if it
+    is unusable (thresholds out of order, zero probability for some row) the
+    default start is used instead, which changes only the iteration count
+    since the log-likelihood is concave.
+    """
+    unit = weights is None
+    w = np.ones(y.shape[0]) if unit else np.asarray(weights, dtype=float)
+    _check_levels(y, K, w, level_names)
+    if not unit and np.any(w <= 0):
+        keep = w > 0
+        X, y, w = X[keep], y[keep], w[keep]
+        offset = None if offset is None else offset[keep]
+    d = _make_design(X, y, K, w, offset, link, proportional, unit)
+    phi = None
+    if start is not None:
+        start = np.asarray(start, dtype=float)
+        if start.shape == (d.n_params,) and np.all(np.isfinite(start)) and _ordered(d, start):
+            if np.isfinite(_loglik_only(d, start)):
+                phi = start.copy()
+    if phi is None:
+        phi = _default_start(d)
+    phi, ll, pc, cov, converged, iterations, singular = _newton(d, phi, max_iter, tol, names, need_cov)
+    P = pc[5]
+    suspect = (not converged) or singular or bool(np.max(P) > 1.0 - _SEPARATION_HINT)
+    return _RawFit(phi, ll, cov, converged, iterations, singular, suspect, pc, d)
+
+
+def _separated_columns(d: _Design) -> tuple[int, ...]:
+    """Columns of a direction along which the likelihood rises without bound.
+
+    Notes
+    -----
+    The maximum-likelihood estimate is infinite exactly when a non-zero
+    direction ``delta`` exists with ``A_i delta >= 0`` for every row below the
+    top level and ``B_i delta <= 0`` for every row above the bottom level (no
+    row's probability falls along it), with at least one strict inequality
+    (Albert & Anderson, 1984, for the binary case).  As in Konis (2007) this
+    is decided by a linear programme; here it asks for the direction with
+    the smallest L1 norm of its coefficient part (columns standardised)
+    among those whose summed slack ``sum A_i delta - sum B_i delta`` is at
+    least 1.  The programme is infeasible when there is no separation; its
+    sparse solution names the fewest columns responsible.  With every level
+    observed, a direction moving only the thresholds has zero slack, so a
+    feasible direction always involves some column.
+
+    References
+    ----------
+    Albert, A., & Anderson, J. A. (1984). On the existence of maximum
+    likelihood estimates in logistic regression models. Biometrika, 71(1), 1-10.
+
+    Konis, K. (2007). Linear programming algorithms for detecting separated
+    data in binary logistic regression models. DPhil thesis, University of Oxford.
+    """
+    X = d.X
+    p = X.shape[1]
+    if p == 0:
+        return ()
+    m = d.K - 1
+    sd = X.std(axis=0)
+    sd[sd <= 0] = 1.0
+    iu, il, up, lo = d.cut_indices()
+    A, B = _ab_matrices(X / sd, iu, il, m, d.proportional)
+    G = np.vstack([-A[up], B[lo]])  # G delta <= 0 row by row
+    slack = G.sum(axis=0)  # -(summed slack) as a function of delta
+    nb = A.shape[1] - m
+    # delta = (theta part, beta_plus - beta_minus); variables theta, beta_plus, beta_minus.
+    G3 = np.hstack([G[:, :m], G[:, m:], -G[:, m:]])
+    s3 = np.r_[slack[:m], slack[m:], -slack[m:]]
+    c = np.r_[np.zeros(m), np.ones(2 * nb)]
+    res = optimize.linprog(
+        c,
+        A_ub=np.vstack([G3, s3[None, :]]),
+        b_ub=np.r_[np.zeros(G3.shape[0]), -1.0],
+        bounds=[(None, None)] * m + [(0.0, None)] * (2 * nb),
+        method="highs",
+    )
+    if res.status != 0:
+        return ()
+    delta = res.x[m : m + nb] - res.x[m + nb :]
+    scale = np.abs(delta).max()
+    if d.proportional:
+        mag = np.abs(delta)
+    else:
+        mag = np.abs(delta.reshape(p, m)).max(axis=1)
+    return tuple(int(j) for j in np.flatnonzero(mag > 1e-6 * scale))
+
+
+def _null_loglik(y: np.ndarray, K: int, w: np.ndarray) -> float:
+    counts = np.bincount(y, weights=w, minlength=K)
+    counts = counts[counts > 0]
+    return float(counts @ np.log(counts / counts.sum()))
+
+
+# --------------------------------------------------------------------------
+# Results
+# --------------------------------------------------------------------------
+
+
+@dataclasses.dataclass(frozen=True)
+class LRTest:
+    """A likelihood-ratio test.
+
+    Attributes
+    ----------
+    statistic : float
+        ``2 (loglik_full - loglik_reduced)``.
+    df : int
+        Number of parameters the reduced model drops.
+    p : float
+        Upper tail of the chi-squared distribution with ``df`` degrees of
+        freedom at ``statistic`` (NaN when ``df`` is 0).
+    """
+
+    statistic: float
+    df: int
+    p: float
+
+    def to_dict(self) -> dict:
+        return to_jsonable({"statistic": self.statistic, "df": self.df, "p": self.p})
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame([{"statistic": self.statistic, "df": self.df, "p": self.p}])
+
+
+def _lr(ll_full: float, ll_reduced: float, df: int) -> LRTest:
+    stat = max(0.0, 2.0 * (ll_full - ll_reduced))
+    p = float(special.chdtrc(df, stat)) if df > 0 else math.nan
+    return LRTest(float(stat), int(df), p)
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class CumulativeFit:
+    """A fitted cumulative-link model.
+
+    Attributes
+    ----------
+    link : str
+        ``"logit"``, ``"probit"`` or ``"cloglog"``.
+    proportional : bool
+        One coefficient vector for all cuts (True) or one per cut (False).
+    levels : tuple of str
+        Outcome level labels, lowest first.
+    columns : tuple of str
+        Names of the columns of the model matrix.
+    thresholds : pandas.Series
+        ``theta_j`` on their own scale, indexed ``"y<=level"``.
+    coef : pandas.Series or pandas.DataFrame
+        ``beta`` by column; for the non-proportional model a frame with one
+        column per cut.
+    params : pandas.Series
+        All parameters, thresholds first (the order of ``cov``).
+    cov : pandas.DataFrame
+        Inverse observed information of all parameters, natural scale.
+    se : pandas.Series
+        Standard errors, ``sqrt(diag(cov))``.
+    loglik, loglik_null : float
+        Log-likelihood of the model and of the thresholds-only model (same
+        offset and weights).
+    n : float
+        Sum of the weights (number of rows without weights).
+    n_rows : int
+        Number of rows with positive weight.
+    aic, bic : float
+        ``-2 loglik + 2 k`` and ``-2 loglik + k log(n)``, ``k`` parameters.
+    lr_test : LRTest
+        Against the thresholds-only model.
+    converged : bool
+        Newton decrement below ``tol`` within ``max_iter`` iterations.
+    iterations : int
+        Newton steps taken.
+    n_crossing : int
+        Rows of the fitting data whose cumulative probabilities are not
+        increasing across cuts (always 0 for the proportional model).
+    separation : tuple of str
+        Columns named by the separation check (empty if none found).
+    warnings : tuple of str
+        Trouble met during the fit, one message each.
+    has_offset : bool
+        Whether an offset was used.
+    max_iter : int
+        Iteration limit used.
+    tol : float
+        Convergence tolerance used on the Newton decrement.
+    """
+
+    link: str
+    proportional: bool
+    levels: tuple
+    columns: tuple
+    thresholds: pd.Series
+    coef: Any
+    params: pd.Series
+    cov: pd.DataFrame
+    se: pd.Series
+    loglik: float
+    loglik_null: float
+    n: float
+    n_rows: int
+    aic: float
+    bic: float
+    lr_test: LRTest
+    converged: bool
+    iterations: int
+    n_crossing: int
+    separation: tuple
+    warnings: tuple
+    has_offset: bool
+    max_iter: int
+    tol: float
+
+    @property
+    def n_levels(self) -> int:
+        """Number of outcome levels K."""
+        return len(self.levels)
+
+    @property
+    def n_params(self) -> int:
+        """Number of estimated parameters."""
+        return int(self.params.shape[0])
+
+    # ---- prediction ------------------------------------------------------
+
+    def _matrix(self, X) -> np.ndarray:
+        p = len(self.columns)
+        if X is None:
+            raise DataError(problem("X", allowed=f"a model matrix with columns {list(self.columns)}", received=None))
+        if isinstance(X, pd.DataFrame):
+            cols = [str(c) for c in X.columns]
+            missing = [c for c in self.columns if c not in cols]
+            if missing:
+                raise DataError(
+                    problem("X", allowed=f"a frame with the model's columns {list(self.columns)}", received=f"missing {missing}")
+                )
+            Xr = X.copy()
+            Xr.columns = cols
+            arr = Xr[list(self.columns)].to_numpy(dtype=float)
+        else:
+            arr = np.asarray(X, dtype=float)
+            if arr.ndim != 2 or arr.shape[1] != p:
+                raise DataError(problem("X", allowed=f"a 2-D array with {p} columns", received=f"shape {arr.shape}"))
+        if not np.all(np.isfinite(arr)):
+            raise DataError(problem("X", allowed="finite values", received="missing or infinite values"))
+        return arr
+
+    def linear_predictor(self, X, offset=None) -> np.ndarray:
+        """Return ``x beta (+ offset)``: shape (n,), or (n, K-1) if non-proportional."""
+        arr = self._matrix(X)
+        beta = self.coef.to_numpy(dtype=float)
+        lp = arr @ beta
+        if offset is not None:
+            off = _as_vector(offset, "offset", arr.shape[0])
+            lp = lp + (off if lp.ndim == 1 else off[:, None])
+        return lp
+
+    def cumulative_proba(self, X, offset=None) -> np.ndarray:
+        """Return ``P(Y <= j | x)`` for j = 0..K-2, shape (n, K-1)."""
+        lp = self.linear_predictor(X, offset)
+        theta = self.thresholds.to_numpy(dtype=float)
+        arg = theta[None, :] - (lp[:, None] if lp.ndim == 1 else lp)
+        return link_cdf(self.link, arg)
+
+    def predict_proba(self, X, offset=None) -> np.ndarray:
+        """Return the probability of each level, shape (n, K); rows sum to 1.
+
+        For the non-proportional model, rows whose cumulative probabilities
+        cross get negative entries; these are returned as computed, with a
+        :class:`~riskvet.errors.CrossingWarning` giving their number.
+        """
+        cum = self.cumulative_proba(X, offset)
+        n = cum.shape[0]
+        full = np.hstack([np.zeros((n, 1)), cum, np.ones((n, 1))])
+        prob = np.diff(full, axis=1)
+        if not self.proportional:
+            bad = int(np.sum(np.any(prob < 0, axis=1)))
+            if bad:
+                warnings.warn(
+                    f"predict_proba: cumulative probabilities cross in {bad} of {n} rows; "
+                    "those rows have negative level probabilities",
+                    CrossingWarning,
+                    stacklevel=2,
+                )
+        return prob
+
+    # ---- tables ----------------------------------------------------------
+
+    def confint(self, confidence: float = 0.95) -> pd.DataFrame:
+        """Wald intervals ``estimate -/+ z se`` for all parameters."""
+        z = _z_value(confidence)
+        est = self.params
+        return pd.DataFrame({"lower": est - z * self.se, "upper": est + z * self.se}, index=est.index)
+
+    def to_frame(self, confidence: float = 0.95) -> pd.DataFrame:
+        """Tidy parameter table.
+
+        Columns: term, kind ("threshold" or "coefficient"), cut (the cut of a
+        per-cut coefficient, else empty), estimate, se, lower, upper (Wald,
+        ``confidence``), z, p; for the logit link also odds_ratio,
+        odds_ratio_lower, odds_ratio_upper (coefficients only: the odds ratio
+        of a higher level per unit of the column).
+        """
+        z = _z_value(confidence)
+        m = self.n_levels - 1
+        est = self.params.to_numpy(dtype=float)
+        se = self.se.to_numpy(dtype=float)
+        terms, kinds, cuts = [], [], []
+        for name in self.thresholds.index:
+            terms.append(name)
+            kinds.append("threshold")
+            cuts.append("")
+        if self.proportional:
+            for c in self.columns:
+                terms.append(c)
+                kinds.append("coefficient")
+                cuts.append("")
+        else:
+            for c in self.columns:
+                for j in range(m):
+                    terms.append(c)
+                    kinds.append("coefficient")
+                    cuts.append(self.thresholds.index[j])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            zval = est / se
+        frame = pd.DataFrame(
+            {
+                "term": terms,
+                "kind": kinds,
+                "cut": cuts,
+                "estimate": est,
+                "se": se,
+                "lower": est - z * se,
+                "upper": est + z * se,
+                "z": zval,
+                "p": 2.0 * stats.norm.sf(np.abs(zval)),
+            }
+        )
+        if self.link == "logit":
+            coef_rows = frame["kind"].to_numpy() == "coefficient"
+            for col, src in (("odds_ratio", "estimate"), ("odds_ratio_lower", "lower"), ("odds_ratio_upper", "upper")):
+                frame[col] = np.where(coef_rows, np.exp(frame[src].to_numpy(dtype=float)), np.nan)
+        return frame
+
+    def to_dict(self) -> dict:
+        """JSON-ready summary: settings, fit statistics, parameter table, covariance."""
+        return to_jsonable(
+            {
+                "link": self.link,
+                "proportional": self.proportional,
+                "levels": list(self.levels),
+                "columns": list(self.columns),
+                "n": self.n,
+                "n_rows": self.n_rows,
+                "loglik": self.loglik,
+                "loglik_null": self.loglik_null,
+                "aic": self.aic,
+                "bic": self.bic,
+                "lr_test": self.lr_test.to_dict(),
+                "converged": self.converged,
+                "iterations": self.iterations,
+                "n_crossing": self.n_crossing,
+                "separation": list(self.separation),
+                "warnings": list(self.warnings),
+                "has_offset": self.has_offset,
+                "max_iter": self.max_iter,
+                "tol": self.tol,
+                "parameters": self.to_frame(),
+                "cov": {"names": list(self.cov.index), "matrix": self.cov.to_numpy().tolist()},
+            }
+        )
+
+
+def _z_value(confidence: float) -> float:
+    if not isinstance(confidence, (int, float)) or not 0.0 < float(confidence) < 1.0:
+        raise FitError(problem("confidence", allowed="a number strictly between 0 and 1", received=confidence))
+    return float(stats.norm.ppf(0.5 + float(confidence) / 2.0))
+
+
+# --------------------------------------------------------------------------
+# Input handling
+# --------------------------------------------------------------------------
+
+
+def _as_vector(v, name: str, n: int) -> np.ndarray:
+    try:
+        arr = np.asarray(v.to_numpy(dtype=float) if isinstance(v, pd.Series) else v, dtype=float)
+    except (TypeError, ValueError):
+        raise FitError(problem(name, allowed="numbers", received=type(v).__name__)) from None
+    if arr.ndim != 1 or arr.shape[0] != n:
+        raise FitError(problem(name, allowed=f"a 1-D array of length {n}", received=f"shape {arr.shape}"))
+    if not np.all(np.isfinite(arr)):
+        raise FitError(problem(name, allowed="finite values", received=f"{int(np.sum(~np.isfinite(arr)))} missing or infinite"))
+    return arr
+
+
+def _as_matrix(X, n: int) -> tuple[np.ndarray, tuple[str, ...]]:
+    if X is None:
+        return np.zeros((n, 0)), ()
+    if isinstance(X, pd.Series):
+        X = X.to_frame()
+    if isinstance(X, pd.DataFrame):
+        names = tuple(str(c) for c in X.columns)
+        dup = sorted({c for c in names if names.count(c) > 1})
+        if dup:
+            raise FitError(problem("X", allowed="distinct column names", received=f"repeated {dup}"))
+        bad = [str(c) for c in X.columns if not (pd.api.types.is_numeric_dtype(X[c]) or pd.api.types.is_bool_dtype(X[c]))]
+        if bad:
+            raise FitError(problem("X", allowed="numeric columns (encode categories as indicator columns first)", received=f"non-numeric {bad}"))
+        try:
+            arr = X.to_numpy(dtype=float, na_value=np.nan)
+        except (TypeError, ValueError) as exc:
+            raise FitError(problem("X", allowed="numeric columns", received=str(exc))) from None
+    else:
+        try:
+            arr = np.asarray(X, dtype=float)
+        except (TypeError, ValueError):
+            raise FitError(problem("X", allowed="a numeric 2-D array or DataFrame", received=type(X).__name__)) from None
+        if arr.ndim != 2:
+            raise FitError(problem("X", allowed="a 2-D array (n rows, p columns)", received=f"shape {arr.shape}"))
+        names = tuple(f"x{j + 1}" for j in range(arr.shape[1]))
+    if arr.shape[0] != n:
+        raise FitError(problem("X", allowed=f"{n} rows, one per value of y", received=f"{arr.shape[0]} rows"))
+    finite = np.isfinite(arr)
+    if not finite.all():
+        cols = [names[j] for j in np.flatnonzero(~finite.all(axis=0))]
+        raise FitError(problem("X", allowed="finite values (handle missing data before fitting)", received=f"missing or infinite values in {cols}"))
+    return np.ascontiguousarray(arr), names
+
+
+def _as_outcome(y, n_levels) -> tuple[np.ndarray, int, tuple[str, ...]]:
+    if isinstance(y, pd.Series) and isinstance(y.dtype, pd.CategoricalDtype):
+        y = y.array
+    if isinstance(y, pd.Categorical):
+        codes = np.asarray(y.codes, dtype=np.int64)
+        if np.any(codes < 0):
+            raise FitError(problem("y", allowed="no missing values", received=f"{int(np.sum(codes < 0))} missing"))
+        labels = tuple(str(c) for c in y.categories)
+        K = len(labels)
+        if n_levels is not None and n_levels != K:
+            raise FitError(problem("n_levels", allowed=f"the number of categories of y ({K})", received=n_levels))
+    else:
+        try:
+            arr = np.asarray(y.to_numpy() if isinstance(y, pd.Series) else y)
+            arr = arr.astype(float) if arr.dtype.kind in "biuf" else None
+        except (TypeError, ValueError):
+            arr = None
+        if arr is None:
+            raise FitError(problem("y", allowed="integer levels 0..K-1 or an ordered Categorical", received=f"values of type {np.asarray(y).dtype}"))
+        if arr.ndim != 1:
+            raise FitError(problem("y", allowed="a 1-D array", received=f"shape {arr.shape}"))
+        if not np.all(np.isfinite(arr)):
+            raise FitError(problem("y", allowed="no missing values", received=f"{int(np.sum(~np.isfinite(arr)))} missing"))
+        if np.any(arr != np.round(arr)) or (arr.size and arr.min() < 0):
+            raise FitError(problem("y", allowed="integer levels 0..K-1", received=f"values {sorted(set(np.unique(arr).tolist()))[:10]}"))
+        codes = arr.astype(np.int64)
+        top = int(codes.max()) + 1 if codes.size else 0
+        if n_levels is None:
+            K = top
+        else:
+            if not isinstance(n_levels, (int, np.integer)) or n_levels < top:
+                raise FitError(problem("n_levels", allowed=f"an integer >= {top} (the largest level of y plus one)", received=n_levels))
+            K = int(n_levels)
+        labels = tuple(str(j) for j in range(K))
+    if K < 2:
+        raise FitError(problem("y", allowed="at least two outcome levels", received=f"{K} level(s)"))
+    return codes, K, labels
+
+
+def _param_names(columns, levels, proportional: bool) -> tuple[list[str], list[str]]:
+    cuts = [f"y<={lev}" for lev in levels[:-1]]
+    if proportional:
+        coef_names = list(columns)
+    else:
+        coef_names = [f"{c}[{cut}]" for c in columns for cut in cuts]
+    return cuts, coef_names
+
+
+def _start_vector(start, columns, m: int, proportional: bool, q: int) -> np.ndarray:
+    p = len(columns)
+    if isinstance(start, CumulativeFit):
+        if start.n_levels - 1 != m:
+            raise FitError(problem("start", allowed=f"a fit with {m + 1} outcome levels", received=f"{start.n_levels} levels"))
+        phi = np.zeros(q)
+        phi[:m] = start.thresholds.to_numpy(dtype=float)
+        for j, c in enumerate(columns):
+            if c not in start.columns:
+                continue
+            if start.proportional:
+                b = np.repeat(float(start.coef[c]), 1 if proportional else m)
+            else:
+                row = start.coef.loc[c].to_numpy(dtype=float)
+                b = np.array([row.mean()]) if proportional else row
+            if proportional:
+                phi[m + j] = b[0]
+            else:
+                phi[m + j * m : m + (j + 1) * m] = b
+        return phi
+    try:
+        phi = np.asarray(start, dtype=float)
+    except (TypeError, ValueError):
+        raise FitError(problem("start", allowed="a CumulativeFit or a parameter vector", received=type(start).__name__)) from None
+    if phi.shape != (q,):
+        raise FitError(problem("start", allowed=f"a vector of {q} parameters (thresholds, then coefficients)", received=f"shape {phi.shape}"))
+    return phi
+
+
+def fit_cumulative(
+    X,
+    y,
+    *,
+    proportional: bool = True,
+    link: str = "logit",
+    offset=None,
+    weights=None,
+    start=None,
+    n_levels: int | None = None,
+    max_iter: int = DEFAULT_MAX_ITER,
+    tol: float = DEFAULT_TOL,
+) -> CumulativeFit:
+    """Fit a cumulative-link model by Newton-Raphson.
+
+    Parameters
+    ----------
+    X : pandas.DataFrame, 2-D array or None
+        Model matrix without an intercept column (n rows, p >= 0 columns).
+        Frame columns give the names; array columns are named x1..xp.
+        ``None`` fits thresholds only.
+    y : array-like of int, or ordered pandas Categorical
+        Outcome levels ``0..K-1`` (K >= 2); a Categorical's categories give
+        the level order and labels.
+    proportional : bool, keyword-only
+        One coefficient vector for all cuts (default) or one per cut.
+    link : {"logit", "probit", "cloglog"}, keyword-only
+        Link distribution F.
+    offset : array-like, optional, keyword-only
+        Known part of the linear predictor, subtracted from every threshold
+        argument (recalibration in the large uses the old linear predictor).
+    weights : array-like, optional, keyword-only
+        Non-negative frequency weights: a weight of 2 is the same as the row
+        appearing twice, for estimates, log-likelihood and standard errors.
+        Rows with weight 0 are dropped.
+    start : CumulativeFit or array-like, optional, keyword-only
+        Warm start: a previous fit (coefficients matched by column name,
+        missing ones start at 0) or a natural-scale parameter vector in the
+        order of ``params``.  An unusable start falls back to the default.
+    n_levels : int, optional, keyword-only
+        Number of outcome levels when the top level may be absent from
+        integer ``y`` (then it is reported as empty).
+    max_iter : int, keyword-only
+        Newton iteration limit (default 100).
+    tol : float, keyword-only
+        Convergence tolerance on the Newton decrement (default 1e-8; a last
+        full Newton step follows, leaving a decrement of order tol**2).
+
+    Returns
+    -------
+    CumulativeFit
+
+    Raises
+    ------
+    FitError
+        Bad input; an outcome level with no observations (named, with
+        counts); columns that are constant or collinear (named).
+
+    Warns
+    -----
+    ConvergenceWarning
+        The iteration limit was reached, or no ascent step could be found.
+    SeparationWarning
+        Complete or quasi-complete separation; the columns responsible are
+        named and stored in ``separation``.
+    CrossingWarning
+        Non-proportional model whose cumulative probabilities cross on some
+        rows of the fitting data (counted in ``n_crossing``).
+
+    Notes
+    -----
+    ``P(Y <= j | x) = F(theta_j - x beta - offset)``.  The log-likelihood
+    ``sum_i w_i log(F(a_i) - F(b_i))`` is concave in ``(theta, beta)`` for the
+    three links (their densities are log-concave; Pratt 1981), so Newton's
+    method is run on the natural scale with step-halving, and a step is only
+    accepted if the thresholds stay strictly increasing and the
+    log-likelihood does not fall; invalid thresholds are never produced.
+    The covariance is the inverse of the observed information on the natural
+    scale.  Convergence: the Newton decrement ``g' H^{-1} g`` (about twice the
+    remaining log-likelihood gain) falls below ``tol``; a final full step is
+    then taken.  The non-proportional model (a coefficient vector per cut;
+    Peterson & Harrell 1990) is fitted the same way on the region where every
+    row's observed level has positive probability.
+
+    References
+    ----------
+    McCullagh, P. (1980). Regression models for ordinal data. Journal of the
+    Royal Statistical Society, Series B, 42(2), 109-142.
+
+    Agresti, A. (2010). Analysis of Ordinal Categorical Data (2nd ed.). Wiley.
+
+    Pratt, J. W. (1981). Concavity of the log likelihood. Journal of the
+    American Statistical Association, 76(373), 103-106.
+
+    Peterson, B., & Harrell, F. E. (1990). Partial proportional odds models for
+    ordinal response variables. Applied Statistics, 39(2), 205-217.
+
+    Albert, A., & Anderson, J. A. (1984). On the existence of maximum
+    likelihood estimates in logistic regression models. Biometrika, 71(1), 1-10.
+    """
+    if link not in LINKS:
+        raise FitError(problem("link", allowed=f"one of {list(LINKS)}", received=link))
+    if not isinstance(proportional, (bool, np.bool_)):
+        raise FitError(problem("proportional", allowed="True or False", received=proportional))
+    if not isinstance(max_iter, (int, np.integer)) or max_iter < 1:
+        raise FitError(problem("max_iter", allowed="a positive integer", received=max_iter))
+    if not isinstance(tol, (int, float)) or not 0.0 < float(tol) < 1.0:
+        raise FitError(problem("tol", allowed="a number in (0, 1)", received=tol))
+    codes, K, levels = _as_outcome(y, n_levels)
+    n = codes.shape[0]
+    Xa, columns = _as_matrix(X, n)
+    off = None if offset is None else _as_vector(offset, "offset", n)
+    w = None
+    if weights is not None:
+        w = _as_vector(weights, "weights", n)
+        if np.any(w < 0):
+            raise FitError(problem("weights", allowed="non-negative weights", received=f"{int(np.sum(w < 0))} negative"))
+    m = K - 1
+    cuts, coef_names = _param_names(columns, levels, bool(proportional))
+    q = m + (len(columns) if proportional else len(columns) * m)
+    phi0 = None if start is None else _start_vector(start, columns, m, bool(proportional), q)
+
+    raw = _fit_arrays(
+        Xa, codes, K, proportional=bool(proportional), link=link, offset=off, weights=w,
+        start=phi0, max_iter=int(max_iter), tol=float(tol), names=columns, level_names=levels,
+    )
+    return _build_fit(raw, columns, levels, cuts, coef_names, link, bool(proportional), off is not None, int(max_iter), float(tol))
+
+
+def _crossing_rows(raw: _RawFit) -> int:
+    d = raw.design
+    m = d.K - 1
+    if d.proportional or m < 2:
+        return 0
+    p = d.X.shape[1]
+    B = raw.params[m:].reshape(p, m)
+    u = raw.params[:m][None, :] - d.X @ B
+    return int(np.sum(np.any(np.diff(u, axis=1) <= 0.0, axis=1)))
+
+
+def _build_fit(raw: _RawFit, columns, levels, cuts, coef_names, link, proportional, has_offset, max_iter, tol) -> CumulativeFit:
+    d = raw.design
+    m = d.K - 1
+    p = len(columns)
+    names = cuts + coef_names
+    msgs: list[str] = []
+    separation: tuple[str, ...] = ()
+    if raw.suspect_separation:
+        cols = _separated_columns(d)
+        if cols:
+            separation = tuple(columns[j] for j in cols)
+            msg = (
+                f"separation: the likelihood keeps rising as the coefficient(s) of {list(separation)} grow; "
+                "their estimates and standard errors are not finite in the limit"
+            )
+            msgs.append(msg)
+            warnings.warn(msg, SeparationWarning, stacklevel=3)
+    if not raw.converged and not separation:
+        why = "the information matrix became singular" if raw.singular else f"no convergence after {raw.iterations} iterations"
+        msg = f"convergence: {why} (tol={tol:g}, max_iter={max_iter})"
+        msgs.append(msg)
+        warnings.warn(msg, ConvergenceWarning, stacklevel=3)
+    n_cross = _crossing_rows(raw)
+    if n_cross:
+        msg = f"crossing: cumulative probabilities cross in {n_cross} of {d.y.shape[0]} rows of the fitting data"
+        msgs.append(msg)
+        warnings.warn(msg, CrossingWarning, stacklevel=3)
+
+    # Index objects are built once and shared by the tables of this fit.
+    all_index = pd.Index(names, dtype=object)
+    cut_index = pd.Index(cuts, dtype=object)
+    col_index = pd.Index(list(columns), dtype=object)
+    params = pd.Series(raw.params.copy(), index=all_index, name="estimate")
+    with np.errstate(invalid="ignore"):
+        se_arr = np.sqrt(np.diag(raw.cov))
+    se = pd.Series(se_arr, index=all_index, name="se")
+    cov = pd.DataFrame(raw.cov.copy(), index=all_index, columns=all_index)
+    thresholds = pd.Series(raw.params[:m].copy(), index=cut_index, name="threshold")
+    if proportional:
+        coef: Any = pd.Series(raw.params[m:].copy(), index=col_index, name="coef", dtype=float)
+    else:
+        coef = pd.DataFrame(raw.params[m:].reshape(p, m).copy(), index=col_index, columns=cut_index)
+    if d.off is None:
+        ll0 = _null_loglik(d.y, d.K, d.w)
+    else:
+        ll0 = _fit_arrays(np.zeros((d.y.shape[0], 0)), d.y, d.K, link=link, offset=d.off, weights=d.w).loglik
+    k = len(names)
+    n_total = float(d.w.sum())
+    return CumulativeFit(
+        link=link,
+        proportional=proportional,
+        levels=tuple(levels),
+        columns=tuple(columns),
+        thresholds=thresholds,
+        coef=coef,
+        params=params,
+        cov=cov,
+        se=se,
+        loglik=float(raw.loglik),
+        loglik_null=float(ll0),
+        n=n_total,
+        n_rows=int(d.y.shape[0]),
+        aic=float(-2.0 * raw.loglik + 2.0 * k),
+        bic=float(-2.0 * raw.loglik + k * math.log(n_total)),
+        lr_test=_lr(raw.loglik, ll0, k - m),
+        converged=bool(raw.converged),
+        iterations=int(raw.iterations),
+        n_crossing=n_cross,
+        separation=separation,
+        warnings=tuple(msgs),
+        has_offset=has_offset,
+        max_iter=max_iter,
+        tol=tol,
+    )
