@@ -1,0 +1,553 @@
+"""The analysis record: its manifest, its verification and comparison of two records.
+
+A record is a folder written once by :func:`riskvet.runner.run_study` (layout
+in :mod:`riskvet.stagekit`).  Its ``manifest.json`` lists the SHA-256 of every
+file in the record, of every input file and template it was made from, and
+carries the hash of its own canonical content in the field
+``manifest_sha256``, so that an edit to the manifest is detected as surely as
+an edit to a results file.
+
+:func:`verify_record` re-hashes everything the manifest lists and reports what
+is missing, changed or extra.  :func:`compare_records` sets two records side by
+side: study settings, input hashes, package versions and results.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Iterator, Mapping
+
+import pandas as pd
+
+from ._jsonable import to_jsonable
+from .errors import RecordError, RiskvetError, problem
+
+__all__ = [
+    "MANIFEST",
+    "MANIFEST_SCHEMA",
+    "sha256_file",
+    "manifest_digest",
+    "write_manifest",
+    "read_manifest",
+    "record_files",
+    "FileCheck",
+    "Verification",
+    "verify_record",
+    "Difference",
+    "Comparison",
+    "compare_records",
+    "flatten",
+    "headline_results",
+]
+
+#: File name of the manifest inside a record.
+MANIFEST = "manifest.json"
+#: Schema tag written into every manifest.
+MANIFEST_SCHEMA = "riskvet.record/1"
+_SELF_HASH = "manifest_sha256"
+
+
+def _canonical(value: Any) -> str:
+    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
+
+
+def sha256_file(path: str | Path) -> str:
+    """SHA-256 (hex) of a file's bytes."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def manifest_digest(manifest: Mapping[str, Any]) -> str:
+    """SHA-256 of the canonical JSON of ``manifest`` without its ``manifest_sha256`` field.
+
+    Canonical JSON: sorted keys, no whitespace, UTF-8.  The digest does not
+    change when the file is re-indented, only when its content changes.
+    """
+    return hashlib.sha256(_canonical({k: v for k, v in manifest.items() if k != _SELF_HASH}).encode("utf-8")).hexdigest()
+
+
+def write_manifest(record_dir: str | Path, manifest: Mapping[str, Any], *, replace: bool = False) -> Path:
+    """Write ``manifest.json`` with its own hash.
+
+    Parameters
+    ----------
+    record_dir : path
+        The record folder.
+    manifest : mapping
+        JSON-ready content (converted with ``to_jsonable``).
+    replace : bool, default False
+        Replace a manifest the runner itself wrote earlier in the same run
+        (the running manifest); otherwise an existing manifest is an error.
+    """
+    path = Path(record_dir) / MANIFEST
+    if path.exists() and not replace:
+        raise RecordError(f"{path}: already exists; a record's manifest is written once")
+    content = to_jsonable({k: v for k, v in manifest.items() if k != _SELF_HASH})
+    content[_SELF_HASH] = manifest_digest(content)
+    tmp = path.with_name(MANIFEST + ".tmp")
+    tmp.write_text(json.dumps(content, indent=1, sort_keys=True, allow_nan=False, ensure_ascii=False) + "\n", encoding="utf-8")
+    tmp.replace(path)
+    return path
+
+
+def read_manifest(record_dir: str | Path) -> dict[str, Any]:
+    """Read a record's manifest (without checking it; see :func:`verify_record`).
+
+    Raises
+    ------
+    RecordError
+        The folder or its manifest is missing, or the manifest is not a JSON object.
+    """
+    record = Path(record_dir)
+    if not record.is_dir():
+        raise RecordError(problem("record", allowed="a record folder written by 'riskvet run'", received=str(record)))
+    path = record / MANIFEST
+    if not path.is_file():
+        raise RecordError(f"{record}: no {MANIFEST}; not a riskvet record (or its manifest was removed)")
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise RecordError(f"{path}: not valid JSON ({exc})") from None
+    if not isinstance(data, dict):
+        raise RecordError(problem(str(path), allowed="a JSON object", received=type(data).__name__))
+    return data
+
+
+def record_files(record_dir: str | Path) -> dict[str, dict[str, Any]]:
+    """Every file of a record except its manifest: relative POSIX path -> sha256 and bytes."""
+    record = Path(record_dir)
+    out: dict[str, dict[str, Any]] = {}
+    for path in sorted(record.rglob("*")):
+        if path.is_file():
+            rel = path.relative_to(record).as_posix()
+            if rel in (MANIFEST, MANIFEST + ".tmp"):
+                continue
+            out[rel] = {"sha256": sha256_file(path), "bytes": path.stat().st_size}
+    return out
+
+
+# -- verification ---------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class FileCheck:
+    """One file checked against the manifest.
+
+    Attributes
+    ----------
+    kind : {"manifest", "record", "input", "template"}
+        ``record``: a file inside the record; ``input`` / ``template``: a file
+        outside it that the record was made from.
+    path : str
+        Relative to the record for ``record`` files, else as listed.
+    status : {"ok", "changed", "missing", "extra", "unreachable"}
+        ``extra``: present in the record but not listed; ``unreachable``: an
+        input or template not found where it was (the record may have been
+        moved to another machine), reported but not counted as a problem.
+    expected, actual : str or None
+        SHA-256 listed and found.
+    """
+
+    kind: str
+    path: str
+    status: str
+    expected: str | None
+    actual: str | None
+
+    @property
+    def problem(self) -> bool:
+        return self.status in ("changed", "missing", "extra")
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"kind": self.kind, "path": self.path, "status": self.status, "expected": self.expected, "actual": self.actual}
+
+
+@dataclass(frozen=True)
+class Verification:
+    """Result of :func:`verify_record`.
+
+    Attributes
+    ----------
+    record : str
+        The record folder.
+    run_id : str or None
+        From the manifest.
+    run_status : str or None
+        The run's own status in the manifest (``complete``, ``failed``, ...).
+    checks : tuple of FileCheck
+        Every file checked, problems first.
+    """
+
+    record: str
+    run_id: str | None
+    run_status: str | None
+    checks: tuple[FileCheck, ...]
+
+    @property
+    def problems(self) -> tuple[FileCheck, ...]:
+        return tuple(c for c in self.checks if c.problem)
+
+    @property
+    def ok(self) -> bool:
+        """True when nothing is missing, changed or extra."""
+        return not self.problems
+
+    def counts(self) -> dict[str, int]:
+        out: dict[str, int] = {}
+        for c in self.checks:
+            out[c.status] = out.get(c.status, 0) + 1
+        return dict(sorted(out.items()))
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "record": self.record,
+            "run_id": self.run_id,
+            "run_status": self.run_status,
+            "ok": self.ok,
+            "counts": self.counts(),
+            "checks": [c.to_dict() for c in self.checks],
+        }
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per file checked: kind, path, status, expected and actual hash (first 12 characters)."""
+        rows = [
+            {"kind": c.kind, "path": c.path, "status": c.status,
+             "expected": (c.expected or "")[:12], "actual": (c.actual or "")[:12]}
+            for c in self.checks
+        ]
+        return pd.DataFrame(rows, columns=["kind", "path", "status", "expected", "actual"])
+
+
+_ORDER = {"changed": 0, "missing": 1, "extra": 2, "unreachable": 3, "ok": 4}
+
+
+def verify_record(record_dir: str | Path, *, check_inputs: bool = True) -> Verification:
+    """Re-hash a record against its manifest.
+
+    Parameters
+    ----------
+    record_dir : path
+        The record folder.
+    check_inputs : bool, default True
+        Also re-hash the input files (study, data, an earlier model) and
+        templates the manifest lists.  An input that differs is a problem (the
+        file at that path is no longer what was analysed); one that cannot be
+        found is reported as ``unreachable`` only.
+
+    Returns
+    -------
+    Verification
+        ``ok`` is False when the manifest was edited, or when any file is
+        missing, changed or extra.
+
+    Raises
+    ------
+    RecordError
+        The folder has no readable manifest.
+    """
+    record = Path(record_dir)
+    manifest = read_manifest(record)
+    checks: list[FileCheck] = []
+    stored = manifest.get(_SELF_HASH)
+    actual = manifest_digest(manifest)
+    checks.append(FileCheck("manifest", MANIFEST, "ok" if stored == actual else "changed", stored, actual))
+    listed = manifest.get("files")
+    if not isinstance(listed, dict):
+        listed = {}
+        checks.append(FileCheck("manifest", MANIFEST + ":files", "missing", None, None))
+    present = record_files(record)
+    for rel, entry in sorted(listed.items()):
+        expected = entry.get("sha256") if isinstance(entry, dict) else None
+        if rel not in present:
+            checks.append(FileCheck("record", rel, "missing", expected, None))
+        else:
+            found = present[rel]["sha256"]
+            checks.append(FileCheck("record", rel, "ok" if found == expected else "changed", expected, found))
+    for rel in sorted(set(present) - set(listed)):
+        checks.append(FileCheck("record", rel, "extra", None, present[rel]["sha256"]))
+    if check_inputs:
+        for kind, key in (("input", "inputs"), ("template", "templates")):
+            for entry in manifest.get(key) or []:
+                path = Path(str(entry.get("path", "")))
+                expected = entry.get("sha256")
+                if not path.is_file():
+                    checks.append(FileCheck(kind, str(path), "unreachable", expected, None))
+                    continue
+                found = sha256_file(path)
+                checks.append(FileCheck(kind, str(path), "ok" if found == expected else "changed", expected, found))
+    checks.sort(key=lambda c: (_ORDER[c.status], c.kind != "manifest", c.path))
+    return Verification(
+        record=str(record),
+        run_id=manifest.get("run_id"),
+        run_status=manifest.get("status"),
+        checks=tuple(checks),
+    )
+
+
+# -- flattening and headline results ---------------------------------------------------------
+
+
+def flatten(value: Any, prefix: str = "") -> Iterator[tuple[str, Any]]:
+    """Leaves of a JSON value as ``(key path, value)``: ``a.b[2].c``.
+
+    Empty dicts and lists are leaves of their own (shown as ``{}`` / ``[]``).
+    """
+    if isinstance(value, dict):
+        if not value:
+            yield prefix, {}
+        for key in sorted(value, key=str):
+            yield from flatten(value[key], f"{prefix}.{key}" if prefix else str(key))
+    elif isinstance(value, list):
+        if not value:
+            yield prefix, []
+        for i, item in enumerate(value):
+            yield from flatten(item, f"{prefix}[{i}]")
+    else:
+        yield prefix, value
+
+
+# Words that mark a headline number in any stage's results (last key of the path).
+_HEADLINE_WORDS = (
+    "auc", "c_statistic", "concordance", "c_index", "somers_d", "slope", "calibration_in_the_large", "citl",
+    "intercept", "oe", "o_e", "observed_expected", "brier", "scaled_brier", "r2", "nagelkerke", "cox_snell",
+    "optimism", "corrected", "apparent", "shrinkage", "ici", "e50", "e90", "emax", "net_benefit", "chosen", "selected",
+    "update", "method", "icc", "kappa", "n_required", "n", "n_events", "n_analysed", "events", "p_value", "statistic",
+)
+_SKIPPED_WORDS = ("replicate", "replicates", "distribution", "bootstrap_values", "curve", "points", "roc", "grid", "rows")
+
+
+def _last_key(path: str) -> str:
+    last = path.rsplit(".", 1)[-1]
+    return last.split("[", 1)[0].lower()
+
+
+def _headline_path(path: str, value: Any, *, max_index: int) -> bool:
+    if isinstance(value, (dict, list)):
+        return False
+    if any(w in path.lower().replace("[", ".").split(".") for w in _SKIPPED_WORDS):
+        return False
+    for part in path.split("[")[1:]:
+        index = part.split("]", 1)[0]
+        if index.isdigit() and int(index) >= max_index:
+            return False
+    last = _last_key(path)
+    words = last.split("_")
+    return any(last == w or last.startswith(w + "_") or last.endswith("_" + w) or w in words for w in _HEADLINE_WORDS)
+
+
+def headline_results(results: Mapping[str, Any], *, max_index: int = 8, per_stage: int = 40) -> pd.DataFrame:
+    """The headline numbers of each stage's results, as a tidy table.
+
+    Parameters
+    ----------
+    results : mapping
+        Stage name -> that stage's results (the content of ``results/<stage>.json``).
+    max_index : int, default 8
+        Leaves inside a list are kept only for the first ``max_index`` items
+        (per-cut or per-cohort entries), which keeps resampled distributions out.
+    per_stage : int, default 40
+        At most this many rows per stage, in key-path order.
+
+    Returns
+    -------
+    DataFrame
+        Columns ``stage``, ``key`` (key path inside the stage's results) and
+        ``value``: scalar leaves whose last key names a performance measure,
+        a count or a choice (AUC, calibration slope, Brier score, optimism,
+        chosen update, ...).
+    """
+    if not isinstance(results, Mapping):
+        raise RiskvetError(problem("headline_results(results)", allowed="a mapping of stage -> results", received=type(results).__name__))
+    rows = []
+    for stage, content in results.items():
+        if content is None:
+            continue
+        kept = [(k, v) for k, v in flatten(content) if _headline_path(k, v, max_index=max_index)]
+        rows.extend({"stage": stage, "key": k, "value": v} for k, v in kept[:per_stage])
+    return pd.DataFrame(rows, columns=["stage", "key", "value"])
+
+
+# -- comparison -----------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Difference:
+    """One place where two records differ.
+
+    Attributes
+    ----------
+    section : {"record", "study", "inputs", "templates", "packages", "results"}
+    key : str
+        Key path inside the section (``selection.seed``; ``derivation.auc``).
+    a, b : object
+        The value in record A and in record B (``None`` where absent).
+    """
+
+    section: str
+    key: str
+    a: Any
+    b: Any
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"section": self.section, "key": self.key, "a": to_jsonable(self.a), "b": to_jsonable(self.b)}
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """Result of :func:`compare_records`.
+
+    Attributes
+    ----------
+    record_a, record_b : str
+        The two record folders.
+    run_a, run_b : str or None
+        Their run ids.
+    differences : tuple of Difference
+        In section order, then key order.
+    headline : DataFrame
+        Headline results side by side: ``stage``, ``key``, ``a``, ``b``,
+        ``same`` (see :func:`headline_results`), for the union of both records.
+    """
+
+    record_a: str
+    record_b: str
+    run_a: str | None
+    run_b: str | None
+    differences: tuple[Difference, ...]
+    headline: pd.DataFrame
+
+    @property
+    def identical_results(self) -> bool:
+        return not any(d.section == "results" for d in self.differences)
+
+    def section(self, name: str) -> tuple[Difference, ...]:
+        return tuple(d for d in self.differences if d.section == name)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "record_a": self.record_a,
+            "record_b": self.record_b,
+            "run_a": self.run_a,
+            "run_b": self.run_b,
+            "differences": [d.to_dict() for d in self.differences],
+            "headline": to_jsonable(self.headline),
+        }
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per difference: section, key, a, b."""
+        rows = [{"section": d.section, "key": d.key, "a": _shown(d.a), "b": _shown(d.b)} for d in self.differences]
+        return pd.DataFrame(rows, columns=["section", "key", "a", "b"])
+
+
+def _shown(value: Any) -> str:
+    if value is None:
+        return "(absent)"
+    if isinstance(value, float):
+        return f"{value:.6g}"
+    return json.dumps(value, ensure_ascii=False) if isinstance(value, (dict, list)) else str(value)
+
+
+def _same(a: Any, b: Any) -> bool:
+    if isinstance(a, float) and isinstance(b, float) and math.isnan(a) and math.isnan(b):
+        return True
+    return type(a) is type(b) and a == b if not (isinstance(a, (int, float)) and isinstance(b, (int, float))) else a == b
+
+
+def _diff(section: str, a: Any, b: Any) -> list[Difference]:
+    fa, fb = dict(flatten(a)), dict(flatten(b))
+    out = []
+    for key in sorted(set(fa) | set(fb)):
+        va, vb = fa.get(key), fb.get(key)
+        if key in fa and key in fb and _same(va, vb):
+            continue
+        out.append(Difference(section, key, va, vb))
+    return out
+
+
+def _read_results(record: Path) -> dict[str, Any]:
+    out = {}
+    folder = record / "results"
+    for path in sorted(folder.glob("*.json")) if folder.is_dir() else []:
+        try:
+            out[path.stem] = json.loads(path.read_text(encoding="utf-8"))
+        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+            raise RecordError(f"{path}: not valid JSON ({exc})") from None
+    return out
+
+
+def _by_role(entries: Any, key: str) -> dict[str, str]:
+    return {str(e.get(key)): e.get("sha256") for e in entries or [] if isinstance(e, dict)}
+
+
+def compare_records(record_a: str | Path, record_b: str | Path) -> Comparison:
+    """Set two records side by side.
+
+    Parameters
+    ----------
+    record_a, record_b : path
+        Two record folders (either may have failed; what exists is compared).
+
+    Returns
+    -------
+    Comparison
+        Differences in: ``record`` (status, stage statuses, riskvet version,
+        Python, platform, seeds, git commit, the model used); ``study`` (a
+        key-path diff of the resolved studies); ``inputs`` and ``templates``
+        (SHA-256 by role / stage); ``packages`` (versions); ``results``
+        (every leaf of every ``results/<stage>.json``).  Times and run ids are
+        not differences.  ``headline`` puts the headline results side by side.
+    """
+    a, b = Path(record_a), Path(record_b)
+    ma, mb = read_manifest(a), read_manifest(b)
+    differences: list[Difference] = []
+
+    def record_view(m: Mapping[str, Any]) -> dict[str, Any]:
+        return {
+            "status": m.get("status"),
+            "stages": {s.get("stage"): s.get("status") for s in m.get("stages") or [] if isinstance(s, dict)},
+            "riskvet_version": m.get("riskvet_version"),
+            "python": m.get("python"),
+            "platform": m.get("platform"),
+            "seeds": m.get("seeds"),
+            "git_commit": (m.get("git") or {}).get("commit"),
+            "study_sha256": (m.get("study") or {}).get("sha256"),
+            "model_sha256": (m.get("files") or {}).get("models/model.json", {}).get("sha256"),
+        }
+
+    differences += _diff("record", record_view(ma), record_view(mb))
+    differences += _diff("study", (ma.get("study") or {}).get("resolved"), (mb.get("study") or {}).get("resolved"))
+    differences += _diff("inputs", _by_role(ma.get("inputs"), "role"), _by_role(mb.get("inputs"), "role"))
+    differences += _diff("templates", _by_role(ma.get("templates"), "stage"), _by_role(mb.get("templates"), "stage"))
+    differences += _diff("packages", ma.get("packages"), mb.get("packages"))
+    ra, rb = _read_results(a), _read_results(b)
+    differences += _diff("results", ra, rb)
+
+    ha, hb = headline_results(ra), headline_results(rb)
+    merged = ha.merge(hb, on=["stage", "key"], how="outer", suffixes=("_a", "_b"), sort=False)
+    order = {s: i for i, s in enumerate(dict.fromkeys([*ra, *rb]))}
+    merged = merged.assign(_o=merged["stage"].map(order)).sort_values(["_o", "key"], kind="stable").drop(columns="_o")
+    headline = pd.DataFrame({
+        "stage": merged["stage"].to_list(),
+        "key": merged["key"].to_list(),
+        "a": [None if _missing(v) else v for v in merged["value_a"]],
+        "b": [None if _missing(v) else v for v in merged["value_b"]],
+    })
+    headline["same"] = [_same(x, y) for x, y in zip(headline["a"], headline["b"])]
+    return Comparison(
+        record_a=str(a), record_b=str(b), run_a=ma.get("run_id"), run_b=mb.get("run_id"),
+        differences=tuple(differences), headline=headline,
+    )
+
+
+def _missing(value: Any) -> bool:
+    try:
+        return value is None or bool(pd.isna(value))
+    except (TypeError, ValueError):
+        return False
