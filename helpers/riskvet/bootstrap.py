@@ -1039,14 +1039,30 @@ def _fit_and_predict(study, frame_fit: pd.DataFrame, y_fit: np.ndarray, frame_ne
     if fit.separation:
         raise _ReplicateFailed("separation", f"separated by {list(fit.separation)}")
     try:
-        X = derivation.design.transform(frame_new)
-        prob = np.asarray(fit.predict_proba(X), dtype=float)
-        lp = np.asarray(fit.linear_predictor(X), dtype=float)
+        prob, lp = _predict(derivation, frame_new)
     except RiskvetError as exc:
         raise _ReplicateFailed("cannot predict original data", str(exc).splitlines()[0][:300]) from None
+    return derivation, prob, lp, caught
+
+
+def _predict(derivation, frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """Level probabilities and the anchored linear predictor of a derived model on ``frame``.
+
+    The linear predictor is taken minus the first threshold, F^-1(P(Y > 0)),
+    so that predictions of different models (cross-validation folds) can be
+    pooled on one scale; a constant shift leaves every calibration slope
+    unchanged.  For a non-proportional model it is the n x (K-1) matrix of
+    per-cut linear predictors, not anchored.
+    """
+    fit = derivation.fit
+    X = derivation.design.transform(frame)
+    prob = np.asarray(fit.predict_proba(X), dtype=float)
+    lp = np.asarray(fit.linear_predictor(X), dtype=float)
     if lp.ndim == 2 and lp.shape[1] == 1:
         lp = lp[:, 0]
-    return derivation, prob, lp, caught
+    if lp.ndim == 1:
+        lp = lp - float(np.asarray(fit.thresholds, dtype=float)[0])
+    return prob, lp
 
 
 class _ReplicateFailed(Exception):
@@ -1233,12 +1249,8 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RiskvetWarning)
         apparent_derivation = derive(study, frame, y)
-        X = apparent_derivation.design.transform(frame)
         fit = apparent_derivation.fit
-        prob = np.asarray(fit.predict_proba(X), dtype=float)
-        lp = np.asarray(fit.linear_predictor(X), dtype=float)
-        if lp.ndim == 2 and lp.shape[1] == 1:
-            lp = lp[:, 0]
+        prob, lp = _predict(apparent_derivation, frame)
     apparent, _ = _measures(y, prob, lp if lp.ndim == 1 else None, K=K, link=link)
 
     payload = _Payload(study=study, frame=frame, y=y, K=K, link=link)
