@@ -1,4 +1,9 @@
-"""Tests of riskvet.calibration against statsmodels, the package fitter, slow code and simulation."""
+"""Tests of riskvet.calibration against statsmodels, the package fitter, slow code and simulation.
+
+Tolerances: ``rel=1e-12`` (or ``abs=1e-12``) compares the same closed-form quantity computed in
+a different order, so only floating-point rounding separates the two; wider tolerances are
+explained beside their checks.
+"""
 
 from __future__ import annotations
 
@@ -45,11 +50,11 @@ def po_probs(fit, x):
 def test_recalibration_regressions_match_statsmodels():
     y, prob, lp = miscalibrated()
     res = calibration(y, prob)
-    # statsmodels GLM(Binomial) with offset = logit(prob), intercept only (version printed).
+    # statsmodels 0.15.0 GLM(Binomial) with offset = logit(prob), intercept only.
     large = sm.GLM(y, np.ones(y.size), family=sm.families.Binomial(), offset=lp).fit(tol=1e-12)
     assert res.calibration_in_the_large == pytest.approx(large.params[0], abs=1e-7), statsmodels.__version__
     assert res.calibration_in_the_large_se == pytest.approx(large.bse[0], rel=1e-6)
-    # statsmodels Logit of y on logit(prob): slope and its intercept with SEs.
+    # statsmodels 0.15.0 Logit of y on logit(prob): slope and its intercept with SEs.
     slope = sm.Logit(y, sm.add_constant(lp)).fit(disp=0, tol=1e-12)
     assert res.slope == pytest.approx(slope.params[1], abs=1e-7)
     assert res.slope_se == pytest.approx(slope.bse[1], rel=1e-6)
@@ -83,7 +88,7 @@ def test_refitted_model_has_intercept_zero_and_slope_one():
 @pytest.mark.filterwarnings("ignore:The Log link function does not respect the domain")
 def test_oe_ratio_interval_matches_statsmodels_log_binomial():
     # ln(O/E) with E fixed is the intercept of a log-link binomial GLM with offset ln(mean prob);
-    # statsmodels GLM(Binomial(link=Log)) gives the same estimate and SE sqrt((1 - phi)/(n phi)).
+    # statsmodels 0.15.0 GLM(Binomial(link=Log)) gives the same estimate and SE sqrt((1 - phi)/(n phi)).
     y, prob, _ = miscalibrated(n=800, seed=5)
     res = calibration(y, prob, confidence=0.9)
     fam = sm.families.Binomial(link=sm.families.links.Log())
@@ -94,7 +99,7 @@ def test_oe_ratio_interval_matches_statsmodels_log_binomial():
 
 
 def test_smoothed_curve_equals_statsmodels_lowess():
-    # statsmodels lowess, frac = 0.75, it = 0 (no robustness iterations), at the curve's points.
+    # statsmodels 0.15.0 lowess, frac = 0.75, it = 0 (no robustness iterations), at the curve's points.
     y, prob, _ = miscalibrated(n=1200, seed=6)
     res = calibration(y, prob)
     order = np.argsort(prob)
@@ -148,7 +153,7 @@ def test_grouped_table_and_hosmer_lemeshow_against_slow_code():
     assert res.hosmer_lemeshow_df == 8
     assert res.hosmer_lemeshow_pvalue == pytest.approx(stats.chi2.sf(hl, 8), rel=1e-10)
     assert calibration(y, prob, n_groups=8, development=True).hosmer_lemeshow_df == 6
-    # Wilson limits of the observed rate: statsmodels proportion_confint(method="wilson").
+    # Wilson limits of the observed rate: statsmodels 0.15.0 proportion_confint(method="wilson").
     lo, hi = proportion_confint(table["o"].to_numpy(), table["n"].to_numpy(), alpha=0.1, method="wilson")
     np.testing.assert_allclose(res.group_observed_lower, lo, rtol=1e-10)
     np.testing.assert_allclose(res.group_observed_upper, hi, rtol=1e-10)

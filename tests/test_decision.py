@@ -1,4 +1,9 @@
-"""Tests of riskvet.decision: hand-worked net benefit, statsmodels and scikit-learn references."""
+"""Tests of riskvet.decision: hand-worked net benefit, statsmodels and scikit-learn references.
+
+Tolerances: ``rel=1e-12`` (or ``abs=1e-12``) compares the same closed-form quantity computed in
+a different order, so only floating-point rounding separates the two; wider tolerances are
+explained beside their checks.
+"""
 
 from __future__ import annotations
 
@@ -77,7 +82,7 @@ def test_threshold_table_counts_match_sklearn_confusion_matrix():
     thresholds = [0.0, 0.25, 0.4, 0.55, 1.0]
     res = threshold_table(y, p, thresholds=thresholds)
     for i, t in enumerate(thresholds):
-        # scikit-learn confusion_matrix: [[tn, fp], [fn, tp]]
+        # scikit-learn 1.9.1 confusion_matrix: [[tn, fp], [fn, tp]]
         tn, fp, fn, tp = confusion_matrix(y, (p >= t).astype(int), labels=[0, 1]).ravel()
         assert (res.tp[i], res.fp[i], res.fn[i], res.tn[i]) == (tp, fp, fn, tn)
 
@@ -91,7 +96,8 @@ def test_threshold_table_intervals_match_statsmodels(method, sm_method):
     for i in range(2):
         tp, fp, fn, tn = res.tp[i], res.fp[i], res.fn[i], res.tn[i]
         for name, count, total in (("sensitivity", tp, tp + fn), ("specificity", tn, tn + fp), ("ppv", tp, tp + fp), ("npv", tn, tn + fn)):
-            # statsmodels proportion_confint (version printed), alpha = 1 - confidence
+            # statsmodels 0.15.0 proportion_confint, alpha = 1 - confidence; rel 1e-9 allows for
+            # statsmodels computing the same closed forms in a different order
             lo, hi = proportion_confint(count, total, alpha=0.1, method=sm_method)
             assert getattr(res, f"{name}_lower")[i] == pytest.approx(lo, rel=1e-9), statsmodels.__version__
             assert getattr(res, f"{name}_upper")[i] == pytest.approx(hi, rel=1e-9)
@@ -100,7 +106,7 @@ def test_threshold_table_intervals_match_statsmodels(method, sm_method):
 
 def test_likelihood_ratio_intervals_match_statsmodels_log_ratio():
     # LR+ = (TP/n1) / (FP/n0) is a ratio of two independent proportions; its log-method
-    # interval (Simel, Samsa & Matchar, J Clin Epidemiol 1991) equals statsmodels
+    # interval (Simel, Samsa & Matchar, J Clin Epidemiol 1991) equals statsmodels 0.15.0
     # confint_proportions_2indep(compare="ratio", method="log").
     rng = np.random.default_rng(8)
     y = rng.integers(0, 2, 250)
@@ -154,3 +160,10 @@ def test_bad_input():
     nb = net_benefit(Y10, P10, thresholds=[0.2])
     json.dumps(nb.to_dict(), allow_nan=False)
     assert set(nb.to_frame()["strategy"]) == {"model", "treat all", "treat none"}
+
+
+def test_ordinal_net_benefit_bad_input():
+    with pytest.raises(DataError, match=r"ordinal_net_benefit\(y=\).*levels 0 .. 2"):
+        ordinal_net_benefit([0, 1, 3], np.full((3, 3), 1 / 3), thresholds=[0.2])
+    with pytest.raises(RiskvetError, match=r"ordinal_net_benefit\(thresholds=\)"):
+        ordinal_net_benefit([0, 1, 2], np.full((3, 3), 1 / 3), thresholds=[1.0])

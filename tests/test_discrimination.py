@@ -1,4 +1,9 @@
-"""Tests of riskvet.discrimination against published values, reference libraries and slow counting."""
+"""Tests of riskvet.discrimination against published values, reference libraries and slow counting.
+
+Tolerances: ``rel=1e-12`` (or ``abs=1e-12``) compares the same closed-form quantity computed in
+a different order, so only floating-point rounding separates the two; wider tolerances are
+explained beside their checks.
+"""
 
 from __future__ import annotations
 
@@ -91,7 +96,7 @@ def test_hanley_mcneil_standard_error_formula_reproduces_paper():
 
 
 def test_matches_sklearn_roc_auc_score():
-    # scikit-learn roc_auc_score (version printed by sklearn.__version__, 1.9 in this run)
+    # scikit-learn 1.9.1 roc_auc_score
     rng = np.random.default_rng(11)
     y = rng.integers(0, 2, 500)
     score = np.round(rng.normal(y * 0.8, 1.0), 1)  # rounding creates ties
@@ -99,7 +104,7 @@ def test_matches_sklearn_roc_auc_score():
 
 
 def test_roc_curve_matches_sklearn_points():
-    # scikit-learn roc_curve(drop_intermediate=False): same points; its first threshold is inf too.
+    # scikit-learn 1.9.1 roc_curve(drop_intermediate=False): same points; its first threshold is inf too.
     rng = np.random.default_rng(12)
     y = rng.integers(0, 2, 300)
     score = np.round(rng.normal(y, 1.0), 1)
@@ -181,7 +186,7 @@ def test_property_equals_pair_counting_and_sklearn(data):
     y, score = data
     auc, _, _ = slow_components(y, score)
     assert concordance(y, score).estimate == pytest.approx(auc, abs=1e-12)
-    assert concordance(y, score).estimate == pytest.approx(roc_auc_score(y, score), abs=1e-12)
+    assert concordance(y, score).estimate == pytest.approx(roc_auc_score(y, score), abs=1e-12)  # scikit-learn 1.9.1
 
 
 @settings(max_examples=60, deadline=None)
@@ -279,11 +284,11 @@ def test_ordinal_generalised_c_and_somers_d_against_scipy_and_pairs():
     y, prob, lp = ordinal_example()
     res = ordinal_discrimination(y, prob)
     expected = prob @ np.arange(3)
-    # scipy.stats.somersd(x=outcome, y=score): D(score | outcome), denominator = pairs untied on
-    # the outcome, which is Harrell's Dxy (scipy version in this run printed by scipy.__version__).
+    # scipy 1.17.1 scipy.stats.somersd(x=outcome, y=score): D(score | outcome), denominator =
+    # pairs untied on the outcome, which is Harrell's Dxy.
     ref = scipy.stats.somersd(y, expected)
     assert res.somers_d == pytest.approx(ref.statistic, rel=1e-12), scipy.__version__
-    # scipy's p-value uses the standard error under D = 0 (Brown & Benedetti 1977).
+    # scipy 1.17.1: its p-value uses the standard error under D = 0 (Brown & Benedetti 1977).
     assert res.somers_d_pvalue == pytest.approx(ref.pvalue, rel=1e-8)
     assert res.generalised_c == pytest.approx(slow_pair_c(y, expected), rel=1e-12)
     assert res.somers_d == pytest.approx(2 * res.generalised_c - 1, abs=1e-12)
@@ -301,7 +306,7 @@ def test_ordinal_c_index_is_mean_of_pairwise_aucs():
     pair_aucs = []
     for k, l in [(0, 1), (0, 2), (1, 2)]:
         keep = (y == k) | (y == l)
-        pair_aucs.append(roc_auc_score(y[keep] == l, score[keep]))  # scikit-learn reference
+        pair_aucs.append(roc_auc_score(y[keep] == l, score[keep]))  # scikit-learn 1.9.1
     np.testing.assert_allclose(res.pair_c, pair_aucs, rtol=1e-12)
     assert res.ordinal_c == pytest.approx(np.mean(pair_aucs), rel=1e-12)
     assert res.pair_levels == ((0, 1), (0, 2), (1, 2))

@@ -1,4 +1,9 @@
-"""Tests of riskvet.overall against scikit-learn, statsmodels and limiting cases."""
+"""Tests of riskvet.overall against scikit-learn, statsmodels and limiting cases.
+
+Tolerances: ``rel=1e-12`` (or ``abs=1e-12``) compares the same closed-form quantity computed in
+a different order, so only floating-point rounding separates the two; wider tolerances are
+explained beside their checks.
+"""
 
 from __future__ import annotations
 
@@ -31,7 +36,7 @@ def ordinal_example(n=300, seed=2):
 
 
 def test_binary_brier_matches_sklearn():
-    # scikit-learn brier_score_loss (1.9 in this run): binary form, mean (y - p)^2.
+    # scikit-learn 1.9.1 brier_score_loss: binary form, mean (y - p)^2.
     x, y = binary_example()
     p = np.clip(0.5 + 0.2 * x[:, 0], 0, 1)
     res = brier(y, p)
@@ -44,7 +49,7 @@ def test_binary_brier_matches_sklearn():
 
 
 def test_multicategory_brier_matches_sklearn():
-    # scikit-learn brier_score_loss with scale_by_half=False: sum over levels, range [0, 2]
+    # scikit-learn 1.9.1 brier_score_loss with scale_by_half=False: sum over levels, range [0, 2]
     # (Brier, Monthly Weather Review 1950).
     y, prob = ordinal_example()
     res = brier(y, prob)
@@ -66,7 +71,7 @@ def test_scaled_brier_limits():
 
 
 def test_log_likelihood_and_cox_snell_match_statsmodels_logit_fit():
-    # statsmodels GLM(Binomial) fit (version printed): llf, llnull and pseudo_rsquared(kind="cs")
+    # statsmodels 0.15.0 GLM(Binomial) fit: llf, llnull and pseudo_rsquared(kind="cs")
     # (Cox-Snell likelihood-ratio R^2) on the model's own development data.
     x, y = binary_example()
     fit = sm.GLM(y, sm.add_constant(x), family=sm.families.Binomial()).fit()
@@ -81,7 +86,7 @@ def test_log_likelihood_and_cox_snell_match_statsmodels_logit_fit():
 
 
 def test_multicategory_log_likelihood_matches_sklearn_log_loss():
-    # scikit-learn log_loss(normalize=False) is minus the log-likelihood.
+    # scikit-learn 1.9.1 log_loss(normalize=False) is minus the log-likelihood.
     y, prob = ordinal_example()
     res = overall_accuracy(y, prob)
     assert res.log_likelihood == pytest.approx(-log_loss(y, prob, normalize=False, labels=[0, 1, 2]), rel=1e-12)
@@ -120,3 +125,17 @@ def test_bad_input_and_serialisation():
     json.dumps(res.to_dict(), allow_nan=False)
     frame = res.to_frame()
     assert {"brier", "scaled_brier", "nagelkerke_r2", "brier_cut1"} <= set(frame["measure"])
+
+
+def test_one_observed_level_raises_and_pandas_outcomes_are_read():
+    import pandas as pd
+
+    with pytest.raises(DataError, match=r"brier\(y=\).*at least two observed outcome levels"):
+        brier([1, 1, 1], [0.2, 0.5, 0.9])
+    y, prob = ordinal_example(n=60)
+    labels = pd.Categorical.from_codes(y, categories=["mild", "moderate", "severe"], ordered=True)
+    assert overall_accuracy(pd.Series(labels), prob).log_likelihood == overall_accuracy(y, prob).log_likelihood
+    with pytest.raises(DataError, match="unordered Categorical"):
+        brier(pd.Categorical.from_codes(y, categories=["a", "b", "c"]), prob)
+    with pytest.raises(DataError, match="no missing values"):
+        brier(pd.Series([0, 1, None], dtype="Int64"), [0.2, 0.5, 0.9])

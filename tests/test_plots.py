@@ -141,3 +141,12 @@ def test_bad_input():
         plot_roc(roc_curve(yj, pj), labels=["a", "b"])
     with pytest.raises(RiskvetError, match=r"plot_bland_altman\(result=\).*lacking"):
         plot_bland_altman(SimpleNamespace(means=[1.0]))  # type: ignore[arg-type]
+
+
+def test_bad_input_decision_curve():
+    with pytest.raises(RiskvetError, match=r"plot_decision_curve\(results=\)"):
+        plot_decision_curve(["not a result"])  # type: ignore[list-item]
+    y, prob = ordinal_example(seed=7)
+    yj, pj = dichotomise(y, prob, cut=0)
+    with pytest.raises(RiskvetError, match=r"plot_roc\(operating_points=\)"):
+        plot_roc(roc_curve(yj, pj), operating_points=[None, None])

@@ -4,6 +4,11 @@ A patient is classified positive at threshold t when ``prob >= t``.  For an
 ordered outcome, apply these functions to one cut (see
 :func:`riskvet.discrimination.dichotomise`) or use
 :func:`ordinal_net_benefit`, which returns one decision curve per cut.
+
+Sensitivity and specificity need events and non-events, so
+:func:`threshold_table` and :func:`threshold_for` raise
+:class:`riskvet.errors.DataError` without both (the package-wide rule); net
+benefit is defined for any prevalence and is computed as it is.
 """
 
 from __future__ import annotations

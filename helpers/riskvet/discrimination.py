@@ -75,11 +75,21 @@ def _z(confidence: float) -> float:
 
 
 def _as_outcome(y: Any, func: str, *, n_levels: int | None = None) -> np.ndarray:
-    """Integer outcome levels 0 .. K-1 as a 1-D int array."""
-    try:
-        arr = np.asarray(y)
-    except Exception as exc:  # pragma: no cover - numpy rarely refuses
-        raise DataError(problem(f"{func}(y=)", allowed="a 1-D array of outcome levels 0, 1, ...", received=type(y).__name__)) from exc
+    """Integer outcome levels 0 .. K-1 as a 1-D int array.
+
+    An ordered pandas Categorical (or Series of one) gives its codes, levels
+    in category order; a numeric pandas Series with missing values is
+    reported as missing values.
+    """
+    dtype = getattr(y, "dtype", None)
+    if isinstance(dtype, pd.CategoricalDtype):
+        if not dtype.ordered:
+            raise DataError(problem(f"{func}(y=)", allowed="levels 0, 1, ... or an ordered Categorical", received="an unordered Categorical"))
+        codes = np.asarray(y.cat.codes if isinstance(y, pd.Series) else y.codes, dtype=float)
+        y = np.where(codes < 0, np.nan, codes)
+    elif isinstance(y, (pd.Series, pd.Index)) and pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype):
+        y = y.to_numpy(dtype=float, na_value=np.nan)
+    arr = np.asarray(y)
     if arr.ndim != 1 or arr.size == 0:
         raise DataError(problem(f"{func}(y=)", allowed="a non-empty 1-D array of outcome levels 0, 1, ...", received=f"shape {arr.shape}"))
     if arr.dtype == bool:

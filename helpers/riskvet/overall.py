@@ -2,7 +2,9 @@
 
 Conventions as in :mod:`riskvet.discrimination`: outcome levels 0 .. K-1,
 ``prob`` an n x K matrix of level probabilities or, for a binary outcome, a
-vector of event probabilities.
+vector of event probabilities.  Data with a single observed outcome level
+raise :class:`riskvet.errors.DataError` (the comparison with the observed
+proportions behind the scaled Brier score and the R² is then empty).
 """
 
 from __future__ import annotations
@@ -15,7 +17,7 @@ import numpy as np
 import pandas as pd
 
 from .discrimination import _as_outcome, _as_prob_matrix, _cut_probs, _fields_dict, _frozen
-from .errors import RiskvetWarning
+from .errors import DataError, RiskvetWarning, problem
 
 __all__ = ["BrierResult", "OverallAccuracy", "brier", "overall_accuracy"]
 
@@ -130,6 +132,10 @@ def _inputs(y: Any, prob: Any, func: str) -> tuple[np.ndarray, np.ndarray]:
     y_arr = _as_outcome(y, func)
     matrix = _as_prob_matrix(prob, y_arr.shape[0], func)
     _as_outcome(y_arr, func, n_levels=matrix.shape[1])
+    if np.unique(y_arr).shape[0] < 2:
+        # The scaled Brier score and both R² compare with the observed proportions,
+        # which predict a single observed level perfectly.
+        raise DataError(problem(f"{func}(y=)", allowed="at least two observed outcome levels", received=f"only level {int(y_arr[0])}"))
     return y_arr, matrix
 
 
