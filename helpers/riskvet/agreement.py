@@ -935,12 +935,23 @@ def decision_agreement(risk_a: Any, risk_b: Any, *, threshold: float, confidence
             raise DataError(problem(f"decision_agreement({nm})", allowed="risks between 0 and 1", received=f"values such as {bad}"))
     da = (x >= threshold).astype(int)
     db = (y >= threshold).astype(int)
+    if len(da) and np.all(da == da[0]) and np.all(db == da[0]):
+        # Kappa's own warning speaks of raters' categories; say what it means for a decision.
+        msg = (f"decision_agreement: at threshold {float(threshold):g} every risk from both raters is on the same side "
+               f"({'at or above' if da[0] else 'below'}); kappa on the decisions is undefined")
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RiskvetWarning)
+            decisions = kappa(da, db, levels=[0, 1], confidence=confidence)
+        warnings.warn(msg, RiskvetWarning, stacklevel=2)
+        decisions = dataclasses.replace(decisions, warnings=(msg,))
+    else:
+        decisions = kappa(da, db, levels=[0, 1], confidence=confidence)
     return DecisionAgreement(
         threshold=float(threshold),
         n=len(x),
         positive_a=int(da.sum()),
         positive_b=int(db.sum()),
         discordant=int(np.sum(da != db)),
-        decisions=kappa(da, db, levels=[0, 1], confidence=confidence),
+        decisions=decisions,
         risks=bland_altman(x, y, confidence=confidence),
     )
