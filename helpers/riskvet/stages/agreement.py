@@ -297,6 +297,14 @@ class AgreementOutput:
                 return it
         raise StudyError(problem("AgreementOutput.item(name)", allowed=f"one of {[i.name for i in self.items]}", received=name))
 
+    def item_figure(self, name: str) -> str | None:
+        """The Bland–Altman figure of a continuous item (PNG path relative to the record), if drawn."""
+        return self.figures.get(_figure_name("bland_altman", name))
+
+    def risk_figure(self, cut: int) -> str | None:
+        """The Bland–Altman figure of the predicted risks at cut ``cut``, if drawn."""
+        return self.figures.get(f"risk_bland_altman_cut{cut}")
+
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready content of the stage's results file (no per-pair values)."""
         return to_jsonable({

@@ -135,8 +135,8 @@ class PlanningOutput:
     notes : tuple of str
         Choices made and parts skipped, each in one sentence.
     texts : dict of str to str
-        One interpreting sentence per notebook table: ``"development"``,
-        ``"validation"``, ``"checks"``.
+        One interpreting sentence per notebook table: ``"proportions"``,
+        ``"development"``, ``"validation"``, ``"checks"``.
     """
 
     outcome_type: str
@@ -461,6 +461,11 @@ def plan(study: Study, *, cohorts: Cohorts | None = None, proportions: Sequence[
         justification="\n\n".join(paragraphs),
         notes=tuple(notes),
         texts={
+            "proportions": "Planning proportions ("
+            + source
+            + "): "
+            + ", ".join(f"{lv} {v:.3f}" for lv, v in zip(levels, props))
+            + ".",
             "development": _development_sentence(development, levels, binary),
             "validation": _validation_sentence(validation),
             "checks": _checks_sentence(checks),
@@ -486,13 +491,12 @@ def plan_text(study: Study, *, proportions: Sequence[float] | None = None) -> st
         protocol paragraph.
     """
     out = plan(study, proportions=proportions)
-    props = ", ".join(f"{lv} {p:.3f}" for lv, p in zip(out.levels, out.proportions))
     width = 160
     with pd.option_context("display.max_rows", 200, "display.max_columns", 20, "display.width", width):
         dev = out.development_frame()[[c for c in ("cut", "event", "name", "n", "events", "events_per_parameter", "binding") if c in out.development_frame().columns]]
         blocks = [
             f"Sample-size plan for {study.study.name}",
-            f"Outcome proportions ({out.proportion_source}): {props}",
+            out.texts["proportions"],
             "",
             "Development",
             dev.to_string(index=False, float_format=lambda x: f"{x:.1f}"),
