@@ -462,7 +462,6 @@ def _calibration_one(
     conf: float,
     frac: float,
     cut: int | None,
-    func: str,
 ) -> CalibrationResult:
     notes: list[str] = []
     n = int(y.shape[0])
@@ -483,9 +482,9 @@ def _calibration_one(
     p_sorted, y_sorted = p[order], yf[order]
     sm = _smooth(y_sorted, p_sorted, frac, with_se=True)
     abs_err = np.abs(sm.per_patient - p_sorted)
-    assert sm.se is not None
-    band_lower = np.clip(sm.fitted - z * sm.se, 0.0, 1.0)
-    band_upper = np.clip(sm.fitted + z * sm.se, 0.0, 1.0)
+    se = sm.se if sm.se is not None else np.full_like(sm.fitted, np.nan)
+    band_lower = np.clip(sm.fitted - z * se, 0.0, 1.0)
+    band_upper = np.clip(sm.fitted + z * se, 0.0, 1.0)
 
     group, g = _quantile_groups(p, n_groups)
     g_n = np.bincount(group, minlength=g).astype(float)
@@ -643,7 +642,7 @@ def calibration(
     y_arr = _as_binary(y, func)
     p = _as_prob_vector(prob, y_arr.shape[0], func)
     _require_two_classes(y_arr == 1, func)
-    return _calibration_one(y_arr, p, development=bool(development), n_groups=int(n_groups), conf=conf, frac=float(frac), cut=None, func=func)
+    return _calibration_one(y_arr, p, development=bool(development), n_groups=int(n_groups), conf=conf, frac=float(frac), cut=None)
 
 
 def _ordinal_hosmer_lemeshow(y: np.ndarray, matrix: np.ndarray, n_groups: int, development: bool) -> tuple[float, float, float, int, np.ndarray, np.ndarray]:
@@ -719,7 +718,7 @@ def ordinal_calibration(
         y_cut = (y_arr > j).astype(np.int64)
         _require_two_classes(y_cut == 1, func)
         cuts.append(
-            _calibration_one(y_cut, cut_p[:, j], development=bool(development), n_groups=int(n_groups), conf=conf, frac=float(frac), cut=j, func=func)
+            _calibration_one(y_cut, cut_p[:, j], development=bool(development), n_groups=int(n_groups), conf=conf, frac=float(frac), cut=j)
         )
     stat, df, pvalue, g, observed, expected = _ordinal_hosmer_lemeshow(y_arr, matrix, int(n_groups), bool(development))
     return OrdinalCalibration(
