@@ -619,7 +619,7 @@ class InternalValidation:
         text = (
             f"Across {self.n_succeeded} bootstrap replicates that each repeated the whole derivation "
             f"({_method_words(self.stability.method)}, knot placement and fitting), the apparent "
-            f"{head.label.lower()} of {head.apparent:.3f} falls to {head.corrected:.3f} after correction for "
+            f"{_lower_first(head.label)} of {head.apparent:.3f} falls to {head.corrected:.3f} after correction for "
             f"optimism ({head.optimism:.3f}); the .632+ estimate is {head.estimate_632plus:.3f}. "
             f"The optimism-corrected calibration slope is {slope.corrected:.2f}"
             f"{' (below 1: predictions too extreme for new patients)' if slope.corrected < 1 else ''}."
@@ -1413,3 +1413,11 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
 
 def _method_words(method: str) -> str:
     return {"none": "no variable selection", "forward": "forward selection", "backward": "backward elimination"}.get(method, f"{method} selection")
+
+
+def _lower_first(label: str) -> str:
+    """``label`` with its first word in lower case, unless that word is an acronym or a single letter."""
+    first, _, rest = label.partition(" ")
+    if len(first) == 1 or first.isupper():
+        return label
+    return f"{first.lower()} {rest}" if rest else first.lower()

@@ -46,6 +46,7 @@ from .bootstrap import (
     _check_study,
     _execute,
     _fit_and_predict,
+    _lower_first,
     _mean,
     _measure_specs,
     _measures,
@@ -144,7 +145,7 @@ class CrossValidation:
         slope = self.estimate("calibration_slope")
         reps = f"{self.n_repeats} repeats of " if self.n_repeats > 1 else ""
         text = (
-            f"In {reps}{self.n_folds}-fold cross-validation the {e.label.lower()} of models derived without the "
+            f"In {reps}{self.n_folds}-fold cross-validation the {_lower_first(e.label)} of models derived without the "
             f"held-out patients is {e.pooled:.3f} on pooled held-out predictions ({e.averaged:.3f} averaged over "
             f"folds), against {e.apparent:.3f} apparent; the pooled calibration slope is {slope.pooled:.2f}."
         )
