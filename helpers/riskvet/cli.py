@@ -1,7 +1,8 @@
 """The ``riskvet`` command.
 
 Every sub-command exits 0 on success, 1 when the study, data or record is
-unusable (the message says what and where), and 2 on a usage error.
+unusable (the message says what and where), when a stage of ``run`` fails or
+when ``verify`` finds a record altered, and 2 on a usage error.
 """
 
 from __future__ import annotations
@@ -69,6 +70,83 @@ def _cmd_check(args: argparse.Namespace) -> int:
     return check_report(args.study)
 
 
+def _stage_list(text: str) -> list[str]:
+    return [part.strip() for part in text.split(",") if part.strip()]
+
+
+def _cmd_run(args: argparse.Namespace) -> int:
+    from .runner import run_study
+
+    result = run_study(
+        args.study, stages=args.stages, from_record=args.from_record,
+        templates_dir=args.templates, show_code=args.show_code,
+    )
+    failed = result.failed_stage
+    if failed is not None:
+        print(f"stage {failed.stage!r} failed; see {result.record_dir / (failed.notebook or 'manifest.json')}", file=sys.stderr)
+        return 1
+    print(CAUTION)
+    return 0
+
+
+def _cmd_demo(args: argparse.Namespace) -> int:
+    from .runner import run_study
+    from .scaffold import new_study_folder
+
+    study = new_study_folder(args.folder, seed=args.seed)
+    print(f"wrote the demo study {study} (invented data, seed {args.seed})")
+    result = run_study(study, templates_dir=args.templates)
+    if result.failed_stage is not None:
+        return 1
+    print(f"open the reviewer pages in {result.record_dir / 'html'}")
+    print(CAUTION)
+    return 0
+
+
+def _cmd_verify(args: argparse.Namespace) -> int:
+    from .record import verify_record
+
+    verification = verify_record(args.record, check_inputs=not args.no_inputs)
+    counts = ", ".join(f"{n} {status}" for status, n in verification.counts().items())
+    print(f"record {verification.run_id} (run {verification.run_status}): {counts}")
+    shown = verification.to_frame()
+    if not args.all:
+        shown = shown[shown["status"] != "ok"]
+    if len(shown):
+        _print_frame(shown)
+    if verification.ok:
+        print("intact: every listed file has its recorded SHA-256 and nothing was added")
+        return 0
+    print(f"ALTERED: {len(verification.problems)} problem(s)", file=sys.stderr)
+    return 1
+
+
+def _cmd_compare(args: argparse.Namespace) -> int:
+    from .record import compare_records
+
+    comparison = compare_records(args.record_a, args.record_b)
+    print(f"A: {comparison.run_a}  ({comparison.record_a})\nB: {comparison.run_b}  ({comparison.record_b})")
+    frame = comparison.to_frame()
+    titles = {
+        "record": "run", "study": "study settings", "inputs": "input files (SHA-256)",
+        "templates": "templates (SHA-256)", "packages": "package versions", "results": "results",
+    }
+    for section, title in titles.items():
+        part = frame[frame["section"] == section].drop(columns="section")
+        if section in ("inputs", "templates"):
+            part = part.assign(a=part["a"].str[:12], b=part["b"].str[:12])
+        print(f"\n== {title}: {'no differences' if part.empty else f'{len(part)} difference(s)'} ==")
+        if not part.empty:
+            _print_frame(part if args.all else part.head(args.limit))
+            if not args.all and len(part) > args.limit:
+                print(f"... {len(part) - args.limit} more (--all shows every one)")
+    headline = comparison.headline
+    if not headline.empty:
+        print("\n== headline results side by side ==")
+        _print_frame(headline if args.all else headline.head(args.limit * 2))
+    return 0
+
+
 def _parser() -> argparse.ArgumentParser:
     from . import __version__
 
@@ -87,6 +165,35 @@ def _parser() -> argparse.ArgumentParser:
     p = sub.add_parser("check", help="validate a study file and its data; print the audit")
     p.add_argument("study", type=Path)
     p.set_defaults(func=_cmd_check)
+
+    p = sub.add_parser("run", help="run the study's stage notebooks into a new record")
+    p.add_argument("study", type=Path)
+    p.add_argument("--stages", type=_stage_list, default=None, metavar="A,B",
+                   help="run only these enabled stages (comma-separated), in chain order")
+    p.add_argument("--from", dest="from_record", type=Path, default=None, metavar="RECORD",
+                   help="use the frozen model of an earlier record instead of deriving one")
+    p.add_argument("--templates", type=Path, default=None, metavar="DIR", help="folder of stage templates to use")
+    p.add_argument("--show-code", action="store_true", help="show code cells in the HTML renderings")
+    p.set_defaults(func=_cmd_run)
+
+    p = sub.add_parser("verify", help="re-hash a record against its manifest")
+    p.add_argument("record", type=Path)
+    p.add_argument("--no-inputs", action="store_true", help="check only the record's own files")
+    p.add_argument("--all", action="store_true", help="list every file, not only problems")
+    p.set_defaults(func=_cmd_verify)
+
+    p = sub.add_parser("compare", help="show what differs between two records")
+    p.add_argument("record_a", type=Path)
+    p.add_argument("record_b", type=Path)
+    p.add_argument("--limit", type=int, default=25, help="rows shown per section (default 25)")
+    p.add_argument("--all", action="store_true", help="show every difference")
+    p.set_defaults(func=_cmd_compare)
+
+    p = sub.add_parser("demo", help="write the invented demo study and run the whole chain on it")
+    p.add_argument("folder", type=Path, nargs="?", default=Path("riskvet-demo"))
+    p.add_argument("--seed", type=int, default=2024, help="seed of the demo data (default 2024)")
+    p.add_argument("--templates", type=Path, default=None, metavar="DIR", help=argparse.SUPPRESS)
+    p.set_defaults(func=_cmd_demo)
     return parser
 
 
@@ -99,6 +206,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except RiskvetError as exc:
         print(f"riskvet {args.command}: {exc}", file=sys.stderr)
         return 1
+    except KeyboardInterrupt:
+        print(f"riskvet {args.command}: interrupted", file=sys.stderr)
+        return 130
 
 
 if __name__ == "__main__":  # pragma: no cover
