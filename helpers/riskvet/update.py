@@ -39,6 +39,7 @@ from scipy import stats
 
 from ._jsonable import to_jsonable
 from ._links import link_parts
+from .calibration import OrdinalCalibration, ordinal_calibration
 from .design import DesignSpec, build_design
 from .errors import DataError, FitError, RiskvetError, RiskvetWarning, problem
 from .modelfile import PredictionModel, model_from_fit
@@ -285,6 +286,9 @@ class UpdateResult:
         By method, least extensive first.
     closed_test : ClosedTest
     performance : UpdatePerformance
+    calibration_before, calibration_after : OrdinalCalibration
+        Calibration of the original and of the chosen model on the updating
+        data (apparent; the "after" is optimistic), for the figure.
     warnings : tuple of str
         Statistical trouble from every fit, and the optimism warning.
     """
@@ -297,6 +301,8 @@ class UpdateResult:
     fits: Mapping[str, UpdateFit] = field(repr=False)
     closed_test: ClosedTest
     performance: UpdatePerformance = field(repr=False)
+    calibration_before: OrdinalCalibration = field(repr=False)
+    calibration_after: OrdinalCalibration = field(repr=False)
     warnings: tuple[str, ...]
 
     @property
@@ -315,6 +321,8 @@ class UpdateResult:
                 "fits": {k: v.to_dict() for k, v in self.fits.items()},
                 "closed_test": self.closed_test.to_dict(),
                 "performance": self.performance.to_dict(),
+                "calibration_before": self.calibration_before.to_frame(),
+                "calibration_after": self.calibration_after.to_frame(),
                 "warnings": list(self.warnings),
             }
         )
@@ -852,8 +860,17 @@ def _fit_all(model: PredictionModel, frame: pd.DataFrame, y: np.ndarray, *, new_
     return fits
 
 
-def _boot_replicate(model, frame, y, new_predictors, alpha, seed_seq, cohort):
-    """One bootstrap replicate of the whole update procedure (closed test + fit)."""
+class _UpdateReplicate:
+    """One bootstrap replicate of the whole update procedure (every fit, the closed test)."""
+
+    def __init__(self, model, frame, y, new_predictors, alpha, cohort):
+        self.args = (model, frame, y, new_predictors, alpha, cohort)
+
+    def __call__(self, stream):
+        return _boot_replicate(*self.args, stream)
+
+
+def _boot_replicate(model, frame, y, new_predictors, alpha, cohort, seed_seq):
     rng = np.random.default_rng(seed_seq)
     n = y.shape[0]
     idx = rng.integers(0, n, n)
@@ -885,6 +902,7 @@ def update_model(
     n_boot: int = 0,
     seed: int | None = None,
     n_jobs: int = 1,
+    scheduler: str | None = None,
 ) -> UpdateResult:
     """Fit the updating hierarchy on one cohort and choose an update by closed testing.
 
@@ -913,7 +931,9 @@ def update_model(
         Seed of the bootstrap; replicate i draws from stream i of
         ``SeedSequence(seed).spawn(n_boot)``.  Required when ``n_boot > 0``.
     n_jobs : int, keyword-only
-        joblib workers for the bootstrap.
+        Worker processes for the bootstrap (-1: every core).
+    scheduler : str, optional, keyword-only
+        Address of a dask.distributed scheduler (``compute.scheduler``).
 
     Returns
     -------
@@ -974,12 +994,9 @@ def update_model(
     table["corrected"] = np.nan
     n_failed = 0
     if n_boot > 0:
-        from joblib import Parallel, delayed
+        from .external import run_replicates
 
-        streams = np.random.SeedSequence(int(seed)).spawn(int(n_boot))
-        reps = Parallel(n_jobs=n_jobs)(
-            delayed(_boot_replicate)(model, frame_used, yy, new_predictors, a, s, cohort) for s in streams
-        )
+        reps = run_replicates(_UpdateReplicate(model, frame_used, yy, new_predictors, a, cohort), n_boot=int(n_boot), seed=int(seed), n_jobs=n_jobs, scheduler=scheduler)
         ok = [r for r in reps if r is not None]
         n_failed = len(reps) - len(ok)
         if ok:
@@ -993,6 +1010,10 @@ def update_model(
                     table.at[i, "optimism"] = optimism[key]
                     table.at[i, "corrected"] = table.at[i, "apparent"] - optimism[key]
     performance = UpdatePerformance(table=table, n_boot=int(n_boot), n_failed=n_failed, note=_OPTIMISM_NOTE)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RiskvetWarning)  # recorded on the calibration results
+        before = ordinal_calibration(yy, model.predict_proba(frame_used))
+        after = ordinal_calibration(yy, fits[test.chosen].model.predict_proba(frame_used))
     notes = [f"{m}: {w}" for m, f in fits.items() for w in f.warnings]
     if n_failed:
         notes.append(f"bootstrap: {n_failed} of {n_boot} replicates could not be evaluated and were left out")
@@ -1006,5 +1027,7 @@ def update_model(
         fits=fits,
         closed_test=test,
         performance=performance,
+        calibration_before=before,
+        calibration_after=after,
         warnings=tuple(notes),
     )
