@@ -79,7 +79,7 @@ class ItemAgreement:
         Categories in order (binary and ordinal items); empty for continuous.
     level_order : str
         How that order was decided: ``"numeric"``, ``"study levels"``,
-        ``"derivation levels"`` or ``"sorted as text"``.
+        ``"derivation levels"`` or ``"sorted as text"``; empty for continuous items.
     kappa : KappaResult or None
         Unweighted kappa (binary and ordinal).
     weighted_kappa : KappaResult or None
