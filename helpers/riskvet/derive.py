@@ -45,7 +45,7 @@ class Derivation:
     @property
     def fit(self):
         """The fitted final model (a :class:`riskvet.models.CumulativeFit`)."""
-        return self.selection.model
+        return self.selection.fit
 
     @property
     def terms(self) -> tuple[str, ...]:

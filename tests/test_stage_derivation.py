@@ -1,0 +1,61 @@
+"""The derivation stage on a small demo study folder."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+from riskvet.data import load_cohorts
+from riskvet.errors import RecordError, RiskvetError
+from riskvet.modelfile import load_model
+from riskvet.models import fit_cumulative
+from riskvet.scaffold import new_study_folder
+from riskvet.stagekit import stage_context
+from riskvet.stages import derivation
+
+
+@pytest.fixture(scope="module")
+def stage_run(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("study")
+    study_path = new_study_folder(folder, n_derivation=500, n_validation=300, n_ratings=40, n_boot=5)
+    ctx = stage_context("derivation", study_path=study_path, record_dir=folder / "records" / "r1")
+    return ctx, derivation.run(ctx)
+
+
+def test_stage_writes_model_results_and_figures(stage_run):
+    ctx, out = stage_run
+    results = json.loads(ctx.results_path.read_text())
+    assert results["cohort"]["n_analysed"] == out.derivation.fit.n_rows
+    assert results["terms"] == list(out.derivation.terms)
+    for name in ("selection_curve", "roc", "calibration"):
+        assert (ctx.record_dir / out.figures[name]).is_file()
+        assert (ctx.figures_dir / f"{name}.svg").is_file()
+    model = load_model(ctx.model_path)
+    assert model.digest() == out.model.digest()
+
+
+def test_frozen_model_equals_a_direct_refit_of_the_selected_terms(stage_run):
+    """The model file holds the maximum-likelihood fit of the chosen design on the analysed rows."""
+    ctx, out = stage_run
+    cohort = load_cohorts(ctx.study).derivation
+    X = out.derivation.design.transform(cohort.frame)
+    direct = fit_cumulative(X, cohort.y)
+    np.testing.assert_allclose(out.model.thresholds, direct.thresholds.to_numpy(), rtol=0, atol=1e-9)
+    np.testing.assert_allclose(out.model.coef, direct.coef.reindex(list(X.columns)).to_numpy(), rtol=0, atol=1e-9)
+    # apparent predictions from the file agree with the fitter's
+    np.testing.assert_allclose(load_model(ctx.model_path).predict_proba(cohort.frame), direct.predict_proba(X), atol=1e-9)
+
+
+def test_stage_never_overwrites_a_record(stage_run):
+    ctx, _ = stage_run
+    with pytest.raises((RecordError, RiskvetError), match="already exists"):
+        derivation.run(ctx)
+
+
+def test_results_hold_no_row_level_data(stage_run):
+    ctx, _ = stage_run
+    text = ctx.results_path.read_text()
+    ids = load_cohorts(ctx.study).derivation.frame[ctx.study.data.id_column].astype(str)
+    assert not any(i in text for i in ids)
