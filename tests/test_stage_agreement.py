@@ -12,12 +12,12 @@ import yaml
 from matplotlib.figure import Figure
 from sklearn.metrics import cohen_kappa_score
 
-from riskvet.agreement import bland_altman, icc_table, kappa
+from riskvet.agreement import icc_table, kappa
 from riskvet.data import load_cohorts
 from riskvet.design import build_design
 from riskvet.errors import ModelFileError, RecordError, RiskvetError, RiskvetWarning, StudyError
 from riskvet.modelfile import PredictionModel, save_model
-from riskvet.plots_agreement import bland_altman_figure
+from riskvet.plots_agreement import plot_item_agreement, plot_risk_agreement
 from riskvet.scaffold import new_study_folder
 from riskvet.stagekit import stage_context
 from riskvet.stages import agreement as stage
@@ -262,21 +262,29 @@ def test_refusals(folder, study, cohorts):
         stage.assess(study, cohorts=cohorts).item("no such item")
 
 
-def test_bland_altman_figure_draws_the_result():
-    a = np.array([10.0, 12, 14, 16, 18, 20, 20])
-    b = np.array([11.0, 12, 13, 17, 18, 21, 21])
-    r = bland_altman(a, b)
-    fig = bland_altman_figure(r, title="t", measure="rate", units="per min")
+def _line_levels(fig):
+    return sorted(float(line.get_ydata()[0]) for line in fig.axes[0].lines if line.get_linestyle() != "None")
+
+
+def test_figures_draw_the_results(study, cohorts):
+    out = stage.assess(study, cohorts=cohorts, model=_model(study, cohorts, COEF, categorical={"sex": "female"}))
+    item = out.item("resp_rate")
+    fig = plot_item_agreement(item)
     assert isinstance(fig, Figure)
-    ax = fig.axes[0]
-    levels = sorted(line.get_ydata()[0] for line in ax.lines)
-    assert levels == pytest.approx(sorted([0.0, r.bias, r.lower, r.upper]))
-    # The two identical pairs (20, 21) are one marker twice the area of the others.
-    sizes = ax.collections[0].get_sizes()
-    assert len(sizes) == 6 and sorted(sizes)[-1] == 2 * sorted(sizes)[0]
-    pct = bland_altman_figure(bland_altman(a / 100, b / 100), percent=True)
-    assert sorted(line.get_ydata()[0] for line in pct.axes[0].lines) == pytest.approx(levels)
-    with pytest.raises(RiskvetError, match="BlandAltmanResult"):
-        bland_altman_figure({"bias": 0})
-    with pytest.raises(RiskvetError, match="raters"):
-        bland_altman_figure(r, raters=("only one",))
+    ba = item.bland_altman
+    assert _line_levels(fig) == pytest.approx(sorted([0.0, ba.bias, ba.lower, ba.upper]), abs=1e-12)
+    points = next(line for line in fig.axes[0].lines if line.get_linestyle() == "None")
+    assert np.array_equal(points.get_ydata(), ba.differences)
+    assert item.rater_a in fig.axes[0].get_ylabel()
+    # Risks are drawn in percent: every line and point is the result times 100.
+    cut = out.risk.cuts[0]
+    fig = plot_risk_agreement(cut)
+    r = cut.risks
+    assert _line_levels(fig) == pytest.approx(sorted([0.0, 100 * r.bias, 100 * r.lower, 100 * r.upper]), abs=1e-10)
+    points = next(line for line in fig.axes[0].lines if line.get_linestyle() == "None")
+    assert np.allclose(points.get_xdata(), 100 * r.means, rtol=0, atol=1e-12)
+    assert cut.label in fig.axes[0].get_title(loc="left")
+    with pytest.raises(RiskvetError, match="continuous item"):
+        plot_item_agreement(out.item("confusion"))
+    with pytest.raises(RiskvetError, match="CutRiskAgreement"):
+        plot_risk_agreement(r)

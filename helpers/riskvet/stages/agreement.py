@@ -616,7 +616,7 @@ def run(ctx) -> AgreementOutput:
     RecordError
         The record already holds this stage's results.
     """
-    from ..plots_agreement import bland_altman_figure
+    from ..plots_agreement import plot_item_agreement, plot_risk_agreement
 
     if ctx.results_path.exists():
         ctx.new_path(ctx.results_path)  # raises: records are write-once, checked before any work
@@ -631,13 +631,11 @@ def run(ctx) -> AgreementOutput:
     for item in out.items:
         if item.bland_altman is not None:
             name = _figure_name("bland_altman", item.name)
-            save(name, bland_altman_figure(item.bland_altman, title=f"{item.name}: {item.rater_a} versus {item.rater_b}",
-                                           measure=f"{item.name} reading", raters=(item.rater_a, item.rater_b)))
+            save(name, plot_item_agreement(item))
     if out.risk is not None:
         for c in out.risk.cuts:
             name = f"risk_bland_altman_cut{c.cut}"
-            save(name, bland_altman_figure(c.risks, title=f"Predicted risk of '{c.label}' from each rater's readings",
-                                           measure="predicted risk", raters=("rater_a", "rater_b"), percent=True))
+            save(name, plot_risk_agreement(c))
     out = dataclasses.replace(out, figures=figures)
     ctx.write_results(out.to_dict())
     return out
