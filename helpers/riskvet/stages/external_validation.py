@@ -1,0 +1,295 @@
+"""The external validation stage: the frozen model in every validation cohort.
+
+For each validation cohort the study names, :func:`run`
+
+* refuses a cohort the model's design cannot encode (naming the column and
+  the values);
+* compares its case-mix with the derivation cohort
+  (:func:`riskvet.casemix.case_mix`);
+* measures the model's performance with bootstrap intervals, at the study's
+  thresholds and in its subgroups (:func:`riskvet.external.validate_cohort`);
+* compares the model with the existing rule when the study records one
+  (:func:`riskvet.rule.compare_with_rule`);
+
+then writes ``results/external_validation.json`` and the figures.  The model
+is never refitted here; updating is the next stage.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+from typing import Any, Mapping
+
+import pandas as pd
+
+from .._jsonable import to_jsonable
+from ..casemix import CaseMix, case_mix
+from ..data import Cohorts, load_cohorts
+from ..errors import StudyError, problem
+from ..external import CohortValidation, apply_model, validate_cohort
+from ..modelfile import PredictionModel, load_model
+from ..rule import RuleComparison, compare_with_rule
+from ..study import Study
+
+__all__ = ["ExternalValidationOutput", "validate_external", "run", "figure_name"]
+
+_CAUTION = (
+    "Statistical evaluation is not clearance for clinical use: local validation, governance and "
+    "licensed clinical judgement decide whether a model is used."
+)
+
+
+def figure_name(kind: str, label: str) -> str:
+    """File-safe figure name ``<kind>_<label>`` (characters other than letters, digits, ``.-_`` become ``-``)."""
+    return f"{kind}_{re.sub(r'[^A-Za-z0-9._-]+', '-', label).strip('-') or 'cohort'}"
+
+
+@dataclass(frozen=True)
+class ExternalValidationOutput:
+    """Everything the external validation stage found.
+
+    Attributes
+    ----------
+    model_sha256 : str
+        Digest of the frozen model validated.
+    cohorts : dict of str to CohortValidation
+        Performance by cohort label, in study order.
+    case_mix : dict of str to CaseMix
+        Case-mix against the derivation cohort, by label.
+    rule : dict of str to RuleComparison
+        Comparison with the existing rule, by label (empty without a rule).
+    figures : dict of str to str
+        Figure name -> PNG path relative to the record.
+    texts : dict of str to str
+        One interpreting paragraph per notebook table or figure:
+        ``case_mix``, ``performance``, ``calibration``, ``thresholds``,
+        ``decision``, ``subgroups``, ``rule``, ``caution``.
+    notes : tuple of str
+        Statistical warnings met, by cohort.
+    """
+
+    model_sha256: str
+    cohorts: Mapping[str, CohortValidation] = field(repr=False)
+    case_mix: Mapping[str, CaseMix] = field(repr=False)
+    rule: Mapping[str, RuleComparison] = field(repr=False)
+    figures: Mapping[str, str]
+    texts: Mapping[str, str]
+    notes: tuple[str, ...]
+
+    # -- tables for the notebook ------------------------------------------------------
+    def case_mix_frame(self) -> pd.DataFrame:
+        """Derivation and each validation cohort side by side (``cohort`` column first)."""
+        parts = []
+        for label, cm in self.case_mix.items():
+            t = cm.to_frame()
+            t.insert(0, "cohort", label)
+            parts.append(t)
+        return pd.concat(parts, ignore_index=True)
+
+    def membership_frame(self) -> pd.DataFrame:
+        """Linear predictor and membership-model summary, one row per cohort."""
+        return pd.concat([cm.summary_frame() for cm in self.case_mix.values()], ignore_index=True)
+
+    def performance_frame(self) -> pd.DataFrame:
+        """Headline measures with bootstrap intervals, every cohort stacked."""
+        return pd.concat([c.to_frame() for c in self.cohorts.values()], ignore_index=True)
+
+    def calibration_frame(self) -> pd.DataFrame:
+        """Per-cut calibration summaries with model-based intervals, every cohort."""
+        return pd.concat([c.calibration_frame() for c in self.cohorts.values()], ignore_index=True)
+
+    def threshold_frame(self) -> pd.DataFrame:
+        """Classification at the study's thresholds, every cohort."""
+        return pd.concat([c.threshold_frame() for c in self.cohorts.values()], ignore_index=True)
+
+    def subgroup_frame(self) -> pd.DataFrame:
+        """Subgroup measures (``small`` flags subgroups too small to read), every cohort."""
+        parts = []
+        for label, c in self.cohorts.items():
+            t = c.subgroups.copy()
+            t.insert(0, "cohort", label)
+            parts.append(t)
+        return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()
+
+    def rule_frame(self) -> pd.DataFrame:
+        """Model against rule: C per cut with the DeLong test and bootstrap interval."""
+        return pd.concat([r.to_frame() for r in self.rule.values()], ignore_index=True) if self.rule else pd.DataFrame()
+
+    def rule_net_benefit_frame(self) -> pd.DataFrame:
+        """Model against rule: net benefit at the study's thresholds."""
+        return pd.concat([r.net_benefit_frame() for r in self.rule.values()], ignore_index=True) if self.rule else pd.DataFrame()
+
+    def to_frame(self) -> pd.DataFrame:
+        return self.performance_frame()
+
+    def to_dict(self) -> dict[str, Any]:
+        return to_jsonable(
+            {
+                "model_sha256": self.model_sha256,
+                "cohorts": {k: v.to_dict() for k, v in self.cohorts.items()},
+                "case_mix": {k: v.to_dict() for k, v in self.case_mix.items()},
+                "rule": {k: v.to_dict() for k, v in self.rule.items()},
+                "figures": dict(self.figures),
+                "texts": dict(self.texts),
+                "notes": list(self.notes),
+            }
+        )
+
+
+def _thresholds(study: Study) -> dict[int, tuple[float, ...]]:
+    K = len(study.outcome.ordered_levels)
+    return {j: tuple(study.thresholds_for_cut(j)) for j in range(K - 1) if study.thresholds_for_cut(j)}
+
+
+def _texts(out: dict[str, Any], study: Study) -> dict[str, str]:
+    cohorts: Mapping[str, CohortValidation] = out["cohorts"]
+    texts = {
+        "caution": _CAUTION,
+        "case_mix": " ".join(cm.interpretation for cm in out["case_mix"].values()),
+        "performance": " ".join(c.summary() for c in cohorts.values()),
+    }
+    cal = []
+    for c in cohorts.values():
+        worst = max(c.calibration.cuts, key=lambda r: r.ici)
+        cal.append(
+            f"In {c.label} the smoothed curves lie {'below' if worst.calibration_in_the_large < 0 else 'above'} the diagonal "
+            f"where the intercept is {'negative' if worst.calibration_in_the_large < 0 else 'positive'}; the largest average "
+            f"distance from it (ICI) is {worst.ici:.3f} for the cut at {c.levels[worst.cut + 1]}."
+        )
+    texts["calibration"] = " ".join(cal)
+    if any(c.threshold_tables for c in cohorts.values()):
+        parts = []
+        for c in cohorts.values():
+            for cut, tab in c.threshold_tables.items():
+                items = ", ".join(f"{t:g}: sensitivity {se:.2f}, specificity {sp:.2f}" for t, se, sp in zip(tab.threshold, tab.sensitivity, tab.specificity))
+                parts.append(f"In {c.label}, for Y >= {c.levels[cut + 1]} at thresholds {items}.")
+        texts["thresholds"] = " ".join(parts)
+    else:
+        texts["thresholds"] = "The study lists no risk thresholds, so no classification table is shown."
+    dec = []
+    for c in cohorts.values():
+        for curve in c.decision_curves:
+            above = (curve.net_benefit > curve.treat_all) & (curve.net_benefit > 0)
+            span = f"from {curve.threshold[above].min():.2f} to {curve.threshold[above].max():.2f}" if above.any() else "at no threshold"
+            dec.append(f"In {c.label}, for Y >= {c.levels[curve.cut + 1]} the model beats both treating everybody and treating nobody {span}.")
+    texts["decision"] = " ".join(dec)
+    if study.external_validation.subgroups:
+        texts["subgroups"] = " ".join(
+            f"In {c.label}: {len(c.subgroup_sizes)} subgroup(s), {int(c.subgroup_sizes['small'].sum())} below "
+            f"{c.min_subgroup_size} patients and flagged (read their intervals, not their point estimates)."
+            for c in cohorts.values()
+        )
+    else:
+        texts["subgroups"] = "The study names no subgroups."
+    texts["rule"] = " ".join(r.summary() for r in out["rule"].values()) if out["rule"] else "The study records no existing rule."
+    return texts
+
+
+def validate_external(study: Study, model: PredictionModel, cohorts: Cohorts) -> dict[str, Any]:
+    """Case-mix, performance and rule comparison in every validation cohort.
+
+    Parameters
+    ----------
+    study : Study
+    model : PredictionModel
+        The frozen model.
+    cohorts : Cohorts
+        From :func:`riskvet.data.load_cohorts`.
+
+    Returns
+    -------
+    dict
+        ``cohorts``, ``case_mix`` and ``rule``, each by cohort label.
+
+    Raises
+    ------
+    StudyError
+        The study names no validation cohort.
+    DesignError
+        A cohort the model cannot encode (naming the cohort, column and values).
+    """
+    if not cohorts.validation:
+        raise StudyError(problem("data.validation", allowed="at least one validation cohort for external validation", received=[]))
+    ev = study.external_validation
+    thresholds = _thresholds(study)
+    rule = study.existing_rule
+    results: dict[str, Any] = {"cohorts": {}, "case_mix": {}, "rule": {}}
+    for label, cohort in cohorts.validation.items():
+        prob = apply_model(model, cohort.frame, label=label)  # refuse early, naming the cohort
+        results["case_mix"][label] = case_mix(model, cohorts.derivation, cohort, outcome_labels=dict(study.outcome.labels), seed=ev.seed)
+        results["cohorts"][label] = validate_cohort(
+            model, cohort.frame, cohort.y, label=label, thresholds=thresholds, subgroups=ev.subgroups,
+            min_subgroup_size=ev.min_subgroup_size, n_boot=ev.n_boot, seed=ev.seed,
+            n_jobs=study.compute.n_jobs, scheduler=study.compute.scheduler,
+        )
+        if rule is not None and cohort.rule_column is not None:
+            results["rule"][label] = compare_with_rule(
+                cohort.y, prob, cohort.frame[rule.column], kind=rule.kind, levels=rule.levels,
+                positive_from=rule.positive_from, thresholds=thresholds, outcome_levels=cohort.outcome_levels,
+                label=label, rule_column=rule.column, n_boot=ev.n_boot, seed=ev.seed,
+                n_jobs=study.compute.n_jobs, scheduler=study.compute.scheduler,
+            )
+    return results
+
+
+def run(ctx) -> ExternalValidationOutput:
+    """Run the external validation stage: results JSON and figures.
+
+    Parameters
+    ----------
+    ctx : riskvet.stagekit.StageContext
+        The stage's context; the model validated is ``ctx.model_path``.
+
+    Returns
+    -------
+    ExternalValidationOutput
+
+    Raises
+    ------
+    RecordError
+        The record already holds this stage's results.
+    ModelFileError
+        The model file is missing or altered.
+    """
+    from ..plots_external import plot_case_mix, plot_cohort_calibration, plot_cohort_decision_curves, plot_rule_comparison, plot_subgroups
+
+    if ctx.results_path.exists():
+        ctx.new_path(ctx.results_path)  # raises: records are write-once, checked before any work
+    study = ctx.study
+    model = load_model(ctx.model_path)
+    cohorts = load_cohorts(study)
+    results = validate_external(study, model, cohorts)
+
+    figures: dict[str, str] = {}
+
+    def save(name: str, fig) -> None:
+        ctx.save_figure(fig, name)
+        figures[name] = (ctx.figures_dir / f"{name}.png").relative_to(ctx.record_dir).as_posix()
+
+    save("case_mix", plot_case_mix(list(results["case_mix"].values())))
+    for label, c in results["cohorts"].items():
+        save(figure_name("calibration", label), plot_cohort_calibration(c))
+        save(figure_name("decision", label), plot_cohort_decision_curves(c, results["rule"].get(label)))
+        if len(c.subgroups):
+            save(figure_name("subgroups", label), plot_subgroups(c))
+    for label, r in results["rule"].items():
+        save(figure_name("rule", label), plot_rule_comparison(r))
+
+    notes = []
+    for label, c in results["cohorts"].items():
+        notes += [f"{label}: {w}" for w in c.warnings]
+        notes += [f"{label}: case-mix: {w}" for w in results["case_mix"][label].warnings]
+    for label, r in results["rule"].items():
+        notes += [f"{label}: rule: {w}" for w in r.warnings]
+    out = ExternalValidationOutput(
+        model_sha256=model.digest(),
+        cohorts=results["cohorts"],
+        case_mix=results["case_mix"],
+        rule=results["rule"],
+        figures=figures,
+        texts=_texts(results, study),
+        notes=tuple(notes),
+    )
+    ctx.write_results(out.to_dict())
+    return out
