@@ -117,6 +117,8 @@ def test_predictor_agreement_matches_references(folder, study, raw_ratings, tmp_
             assert png.is_file() and png.with_suffix(".svg").is_file()
     assert saved["risk"] is None
     assert "needs the frozen model" in saved["risk_note"]
+    assert saved["texts"]["summary"].endswith("Agreement of predicted risk was not assessed.")
+    assert f"confusion kappa {items['confusion']['kappa']['value']:.2f}" in saved["texts"]["summary"]
     # No figure for the risk without a model.
     assert sorted(saved["figures"]) == ["bland_altman_resp_rate"]
 

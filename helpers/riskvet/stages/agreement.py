@@ -281,7 +281,8 @@ class AgreementOutput:
     figures : dict of str to str
         Figure name -> PNG path relative to the record folder (filled by :func:`run`).
     texts : dict of str to str
-        Interpreting sentences: ``"items"`` and ``"risk"``.
+        Interpreting sentences: ``"summary"`` (one line per stage for the
+        record's summary), ``"items"`` and ``"risk"``.
     """
 
     items: tuple[ItemAgreement, ...]
@@ -590,7 +591,27 @@ def assess(study: Study, *, cohorts: Cohorts | None = None, model: PredictionMod
     else:
         risk, note = _risk_agreement(study, cohorts, model, ratings)
         risk_text = note if risk is None else note + " " + " ".join(c.text for c in risk.cuts)
-    return AgreementOutput(items=items, risk=risk, risk_note=note, texts={"items": items_text, "risk": risk_text})
+    return AgreementOutput(items=items, risk=risk, risk_note=note,
+                           texts={"summary": _summary(items, risk), "items": items_text, "risk": risk_text})
+
+
+def _summary(items: tuple[ItemAgreement, ...], risk: RiskAgreement | None) -> str:
+    parts = []
+    for it in items:
+        if it.kappa is not None:
+            k = it.weighted_kappa if it.weighted_kappa is not None else it.kappa
+            kind = "quadratic-weighted kappa" if it.weighted_kappa is not None else "kappa"
+            parts.append(f"{it.name} {kind} {_fmt(k.value)} ({_fmt(k.lower)} to {_fmt(k.upper)})")
+        elif it.icc is not None:
+            r = it.icc["2,1"]
+            parts.append(f"{it.name} ICC(2,1) {_fmt(r.value)} ({_fmt(r.lower)} to {_fmt(r.upper)}), "
+                         f"limits of agreement {_fmt(it.bland_altman.lower, 3)} to {_fmt(it.bland_altman.upper, 3)}")
+    text = "Rater agreement: " + "; ".join(parts) + "." if parts else "Rater agreement could not be computed for any item."
+    if risk is None:
+        return text + " Agreement of predicted risk was not assessed."
+    limits = "; ".join(f"'{c.label}' {_fmt(c.risks.lower * 100, 1)} to {_fmt(c.risks.upper * 100, 1)}" for c in risk.cuts)
+    fixed = ", other predictors fixed" if risk.fixed else ""
+    return text + f" Limits of agreement of the predicted risk from each rater's readings (percentage points{fixed}): {limits}."
 
 
 def _figure_name(prefix: str, name: str) -> str:
