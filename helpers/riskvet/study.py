@@ -44,8 +44,8 @@ __all__ = [
 #: Stages of the analysis chain, in the order they run.
 STAGES = (
     "planning",
-    "agreement",
     "derivation",
+    "agreement",
     "internal_validation",
     "external_validation",
     "updating",
