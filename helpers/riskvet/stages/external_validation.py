@@ -63,8 +63,9 @@ class ExternalValidationOutput:
         Figure name -> PNG path relative to the record.
     texts : dict of str to str
         One interpreting paragraph per notebook table or figure:
-        ``case_mix``, ``performance``, ``calibration``, ``thresholds``,
-        ``decision``, ``subgroups``, ``rule``, ``caution``.
+        ``case_mix``, ``membership``, ``linear_predictor``, ``performance``,
+        ``calibration``, ``thresholds``, ``decision``, ``subgroups``,
+        ``rule``, ``caution``.
     notes : tuple of str
         Statistical warnings met, by cohort.
     """
@@ -146,9 +147,26 @@ def _texts(out: dict[str, Any], study: Study) -> dict[str, str]:
     cohorts: Mapping[str, CohortValidation] = out["cohorts"]
     texts = {
         "caution": _CAUTION,
-        "case_mix": " ".join(cm.interpretation for cm in out["case_mix"].values()),
+        "membership": " ".join(cm.interpretation for cm in out["case_mix"].values()),
         "performance": " ".join(c.summary() for c in cohorts.values()),
     }
+    largest, spread = [], []
+    for label, cm in out["case_mix"].items():
+        t = cm.to_frame()
+        t = t[(t["variable"] != "linear predictor") & t["standardised_difference"].notna()]
+        top = t.reindex(t["standardised_difference"].abs().sort_values(ascending=False).index).head(3)
+        items = ", ".join(f"{' '.join(p for p in (r.variable, r.level) if p)} ({r.standardised_difference:+.2f})" for r in top.itertuples())
+        n_big = int((t["standardised_difference"].abs() >= 0.1).sum())
+        largest.append(
+            f"In {label}, {n_big} of {len(t)} rows differ from the derivation cohort by a standardised difference of at "
+            f"least 0.1 (a common reading of meaningful imbalance); the largest are {items}."
+        )
+        spread.append(
+            f"In {label} the linear predictor has mean {cm.lp_mean_validation:.2f} and SD {cm.lp_sd_validation:.2f}, "
+            f"against {cm.lp_mean_derivation:.2f} and {cm.lp_sd_derivation:.2f} at derivation (SD ratio {cm.lp_sd_ratio:.2f})."
+        )
+    texts["case_mix"] = " ".join(largest)
+    texts["linear_predictor"] = " ".join(spread)
     cal = []
     for c in cohorts.values():
         worst = max(c.calibration.cuts, key=lambda r: r.ici)
