@@ -909,8 +909,57 @@ def _run_batch_from_file(worker: Callable, path: str, batch: Sequence[Any]) -> l
     return _run_batch(worker, _cached_payload(path), batch)
 
 
+class _NotebookLine:
+    """Progress as one output line of a notebook, redrawn in place.
+
+    The line is a display with an id, updated rather than appended to, so an
+    executed notebook stores only its last state: one line, however many
+    replicates ran.
+    """
+
+    def __init__(self, total: int, desc: str):
+        import time
+
+        from IPython.display import Pretty, display
+
+        self._clock = time.monotonic
+        self._pretty = Pretty
+        self.total, self.desc, self.n = total, desc, 0
+        self.start = self._last = self._clock()
+        self.handle = display(Pretty(self._text()), display_id=True)
+
+    def _text(self) -> str:
+        elapsed = self._clock() - self.start
+        eta = elapsed / self.n * (self.total - self.n) if self.n else float("nan")
+        tail = f", about {eta:.0f} s left" if self.n and self.n < self.total else f" in {elapsed:.0f} s" if self.n else ""
+        return f"{self.desc}: {self.n} of {self.total} done{tail}"
+
+    def update(self, k: int) -> None:
+        self.n += k
+        now = self._clock()
+        if self.handle is not None and (now - self._last >= 0.5 or self.n >= self.total):
+            self._last = now
+            self.handle.update(self._pretty(self._text()))
+
+    def close(self) -> None:
+        if self.handle is not None:
+            self.handle.update(self._pretty(self._text()))
+
+
+def _in_notebook() -> bool:
+    shell = sys.modules.get("IPython")
+    if shell is None or "ipykernel" not in sys.modules:
+        return False
+    try:
+        ip = shell.get_ipython()
+    except AttributeError:
+        return False
+    return ip is not None and getattr(ip, "kernel", None) is not None
+
+
 def _progress_bar(total: int, desc: str, enabled: bool):
-    """A tqdm bar: live with ETA on a terminal; elsewhere (notebooks, logs) about ten updates on one line."""
+    """Progress: a tqdm bar with ETA on a terminal; one line updated in place in a notebook;
+    about ten redraws of one line elsewhere (logs)."""
     from tqdm import tqdm
 
     if not enabled:
@@ -918,8 +967,8 @@ def _progress_bar(total: int, desc: str, enabled: bool):
     stream = sys.stderr
     if getattr(stream, "isatty", lambda: False)():
         return tqdm(total=total, desc=desc, unit="rep", file=stream, dynamic_ncols=True)
-    # Papermill stores every write to stderr in the executed notebook, so the
-    # bar redraws rarely there: at most about ten times on a single line.
+    if _in_notebook():
+        return _NotebookLine(total, desc)
     return tqdm(total=total, desc=desc, unit="rep", file=stream, ncols=80, ascii=True,
                 mininterval=0.0, miniters=max(1, math.ceil(total / 10)), smoothing=0.0)
 

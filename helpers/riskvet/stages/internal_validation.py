@@ -140,7 +140,8 @@ def _model_check(ctx, validation: InternalValidation) -> str:
     )
 
 
-def _texts(validation: InternalValidation, crossval: CrossValidation | None, shrunk: str | None, notes: list[str]) -> dict[str, str]:
+def _texts(validation: InternalValidation, crossval: CrossValidation | None, shrunk: str | None, notes: list[str],
+           model_check: str) -> dict[str, str]:
     texts = {
         "summary": validation.summary_sentence,
         "table": (
@@ -168,11 +169,13 @@ def _texts(validation: InternalValidation, crossval: CrossValidation | None, shr
     if shrunk is not None:
         texts["shrunken_model"] = (
             f"A uniformly shrunken model was written to {shrunk}: its coefficients are the frozen model's times "
-            f"{validation.shrinkage.bootstrap:.3f}, and its thresholds were re-estimated so that the average "
-            "predicted risk matches the derivation data. Use it instead of the original only by a documented decision."
+            f"{validation.shrinkage.bootstrap:.3f}, and its thresholds were re-fitted on the derivation data with "
+            "the shrunken linear predictor held fixed, so that the overall level of risk stays anchored to the data. "
+            "Use it instead of the original only by a documented decision."
         )
     else:
         texts["shrunken_model"] = "No shrunken model was written" + (f": {notes[-1]}." if notes else ".")
+    texts["shrunken_model"] += f" Model check: {model_check}."
     return texts
 
 
@@ -235,14 +238,15 @@ def run(ctx) -> InternalValidationOutput:
     save("calibration_slopes", plot_calibration_slopes(validation))
     save("selection_frequency", plot_selection_frequency(validation.stability))
 
+    check = _model_check(ctx, validation)
     out = InternalValidationOutput(
         validation=validation,
         crossval=crossval,
         shrunken_model=shrunk,
-        model_check=_model_check(ctx, validation),
+        model_check=check,
         notes=tuple(notes),
         figures=figures,
-        texts=_texts(validation, crossval, shrunk, notes),
+        texts=_texts(validation, crossval, shrunk, notes, check),
     )
     ctx.write_results(out.to_dict())
     return out
