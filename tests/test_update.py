@@ -9,7 +9,7 @@ coefficients) for the choice of the closed test.
 from __future__ import annotations
 
 import json
-import warnings
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -37,6 +37,7 @@ from riskvet.update import (
 )
 
 LINEAR = ["heart_rate", "systolic_bp", "resp_rate", "confusion", "collapse", "vomiting", "dry_skin", "wbgt", "prior_heat_illness"]
+TEMPLATES = Path(__file__).resolve().parents[1] / "templates"
 OUTCOME = {"column": "disposition", "type": "ordinal", "levels": list(demo.LEVELS), "labels": {}}
 
 
@@ -430,9 +431,7 @@ def test_updating_stage_writes_new_model_files_and_refuses_a_second_run(record):
 def test_updating_notebook_template():
     import nbformat
 
-    from riskvet.runner import default_templates_dir
-
-    nb = nbformat.read(default_templates_dir() / "updating.ipynb", as_version=4)
+    nb = nbformat.read(TEMPLATES / "updating.ipynb", as_version=4)
     first = nb.cells[0]
     assert first.cell_type == "markdown" and first.source.startswith("# ")
     assert "not clearance for clinical use" in first.source
