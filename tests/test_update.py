@@ -428,18 +428,22 @@ def test_updating_stage_writes_new_model_files_and_refuses_a_second_run(record):
     assert "GW-0" not in ctx.results_path.read_text()
 
 
-def test_updating_notebook_template():
-    import nbformat
+def _cells(name: str) -> list[dict]:
+    nb = json.loads((TEMPLATES / name).read_text(encoding="utf-8"))
+    return [{**c, "source": "".join(c["source"])} for c in nb["cells"]]
 
-    nb = nbformat.read(TEMPLATES / "updating.ipynb", as_version=4)
-    first = nb.cells[0]
-    assert first.cell_type == "markdown" and first.source.startswith("# ")
-    assert "not clearance for clinical use" in first.source
-    params = nb.cells[1]
-    assert params.metadata.get("tags") == ["parameters"]
-    assert params.source == 'study_path = ""\nrecord_dir = ""\nmodel_path = ""'
-    assert 'stagekit.open_stage("updating", globals())' in nb.cells[2].source
-    assert "optimistic" in first.source
-    for cell in nb.cells:
-        if cell.cell_type == "code":
-            assert cell.outputs == [] and cell.execution_count is None
+
+def test_updating_notebook_template():
+    cells = _cells("updating.ipynb")
+    first = cells[0]
+    assert first["cell_type"] == "markdown" and first["source"].startswith("# ")
+    assert "not clearance for clinical use" in first["source"]
+    assert "optimistic" in first["source"]
+    params = cells[1]
+    assert params["metadata"].get("tags") == ["parameters"]
+    assert params["source"] == 'study_path = ""\nrecord_dir = ""\nmodel_path = ""'
+    assert 'stagekit.open_stage("updating", globals())' in cells[2]["source"]
+    assert "updating.run(ctx)" in cells[3]["source"] or "stage.run(ctx)" in cells[3]["source"]
+    for cell in cells:
+        if cell["cell_type"] == "code":
+            assert cell["outputs"] == [] and cell["execution_count"] is None
