@@ -16,6 +16,7 @@ array-level fitter used by variable selection and resampling.
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import math
 import warnings
@@ -37,6 +38,28 @@ from .errors import (
 )
 
 __all__ = ["fit_cumulative", "CumulativeFit", "LRTest"]
+
+try:
+    from threadpoolctl import ThreadpoolController
+except ImportError:  # pragma: no cover - threadpoolctl comes with scikit-learn
+    ThreadpoolController = None
+_BLAS_CONTROLLER = None
+
+
+def one_blas_thread():
+    """Context manager limiting BLAS to one thread (no-op without threadpoolctl).
+
+    The fitter's matrix products are small (n x p with p in the tens), for
+    which a second BLAS thread buys nothing and, on a busy machine, costs
+    far more in synchronisation than the product itself.  The previous
+    limit is restored on exit.
+    """
+    global _BLAS_CONTROLLER
+    if ThreadpoolController is None:
+        return contextlib.nullcontext()
+    if _BLAS_CONTROLLER is None:
+        _BLAS_CONTROLLER = ThreadpoolController()
+    return _BLAS_CONTROLLER.limit(limits=1, user_api="blas")
 
 # Newton-Raphson stops when the Newton decrement g' H^{-1} g (twice the
 # predicted log-likelihood gain of the next step) falls below this; a last
@@ -67,8 +90,8 @@ class _Design(NamedTuple):
     ``s1 = starts[1]`` on; ``order`` maps sorted rows back to input rows.
     """
 
-    X: np.ndarray  # n x p, float64, sorted rows
-    XT: np.ndarray  # p x n, C-contiguous copy of X.T
+    X: np.ndarray  # n x p, float64, sorted rows (a view of XT.T)
+    XT: np.ndarray  # p x n, C-contiguous
     y: np.ndarray  # n, int64 levels, sorted
     K: int
     starts: np.ndarray  # K + 1 row offsets of the levels
@@ -134,22 +157,24 @@ def _ab_matrices(X: np.ndarray, iu: np.ndarray, il: np.ndarray, m: int, proporti
 
 
 def _make_design(X, y, K, w, off, link, proportional, unit=False) -> _Design:
+    # Only the transposed copy is stored; X is its (Fortran-ordered) view.
     if y.shape[0] > 1 and np.any(y[1:] < y[:-1]):
         order = np.argsort(y, kind="stable")
-        X = X[order]
+        XT = np.take(np.ascontiguousarray(X.T, dtype=float), order, axis=1)
         y = y[order]
         w = w[order]
         off = None if off is None else off[order]
     else:
         order = None
-    X = np.ascontiguousarray(X, dtype=float)
+        XT = np.ascontiguousarray(X.T, dtype=float)
+    X = XT.T
     starts = np.zeros(K + 1, dtype=np.int64)
     starts[1:] = np.cumsum(np.bincount(y, minlength=K)[:K])
     A = B = None
     if not proportional:
         m = K - 1
         A, B = _ab_matrices(X, np.minimum(y, m - 1), np.maximum(y - 1, 0), m, False)
-    return _Design(X, np.ascontiguousarray(X.T), y, K, starts, w, unit, off, order, link, proportional, A, B)
+    return _Design(X, XT, y, K, starts, w, unit, off, order, link, proportional, A, B)
 
 
 def _logit_parts(t: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -204,9 +229,10 @@ def _evaluate(d: _Design, phi: np.ndarray) -> tuple[float, tuple]:
     the row weight.  ``P`` is taken as ``S(b) - S(a)`` when ``b > 0`` so that
     small probabilities in the upper tail keep their precision.
 
-    The pieces are full-length arrays over the sorted rows: ``l_a`` and
-    ``l_aa`` are zero on the top level, ``l_b`` and ``l_bb`` on the bottom
-    level, ``l_ab`` outside the middle levels.
+    The pieces are compact: ``l_a``, ``l_aa`` over the rows with an upper
+    threshold (the first ``n_a``), ``l_b``, ``l_bb`` over the rows with a
+    lower one (from ``s1``), ``l_ab`` over the middle levels (``s1..n_a``),
+    then ``P`` over all rows.
     """
     n = d.y.shape[0]
     n_a, s1 = d.n_a, d.s1
@@ -224,40 +250,38 @@ def _evaluate(d: _Design, phi: np.ndarray) -> tuple[float, tuple]:
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         logP = np.log(P)
         ll = float(logP.sum()) if d.unit else float(d.w @ logP)
-        ra = fa / Pa
+        la = fa / Pa
         rb = fb / Pb
-        la = ra
-        laa = dfa / Pa - ra * ra
+        laa = dfa / Pa - la * la
         lb = -rb
         lbb = -dfb / Pb - rb * rb
-        lab = ra[s1:] * rb[:n_mid]
+        lab = la[s1:] * rb[:n_mid]
     if not d.unit:
-        la = la * d.w[:n_a]
-        laa = laa * d.w[:n_a]
-        lb = lb * d.w[s1:]
-        lbb = lbb * d.w[s1:]
+        wa = d.w[:n_a]
+        wb = d.w[s1:]
+        la = la * wa
+        laa = laa * wa
+        lb = lb * wb
+        lbb = lbb * wb
         lab = lab * d.w[s1:n_a]
-    ga = np.zeros(n)
-    ga[:n_a] = la
-    gb = np.zeros(n)
-    gb[s1:] = lb
-    haa = np.zeros(n)
-    haa[:n_a] = laa
-    hbb = np.zeros(n)
-    hbb[s1:] = lbb
-    hab = np.zeros(n)
-    hab[s1:n_a] = lab
-    return ll, (ga, gb, haa, hbb, hab, P)
+    return ll, (la, lb, laa, lbb, lab, P)
+
+
+def _full_pieces(d: _Design, pieces: tuple) -> tuple[np.ndarray, ...]:
+    """The compact pieces as arrays over all rows (zero where a piece is absent)."""
+    la, lb, laa, lbb, lab, _ = pieces
+    n = d.y.shape[0]
+    n_a, s1 = d.n_a, d.s1
+    out = []
+    for arr, sl in ((la, slice(0, n_a)), (lb, slice(s1, n)), (laa, slice(0, n_a)), (lbb, slice(s1, n)), (lab, slice(s1, n_a))):
+        full = np.zeros(n)
+        full[sl] = arr
+        out.append(full)
+    return tuple(out)
 
 
 def _loglik_only(d: _Design, phi: np.ndarray) -> float:
     return _evaluate(d, phi)[0]
-
-
-def _row_logprob(d: _Design, phi: np.ndarray) -> np.ndarray:
-    """log P(observed level) of every (sorted) row, unweighted."""
-    with np.errstate(divide="ignore", invalid="ignore"):
-        return np.log(_evaluate(d, phi)[1][5])
 
 
 def _grad_hess(d: _Design, pieces: tuple, X: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
@@ -276,13 +300,16 @@ def _grad_hess(d: _Design, pieces: tuple, X: np.ndarray | None = None) -> tuple[
     ``d2l/dtheta_j dbeta = -sum_{k=j} (l_aa + l_ab) x - sum_{k=j+1} (l_bb + l_ab) x``,
     ``d2l/dtheta_j^2 = sum_{k=j} l_aa + sum_{k=j+1} l_bb`` and
     ``d2l/dtheta_j dtheta_{j+1} = sum_{k=j+1} l_ab``.
+    The three products with ``X`` are one matrix product
+    ``[C; (l_a + l_b)'; X' diag(h)] X``, ``C`` holding per threshold the row
+    weights of the threshold-coefficient block.
     Non-proportional model: with ``a = A phi``, ``b = B phi``, gradient
     ``A' l_a + B' l_b`` and Hessian ``A'(L_aa A + L_ab B) + B'(L_bb B + L_ab A)``.
     """
-    ga, gb, haa, hbb, hab, _ = pieces
     K = d.K
     m = K - 1
     if not d.proportional:
+        ga, gb, haa, hbb, hab = _full_pieces(d, pieces)
         if X is None:
             A, B = d.A, d.B
         else:
@@ -291,36 +318,49 @@ def _grad_hess(d: _Design, pieces: tuple, X: np.ndarray | None = None) -> tuple[
         g = A.T @ ga + B.T @ gb
         H = A.T @ (A * haa[:, None] + B * hab[:, None]) + B.T @ (B * hbb[:, None] + A * hab[:, None])
         return g, H
+    la, lb, laa, lbb, lab, _ = pieces
     if X is None:
         X, XT = d.X, d.XT
     else:
         XT = np.ascontiguousarray(X.T)
-    p = X.shape[1]
+    n, p = X.shape
     st = d.starts
+    n_a, s1 = d.n_a, d.s1
+    n_mid = n_a - s1
     q = m + p
     g = np.empty(q)
     H = np.zeros((q, q))
-    # Levels are never empty, so each reduceat group is a level's rows; the
-    # last group runs to the end, over rows where that piece is zero.
-    g[:m] = np.add.reduceat(ga, st[:m]) + np.add.reduceat(gb, st[1:K])
+    # Levels are never empty, so each reduceat group is one level's rows
+    # (the last group of an array runs to its end).
+    sb = st[1:K] - s1
+    g[:m] = np.add.reduceat(la, st[:m]) + np.add.reduceat(lb, sb)
     idx = np.arange(m)
-    H[idx, idx] = np.add.reduceat(haa, st[:m]) + np.add.reduceat(hbb, st[1:K])
+    H[idx, idx] = np.add.reduceat(laa, st[:m]) + np.add.reduceat(lbb, sb)
     if m > 1:
-        off = np.add.reduceat(hab, st[1:m])
+        off = np.add.reduceat(lab, st[1:m] - s1)
         H[idx[:-1], idx[1:]] = off
         H[idx[1:], idx[:-1]] = off
     if p:
-        u = haa + hab
-        v = hbb + hab
-        g[m:] = -(XT @ (ga + gb))
-        C = np.zeros((m, ga.shape[0]))
+        u = laa.copy()  # l_aa + l_ab over the rows with an upper threshold
+        u[s1:] += lab
+        v = lbb.copy()  # l_bb + l_ab over the rows with a lower threshold
+        v[:n_mid] += lab
+        M = np.empty((m + 1 + p, n))
+        M[: m + 1] = 0.0
         for j in range(m):
-            C[j, st[j]:st[j + 1]] = u[st[j]:st[j + 1]]
-            C[j, st[j + 1]:st[j + 2]] = v[st[j + 1]:st[j + 2]]
-        Htb = -(C @ X)
-        H[:m, m:] = Htb
-        H[m:, :m] = Htb.T
-        H[m:, m:] = (XT * (u + v)) @ X
+            M[j, st[j] : st[j + 1]] = u[st[j] : st[j + 1]]
+            M[j, st[j + 1] : st[j + 2]] = v[st[j + 1] - s1 : st[j + 2] - s1]
+        M[m, :n_a] = la
+        M[m, s1:] += lb
+        h = np.zeros(n)
+        h[:n_a] = u
+        h[s1:] += v
+        np.multiply(XT, h, out=M[m + 1 :])
+        R = M @ X
+        H[:m, m:] = -R[:m]
+        H[m:, :m] = -R[:m].T
+        g[m:] = -R[m]
+        H[m:, m:] = R[m + 1 :]
     return g, H
 
 
@@ -415,13 +455,12 @@ def _column_names(names, p: int) -> list[str]:
     return list(names) if names is not None else [f"x{j + 1}" for j in range(p)]
 
 
-def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, names, need_cov: bool) -> tuple:
-    ll, pc = _evaluate(d, phi)
+def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, names, need_cov: bool, first=None) -> tuple:
+    ll, pc = _evaluate(d, phi) if first is None else first
     iterations = 0
     converged = False
     singular = False
     fac = None
-    fac_at_phi = False  # whether fac is the factor of the information at phi
     while True:
         g, H = _grad_hess(d, pc)
         fac = _chol_scaled(-H)
@@ -429,19 +468,19 @@ def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, names, need_
             _raise_if_collinear(d.X, d.w, names)
             singular = True
             break
-        fac_at_phi = True
         step = _chol_solve(fac, g)
         dec = float(g @ step)
         if dec <= tol:
-            # One last full step: Newton's quadratic convergence takes the
-            # decrement from below tol to the order of tol squared.
+            # One last full step: Newton's quadratic convergence leaves a
+            # decrement of order tol squared.  The step is at most sqrt(tol)
+            # in standard-error units, so the information factorised here
+            # serves for the covariance.
             trial = phi + step
             if _ordered(d, trial):
                 ll_t, pc_t = _evaluate(d, trial)
                 if np.isfinite(ll_t) and ll_t >= ll - 1e-12 * (1.0 + abs(ll)):
                     phi, ll, pc = trial, ll_t, pc_t
                     iterations += 1
-                    fac_at_phi = False
             converged = True
             break
         if iterations >= max_iter:
@@ -464,8 +503,6 @@ def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, names, need_
         iterations += 1
     cov = None
     if need_cov:
-        if fac is not None and not fac_at_phi:
-            fac = _chol_scaled(-_grad_hess(d, pc)[1])
         if fac is not None:
             cov = _chol_solve(fac, np.eye(phi.shape[0]))
         else:
@@ -523,15 +560,18 @@ def _fit_arrays(
         X, y, w = X[keep], y[keep], w[keep]
         offset = None if offset is None else offset[keep]
     d = _make_design(X, y, K, w, offset, link, proportional, unit)
-    phi = None
+    phi = first = None
     if start is not None:
         start = np.asarray(start, dtype=float)
         if start.shape == (d.n_params,) and np.all(np.isfinite(start)) and _ordered(d, start):
-            if np.isfinite(_loglik_only(d, start)):
+            first = _evaluate(d, start)
+            if np.isfinite(first[0]):
                 phi = start.copy()
     if phi is None:
         phi = _default_start(d)
-    phi, ll, pc, cov, converged, iterations, singular = _newton(d, phi, max_iter, tol, names, need_cov)
+        first = None
+    with one_blas_thread():
+        phi, ll, pc, cov, converged, iterations, singular = _newton(d, phi, max_iter, tol, names, need_cov, first)
     P = pc[5]
     suspect = (not converged) or singular or bool(np.max(P) > 1.0 - _SEPARATION_HINT)
     return _RawFit(phi, ll, cov, converged, iterations, singular, suspect, pc, d)
@@ -909,11 +949,11 @@ def _as_matrix(X, n: int) -> tuple[np.ndarray, tuple[str, ...]]:
     if isinstance(X, pd.Series):
         X = X.to_frame()
     if isinstance(X, pd.DataFrame):
-        names = tuple(str(c) for c in X.columns)
-        dup = sorted({c for c in names if names.count(c) > 1})
+        names = tuple(map(str, X.columns.tolist()))
+        dup = sorted({c for c in names if names.count(c) > 1}) if len(set(names)) != len(names) else []
         if dup:
             raise FitError(problem("X", allowed="distinct column names", received=f"repeated {dup}"))
-        bad = [str(c) for c in X.columns if not (pd.api.types.is_numeric_dtype(X[c]) or pd.api.types.is_bool_dtype(X[c]))]
+        bad = [c for c, dt in zip(names, X.dtypes.tolist()) if not (pd.api.types.is_numeric_dtype(dt) or pd.api.types.is_bool_dtype(dt))]
         if bad:
             raise FitError(problem("X", allowed="numeric columns (encode categories as indicator columns first)", received=f"non-numeric {bad}"))
         try:
@@ -992,18 +1032,19 @@ def _start_vector(start, columns, m: int, proportional: bool, q: int) -> np.ndar
             raise FitError(problem("start", allowed=f"a fit with {m + 1} outcome levels", received=f"{start.n_levels} levels"))
         phi = np.zeros(q)
         phi[:m] = start.thresholds.to_numpy(dtype=float)
+        p_old = len(start.columns)
+        old = start.params.to_numpy(dtype=float)[m:].reshape(p_old, 1 if start.proportional else m)
+        if proportional:
+            old = old.mean(axis=1)
+        lookup = {c: i for i, c in enumerate(start.columns)}
         for j, c in enumerate(columns):
-            if c not in start.columns:
-                continue
-            if start.proportional:
-                b = np.repeat(float(start.coef[c]), 1 if proportional else m)
-            else:
-                row = start.coef.loc[c].to_numpy(dtype=float)
-                b = np.array([row.mean()]) if proportional else row
+            i = lookup.get(c)
+            if i is None:
+                continue  # a column the start does not have starts at 0
             if proportional:
-                phi[m + j] = b[0]
+                phi[m + j] = old[i]
             else:
-                phi[m + j * m : m + (j + 1) * m] = b
+                phi[m + j * m : m + (j + 1) * m] = old[i]
         return phi
     try:
         phi = np.asarray(start, dtype=float)
@@ -1094,7 +1135,8 @@ def fit_cumulative(
     The covariance is the inverse of the observed information on the natural
     scale.  Convergence: the Newton decrement ``g' H^{-1} g`` (about twice the
     remaining log-likelihood gain) falls below ``tol``; a final full step is
-    then taken.  The non-proportional model (a coefficient vector per cut;
+    then taken, and the information of the iterate before it (at most
+    ``sqrt(tol)`` standard errors away) gives the covariance.  The non-proportional model (a coefficient vector per cut;
     Peterson & Harrell 1990) is fitted the same way on the region where every
     row's observed level has positive probability.
 
@@ -1184,8 +1226,8 @@ def _build_fit(raw: _RawFit, columns, levels, cuts, coef_names, link, proportion
 
     # Index objects are built once and shared by the tables of this fit.
     all_index = pd.Index(names, dtype=object)
-    cut_index = pd.Index(cuts, dtype=object)
-    col_index = pd.Index(list(columns), dtype=object)
+    cut_index = all_index[:m]
+    col_index = all_index[m:] if proportional else pd.Index(list(columns), dtype=object)
     params = pd.Series(raw.params.copy(), index=all_index, name="estimate")
     with np.errstate(invalid="ignore"):
         se_arr = np.sqrt(np.diag(raw.cov))

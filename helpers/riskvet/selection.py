@@ -40,6 +40,7 @@ from .models import (
     _make_design,
     _separated_columns,
     fit_cumulative,
+    one_blas_thread,
 )
 from ._links import LINKS
 
@@ -162,7 +163,9 @@ class _Problem:
     """The data of one selection, rows sorted by outcome level."""
 
     def __init__(self, X, y, K, w, unit, link, proportional, term_cols, names, term_names):
-        self.X = X
+        # Columns are taken from the transposed copy, so that sub-matrices are
+        # Fortran-ordered and the fitter's own transposed copy is free.
+        self.XT = np.ascontiguousarray(X.T)
         self.y = y
         self.K = K
         self.w = w
@@ -177,8 +180,12 @@ class _Problem:
     def per_col(self) -> int:
         return 1 if self.proportional else self.m
 
+    def columns(self, rows, cols) -> np.ndarray:
+        """Rows x columns sub-matrix (Fortran-ordered)."""
+        return (self.XT[np.ix_(cols, rows)] if rows is not None else self.XT[cols]).T
+
     def fit(self, rows, cols, start=None):
-        Xs = self.X[np.ix_(rows, cols)] if rows is not None else self.X[:, cols]
+        Xs = self.columns(rows, cols)
         y = self.y if rows is None else self.y[rows]
         w = None if self.unit else (self.w if rows is None else self.w[rows])
         return _fit_arrays(
@@ -188,7 +195,7 @@ class _Problem:
 
     def test_loglik(self, rows, cols, params) -> float:
         """Weighted mean log-probability of the observed levels of ``rows``."""
-        Xt = self.X[np.ix_(rows, cols)]
+        Xt = self.columns(rows, cols)
         yt = self.y[rows]
         wt = np.ones(len(rows)) if self.unit else self.w[rows]
         d = _make_design(Xt, yt, self.K, wt, None, self.link, self.proportional, self.unit)
@@ -211,7 +218,7 @@ class _Problem:
         of rows) cannot enter.
         """
         cand_cols = [c for t in candidates for c in self.term_cols[t]]
-        Xs = self.X[np.ix_(rows, cols + cand_cols)] if rows is not None else self.X[:, cols + cand_cols]
+        Xs = self.columns(rows, cols + cand_cols)
         g, H = _grad_hess(raw.design, raw.pieces, X=Xs)
         info = -H
         q = raw.params.shape[0]
@@ -225,22 +232,29 @@ class _Problem:
             return [(t, math.nan, 0, math.nan) for t in candidates]
         U = g[q:]
         k = self.per_col()
+        s_diag = np.diag(S)
+        # Adjusted information numerically zero relative to the unadjusted one:
+        # the column is (in these rows) a combination of the model's columns.
+        degenerate = s_diag <= 1e-10 * np.maximum(np.diag(info)[q:], 1e-300)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            single = U * U / s_diag
         out = []
         pos = 0
         for t in candidates:
             width = len(self.term_cols[t]) * k
             sl = slice(pos, pos + width)
             pos += width
-            Sg = S[sl, sl]
-            Ig = np.diag(info[q:, q:])[sl]
-            if np.any(np.diag(Sg) <= 1e-10 * np.maximum(Ig, 1e-300)):
+            if np.any(degenerate[sl]):
                 out.append((t, math.nan, width, math.nan))
                 continue
-            try:
-                stat = float(U[sl] @ np.linalg.solve(Sg, U[sl]))
-            except np.linalg.LinAlgError:
-                out.append((t, math.nan, width, math.nan))
-                continue
+            if width == 1:
+                stat = float(single[pos - 1])
+            else:
+                try:
+                    stat = float(U[sl] @ np.linalg.solve(S[sl, sl], U[sl]))
+                except np.linalg.LinAlgError:
+                    out.append((t, math.nan, width, math.nan))
+                    continue
             stat = max(stat, 0.0)
             out.append((t, stat, width, _log_chi2_sf(stat, width) if stat > 0 else 0.0))
         return out
@@ -447,6 +461,26 @@ def select_terms(
     Steyerberg, E. W. (2019). Clinical Prediction Models (2nd ed.), chapter 11.
     Springer.
     """
+    with one_blas_thread():
+        return _select_terms(
+            X, y, groups=groups, forced=forced, method=method, n_folds=n_folds, seed=seed,
+            link=link, proportional=proportional, weights=weights,
+        )
+
+
+def _select_terms(
+    X,
+    y,
+    *,
+    groups: Mapping[str, Sequence[str]],
+    forced: Sequence[str] = (),
+    method: str = "forward",
+    n_folds: int = 10,
+    seed=0,
+    link: str = "logit",
+    proportional: bool = True,
+    weights=None,
+) -> SelectionResult:
     if method not in METHODS:
         raise DesignError(problem("method", allowed=f"one of {list(METHODS)}", received=method))
     if link not in LINKS:
@@ -505,22 +539,22 @@ def select_terms(
             except FitError as exc:
                 msg = f"fold {f + 1}: the starting model could not be fitted ({exc})"
                 msgs.append(msg)
-                warnings.warn(msg, RiskvetWarning, stacklevel=2)
+                warnings.warn(msg, RiskvetWarning, stacklevel=3)
                 continue
             table[f, : len(tests)] = tests
             trouble += tr
             if stop:
                 msg = f"fold {f + 1}: path stopped after {len(tests) - 1} terms: {stop}"
                 msgs.append(msg)
-                warnings.warn(msg, RiskvetWarning, stacklevel=2)
+                warnings.warn(msg, RiskvetWarning, stacklevel=3)
         if trouble[0]:
             msg = f"cross-validation: {trouble[0]} fold fit(s) did not converge"
             msgs.append(msg)
-            warnings.warn(msg, ConvergenceWarning, stacklevel=2)
+            warnings.warn(msg, ConvergenceWarning, stacklevel=3)
         if trouble[1]:
             msg = f"cross-validation: {trouble[1]} fold fit(s) met separation"
             msgs.append(msg)
-            warnings.warn(msg, SeparationWarning, stacklevel=2)
+            warnings.warn(msg, SeparationWarning, stacklevel=3)
         reached = np.sum(~np.isnan(table), axis=0)
         with np.errstate(invalid="ignore"):
             mean = np.where(reached == n_folds, np.mean(table, axis=0), np.nan)
@@ -537,7 +571,7 @@ def select_terms(
         if stop:
             msg = f"all data: path stopped early: {stop}"
             msgs.append(msg)
-            warnings.warn(msg, RiskvetWarning, stacklevel=2)
+            warnings.warn(msg, RiskvetWarning, stacklevel=3)
         path = _path_frame(prob, steps, "score")
     elif method == "backward":
         terms = list(forced_idx) + free
