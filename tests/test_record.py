@@ -22,6 +22,7 @@ from riskvet.record import (
     read_manifest,
     record_files,
     sha256_file,
+    stage_stem,
     verify_record,
     write_manifest,
 )
@@ -250,7 +251,7 @@ def test_summary_of_a_partial_record(run_record):
     assert "Enabled in the study but not run in this record" in summary["texts"]["stages"]
     assert "not clearance for clinical use" in summary["texts"]["caution"]
     items = {row["item"]: row for row in summary["tripod"]["items"]}
-    assert items["15a"]["status"] == "answered" and items["15a"]["notebook"] == "notebooks/03_derivation.ipynb"
+    assert items["15a"]["status"] == "answered" and items["15a"]["notebook"] == f"notebooks/{stage_stem('derivation')}.ipynb"
     assert items["17"]["status"] == "stage not run in this record"
     assert str(run_record) not in json.dumps(summary)  # nothing depends on where the record is
 
@@ -307,8 +308,8 @@ def test_tripod_table_locates_sections(tmp_path):
         nbformat.v4.new_markdown_cell("# Sample-size planning\n\ntext"),
         nbformat.v4.new_markdown_cell("## Developing the model"),
     ])
-    nbformat.write(notebook, tmp_path / "notebooks" / "01_planning.ipynb")
-    assert notebook_headings(tmp_path / "notebooks" / "01_planning.ipynb") == ["Sample-size planning", "Developing the model"]
+    nbformat.write(notebook, tmp_path / "notebooks" / f"{stage_stem('planning')}.ipynb")
+    assert notebook_headings(tmp_path / "notebooks" / f"{stage_stem('planning')}.ipynb") == ["Sample-size planning", "Developing the model"]
     table = tripod_table(tmp_path, results={"planning": {"n_development": 877}}, enabled=("planning", "derivation", "summary"))
     row = {r["item"]: r for r in table.rows}["8"]
     assert row["section"] == "Developing the model" and row["results_key"] == "results/planning.json: n_development"

@@ -20,7 +20,7 @@ import pytest
 from riskvet import cli
 from riskvet.errors import DataError, RecordError, RiskvetError, StudyError
 from riskvet.html import external_references
-from riskvet.record import read_manifest, record_files, sha256_file, verify_record
+from riskvet.record import read_manifest, record_files, sha256_file, stage_stem, verify_record
 from riskvet.runner import RunResult, environment, run_study, template_path
 from riskvet.scaffold import new_study_folder
 from riskvet.study import STAGES
@@ -142,9 +142,8 @@ def test_record_holds_every_part(first):
     assert re.fullmatch(r"\d{8}T\d{6}Z-[0-9a-f]{8}", first.run_id)
     assert record.parent == first.record_dir.parent and record.parent.name == "records"
     for stage in STAGES_RUN:
-        n = f"{STAGES.index(stage) + 1:02d}"
-        assert (record / "notebooks" / f"{n}_{stage}.ipynb").is_file()
-        assert (record / "html" / f"{n}_{stage}.html").is_file()
+        assert (record / "notebooks" / f"{stage_stem(stage)}.ipynb").is_file()
+        assert (record / "html" / f"{stage_stem(stage)}.html").is_file()
         assert (record / "results" / f"{stage}.json").is_file()
         assert (record / "figures" / stage / "diagonal.png").is_file()
         assert (record / "figures" / stage / "diagonal.svg").is_file()
@@ -195,7 +194,7 @@ def test_verify_passes_on_a_fresh_record(first):
 def test_kernel_is_this_interpreter(first):
     import sys
 
-    notebook = nbformat.read(first.record_dir / "notebooks" / "03_derivation.ipynb", as_version=4)
+    notebook = nbformat.read(first.record_dir / "notebooks" / f"{stage_stem('derivation')}.ipynb", as_version=4)
     assert notebook.metadata["papermill"]["parameters"]["record_dir"] == str(first.record_dir)
     assert read_manifest(first.record_dir)["kernel"]["python"] == sys.executable
 
@@ -215,7 +214,7 @@ def test_html_hides_code_and_loads_nothing_from_the_network(first):
 
 
 def test_figure_cells_have_image_outputs(first):
-    notebook = nbformat.read(first.record_dir / "notebooks" / "03_derivation.ipynb", as_version=4)
+    notebook = nbformat.read(first.record_dir / "notebooks" / f"{stage_stem('derivation')}.ipynb", as_version=4)
     figure_cells = [c for c in notebook.cells if c.cell_type == "code" and "save_figure" in c.source]
     assert figure_cells
     for cell in figure_cells:
@@ -256,7 +255,7 @@ def test_failing_stage_marks_the_record_failed(study, tmp_path, first, first_has
     assert manifest["status"] == "failed"
     assert [s["status"] for s in manifest["stages"]] == ["failed", "skipped", "skipped"]
     assert manifest["stages"][0]["error"]["ename"] == "ValueError"
-    assert (result.record_dir / "html" / "03_derivation.html").is_file()  # the partial notebook, rendered
+    assert (result.record_dir / "html" / f"{stage_stem('derivation')}.html").is_file()  # the partial notebook, rendered
     assert not (result.record_dir / "results").exists()
     assert verify_record(result.record_dir).ok  # a failed record is still a complete, hashed record
     assert "FAILED" in out.getvalue() and "skipped" in out.getvalue()

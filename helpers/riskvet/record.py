@@ -29,6 +29,7 @@ from .errors import RecordError, RiskvetError, problem
 __all__ = [
     "MANIFEST",
     "MANIFEST_SCHEMA",
+    "stage_stem",
     "sha256_file",
     "manifest_digest",
     "write_manifest",
@@ -49,6 +50,15 @@ MANIFEST = "manifest.json"
 #: Schema tag written into every manifest.
 MANIFEST_SCHEMA = "riskvet.record/1"
 _SELF_HASH = "manifest_sha256"
+
+
+def stage_stem(stage: str) -> str:
+    """File stem of a stage's notebook and rendering: ``NN_<stage>``, NN its place in the chain."""
+    from .study import STAGES
+
+    if stage not in STAGES:
+        raise RiskvetError(problem("stage", allowed=f"one of {list(STAGES)}", received=stage))
+    return f"{STAGES.index(stage) + 1:02d}_{stage}"
 
 
 def _canonical(value: Any) -> str:

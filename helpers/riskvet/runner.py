@@ -41,7 +41,7 @@ from typing import Any, Mapping, Sequence, TextIO
 import pandas as pd
 
 from .errors import RecordError, RiskvetError, StudyError, problem
-from .record import MANIFEST_SCHEMA, read_manifest, record_files, sha256_file, write_manifest
+from .record import MANIFEST_SCHEMA, read_manifest, record_files, sha256_file, stage_stem, write_manifest
 from .stagekit import STAGE_PARAMETERS
 from .study import STAGES, Study, load_study
 
@@ -106,10 +106,6 @@ def _check_template(stage: str, path: Path) -> None:
         raise RecordError(
             problem(f"stage {stage!r}: template {path}", allowed="exactly one code cell tagged 'parameters'", received=f"{len(tagged)} such cells")
         )
-
-
-def _number(stage: str) -> str:
-    return f"{STAGES.index(stage) + 1:02d}"
 
 
 # -- environment ------------------------------------------------------------------------------
@@ -599,7 +595,7 @@ def run_study(
                 print(f"{label}: skipped (an earlier stage failed)", file=out)
                 continue
             manifest["templates"].append({"stage": stage, "path": str(templates[stage]), "sha256": sha256_file(templates[stage])})
-            notebook = record / "notebooks" / f"{_number(stage)}_{stage}.ipynb"
+            notebook = record / "notebooks" / f"{stage_stem(stage)}.ipynb"
             notebook.parent.mkdir(exist_ok=True)
             print(f"{label}: running", file=out, flush=True)
             begin, tick = _now(), time.perf_counter()
@@ -610,7 +606,7 @@ def run_study(
             seconds = round(time.perf_counter() - tick, 2)
             html = html_error = None
             if study.output.html and notebook.is_file() and interrupted is None:
-                target = record / "html" / f"{_number(stage)}_{stage}.html"
+                target = record / "html" / f"{stage_stem(stage)}.html"
                 try:
                     render_html(notebook, target, show_code=show_code)
                     html = target.relative_to(record).as_posix()

@@ -35,6 +35,7 @@ from typing import Any, Mapping, Sequence
 import pandas as pd
 
 from .errors import RiskvetError, problem
+from .record import stage_stem
 from .study import STAGES
 
 __all__ = ["TripodItem", "TRIPOD_ITEMS", "LEFT_TO_THE_REPORT", "TripodTable", "tripod_table", "notebook_headings"]
@@ -237,7 +238,7 @@ def tripod_table(
             status = "answered"
             places = []
             for stage in ran:
-                notebook = f"notebooks/{STAGES.index(stage) + 1:02d}_{stage}.ipynb"
+                notebook = f"notebooks/{stage_stem(stage)}.ipynb"
                 headings = notebook_headings(record / notebook)
                 section = _first_heading(headings, item.heading_words) or (headings[0] if headings else None)
                 key = _first_key(results[stage], item.result_keys)
