@@ -24,7 +24,8 @@ from typing import Any, NamedTuple
 
 import numpy as np
 import pandas as pd
-from scipy import linalg, optimize, special, stats
+from scipy import optimize, special, stats
+from scipy.linalg import lapack
 
 from ._jsonable import to_jsonable
 from ._links import LINKS, link_cdf, link_parts, link_ppf
@@ -103,6 +104,9 @@ class _Design(NamedTuple):
     proportional: bool
     A: np.ndarray | None  # non-proportional: a = A phi - offset (rows of the top level unused)
     B: np.ndarray | None  # non-proportional: b = B phi - offset (rows of the bottom level unused)
+    t_cut: np.ndarray  # threshold index of each argument (a's of rows < n_a, then b's of rows >= s1)
+    t_row: np.ndarray  # row of each argument
+    AB: np.ndarray | None  # non-proportional: the used rows of A then of B
 
     @property
     def n_params(self) -> int:
@@ -170,11 +174,15 @@ def _make_design(X, y, K, w, off, link, proportional, unit=False) -> _Design:
     X = XT.T
     starts = np.zeros(K + 1, dtype=np.int64)
     starts[1:] = np.cumsum(np.bincount(y, minlength=K)[:K])
-    A = B = None
+    n_a, s1 = int(starts[K - 1]), int(starts[1])
+    t_row = np.r_[np.arange(n_a), np.arange(s1, y.shape[0])]
+    t_cut = np.r_[y[:n_a], y[s1:] - 1]
+    A = B = AB = None
     if not proportional:
         m = K - 1
         A, B = _ab_matrices(X, np.minimum(y, m - 1), np.maximum(y - 1, 0), m, False)
-    return _Design(X, XT, y, K, starts, w, unit, off, order, link, proportional, A, B)
+        AB = np.vstack([A[:n_a], B[s1:]])
+    return _Design(X, XT, y, K, starts, w, unit, off, order, link, proportional, A, B, t_cut, t_row, AB)
 
 
 def _logit_parts(t: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -197,23 +205,14 @@ def _eta(d: _Design, beta: np.ndarray):
     return np.zeros(d.y.shape[0]) if d.off is None else d.off
 
 
-def _cut_arguments(d: _Design, phi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """``a`` for the rows with an upper threshold, ``b`` for those with a lower one."""
+def _cut_arguments(d: _Design, phi: np.ndarray) -> np.ndarray:
+    """``a`` of the rows with an upper threshold, then ``b`` of those with a lower one."""
     m = d.K - 1
-    n_a, s1 = d.n_a, d.s1
     if d.proportional:
-        counts = np.diff(d.starts)
         eta = _eta(d, phi[m:])
-        theta = phi[:m]
-        a = np.repeat(theta, counts[:m]) - eta[:n_a]
-        b = np.repeat(theta, counts[1:]) - eta[s1:]
-        return a, b
-    a = d.A[:n_a] @ phi
-    b = d.B[s1:] @ phi
-    if d.off is not None:
-        a = a - d.off[:n_a]
-        b = b - d.off[s1:]
-    return a, b
+        return phi[:m][d.t_cut] - eta[d.t_row]
+    t = d.AB @ phi
+    return t if d.off is None else t - d.off[d.t_row]
 
 
 def _evaluate(d: _Design, phi: np.ndarray) -> tuple[float, tuple]:
@@ -237,25 +236,27 @@ def _evaluate(d: _Design, phi: np.ndarray) -> tuple[float, tuple]:
     n = d.y.shape[0]
     n_a, s1 = d.n_a, d.s1
     n_mid = n_a - s1
-    a, b = _cut_arguments(d, phi)
-    Fa, Sa, fa, dfa = _parts(d.link, a)
-    Fb, Sb, fb, dfb = _parts(d.link, b)
+    t = _cut_arguments(d, phi)
+    F, S, f, df = _parts(d.link, t)
+    Fa, Sa = F[:n_a], S[:n_a]
+    Fb, Sb = F[n_a:], S[n_a:]
     P = np.empty(n)
     P[:s1] = Fa[:s1]
     if n_mid > 0:
-        P[s1:n_a] = np.where(b[:n_mid] > 0.0, Sb[:n_mid] - Sa[s1:], Fa[s1:] - Fb[:n_mid])
+        P[s1:n_a] = np.where(t[n_a : n_a + n_mid] > 0.0, Sb[:n_mid] - Sa[s1:], Fa[s1:] - Fb[:n_mid])
     P[n_a:] = Sb[n_mid:]
-    Pa = P[:n_a]
-    Pb = P[s1:]
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         logP = np.log(P)
         ll = float(logP.sum()) if d.unit else float(d.w @ logP)
-        la = fa / Pa
-        rb = fb / Pb
-        laa = dfa / Pa - la * la
-        lb = -rb
-        lbb = -dfb / Pb - rb * rb
-        lab = la[s1:] * rb[:n_mid]
+        Pt = P[d.t_row]
+        r = f / Pt
+        q = df / Pt
+        r2 = r * r
+        la = r[:n_a]
+        lb = -r[n_a:]
+        laa = q[:n_a] - r2[:n_a]
+        lbb = -q[n_a:] - r2[n_a:]
+        lab = r[s1:n_a] * r[n_a : n_a + n_mid]
     if not d.unit:
         wa = d.w[:n_a]
         wb = d.w[s1:]
@@ -370,11 +371,8 @@ def _chol_scaled(info: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
     if not np.all(np.isfinite(info)) or not np.all(dsc > 0.0):
         return None
     Is = info / dsc[:, None] / dsc[None, :]
-    try:
-        L = np.linalg.cholesky(Is)
-    except np.linalg.LinAlgError:
-        return None
-    if np.min(np.diag(L)) ** 2 < _PIVOT_FLOOR:
+    L, status = lapack.dpotrf(Is, lower=1)
+    if status != 0 or np.min(np.diag(L)) ** 2 < _PIVOT_FLOOR:
         return None
     return L, dsc
 
@@ -382,8 +380,16 @@ def _chol_scaled(info: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
 def _chol_solve(fac: tuple[np.ndarray, np.ndarray], rhs: np.ndarray) -> np.ndarray:
     L, dsc = fac
     if rhs.ndim == 1:
-        return linalg.cho_solve((L, True), rhs / dsc, check_finite=False) / dsc
-    return linalg.cho_solve((L, True), rhs / dsc[:, None], check_finite=False) / dsc[:, None]
+        return lapack.dpotrs(L, rhs / dsc, lower=1)[0] / dsc
+    return lapack.dpotrs(L, rhs / dsc[:, None], lower=1)[0] / dsc[:, None]
+
+
+def _chol_inverse(fac: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
+    """Inverse of the information from its scaled factor."""
+    L, dsc = fac
+    inv = lapack.dpotri(L, lower=1)[0]
+    inv = np.tril(inv) + np.tril(inv, -1).T
+    return inv / dsc[:, None] / dsc[None, :]
 
 
 def _ordered(d: _Design, phi: np.ndarray) -> bool:
@@ -504,7 +510,7 @@ def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, names, need_
     cov = None
     if need_cov:
         if fac is not None:
-            cov = _chol_solve(fac, np.eye(phi.shape[0]))
+            cov = _chol_inverse(fac)
         else:
             info = -_grad_hess(d, pc)[1]
             cov = np.linalg.pinv(info) if np.all(np.isfinite(info)) else np.full(info.shape, np.nan)
