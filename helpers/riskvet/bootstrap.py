@@ -553,7 +553,10 @@ class InternalValidation:
         The share of failed replicates above which the run stops.
     replicate_warnings : dict
         Statistical warnings met inside successful replicates, by class name
-        (counted, never printed).
+        (counted, not re-issued: there may be hundreds); ``measure:`` marks
+        those met while measuring.
+    apparent_warnings : tuple of str
+        Statistical warnings of the derivation on all data (also issued).
     replicate_values : DataFrame
         Long table of every successful replicate's measures: columns
         ``replicate``, ``measure``, ``sample`` (``bootstrap``, ``original``,
@@ -574,6 +577,7 @@ class InternalValidation:
     levels: tuple[str, ...]
     max_failed_share: float
     replicate_warnings: dict[str, int]
+    apparent_warnings: tuple[str, ...]
     replicate_values: pd.DataFrame = field(repr=False)
     selection_seeds: tuple[int, ...] = field(repr=False)
 
@@ -658,6 +662,7 @@ class InternalValidation:
                 "levels": self.levels,
                 "max_failed_share": self.max_failed_share,
                 "replicate_warnings": self.replicate_warnings,
+                "apparent_warnings": self.apparent_warnings,
                 "selection_seeds": self.selection_seeds,
                 "replicate_values": values,
             }
@@ -824,7 +829,7 @@ def shrink_model(model, *, factor: float, frame: pd.DataFrame, y: np.ndarray, me
         raise RiskvetError(problem("shrink_model(model)", allowed="a PredictionModel", received=type(model).__name__))
     if not model.proportional:
         raise RiskvetError(problem("shrink_model(model)", allowed="a proportional cumulative model (one coefficient per column)", received="a non-proportional model"))
-    if not (isinstance(factor, (int, float, np.floating)) and np.isfinite(factor) and 0 < factor < 2):
+    if isinstance(factor, bool) or not (isinstance(factor, (int, float, np.floating)) and np.isfinite(factor) and 0 < factor < 2):
         raise RiskvetError(problem("shrink_model(factor=)", allowed="a finite number in (0, 2)", received=factor))
     y = np.asarray(y, dtype=np.int64)
     lp = float(factor) * model.linear_predictor(frame)
@@ -1295,11 +1300,15 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
     n = len(frame)
 
     # The apparent model: the derivation procedure on all data, as the derivation stage runs it.
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RiskvetWarning)
+    with warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always")
         apparent_derivation = derive(study, frame, y)
         fit = apparent_derivation.fit
         prob, lp = _predict(apparent_derivation, frame)
+    apparent_warnings = tuple(dict.fromkeys(f"{w.category.__name__}: {w.message}" for w in seen if issubclass(w.category, RiskvetWarning)))
+    for w in seen:  # statistical trouble of the model on all data is shown as well as recorded
+        if issubclass(w.category, RiskvetWarning):
+            warnings.warn(str(w.message), w.category, stacklevel=2)
     apparent, _ = _measures(y, prob, lp if lp.ndim == 1 else None, K=K, link=link)
 
     payload = _Payload(study=study, frame=frame, y=y, K=K, link=link)
@@ -1455,6 +1464,7 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
         levels=levels,
         max_failed_share=float(max_failed),
         replicate_warnings=dict(sorted(warn_counts.items())),
+        apparent_warnings=apparent_warnings,
         replicate_values=replicate_values,
         selection_seeds=tuple(seeds),
     )

@@ -113,6 +113,11 @@ class CrossValidation:
         Rows and outcome levels.
     levels : tuple of str
         Outcome levels coded 0 .. K-1.
+    fold_warnings : dict
+        Statistical warnings met inside the folds' derivations and measures,
+        by class name (counted, not re-issued).
+    apparent_warnings : tuple of str
+        Statistical warnings of the derivation on all data (also issued).
     fold_values : DataFrame
         Per-fold measures: ``repeat``, ``fold``, ``measure``, ``value``.
     """
@@ -125,6 +130,8 @@ class CrossValidation:
     n: int
     n_levels: int
     levels: tuple[str, ...]
+    fold_warnings: dict[str, int]
+    apparent_warnings: tuple[str, ...]
     fold_values: pd.DataFrame = field(repr=False)
 
     def estimate(self, measure: str) -> CrossValidationEstimate:
@@ -164,6 +171,8 @@ class CrossValidation:
                 "n": self.n,
                 "n_levels": self.n_levels,
                 "levels": self.levels,
+                "fold_warnings": self.fold_warnings,
+                "apparent_warnings": self.apparent_warnings,
             }
         )
 
@@ -201,7 +210,7 @@ def _fold(payload: _CVPayload, item: tuple[int, int, int]) -> dict[str, Any]:
     train, test = np.flatnonzero(~held), np.flatnonzero(held)
     record: dict[str, Any] = {"repeat": r, "fold": f}
     try:
-        _, prob, lp, _ = _fit_and_predict(
+        _, prob, lp, caught = _fit_and_predict(
             payload.study,
             payload.frame.iloc[train].reset_index(drop=True),
             payload.y[train],
@@ -212,8 +221,9 @@ def _fold(payload: _CVPayload, item: tuple[int, int, int]) -> dict[str, Any]:
     except _ReplicateFailed as exc:
         record.update(status="failed", reason=exc.reason, message=exc.message)
         return record
-    values, _ = _measures(payload.y[test], prob, lp if lp.ndim == 1 else None, K=payload.K, link=payload.link)
-    record.update(status="ok", rows=test, prob=prob, lp=lp, values=values)
+    values, measure_warnings = _measures(payload.y[test], prob, lp if lp.ndim == 1 else None, K=payload.K, link=payload.link)
+    caught.update({f"measure:{k}": v for k, v in measure_warnings.items()})
+    record.update(status="ok", rows=test, prob=prob, lp=lp, values=values, warnings=dict(caught))
     return record
 
 
@@ -286,16 +296,21 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
         seeds = rng.integers(0, _SEED_CEILING, size=n_folds)
         items += [(r, f, int(seeds[f])) for f in range(n_folds)]
 
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RiskvetWarning)
+    with warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always")
         apparent_derivation = derive(study, frame, y)
         prob_all, lp_all = _predict(apparent_derivation, frame)
+    apparent_warnings = tuple(dict.fromkeys(f"{w.category.__name__}: {w.message}" for w in seen if issubclass(w.category, RiskvetWarning)))
+    for w in seen:
+        if issubclass(w.category, RiskvetWarning):
+            warnings.warn(str(w.message), w.category, stacklevel=2)
     apparent, _ = _measures(y, prob_all, lp_all if lp_all.ndim == 1 else None, K=K, link=link)
 
     payload = _CVPayload(study=study, frame=frame, y=y, K=K, link=link, folds=folds)
     specs = _measure_specs(levels)
     keys = [k for k, _, _ in specs]
     failures: list[ReplicateFailure] = []
+    warn_counts: Counter[str] = Counter()
     per_fold: dict[str, list[float]] = {k: [] for k in keys}
     fold_rows: list[dict[str, Any]] = []
     pooled_prob = np.full((n_repeats, n, K), np.nan)
@@ -306,6 +321,7 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
         if rec["status"] != "ok":
             failures.append(ReplicateFailure(r * n_folds + f, rec["reason"], rec["message"]))
             continue
+        warn_counts.update(rec["warnings"])
         for k in keys:
             per_fold[k].append(rec["values"][k])
             fold_rows.append({"repeat": r, "fold": f, "measure": k, "value": rec["values"][k]})
@@ -354,5 +370,7 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
         n=n,
         n_levels=K,
         levels=levels,
+        fold_warnings=dict(sorted(warn_counts.items())),
+        apparent_warnings=apparent_warnings,
         fold_values=pd.DataFrame(fold_rows, columns=["repeat", "fold", "measure", "value"]),
     )

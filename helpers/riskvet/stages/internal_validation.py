@@ -220,6 +220,8 @@ def run(ctx) -> InternalValidationOutput:
             notes.append(f"internal_validation.shrink is on but the record holds no frozen model at {ctx.model_path.name}")
         elif not (np.isfinite(factor) and 0 < factor < 2):
             notes.append(f"the bootstrap shrinkage factor {factor!r} is not usable")
+        elif not load_model(ctx.model_path).proportional:
+            notes.append("uniform shrinkage is written for proportional models only; the frozen model has a slope per cut")
         else:
             target = ctx.new_path(ctx.models_dir / f"{ctx.model_path.stem}_shrunk.json")
             path = write_shrunken_model(
