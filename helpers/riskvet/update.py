@@ -755,10 +755,13 @@ def closed_test(fits: Mapping[str, UpdateFit] | Sequence[UpdateFit], *, alpha: f
        extensive first; the first that is not significantly worse is chosen.
     3. If every simpler update is significantly worse, M_max is chosen.
 
-    Each hypothesis is rejected only when every intersection hypothesis that
-    contains it (every comparison of a less extensive model with M_max) has
-    been rejected first, which keeps the familywise type I error near
-    ``alpha`` (Marcus, Peritz & Gabriel 1976).  This is the procedure of
+    The hypotheses "M_k fits as well as M_max" are nested: the one for a less
+    extensive model implies the one for every more extensive model, so the
+    intersection of any set of them is the one for its least extensive
+    model.  Testing them least extensive first, and each only after the one
+    before it was rejected, is therefore a closed testing procedure, which
+    keeps the familywise type I error at ``alpha`` (Marcus, Peritz & Gabriel
+    1976).  This is the procedure of
     Vergouwe et al. (2017) for M_0 < recalibration in the large <
     recalibration < revision; for an ordered outcome the chain has both
     recalibrations in the large (common shift, then all thresholds), and
