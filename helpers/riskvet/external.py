@@ -16,7 +16,6 @@ on how many workers ran them.
 from __future__ import annotations
 
 import dataclasses
-import math
 import warnings
 from dataclasses import dataclass, field
 from typing import Any, Callable, Mapping, Sequence

@@ -41,7 +41,7 @@ from ._jsonable import to_jsonable
 from ._links import link_parts
 from .calibration import OrdinalCalibration, ordinal_calibration
 from .design import DesignSpec, build_design
-from .errors import DataError, FitError, RiskvetError, RiskvetWarning, problem
+from .errors import DataError, RiskvetError, RiskvetWarning, problem
 from .modelfile import PredictionModel, model_from_fit
 from .models import fit_cumulative
 

@@ -169,12 +169,17 @@ def _texts(out: dict[str, Any], study: Study) -> dict[str, str]:
     texts["linear_predictor"] = " ".join(spread)
     cal = []
     for c in cohorts.values():
-        worst = max(c.calibration.cuts, key=lambda r: r.ici)
-        cal.append(
-            f"In {c.label} the smoothed curves lie {'below' if worst.calibration_in_the_large < 0 else 'above'} the diagonal "
-            f"where the intercept is {'negative' if worst.calibration_in_the_large < 0 else 'positive'}; the largest average "
-            f"distance from it (ICI) is {worst.ici:.3f} for the cut at {c.levels[worst.cut + 1]}."
-        )
+        for r in c.calibration.cuts:
+            if r.calibration_in_the_large_upper < 0:
+                where = "mostly below the diagonal (fewer events observed than predicted)"
+            elif r.calibration_in_the_large_lower > 0:
+                where = "mostly above the diagonal (more events observed than predicted)"
+            else:
+                where = "close to the diagonal on average"
+            cal.append(
+                f"In {c.label}, for Y >= {c.levels[r.cut + 1]} the smoothed curve lies {where}; observed/expected is "
+                f"{r.oe_ratio:.2f} and the mean distance between predicted and smoothed observed risk (ICI) is {r.ici:.3f}."
+            )
     texts["calibration"] = " ".join(cal)
     if any(c.threshold_tables for c in cohorts.values()):
         parts = []
