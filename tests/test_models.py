@@ -562,3 +562,15 @@ def test_separation_check_directly():
     for prop in (True, False):
         d = _make_design(sep, y, 3, np.ones(len(y)), None, "logit", prop, True)
         assert _separated_columns(d) == (1,)
+
+
+def test_pandas_outcome_types():
+    # Nullable integers, booleans and ordered categoricals all give the same fit.
+    X, y = simulated(n=120, K=2, seed=27)
+    ref = fit_cumulative(X, y)
+    for yy in (pd.Series(y, dtype="Int64"), pd.Series(y.astype(bool)), pd.Series(pd.Categorical(y, ordered=True))):
+        np.testing.assert_allclose(fit_cumulative(X, yy).params.to_numpy(), ref.params.to_numpy())
+    with pytest.raises(FitError, match="missing"):
+        fit_cumulative(X, pd.Series([pd.NA] + list(y[1:]), dtype="Int64"))
+    with pytest.raises(FitError, match="values of type str"):
+        fit_cumulative(None, pd.Series(["a", "b"] * 60))

@@ -461,19 +461,61 @@ def _column_names(names, p: int) -> list[str]:
     return list(names) if names is not None else [f"x{j + 1}" for j in range(p)]
 
 
+def _gradient(d: _Design, pieces: tuple) -> np.ndarray:
+    """Gradient alone (see :func:`_grad_hess`), much cheaper than the Hessian."""
+    if not d.proportional:
+        ga, gb, _, _, _ = _full_pieces(d, pieces)
+        return d.A.T @ ga + d.B.T @ gb
+    la, lb = pieces[0], pieces[1]
+    K = d.K
+    m = K - 1
+    st = d.starts
+    s1 = d.s1
+    g = np.empty(m + d.X.shape[1])
+    g[:m] = np.add.reduceat(la, st[:m]) + np.add.reduceat(lb, st[1:K] - s1)
+    if d.X.shape[1]:
+        gs = np.zeros(d.y.shape[0])
+        gs[: d.n_a] = la
+        gs[s1:] += lb
+        g[m:] = -(d.XT @ gs)
+    return g
+
+
 def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, names, need_cov: bool, first=None) -> tuple:
+    """Newton-Raphson with step-halving; see :func:`fit_cumulative` (Notes).
+
+    Each iteration after the first tries the previous factorised information
+    on the new gradient (a chord step): when that decrement is already below
+    ``tol`` the chord step is the last one and no new Hessian is formed.
+    """
     ll, pc = _evaluate(d, phi) if first is None else first
     iterations = 0
     converged = False
     singular = False
     fac = None
+    fac_current = False  # fac factorises the information at phi (or one converged step before)
     while True:
+        if fac is not None:
+            g = _gradient(d, pc)
+            step = _chol_solve(fac, g)
+            dec = float(g @ step)
+            if dec <= tol:
+                fac_current = False
+                trial = phi + step
+                if _ordered(d, trial):
+                    ll_t, pc_t = _evaluate(d, trial)
+                    if np.isfinite(ll_t) and ll_t >= ll - 1e-12 * (1.0 + abs(ll)):
+                        phi, ll, pc = trial, ll_t, pc_t
+                        iterations += 1
+                converged = True
+                break
         g, H = _grad_hess(d, pc)
         fac = _chol_scaled(-H)
         if fac is None:
             _raise_if_collinear(d.X, d.w, names)
             singular = True
             break
+        fac_current = True
         step = _chol_solve(fac, g)
         dec = float(g @ step)
         if dec <= tol:
@@ -509,6 +551,8 @@ def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, names, need_
         iterations += 1
     cov = None
     if need_cov:
+        if fac is not None and not fac_current:
+            fac = _chol_scaled(-_grad_hess(d, pc)[1])
         if fac is not None:
             cov = _chol_inverse(fac)
         else:
@@ -996,12 +1040,18 @@ def _as_outcome(y, n_levels) -> tuple[np.ndarray, int, tuple[str, ...]]:
             raise FitError(problem("n_levels", allowed=f"the number of categories of y ({K})", received=n_levels))
     else:
         try:
-            arr = np.asarray(y.to_numpy() if isinstance(y, pd.Series) else y)
-            arr = arr.astype(float) if arr.dtype.kind in "biuf" else None
+            if isinstance(y, pd.Series):
+                numeric = pd.api.types.is_numeric_dtype(y.dtype) or pd.api.types.is_bool_dtype(y.dtype)
+                arr = y.to_numpy(dtype=float, na_value=np.nan) if numeric else None
+                kind = str(y.dtype)
+            else:
+                arr = np.asarray(y)
+                kind = str(arr.dtype)
+                arr = arr.astype(float) if arr.dtype.kind in "biuf" else None
         except (TypeError, ValueError):
-            arr = None
+            arr, kind = None, type(y).__name__
         if arr is None:
-            raise FitError(problem("y", allowed="integer levels 0..K-1 or an ordered Categorical", received=f"values of type {np.asarray(y).dtype}"))
+            raise FitError(problem("y", allowed="integer levels 0..K-1 or an ordered Categorical", received=f"values of type {kind}"))
         if arr.ndim != 1:
             raise FitError(problem("y", allowed="a 1-D array", received=f"shape {arr.shape}"))
         if not np.all(np.isfinite(arr)):
@@ -1140,9 +1190,14 @@ def fit_cumulative(
     log-likelihood does not fall; invalid thresholds are never produced.
     The covariance is the inverse of the observed information on the natural
     scale.  Convergence: the Newton decrement ``g' H^{-1} g`` (about twice the
-    remaining log-likelihood gain) falls below ``tol``; a final full step is
-    then taken, and the information of the iterate before it (at most
-    ``sqrt(tol)`` standard errors away) gives the covariance.  The non-proportional model (a coefficient vector per cut;
+    remaining log-likelihood gain) falls below ``tol``, after which one last
+    step is taken.  To save forming a Hessian, each iteration first tries
+    the previous iteration's information on the new gradient: if that
+    decrement is below ``tol`` its step is the last one (and the
+    covariance is then computed at the final estimates).  Otherwise a full
+    Newton step is taken; when its decrement is below ``tol`` the covariance
+    comes from the information just factorised, at most ``sqrt(tol)``
+    standard errors from the final estimates.  The non-proportional model (a coefficient vector per cut;
     Peterson & Harrell 1990) is fitted the same way on the region where every
     row's observed level has positive probability.
 
