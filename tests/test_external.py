@@ -253,14 +253,16 @@ def test_external_validation_stage(record):
     ctx = stage_context("external_validation", study_path=study_path, record_dir=record_dir)
     out = external_validation.run(ctx)
     assert list(out.cohorts) == ["season-2025"]
-    assert set(out.texts) >= {"case_mix", "membership", "linear_predictor", "performance", "calibration", "thresholds", "decision", "subgroups", "rule", "caution"}
+    assert set(out.texts) >= {"flow", "case_mix", "membership", "linear_predictor", "performance", "calibration", "thresholds", "decision", "subgroups", "rule", "caution"}
     assert "season-2025" in out.rule and out.rule["season-2025"].positive_from == "red"
     for path in out.figures.values():
         assert (record_dir / path).is_file() and (record_dir / path).with_suffix(".svg").is_file()
     saved = json.loads(ctx.results_path.read_text())
     assert saved["model_sha256"] == out.model_sha256
     # tables for the notebook
-    for frame in (out.case_mix_frame(), out.membership_frame(), out.performance_frame(), out.calibration_frame(),
+    assert saved["data"]["season-2025"]["n_analysed"] == out.cohorts["season-2025"].n
+    assert str(record_dir.parent.parent) not in ctx.results_path.read_text()  # no file paths
+    for frame in (out.flow_frame(), out.case_mix_frame(), out.membership_frame(), out.performance_frame(), out.calibration_frame(),
                   out.threshold_frame(), out.subgroup_frame(), out.rule_frame(), out.rule_net_benefit_frame()):
         assert isinstance(frame, pd.DataFrame) and len(frame) > 0
     # no row of the data in the results: no attendee id appears
@@ -283,4 +285,4 @@ def test_external_validation_notebook_template():
             assert cell["outputs"] == [] and cell["execution_count"] is None
     # every text a cell shows is one the stage writes
     keys = {k for c in cells for k in re.findall(r'out\.texts\["(\w+)"\]', c["source"])}
-    assert keys <= {"case_mix", "membership", "linear_predictor", "performance", "calibration", "thresholds", "decision", "subgroups", "rule", "caution"}
+    assert keys <= {"flow", "case_mix", "membership", "linear_predictor", "performance", "calibration", "thresholds", "decision", "subgroups", "rule", "caution"}

@@ -53,6 +53,14 @@ class ExternalValidationOutput:
     ----------
     model_sha256 : str
         Digest of the frozen model validated.
+    flow : DataFrame
+        Participant flow of every validation cohort: rows screened, each
+        complete-case exclusion step, rows analysed
+        (:meth:`riskvet.data.PreparedCohort.to_frame`).
+    data : dict of str to dict
+        Per cohort: ``n_screened``, ``n_analysed``, ``outcome_counts``,
+        ``exclusions``, ``category_mappings`` and ``missing`` (no rows, no
+        file paths).
     cohorts : dict of str to CohortValidation
         Performance by cohort label, in study order.
     case_mix : dict of str to CaseMix
@@ -63,7 +71,7 @@ class ExternalValidationOutput:
         Figure name -> PNG path relative to the record.
     texts : dict of str to str
         One interpreting paragraph per notebook table or figure:
-        ``case_mix``, ``membership``, ``linear_predictor``, ``performance``,
+        ``flow``, ``case_mix``, ``membership``, ``linear_predictor``, ``performance``,
         ``calibration``, ``thresholds``, ``decision``, ``subgroups``,
         ``rule``, ``caution``.
     notes : tuple of str
@@ -71,6 +79,8 @@ class ExternalValidationOutput:
     """
 
     model_sha256: str
+    flow: pd.DataFrame = field(repr=False)
+    data: Mapping[str, Mapping[str, Any]] = field(repr=False)
     cohorts: Mapping[str, CohortValidation] = field(repr=False)
     case_mix: Mapping[str, CaseMix] = field(repr=False)
     rule: Mapping[str, RuleComparison] = field(repr=False)
@@ -79,6 +89,10 @@ class ExternalValidationOutput:
     notes: tuple[str, ...]
 
     # -- tables for the notebook ------------------------------------------------------
+    def flow_frame(self) -> pd.DataFrame:
+        """Participant flow of every validation cohort."""
+        return self.flow.copy()
+
     def case_mix_frame(self) -> pd.DataFrame:
         """Derivation and each validation cohort side by side (``cohort`` column first)."""
         parts = []
@@ -128,6 +142,7 @@ class ExternalValidationOutput:
         return to_jsonable(
             {
                 "model_sha256": self.model_sha256,
+                "data": {k: dict(v) for k, v in self.data.items()},
                 "cohorts": {k: v.to_dict() for k, v in self.cohorts.items()},
                 "case_mix": {k: v.to_dict() for k, v in self.case_mix.items()},
                 "rule": {k: v.to_dict() for k, v in self.rule.items()},
@@ -145,8 +160,16 @@ def _thresholds(study: Study) -> dict[int, tuple[float, ...]]:
 
 def _texts(out: dict[str, Any], study: Study) -> dict[str, str]:
     cohorts: Mapping[str, CohortValidation] = out["cohorts"]
+    flow = []
+    for label, d in out["data"].items():
+        dropped = d["n_screened"] - d["n_analysed"]
+        flow.append(
+            f"{label}: {d['n_screened']} rows screened, {dropped} excluded by complete-case analysis, {d['n_analysed']} analysed "
+            f"({', '.join(f'{k} {v}' for k, v in d['outcome_counts'].items())})."
+        )
     texts = {
         "caution": _CAUTION,
+        "flow": " ".join(flow),
         "membership": " ".join(cm.interpretation for cm in out["case_mix"].values()),
         "performance": " ".join(c.summary() for c in cohorts.values()),
     }
@@ -223,7 +246,8 @@ def validate_external(study: Study, model: PredictionModel, cohorts: Cohorts) ->
     Returns
     -------
     dict
-        ``cohorts``, ``case_mix`` and ``rule``, each by cohort label.
+        ``cohorts``, ``case_mix``, ``rule`` and ``data`` (cohort summaries
+        without rows or paths), each by cohort label.
 
     Raises
     ------
@@ -237,8 +261,10 @@ def validate_external(study: Study, model: PredictionModel, cohorts: Cohorts) ->
     ev = study.external_validation
     thresholds = _thresholds(study)
     rule = study.existing_rule
-    results: dict[str, Any] = {"cohorts": {}, "case_mix": {}, "rule": {}}
+    results: dict[str, Any] = {"cohorts": {}, "case_mix": {}, "rule": {}, "data": {}}
     for label, cohort in cohorts.validation.items():
+        summary = cohort.to_dict()
+        results["data"][label] = {k: summary[k] for k in ("n_screened", "n_analysed", "outcome_counts", "exclusions", "category_mappings", "missing")}
         prob = apply_model(model, cohort.frame, label=label)  # refuse early, naming the cohort
         results["case_mix"][label] = case_mix(model, cohorts.derivation, cohort, outcome_labels=dict(study.outcome.labels), seed=ev.seed)
         results["cohorts"][label] = validate_cohort(
@@ -307,6 +333,8 @@ def run(ctx) -> ExternalValidationOutput:
         notes += [f"{label}: rule: {w}" for w in r.warnings]
     out = ExternalValidationOutput(
         model_sha256=model.digest(),
+        flow=pd.concat([c.to_frame() for c in cohorts.validation.values()], ignore_index=True),
+        data=results["data"],
         cohorts=results["cohorts"],
         case_mix=results["case_mix"],
         rule=results["rule"],
