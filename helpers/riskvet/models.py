@@ -62,9 +62,10 @@ def one_blas_thread():
         _BLAS_CONTROLLER = ThreadpoolController()
     return _BLAS_CONTROLLER.limit(limits=1, user_api="blas")
 
+
 # Newton-Raphson stops when the Newton decrement g' H^{-1} g (twice the
 # predicted log-likelihood gain of the next step) falls below this; a last
-# full step then leaves a decrement of order tol**2.
+# step then leaves a decrement of order tol**2.
 DEFAULT_TOL = 1e-8
 DEFAULT_MAX_ITER = 100
 # A Cholesky pivot of the unit-diagonal information below this (squared) means
@@ -610,17 +611,17 @@ def _fit_arrays(
         X, y, w = X[keep], y[keep], w[keep]
         offset = None if offset is None else offset[keep]
     d = _make_design(X, y, K, w, offset, link, proportional, unit)
-    phi = first = None
-    if start is not None:
-        start = np.asarray(start, dtype=float)
-        if start.shape == (d.n_params,) and np.all(np.isfinite(start)) and _ordered(d, start):
-            first = _evaluate(d, start)
-            if np.isfinite(first[0]):
-                phi = start.copy()
-    if phi is None:
-        phi = _default_start(d)
-        first = None
     with one_blas_thread():
+        phi = first = None
+        if start is not None:
+            start = np.asarray(start, dtype=float)
+            if start.shape == (d.n_params,) and np.all(np.isfinite(start)) and _ordered(d, start):
+                first = _evaluate(d, start)
+                if np.isfinite(first[0]):
+                    phi = start.copy()
+        if phi is None:
+            phi = _default_start(d)
+            first = None
         phi, ll, pc, cov, converged, iterations, singular = _newton(d, phi, max_iter, tol, names, need_cov, first)
     P = pc[5]
     suspect = (not converged) or singular or bool(np.max(P) > 1.0 - _SEPARATION_HINT)

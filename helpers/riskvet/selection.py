@@ -264,9 +264,23 @@ def _aic(raw) -> float:
     return -2.0 * raw.loglik + 2.0 * raw.params.shape[0]
 
 
-def _trouble(raw) -> tuple[int, int]:
-    """(did not converge, separated) for one fit; the separation check runs only on suspicion."""
-    separated = int(bool(raw.suspect_separation and _separated_columns(raw.design)))
+def _trouble(raw, cols: list[int], known: list[frozenset]) -> tuple[int, int]:
+    """(did not converge, separated) for one fit.
+
+    The separation check (a linear programme) runs only on suspicion, and
+    not at all when the model holds a set of columns already found to
+    separate these rows: adding columns cannot undo a separation, since the
+    separating direction remains available.
+    """
+    separated = 0
+    if raw.suspect_separation:
+        if any(k <= set(cols) for k in known):
+            separated = 1
+        else:
+            found = _separated_columns(raw.design)
+            if found:
+                known.append(frozenset(cols[j] for j in found))
+                separated = 1
     return int(not raw.converged and not separated), separated
 
 
@@ -277,7 +291,8 @@ def _forward(prob: _Problem, rows, forced, free, max_size, test_rows=None):
     raw = prob.fit(rows, cols)
     steps = [("start", None, math.nan, 0, math.nan, raw)]
     tests = [prob.test_loglik(test_rows, cols, raw.params)] if test_rows is not None else []
-    trouble = np.array(_trouble(raw))
+    known_separations: list[frozenset] = []
+    trouble = np.array(_trouble(raw, cols, known_separations))
     stop_reason = None
     remaining = list(free)
     while len(terms) - len(forced) < max_size and remaining:
@@ -299,7 +314,7 @@ def _forward(prob: _Problem, rows, forced, free, max_size, test_rows=None):
         raw, cols = new_raw, new_cols
         terms.append(t)
         remaining.remove(t)
-        trouble += _trouble(raw)
+        trouble += _trouble(raw, cols, known_separations)
         steps.append(("add", t, best[1], best[2], best[3], raw))
         if test_rows is not None:
             tests.append(prob.test_loglik(test_rows, cols, raw.params))
