@@ -96,6 +96,15 @@ def test_binary_in_the_large_matches_statsmodels_glm_with_offset(binary_model):
     assert fit.n_params == 1
 
 
+def test_binary_update_has_one_recalibration_in_the_large(binary_model):
+    v = demo.draw(800, season="validation", seed=15)
+    y = (codes(v) == 2).astype(np.int64)
+    result = update_model(binary_model, v, y)
+    # for K = 2 the common shift and the re-estimated threshold are one model
+    assert list(result.fits) == ["original", "in_the_large", "recalibration", "revision"]
+    assert [t.simpler for t in result.closed_test.tests] == ["original", "in_the_large", "recalibration"]
+
+
 def test_binary_recalibration_matches_statsmodels_logit(binary_model):
     v = demo.draw(800, season="validation", seed=4)
     y = (codes(v) == 2).astype(np.int64)

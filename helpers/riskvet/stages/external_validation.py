@@ -32,7 +32,7 @@ from ..modelfile import PredictionModel, load_model
 from ..rule import RuleComparison, compare_with_rule
 from ..study import Study
 
-__all__ = ["ExternalValidationOutput", "validate_external", "run", "figure_name"]
+__all__ = ["ExternalValidationOutput", "validate_external", "run", "figure_name", "label_slug"]
 
 _CAUTION = (
     "Statistical evaluation is not clearance for clinical use: local validation, governance and "
@@ -40,9 +40,14 @@ _CAUTION = (
 )
 
 
+def label_slug(label: str) -> str:
+    """A cohort label made file-safe: characters other than letters, digits and ``.-_`` become ``-``."""
+    return re.sub(r"[^A-Za-z0-9._-]+", "-", label).strip("-") or "cohort"
+
+
 def figure_name(kind: str, label: str) -> str:
-    """File-safe figure name ``<kind>_<label>`` (characters other than letters, digits, ``.-_`` become ``-``)."""
-    return f"{kind}_{re.sub(r'[^A-Za-z0-9._-]+', '-', label).strip('-') or 'cohort'}"
+    """File-safe figure name ``<kind>_<label>``."""
+    return f"{kind}_{label_slug(label)}"
 
 
 @dataclass(frozen=True)

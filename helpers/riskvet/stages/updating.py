@@ -27,7 +27,7 @@ from ..errors import StudyError, problem
 from ..modelfile import load_model, save_model
 from ..study import Study
 from ..update import METHOD_LABELS, UpdateResult, update_model
-from .external_validation import figure_name
+from .external_validation import figure_name, label_slug
 
 __all__ = ["UpdatingOutput", "run", "update_study_model"]
 
@@ -212,7 +212,7 @@ def run(ctx) -> UpdatingOutput:
 
     stem = ctx.model_path.stem
     targets = {
-        method: ctx.models_dir / f"{stem}_{figure_name('updated', result.cohort)[len('updated_'):]}_{method}.json"
+        method: ctx.models_dir / f"{stem}_{label_slug(result.cohort)}_{method}.json"
         for method in result.fits
         if method != "original"
     }
