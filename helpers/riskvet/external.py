@@ -412,8 +412,9 @@ class CohortValidation:
         parts = []
         avg = perf.get(("average_cut_auc", None))
         if avg is not None:
+            what = "C statistic" if len(self.levels) == 2 else "average dichotomised C"
             parts.append(
-                f"In {self.label} (n = {self.n}) the average dichotomised C is {avg['estimate']:.3f} "
+                f"In {self.label} (n = {self.n}) the {what} is {avg['estimate']:.3f} "
                 f"({ci} interval {avg['lower']:.3f} to {avg['upper']:.3f})."
             )
         for j in range(len(self.levels) - 1):
