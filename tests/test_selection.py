@@ -287,3 +287,18 @@ def test_fold_trouble_is_reported():
     assert np.isnan(res.cv["mean_test_loglik"].iloc[-1])
     assert res.cv["n_folds_reached"].iloc[-1] == 9
     assert "rare" not in res.terms
+
+
+def test_log_p_value_far_in_the_tail():
+    # For even df the chi-squared upper tail has the closed form
+    # exp(-x) sum_{i<df/2} x^i / i!, x = stat/2 (the Poisson sum; common
+    # practice): check the log tail where the p-value itself underflows.
+    from riskvet.selection import _log_chi2_sf
+
+    stat = 5000.0
+    x = stat / 2
+    assert _log_chi2_sf(stat, 2) == pytest.approx(-x, rel=1e-12)
+    assert _log_chi2_sf(stat, 4) == pytest.approx(np.log1p(x) - x, rel=1e-12)
+    assert _log_chi2_sf(stat, 6) == pytest.approx(np.log(1 + x + x * x / 2) - x, rel=1e-9)
+    # Where the p-value is representable it is used directly (scipy chdtrc).
+    assert _log_chi2_sf(30.0, 3) == pytest.approx(np.log(stats.chi2.sf(30.0, 3)), rel=1e-12)

@@ -148,7 +148,7 @@ def _log_chi2_sf(stat: float, df: int) -> float:
     -----
     Below 1e-300 the upper incomplete gamma function is replaced by its
     asymptotic form ``Gamma(s, x) ~ x^(s-1) e^(-x) (1 + (s-1)/x)`` with
-    ``s = df/2``, ``x = stat/2`` (Abramowitz & Stegun 6.5.32), good enough to
+    ``s = df/2``, ``x = stat/2`` (Abramowitz & Stegun 1964, section 6.5), good enough to
     rank terms whose p-values underflow.
     """
     sf = special.chdtrc(df, stat)
