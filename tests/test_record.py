@@ -300,6 +300,15 @@ def test_key_results_fall_back_to_generic_headline():
     assert summary_stage.key_results({}).empty
 
 
+@pytest.mark.parametrize("stage", ["planning", "agreement", "derivation", "internal_validation", "external_validation", "updating"])
+def test_key_results_tolerate_unexpected_shapes(stage):
+    keys = ("cohorts", "case_mix", "rule", "items", "checks", "validation", "bootstrap", "result", "cohort", "selection", "apparent", "texts")
+    odd = dict.fromkeys(keys, [1, "x"])
+    frame = summary_stage.key_results({stage: odd})
+    assert list(frame.columns) == ["stage", "measure", "value", "lower", "upper", "key"]
+    assert summary_stage.findings({stage: odd}).empty
+
+
 def test_tripod_table_locates_sections(tmp_path):
     import nbformat
 

@@ -40,7 +40,9 @@ design = build_design(frame, linear=["age"])
 model = PredictionModel(design=design, thresholds=np.array([-1.0, 1.0]), coef=np.array([0.02]), link="logit",
                         outcome={"column": "disposition", "type": "ordinal", "levels": list(cohorts.derivation.outcome_levels), "labels": {}})
 save_model(model, ctx.model_path)
-numbers = {"n_analysed": cohorts.derivation.n_analysed, "mean_age": float(frame["age"].mean())}"""
+import os
+numbers = {"n_analysed": cohorts.derivation.n_analysed, "mean_age": float(frame["age"].mean()),
+           "kernel": {k: os.environ.get(k) for k in ("PYTHONHASHSEED", "OPENBLAS_NUM_THREADS", "SOURCE_DATE_EPOCH")}}"""
 
 _USE = """\
 from riskvet.data import load_cohorts
@@ -171,7 +173,8 @@ def test_manifest_lists_hashes_versions_and_seeds(first, study, templates):
     assert manifest["packages"]["numpy"] == environment()["packages"]["numpy"]
     assert manifest["seeds"] == {"selection": 2024, "internal_validation": 11, "external_validation": 12}  # demo study file values
     assert [s["status"] for s in manifest["stages"]] == ["ok"] * len(STAGES_RUN)
-    assert manifest["kernel"]["PYTHONHASHSEED"] == "0"
+    assert manifest["kernel"]["environment"]["PYTHONHASHSEED"] == "0"
+    assert manifest["kernel"]["environment"]["SOURCE_DATE_EPOCH"].isdigit()
     assert "git" not in manifest  # the study folder is in a temporary folder, outside any repository
 
 
@@ -191,8 +194,14 @@ def test_verify_passes_on_a_fresh_record(first):
     assert verification.run_status == "complete"
 
 
-def test_kernel_is_this_interpreter(first):
+def test_kernel_is_this_interpreter_with_fixed_environment(first):
+    import os
     import sys
+
+    seen = json.loads((first.record_dir / "results" / "derivation.json").read_text())["kernel"]
+    assert seen == {k: read_manifest(first.record_dir)["kernel"]["environment"][k] for k in seen}
+    assert seen["PYTHONHASHSEED"] == "0"
+    assert seen["OPENBLAS_NUM_THREADS"] == os.environ.get("OPENBLAS_NUM_THREADS", "1")
 
     notebook = nbformat.read(first.record_dir / "notebooks" / f"{stage_stem('derivation')}.ipynb", as_version=4)
     assert notebook.metadata["papermill"]["parameters"]["record_dir"] == str(first.record_dir)

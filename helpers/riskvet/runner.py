@@ -13,9 +13,10 @@ record failed (with the failing cell and the error), keeps its partly executed
 notebook, and the later stages are skipped.
 
 The kernel that runs each notebook is always the interpreter running riskvet
-(``sys.executable``), whatever kernel specifications are installed elsewhere,
-and it runs with ``PYTHONHASHSEED=0`` so that nothing in a stage can depend on
-the per-process randomisation of string hashes.
+(``sys.executable``), whatever kernel specifications are installed elsewhere.
+It runs with a fixed string-hash seed, single-threaded numerical libraries
+and a fixed ``SOURCE_DATE_EPOCH`` (:func:`kernel_environment`), so that two
+runs of the same study on the same data write the same results and model files.
 """
 
 from __future__ import annotations
@@ -48,6 +49,8 @@ from .study import STAGES, Study, load_study
 __all__ = [
     "KEY_PACKAGES",
     "MODEL_STAGES",
+    "THREAD_VARIABLES",
+    "kernel_environment",
     "StageRun",
     "RunResult",
     "default_templates_dir",
@@ -255,7 +258,34 @@ class RunResult:
 # -- the kernel --------------------------------------------------------------------------------
 
 
-def _kernel_manager_class(log):
+#: Thread counts of the numerical libraries inside the kernel (and, through joblib's
+#: inheritance rule, its worker processes), unless the user's environment sets them:
+#: a floating-point sum split over a varying number of threads is not reproducible.
+THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
+
+
+def kernel_environment(inputs: Sequence[Mapping[str, Any]]) -> dict[str, str]:
+    """Environment variables the runner sets in every stage kernel.
+
+    ``PYTHONHASHSEED=0``; each of :data:`THREAD_VARIABLES` as ``1`` unless
+    already set; and ``SOURCE_DATE_EPOCH`` (the reproducible-builds
+    convention, which stages use for creation dates inside model files),
+    unless already set, as the latest modification time of the input files,
+    so that two runs on unchanged inputs write identical files.  The run's
+    own times are in the manifest.
+    """
+    env = {"PYTHONHASHSEED": "0"}
+    for name in THREAD_VARIABLES:
+        env[name] = os.environ.get(name, "1")
+    epoch = os.environ.get("SOURCE_DATE_EPOCH")
+    if epoch is None:
+        times = [int(Path(e["path"]).stat().st_mtime) for e in inputs if Path(e["path"]).is_file()]
+        epoch = str(max(times)) if times else "0"
+    env["SOURCE_DATE_EPOCH"] = epoch
+    return env
+
+
+def _kernel_manager_class(log, variables: Mapping[str, str]):
     """A kernel manager that always starts this interpreter's ipykernel, its output to ``log``."""
     from jupyter_client.manager import AsyncKernelManager
 
@@ -270,7 +300,7 @@ def _kernel_manager_class(log):
 
         async def start_kernel(self, **kw):
             env = dict(kw.pop("env", None) or os.environ)
-            env["PYTHONHASHSEED"] = "0"
+            env.update(variables)
             env.pop("MPLBACKEND", None)  # ipykernel chooses the inline backend
             kw.update(env=env, stdout=log, stderr=log)
             return await super().start_kernel(**kw)
@@ -340,7 +370,9 @@ def _failing_cell(notebook_path: Path, *, dead: bool = False) -> dict[str, Any]:
     }
 
 
-def _execute(template: Path, notebook: Path, parameters: Mapping[str, str], *, cwd: Path, log_path: Path) -> dict[str, Any] | None:
+def _execute(
+    template: Path, notebook: Path, parameters: Mapping[str, str], *, cwd: Path, log_path: Path, variables: Mapping[str, str]
+) -> dict[str, Any] | None:
     """Execute one notebook; return ``None`` on success, else the error description."""
     import papermill
     from nbclient.exceptions import DeadKernelError
@@ -351,7 +383,7 @@ def _execute(template: Path, notebook: Path, parameters: Mapping[str, str], *, c
             papermill.execute_notebook(
                 str(template), str(notebook), parameters=dict(parameters),
                 kernel_name="python3", language="python", progress_bar=False, log_output=False,
-                cwd=str(cwd), start_timeout=120, kernel_manager_class=_kernel_manager_class(log),
+                cwd=str(cwd), start_timeout=120, kernel_manager_class=_kernel_manager_class(log, variables),
             )
     except PapermillExecutionError as exc:
         return {
@@ -538,6 +570,7 @@ def run_study(
     if model_input is not None:
         inputs.append(model_input)
 
+    variables = kernel_environment(inputs)
     started = _now()
     record = _new_record(Path(study.output.records), study=study, inputs=inputs, started=started)
     run_id = record.name
@@ -560,7 +593,7 @@ def run_study(
         "started": _iso(started),
         "finished": None,
         **environment(),
-        "kernel": {"python": sys.executable, "PYTHONHASHSEED": "0"},
+        "kernel": {"python": sys.executable, "environment": variables},
         "study": {"path": str(study_path), "name": study.study.name, "sha256": study.digest(), "resolved": study.to_dict()},
         "seeds": {
             "selection": study.selection.seed,
@@ -600,7 +633,9 @@ def run_study(
             print(f"{label}: running", file=out, flush=True)
             begin, tick = _now(), time.perf_counter()
             try:
-                error = _execute(templates[stage], notebook, parameters, cwd=record, log_path=Path(scratch) / f"{stage}.log")
+                error = _execute(
+                    templates[stage], notebook, parameters, cwd=record, log_path=Path(scratch) / f"{stage}.log", variables=variables
+                )
             except KeyboardInterrupt as exc:
                 error, interrupted = {"kind": "interrupted", "ename": "KeyboardInterrupt", "evalue": "run interrupted"}, exc
             seconds = round(time.perf_counter() - tick, 2)

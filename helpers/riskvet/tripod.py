@@ -57,8 +57,9 @@ class TripodItem:
         Lower-case words; the first notebook heading containing one of them
         (in the order given) is the section that answers the item.
     result_keys : tuple of str
-        Glob patterns (``fnmatch``) over the stage's flattened results keys,
-        list indices written as ``.0``; the first key that matches is shown.
+        Glob patterns (``fnmatch``; ``*`` also spans dots) over the stage's
+        flattened results keys, list indices written as ``.0``; for the first
+        pattern that matches, the shortest matching key is shown.
     study_keys : tuple of str
         Sections of the resolved study (``study.json``) that also answer it.
     """
@@ -74,45 +75,45 @@ class TripodItem:
 #: The TRIPOD 2015 items a riskvet record answers.
 TRIPOD_ITEMS: tuple[TripodItem, ...] = (
     TripodItem("4a", "source of data (cohort) for development and validation", ("derivation", "external_validation"),
-               ("cohort", "data", "participants"), ("*cohort*", "*n_screened*", "*source*"), ("data",)),
+               ("data flow", "cohort", "data"), ("cohort", "cohorts"), ("data",)),
     TripodItem("5b", "eligibility: which rows were analysed and why others were excluded", ("derivation", "external_validation"),
-               ("exclu", "flow", "participants", "cohort"), ("*exclusion*", "*n_analysed*")),
+               ("data flow", "exclu", "cohort"), ("exclusions", "*.exclusions", "cohort.n_analysed", "cohorts.*.n")),
     TripodItem("6a", "the outcome predicted: its levels and how they are coded", ("derivation",),
-               ("outcome",), ("*outcome*", "*levels*"), ("outcome",)),
+               ("data flow", "outcome"), ("cohort.outcome_counts", "model.outcome"), ("outcome",)),
     TripodItem("7a", "the candidate predictors and how each enters", ("derivation",),
-               ("predictor", "candidate", "design"), ("*candidate*", "*design*", "*terms*"), ("predictors",)),
+               ("predictor", "candidate"), ("selection.candidates", "model.design", "terms"), ("predictors",)),
     TripodItem("8", "how the study size was arrived at", ("planning",),
-               ("developing", "size", "validating"), ("development.n", "n_development", "*n_required*")),
+               ("developing", "size", "validating"), ("development.n", "n_development", "validation")),
     TripodItem("9", "how missing data were handled", ("derivation", "external_validation"),
-               ("missing", "exclu", "complete"), ("*missing*", "*exclusion*")),
+               ("missing", "data flow", "exclu"), ("exclusions", "*.exclusions", "*missing_data*")),
     TripodItem("10a", "how predictors were handled (splines, categories)", ("derivation",),
-               ("predictor", "spline", "design", "term"), ("*knots*", "*design*", "*terms*"), ("predictors",)),
+               ("spline", "final model", "model equation", "predictor"), ("model.design", "terms"), ("predictors",)),
     TripodItem("10b", "type of model, model building and predictor selection, internal validation", ("derivation", "internal_validation"),
-               ("selection", "model", "fit", "optimism"), ("*selection*", "*method*", "*estimates*"), ("model", "selection", "internal_validation")),
+               ("variable selection", "optimism", "selection"), ("selection", "bootstrap.estimates"), ("model", "selection", "internal_validation")),
     TripodItem("10c", "how predictions were calculated for the validation data", ("external_validation",),
-               ("prediction", "model", "linear predictor", "case-mix"), ("*model*", "*lp*")),
+               ("linear predictor", "prediction"), ("model_sha256", "case_mix.*.lp_mean_validation")),
     TripodItem("10d", "measures used to assess performance", ("internal_validation", "external_validation"),
-               ("performance", "discrimination", "calibration", "optimism"), ("*auc*", "*calibration*", "*brier*", "*estimates*")),
+               ("performance", "calibration", "discrimination"), ("bootstrap.estimates", "cohorts.*.performance")),
     TripodItem("10e", "how the model was updated", ("updating",),
-               ("updat", "recalibration", "closed test"), ("*update*", "*method*", "*test*"), ("updating",)),
-    TripodItem("11", "risk groups or decision thresholds", ("derivation", "external_validation"),
-               ("threshold", "decision", "net benefit", "risk group"), ("*threshold*", "*net_benefit*"), ("thresholds",)),
+               ("closed test", "the updates", "updat"), ("result.closed_test", "result.fits"), ("updating",)),
+    TripodItem("11", "decision thresholds and the classification and net benefit at them", ("external_validation",),
+               ("threshold", "decision"), ("cohorts.*.threshold_tables", "*net_benefit*"), ("thresholds",)),
     TripodItem("12", "differences between the development and validation data", ("external_validation",),
-               ("case-mix", "case mix", "differ", "compar", "membership"), ("*standardised*", "*membership*", "*case_mix*")),
+               ("case-mix", "case mix", "related"), ("case_mix.*.membership_c", "case_mix")),
     TripodItem("13a", "flow of participants: numbers screened, excluded, analysed", ("derivation", "external_validation"),
-               ("flow", "exclu", "cohort", "participants"), ("*n_screened*", "*n_analysed*", "*exclusion*")),
+               ("data flow", "flow", "exclu"), ("cohort.n_screened", "cohorts.*.n", "exclusions")),
     TripodItem("13b", "characteristics of the participants", ("derivation", "external_validation"),
-               ("characteristic", "descriptive", "cohort", "participants"), ("*descriptive*", "*characteristics*")),
+               ("predictors by outcome", "characteristic", "descriptive", "case-mix"), ("descriptive*", "case_mix.*.table")),
     TripodItem("13c", "comparison of the validation data with the development data", ("external_validation",),
-               ("case-mix", "case mix", "compar", "differ"), ("*standardised*", "*membership*", "*case_mix*")),
+               ("case-mix", "case mix", "related"), ("case_mix.*.table", "case_mix")),
     TripodItem("14a", "participants and outcome events in each analysis", ("derivation", "external_validation"),
-               ("outcome", "cohort", "events"), ("*n_analysed*", "*outcome_counts*", "*events*", "*n")),
+               ("data flow", "performance", "outcome"), ("cohort.outcome_counts", "cohorts.*.level_counts")),
     TripodItem("15a", "the full model: every coefficient and threshold (intercept)", ("derivation",),
-               ("coefficient", "equation", "model"), ("*coef*", "*threshold*", "*equation*")),
+               ("final model", "coefficient", "equation"), ("model.coefficients", "parameters")),
     TripodItem("16", "performance measures with confidence intervals", ("internal_validation", "external_validation"),
-               ("performance", "discrimination", "calibration", "optimism"), ("*auc*", "*corrected*", "*calibration*")),
+               ("optimism-corrected", "performance", "calibration"), ("bootstrap.estimates", "cohorts.*.performance")),
     TripodItem("17", "results of model updating: the updated model and its performance", ("updating",),
-               ("updat", "recalibrat", "chosen", "closed test"), ("*chosen*", "*update*", "*method*")),
+               ("chosen", "before and after", "updat"), ("result.closed_test.chosen", "result.calibration_after")),
 )
 
 #: Items a report needs that the record does not answer: the authors write them.
@@ -156,11 +157,13 @@ def _keys(results: Any, prefix: str = "") -> list[str]:
 
 
 def _first_key(results: Any, patterns: Sequence[str]) -> str | None:
+    """The shortest key (fewest parts) matching the first pattern that matches any key."""
     keys = _keys(results)
     for pattern in patterns:
-        for key in keys:
-            if fnmatch.fnmatchcase(key.lower(), pattern.lower()):
-                return re.sub(r"\.(\d+)(?=\.|$)", r"[\1]", key)
+        found = [key for key in keys if fnmatch.fnmatchcase(key.lower(), pattern.lower())]
+        if found:
+            best = min(found, key=lambda k: (k.count("."), keys.index(k)))
+            return re.sub(r"\.(\d+)(?=\.|$)", r"[\1]", best)
     return None
 
 
