@@ -167,3 +167,12 @@ def test_ordinal_net_benefit_bad_input():
         ordinal_net_benefit([0, 1, 3], np.full((3, 3), 1 / 3), thresholds=[0.2])
     with pytest.raises(RiskvetError, match=r"ordinal_net_benefit\(thresholds=\)"):
         ordinal_net_benefit([0, 1, 2], np.full((3, 3), 1 / 3), thresholds=[1.0])
+
+
+def test_wilson_limits_are_exact_at_zero_and_all_events():
+    """Wilson (1927): with 0 of m events the lower limit is exactly 0, with m of m the upper is exactly 1."""
+    from riskvet.decision import _proportion_interval
+
+    lower, upper = _proportion_interval(np.array([0.0, 7.0]), np.array([7.0, 7.0]), 1.959963984540054, 0.95, "wilson")
+    assert lower[0] == 0.0 and upper[1] == 1.0
+    assert 0.0 < upper[0] < 1.0 and 0.0 < lower[1] < 1.0

@@ -69,7 +69,10 @@ def _proportion_interval(count: np.ndarray, total: np.ndarray, z: float, conf: f
             denom = 1.0 + z * z / total
             centre = (p + z * z / (2.0 * total)) / denom
             half = z / denom * np.sqrt(p * (1.0 - p) / total + z * z / (4.0 * total * total))
-            lower, upper = centre - half, centre + half
+            # at 0 and at m events the Wilson limits are exactly 0 and 1; rounding
+            # would otherwise leave them a hair inside and the estimate outside
+            lower = np.where(count <= 0, 0.0, centre - half)
+            upper = np.where(count >= total, 1.0, centre + half)
         else:
             alpha = 1.0 - conf
             lower = np.where(count > 0, stats.beta.ppf(alpha / 2.0, count, total - count + 1.0), 0.0)
