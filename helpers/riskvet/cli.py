@@ -142,8 +142,15 @@ def _cmd_compare(args: argparse.Namespace) -> int:
                 print(f"... {len(part) - args.limit} more (--all shows every one)")
     headline = comparison.headline
     if not headline.empty:
-        print("\n== headline results side by side ==")
-        _print_frame(headline if args.all else headline.head(args.limit * 2))
+        shown = headline.assign(
+            a=[f"{v:.6g}" if isinstance(v, float) else ("(absent)" if v is None else str(v)) for v in headline["a"]],
+            b=[f"{v:.6g}" if isinstance(v, float) else ("(absent)" if v is None else str(v)) for v in headline["b"]],
+            same=["" if same else "differs" for same in headline["same"]],
+        ).drop(columns="key")
+        print(f"\n== key results side by side: {int((~headline['same']).sum())} of {len(headline)} differ ==")
+        _print_frame(shown if args.all else shown.head(args.limit * 4))
+        if not args.all and len(shown) > args.limit * 4:
+            print(f"... {len(shown) - args.limit * 4} more (--all shows every one)")
     return 0
 
 

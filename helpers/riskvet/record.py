@@ -422,8 +422,9 @@ class Comparison:
     differences : tuple of Difference
         In section order, then key order.
     headline : DataFrame
-        Headline results side by side: ``stage``, ``key``, ``a``, ``b``,
-        ``same`` (see :func:`headline_results`), for the union of both records.
+        Key results side by side: ``stage``, ``measure``, ``a``, ``b``,
+        ``key``, ``same`` (the key results the summary stage shows, see
+        :func:`riskvet.stages.summary.key_results`), for the union of both records.
     """
 
     record_a: str
@@ -512,7 +513,7 @@ def compare_records(record_a: str | Path, record_b: str | Path) -> Comparison:
         key-path diff of the resolved studies); ``inputs`` and ``templates``
         (SHA-256 by role / stage); ``packages`` (versions); ``results``
         (every leaf of every ``results/<stage>.json``).  Times and run ids are
-        not differences.  ``headline`` puts the headline results side by side.
+        not differences.  ``headline`` puts the key results side by side.
     """
     a, b = Path(record_a), Path(record_b)
     ma, mb = read_manifest(a), read_manifest(b)
@@ -539,21 +540,49 @@ def compare_records(record_a: str | Path, record_b: str | Path) -> Comparison:
     ra, rb = _read_results(a), _read_results(b)
     differences += _diff("results", ra, rb)
 
-    ha, hb = headline_results(ra), headline_results(rb)
-    merged = ha.merge(hb, on=["stage", "key"], how="outer", suffixes=("_a", "_b"), sort=False)
-    order = {s: i for i, s in enumerate(dict.fromkeys([*ra, *rb]))}
-    merged = merged.assign(_o=merged["stage"].map(order)).sort_values(["_o", "key"], kind="stable").drop(columns="_o")
-    headline = pd.DataFrame({
-        "stage": merged["stage"].to_list(),
-        "key": merged["key"].to_list(),
-        "a": [None if _missing(v) else v for v in merged["value_a"]],
-        "b": [None if _missing(v) else v for v in merged["value_b"]],
-    })
-    headline["same"] = [_same(x, y) for x, y in zip(headline["a"], headline["b"])]
+    headline = _side_by_side(ra, rb, levels=_levels(ma) or _levels(mb))
     return Comparison(
         record_a=str(a), record_b=str(b), run_a=ma.get("run_id"), run_b=mb.get("run_id"),
         differences=tuple(differences), headline=headline,
     )
+
+
+def _levels(manifest: Mapping[str, Any]) -> tuple[str, ...]:
+    """Outcome levels coded 0..K-1 of a manifest's resolved study (empty if it cannot be read)."""
+    from .study import study_from_dict
+
+    try:
+        return tuple(study_from_dict((manifest.get("study") or {}).get("resolved")).outcome.ordered_levels)
+    except (RiskvetError, TypeError, AttributeError):
+        return ()
+
+
+def _side_by_side(ra: Mapping[str, Any], rb: Mapping[str, Any], *, levels: tuple[str, ...]) -> pd.DataFrame:
+    from .stages.summary import key_results
+
+    from .study import STAGES
+
+    columns = ["stage", "measure", "key"]
+    ka = key_results({s: r for s, r in ra.items() if s != "summary"}, levels=levels)
+    kb = key_results({s: r for s, r in rb.items() if s != "summary"}, levels=levels)
+    ka = ka[columns + ["value"]].assign(_pa=range(len(ka)))
+    kb = kb[columns + ["value"]].assign(_pb=range(len(kb)))
+    merged = ka.merge(kb, on=columns, how="outer", suffixes=("_a", "_b"))
+    # chain order of stages, then the order the summary lists them (A's, then B's own)
+    rank = {s: i for i, s in enumerate(STAGES)}
+    merged = merged.assign(
+        _s=merged["stage"].map(lambda s: rank.get(s, len(rank))),
+        _p=merged["_pa"].fillna(len(ka) + merged["_pb"]),
+    ).sort_values(["_s", "_p"], kind="stable")
+    table = pd.DataFrame({
+        "stage": merged["stage"].to_list(),
+        "measure": merged["measure"].to_list(),
+        "a": [None if _missing(v) else v for v in merged["value_a"]],
+        "b": [None if _missing(v) else v for v in merged["value_b"]],
+        "key": merged["key"].to_list(),
+    })
+    table["same"] = [_same(x, y) for x, y in zip(table["a"], table["b"])]
+    return table
 
 
 def _missing(value: Any) -> bool:
