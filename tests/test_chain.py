@@ -66,6 +66,27 @@ def test_html_is_offline_and_shows_no_code(chain):
         assert "jp-InputArea-editor" not in body and "jp-InputPrompt" not in body, html.name
 
 
+def test_every_saved_figure_is_shown_in_its_notebook(chain):
+    import base64
+
+    import nbformat
+
+    shown = 0
+    for folder in sorted((chain.record_dir / "figures").iterdir()):
+        notebook = nbformat.read(chain.record_dir / "notebooks" / f"{stage_stem(folder.name)}.ipynb", as_version=4)
+        images = {
+            "".join(o["data"]["image/png"].split())
+            for cell in notebook.cells if cell.cell_type == "code"
+            for o in cell.get("outputs", []) if "image/png" in o.get("data", {})
+        }
+        for png in sorted(folder.glob("*.png")):
+            # IPython's Image(filename=...) embeds the file's own bytes
+            assert base64.b64encode(png.read_bytes()).decode("ascii") in images, f"{folder.name}/{png.name} not shown"
+            assert png.with_suffix(".svg").is_file()
+            shown += 1
+    assert shown >= 5
+
+
 def _data_files(record: Path) -> list[Path]:
     manifest = read_manifest(record)
     return [Path(e["path"]) for e in manifest["inputs"] if e["role"].startswith("data.")]

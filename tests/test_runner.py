@@ -178,6 +178,28 @@ def test_manifest_lists_hashes_versions_and_seeds(first, study, templates):
     assert "git" not in manifest  # the study folder is in a temporary folder, outside any repository
 
 
+def test_git_commit_of_the_study_folder(tmp_path):
+    import subprocess
+
+    if shutil.which("git") is None:
+        pytest.skip("git is not installed")
+    from riskvet.runner import git_commit
+
+    assert git_commit(tmp_path) is None  # not a repository
+    run = lambda *a: subprocess.run(["git", "-C", str(tmp_path), *a], check=True, capture_output=True, text=True)  # noqa: E731
+    run("init", "-q")
+    (tmp_path / "study.yaml").write_text("x: 1\n")
+    run("add", "study.yaml")
+    run("-c", "user.name=t", "-c", "user.email=t@example.invalid", "commit", "-q", "-m", "study")
+    head = run("rev-parse", "HEAD").stdout.strip()
+    (tmp_path / "records" / "r1").mkdir(parents=True)
+    (tmp_path / "records" / "r1" / "manifest.json").write_text("{}")
+    assert git_commit(tmp_path, ignore=tmp_path / "records") == {"commit": head, "dirty": False}
+    assert git_commit(tmp_path) == {"commit": head, "dirty": True}  # the untracked records count without ignore
+    (tmp_path / "study.yaml").write_text("x: 2\n")
+    assert git_commit(tmp_path, ignore=tmp_path / "records")["dirty"] is True
+
+
 def test_manifest_study_is_the_resolved_study(first, study):
     from riskvet.study import load_study
 

@@ -135,18 +135,35 @@ def environment() -> dict[str, Any]:
     }
 
 
-def git_commit(folder: str | Path) -> dict[str, Any] | None:
+def git_commit(folder: str | Path, *, ignore: str | Path | None = None) -> dict[str, Any] | None:
     """The git commit checked out in ``folder`` and whether the folder has uncommitted changes.
 
-    Returns ``None`` when ``folder`` is not inside a git work tree or git is not installed.
+    Parameters
+    ----------
+    folder : path
+        The study folder.
+    ignore : path, optional
+        A folder inside ``folder`` whose changes do not count (the records folder).
+
+    Returns
+    -------
+    dict or None
+        ``commit`` (``git rev-parse HEAD``) and ``dirty`` (files under
+        ``folder`` modified or untracked); ``None`` when ``folder`` is not
+        inside a git work tree or git is not installed.
     """
-    folder = Path(folder)
+    folder = Path(folder).resolve()
+    spec = ["."]
+    if ignore is not None:
+        ignored = Path(ignore).resolve()
+        if ignored.is_relative_to(folder) and ignored != folder:
+            spec.append(f":(exclude){ignored.relative_to(folder).as_posix()}")
     try:
         head = subprocess.run(["git", "-C", str(folder), "rev-parse", "HEAD"], capture_output=True, text=True, timeout=20)
         if head.returncode != 0:
             return None
         status = subprocess.run(
-            ["git", "-C", str(folder), "status", "--porcelain", "--", "."], capture_output=True, text=True, timeout=60
+            ["git", "-C", str(folder), "status", "--porcelain", "--", *spec], capture_output=True, text=True, timeout=60
         )
     except (OSError, subprocess.SubprocessError):
         return None
@@ -571,6 +588,7 @@ def run_study(
         inputs.append(model_input)
 
     variables = kernel_environment(inputs)
+    commit = git_commit(study_path.parent, ignore=study.output.records)
     started = _now()
     record = _new_record(Path(study.output.records), study=study, inputs=inputs, started=started)
     run_id = record.name
@@ -608,7 +626,6 @@ def run_study(
         "stages": [StageRun(stage=s, status="pending").to_dict() for s in chosen],
         "files": {},
     }
-    commit = git_commit(study_path.parent)
     if commit is not None:
         manifest["git"] = commit
     write_manifest(record, manifest)
