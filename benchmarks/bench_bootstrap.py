@@ -81,6 +81,7 @@ class _PeakMemory:
         self._psutil = psutil
         self.interval = interval
         self.peak = 0
+        self.cpu: dict[int, float] = {}
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._run, daemon=True)
 
@@ -89,9 +90,16 @@ class _PeakMemory:
         for p in [self._proc, *self._proc.children(recursive=True)]:
             try:
                 total += p.memory_info().rss
+                t = p.cpu_times()
+                self.cpu[p.pid] = t.user + t.system
             except (self._psutil.NoSuchProcess, self._psutil.AccessDenied):
                 pass
         return total
+
+    @property
+    def cpu_seconds(self) -> float:
+        """CPU time of this process and its workers (last sample of each)."""
+        return float(sum(self.cpu.values()))
 
     def _run(self) -> None:
         while not self._stop.is_set():
@@ -198,6 +206,8 @@ def main() -> None:
         print(f"data: n = {len(y)}, levels {np.bincount(y).tolist()}, {len(study.predictors.in_analysis)} candidate predictors, "
               f"forward selection with {study.selection.folds}-fold CV; machine: {os.cpu_count()} cores")
 
+        cpu_before = sum(resource.getrusage(who).ru_utime + resource.getrusage(who).ru_stime
+                         for who in (resource.RUSAGE_SELF, resource.RUSAGE_CHILDREN))
         with _PeakMemory() as mem:
             start = time.perf_counter()
             result = validate_internally(study, (frame, y), n_boot=args.n_boot, seed=study.internal_validation.seed,
@@ -207,6 +217,10 @@ def main() -> None:
         child_max = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024
         print(f"validate_internally: {args.n_boot} replicates on {args.n_jobs} workers in {wall:.1f} s "
               f"({wall / args.n_boot * 1000:.0f} ms per replicate; target for 200 on 2 cores: < 30 s)")
+        cpu = mem.cpu_seconds - cpu_before
+        print(f"  CPU time of this process and the workers during the run: {cpu:.1f} s; with {args.n_jobs} cores free "
+              f"for this run alone that is about {cpu / args.n_jobs:.1f} s of wall time (other load on the machine "
+              f"during the run lengthens the measured wall time)")
         print(f"  {result.n_succeeded} succeeded, failures {result.failure_counts or 'none'}; "
               f"model sizes {result.stability.model_sizes}")
         print(f"peak memory (this process + workers, psutil RSS sum): {mem.peak / 2**20:.0f} MiB (target < 1024 MiB); "
