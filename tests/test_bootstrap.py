@@ -358,6 +358,10 @@ def test_estimates_are_internally_consistent(small_result):
     assert r.estimate("average_cut_auc").optimism_lower == pytest.approx(np.percentile(boot - test, 2.5), rel=1e-12)
     frame = r.to_frame()
     assert list(frame["measure"]) == [e.measure for e in r.estimates]
+    # Calibration slope and intercept are not error rates: no .632 estimates (NaN in the table, null in JSON).
+    slope_rows = frame[frame["kind"].isin(["slope", "intercept"])]
+    assert frame["estimate_632plus"].dtype == float and slope_rows["estimate_632plus"].isna().all()
+    assert frame[frame["kind"] == "concordance"]["estimate_632plus"].notna().all()
     assert frame.shape[0] == 15  # 3 levels: 2 cut AUCs, 3 ordinal C's, 3 overall, 1 + 2 slopes, 2 CITL, 2 ICI
     text = json.dumps(r.to_dict(), allow_nan=False)
     assert "replicate_values" in text

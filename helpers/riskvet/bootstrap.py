@@ -27,6 +27,7 @@ study's ``internal_validation.max_failed_share`` fail.
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import math
 import os
 import pickle
@@ -605,7 +606,7 @@ class InternalValidation:
 
     def to_frame(self) -> pd.DataFrame:
         """One row per measure with every estimate."""
-        return pd.DataFrame([e.to_dict() for e in self.estimates])
+        return pd.DataFrame([dataclasses.asdict(e) for e in self.estimates])  # NaN kept (to_dict makes it None)
 
     def failures_frame(self) -> pd.DataFrame:
         """Failed replicates: replicate, reason, message."""

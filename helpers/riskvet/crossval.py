@@ -26,6 +26,7 @@ are combined in fold order in the calling process, so they do not depend on
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import warnings
 from collections import Counter
@@ -142,7 +143,7 @@ class CrossValidation:
 
     def to_frame(self) -> pd.DataFrame:
         """One row per measure."""
-        return pd.DataFrame([e.to_dict() for e in self.estimates])
+        return pd.DataFrame([dataclasses.asdict(e) for e in self.estimates])  # NaN kept (to_dict makes it None)
 
     @property
     def summary_sentence(self) -> str:
