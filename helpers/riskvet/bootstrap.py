@@ -1207,7 +1207,8 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
         model family) is repeated in every replicate, its
         ``internal_validation.max_failed_share`` bounds the failures, and
         ``compute.scheduler``, when set, sends the replicates to that
-        dask.distributed scheduler.
+        dask.distributed scheduler (its workers need the same riskvet,
+        numpy and scipy installed; the result is then identical to a local run).
     data : PreparedCohort or (DataFrame, array of int)
         The derivation cohort (``load_cohorts(study).derivation``), or its
         complete-case frame and outcome codes 0..K-1.
