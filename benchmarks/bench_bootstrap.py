@@ -227,7 +227,6 @@ def main() -> None:
               f"getrusage max RSS self {self_max:.0f} MiB, largest finished child {child_max:.0f} MiB")
 
         # One replicate in this process, one BLAS thread, for the comparison.
-        from riskvet.bootstrap import _measure_specs  # noqa: F401  (warm the imports)
 
         payload = _Payload(study=study, frame=frame[list(study.predictors.in_analysis)], y=y, K=3, link="logit")
         children = np.random.SeedSequence(99).spawn(3)

@@ -38,11 +38,10 @@ import warnings
 from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Iterable, Iterator, Mapping, Sequence
+from typing import Any, Callable, Iterator, Sequence
 
 import numpy as np
 import pandas as pd
-from scipy import special
 
 from ._jsonable import to_jsonable
 from .errors import DataError, DesignError, FitError, RiskvetError, RiskvetWarning, problem
