@@ -58,6 +58,16 @@ def test_chain_record_verifies(chain):
     assert verification.ok, verification.to_frame()[lambda f: f["status"] != "ok"]
 
 
+def test_results_and_models_do_not_depend_on_the_record(chain):
+    # what makes two runs differ would be the record's place or name; times are
+    # checked by running twice (tests/test_runner.py, fake stages)
+    files = sorted((chain.record_dir / "results").glob("*.json")) + sorted((chain.record_dir / "models").glob("*.json"))
+    assert len(files) >= 8
+    for path in files:
+        text = path.read_text(encoding="utf-8")
+        assert str(chain.record_dir) not in text and chain.run_id not in text, path.name
+
+
 def test_html_is_offline_and_shows_no_code(chain):
     for html in sorted((chain.record_dir / "html").glob("*.html")):
         text = html.read_text(encoding="utf-8")

@@ -114,6 +114,8 @@ def _cmd_verify(args: argparse.Namespace) -> int:
         shown = shown[shown["status"] != "ok"]
     if len(shown):
         _print_frame(shown)
+    if verification.run_status == "running":
+        print("note: the run never finished (its manifest still says running), so the files it wrote were never listed")
     if verification.ok:
         print("intact: every listed file has its recorded SHA-256 and nothing was added")
         return 0
