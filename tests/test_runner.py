@@ -401,3 +401,63 @@ def test_template_path_and_defaults():
     assert template_path("summary").parent.name == "templates"
     with pytest.raises(RiskvetError, match="one of"):
         template_path("validation")
+
+
+# -- HTML renderings, without a kernel ----------------------------------------------------------------
+
+
+def _executed_like(tmp_path: Path, *, markdown: str = "# Title\n\nText.") -> Path:
+    notebook = nbformat.v4.new_notebook(cells=[
+        nbformat.v4.new_markdown_cell(markdown),
+        nbformat.v4.new_code_cell("marker = 'code-of-the-cell'\nmarker", outputs=[
+            nbformat.v4.new_output("execute_result", data={"text/plain": "output-of-the-cell"}, execution_count=1)
+        ], execution_count=1),
+    ])
+    path = tmp_path / "nb.ipynb"
+    nbformat.write(notebook, path)
+    return path
+
+
+def test_render_html_hides_code_unless_asked(tmp_path):
+    from riskvet.html import render_html
+
+    notebook = _executed_like(tmp_path)
+    hidden = render_html(notebook, tmp_path / "hidden.html").read_text(encoding="utf-8")
+    shown = render_html(notebook, tmp_path / "shown.html", show_code=True).read_text(encoding="utf-8")
+    assert "code-of-the-cell" not in hidden and "output-of-the-cell" in hidden
+    assert "code-of-the-cell" in shown and "output-of-the-cell" in shown
+    assert "<script src=" not in hidden and "mathjax" not in hidden.lower()
+    with pytest.raises(RecordError, match="never overwritten"):
+        render_html(notebook, tmp_path / "hidden.html")
+    with pytest.raises(RecordError, match="not found"):
+        render_html(tmp_path / "absent.ipynb", tmp_path / "x.html")
+
+
+def test_render_html_refuses_network_resources_but_allows_links(tmp_path):
+    from riskvet.html import render_html
+
+    linked = _executed_like(tmp_path, markdown="See [the checklist](https://example.org/list).")
+    text = render_html(linked, tmp_path / "linked.html").read_text(encoding="utf-8")
+    assert external_references(text) == ["https://example.org/list"]
+    assert external_references(text, links=False) == []
+    (tmp_path / "nb.ipynb").unlink()
+    fetched = _executed_like(tmp_path, markdown='<img src="https://example.org/logo.png">')
+    with pytest.raises(RecordError, match="open offline"):
+        render_html(fetched, tmp_path / "fetched.html")
+    assert not (tmp_path / "fetched.html").exists()
+
+
+def test_external_references_finds_every_kind():
+    text = (
+        '<a href="https://a.example">a</a><img alt=">" src="//cdn.example/i.png">'
+        '<link rel="stylesheet" href="http://c.example/s.css"><script src=https://d.example/x.js></script>'
+        '<style>@import "https://e.example/f.css"; p {background: url(http://f.example/g.png)}</style>'
+        '<svg xmlns="http://www.w3.org/2000/svg"></svg><img src="data:image/png;base64,AAAA">'
+    )
+    assert external_references(text) == [
+        "https://a.example", "//cdn.example/i.png", "http://c.example/s.css", "https://d.example/x.js",
+        "https://e.example/f.css", "http://f.example/g.png",
+    ]
+    assert "https://a.example" not in external_references(text, links=False)
+    with pytest.raises(RiskvetError, match="HTML text"):
+        external_references(b"<html>")

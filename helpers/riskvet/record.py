@@ -466,9 +466,11 @@ def _shown(value: Any) -> str:
 
 
 def _same(a: Any, b: Any) -> bool:
-    if isinstance(a, float) and isinstance(b, float) and math.isnan(a) and math.isnan(b):
-        return True
-    return type(a) is type(b) and a == b if not (isinstance(a, (int, float)) and isinstance(b, (int, float))) else a == b
+    """Equal values: 2 and 2.0 are the same number, True and 1 are not, NaN equals NaN."""
+    numbers = (int, float)
+    if isinstance(a, numbers) and isinstance(b, numbers) and not isinstance(a, bool) and not isinstance(b, bool):
+        return a == b or (isinstance(a, float) and isinstance(b, float) and math.isnan(a) and math.isnan(b))
+    return type(a) is type(b) and a == b
 
 
 def _diff(section: str, a: Any, b: Any) -> list[Difference]:

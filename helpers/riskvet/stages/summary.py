@@ -445,8 +445,8 @@ def _texts(study: Mapping[str, Any], stages: pd.DataFrame, model: Mapping[str, A
         "stages": " ".join(parts),
         "model": model_text,
         "key_results": (
-            "The numbers below are copied from each stage's results file (the key column says where); "
-            "the stage notebooks give their intervals and interpretation."
+            "The numbers below are copied from each stage's results file (the key column says where), with the "
+            "interval that stage reports, if any (its notebook says which kind); the stage notebooks interpret them."
         ),
         "tripod": (
             "For each TRIPOD item the analysis covers, where this record answers it: the executed notebook and "
