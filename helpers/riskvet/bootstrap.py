@@ -1068,21 +1068,22 @@ def _failure_reason(exc: Exception) -> str:
     return "error"
 
 
-def _fit_and_predict(study, frame_fit: pd.DataFrame, y_fit: np.ndarray, frame_new: pd.DataFrame, seed: int, K: int):
-    """derive() on (frame_fit, y_fit), then probabilities and LP on frame_new.
+def _fit_and_predict(study, frame_fit: pd.DataFrame, y_fit: np.ndarray, frame_new: pd.DataFrame, seed: int, K: int,
+                     *, weights: np.ndarray | None = None):
+    """derive() on (frame_fit, y_fit) (with frequency ``weights``), then probabilities and LP on frame_new.
 
     Returns (derivation, prob, lp, warning counts) or raises _ReplicateFailed.
     """
     from .derive import derive
 
-    counts = np.bincount(y_fit, minlength=K)
+    counts = np.bincount(y_fit, weights=weights, minlength=K)
     if np.any(counts == 0):
         raise _ReplicateFailed("empty outcome level", f"outcome level(s) {np.flatnonzero(counts == 0).tolist()} absent; counts by level {counts.tolist()}")
     caught: Counter[str] = Counter()
     with warnings.catch_warnings(record=True) as seen:
         warnings.simplefilter("always")
         try:
-            derivation = derive(study, frame_fit, y_fit, seed=seed)
+            derivation = derive(study, frame_fit, y_fit, seed=seed, weights=weights)
         except (RiskvetError, np.linalg.LinAlgError) as exc:
             raise _ReplicateFailed(_failure_reason(exc), str(exc).splitlines()[0][:300]) from None
     for w in seen:
@@ -1132,10 +1133,14 @@ def _replicate(payload: _Payload, item: tuple[int, np.random.SeedSequence]) -> d
     n = len(payload.frame)
     idx, sel_seed = _draw(child, n)
     record: dict[str, Any] = {"replicate": i, "selection_seed": sel_seed}
-    frame_b = payload.frame.iloc[idx].reset_index(drop=True)
+    # the resample as counts: each drawn person is one weighted row, so the
+    # selection's cross-validation never splits a person's copies over folds
+    counts = np.bincount(idx, minlength=n)
     y_b = payload.y[idx]
     try:
-        derivation, prob, lp, caught = _fit_and_predict(payload.study, frame_b, y_b, payload.frame, sel_seed, payload.K)
+        derivation, prob, lp, caught = _fit_and_predict(
+            payload.study, payload.frame, payload.y, payload.frame, sel_seed, payload.K, weights=counts
+        )
     except _ReplicateFailed as exc:
         record.update(status="failed", reason=exc.reason, message=exc.message)
         return record

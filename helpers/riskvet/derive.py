@@ -123,6 +123,7 @@ def derive(
     y: np.ndarray,
     *,
     seed: int | None = None,
+    weights: np.ndarray | None = None,
 ) -> Derivation:
     """Run the study's whole derivation procedure on one data set.
 
@@ -137,12 +138,28 @@ def derive(
     seed : int, optional
         Seed of the selection's cross-validation folds; the study's
         ``selection.seed`` when omitted.  Bootstrap replicates pass their own.
+    weights : array of int, optional
+        Frequency weights: row i stands for ``weights[i]`` people (a bootstrap
+        resample given as counts).  The design is learned on the expanded
+        rows, so knots equal those of the resample written out row by row;
+        the fits equal the fits on the expanded rows; and the selection's
+        cross-validation deals people, not copies, to folds, so no copy of a
+        person is both in a training fold and in its held-out fold.
 
     Returns
     -------
     Derivation
     """
-    design = candidate_design(study, frame)
+    if weights is not None:
+        counts = np.asarray(weights)
+        if counts.shape != (len(frame),) or np.any(counts < 0) or not np.all(counts == np.round(counts)):
+            raise DataError(f"derive(weights=): expected {len(frame)} whole, non-negative counts; received shape {counts.shape}")
+        keep = counts > 0
+        frame, y, counts = frame.loc[keep], np.asarray(y)[keep], counts[keep].astype(np.int64)
+        design = candidate_design(study, frame.iloc[np.repeat(np.arange(len(frame)), counts)])
+    else:
+        counts = None
+        design = candidate_design(study, frame)
     X = design.transform(frame)
     forced = [t for t in study.predictors.forced if t in design.term_columns]
     result = select_terms(
@@ -155,6 +172,7 @@ def derive(
         seed=study.selection.seed if seed is None else seed,
         link=study.model.link,
         proportional=study.model.proportional,
+        weights=counts,
     )
     chosen = set(result.terms)
     final = design.subset([t.name for t in design.terms if t.name in chosen])
