@@ -35,7 +35,9 @@ def to_jsonable(value: Any) -> Any:
     if dataclasses.is_dataclass(value) and not isinstance(value, type):
         return {f.name: to_jsonable(getattr(value, f.name)) for f in dataclasses.fields(value)}
     if isinstance(value, pd.DataFrame):
-        return [to_jsonable(r) for r in value.reset_index().to_dict(orient="records")] if not isinstance(value.index, pd.RangeIndex) else [to_jsonable(r) for r in value.to_dict(orient="records")]
+        # a meaningful index (not 0..n-1) is kept as a column
+        table = value if isinstance(value.index, pd.RangeIndex) else value.reset_index()
+        return [to_jsonable(r) for r in table.to_dict(orient="records")]
     if isinstance(value, pd.Series):
         return {str(k): to_jsonable(v) for k, v in value.items()}
     if isinstance(value, np.ndarray):
