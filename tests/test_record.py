@@ -239,6 +239,27 @@ def test_compare_identical_and_changed_records(run_record, tmp_path, capsys):
     assert "selection.seed" in printed and "derivation.mean_age" in printed and "package versions: 1 difference" in printed
 
 
+def test_compare_tolerance_absent_stages_and_nulls(run_record, tmp_path):
+    other = tmp_path / "other"
+    shutil.copytree(run_record, other)
+    _rewrite_json(other / "results" / "derivation.json", lambda d: d.update(mean_age=d["mean_age"] * (1 + 1e-13), extra=None))
+    exact = compare_records(run_record, other)
+    keys = {d.key: d for d in exact.section("results")}
+    assert set(keys) == {"derivation.mean_age", "derivation.extra"}
+    row = exact.to_frame().set_index("key").loc["derivation.mean_age"]
+    assert row["a"] != row["b"]  # shown with every digit when the rounded forms agree
+    assert (keys["derivation.extra"].in_a, keys["derivation.extra"].in_b) == (False, True)
+    assert exact.to_frame().set_index("key").loc["derivation.extra", "a"] == "(absent)"
+    assert exact.to_frame().set_index("key").loc["derivation.extra", "b"] == "null"
+    loose = compare_records(run_record, other, rtol=1e-9)
+    assert [d.key for d in loose.section("results")] == ["derivation.extra"]
+    (other / "results" / "summary.json").unlink()
+    gone = compare_records(run_record, other, rtol=1e-9)
+    assert [(d.key, d.a, d.b) for d in gone.section("results")] == [("derivation.extra", None, None), ("summary", "results/summary.json", None)]
+    with pytest.raises(RiskvetError, match="rtol"):
+        compare_records(run_record, other, rtol=-1)
+
+
 # -- the summary stage ------------------------------------------------------------------------------------------
 
 

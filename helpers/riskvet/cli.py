@@ -126,7 +126,7 @@ def _cmd_verify(args: argparse.Namespace) -> int:
 def _cmd_compare(args: argparse.Namespace) -> int:
     from .record import compare_records
 
-    comparison = compare_records(args.record_a, args.record_b)
+    comparison = compare_records(args.record_a, args.record_b, rtol=args.rtol)
     print(f"A: {comparison.run_a}  ({comparison.record_a})\nB: {comparison.run_b}  ({comparison.record_b})")
     frame = comparison.to_frame()
     titles = {
@@ -195,6 +195,8 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("record_a", type=Path)
     p.add_argument("record_b", type=Path)
     p.add_argument("--limit", type=int, default=25, help="rows shown per section (default 25)")
+    p.add_argument("--rtol", type=float, default=0.0,
+                   help="numbers within this relative difference count as equal (default 0: identical)")
     p.add_argument("--all", action="store_true", help="show every difference")
     p.set_defaults(func=_cmd_compare)
 

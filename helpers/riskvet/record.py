@@ -396,17 +396,24 @@ class Difference:
     section : {"record", "study", "inputs", "templates", "packages", "results"}
     key : str
         Key path inside the section (``selection.seed``; ``derivation.auc``).
+        A stage whose results exist in one record only is one difference,
+        keyed by the stage name, with the file name on the side that has it.
     a, b : object
-        The value in record A and in record B (``None`` where absent).
+        The value in record A and in record B (``None`` for JSON null or absent).
+    in_a, in_b : bool
+        Whether the key exists in A and in B.
     """
 
     section: str
     key: str
     a: Any
     b: Any
+    in_a: bool = True
+    in_b: bool = True
 
     def to_dict(self) -> dict[str, Any]:
-        return {"section": self.section, "key": self.key, "a": to_jsonable(self.a), "b": to_jsonable(self.b)}
+        return {"section": self.section, "key": self.key, "a": to_jsonable(self.a), "b": to_jsonable(self.b),
+                "in_a": self.in_a, "in_b": self.in_b}
 
 
 @dataclass(frozen=True)
@@ -453,35 +460,53 @@ class Comparison:
 
     def to_frame(self) -> pd.DataFrame:
         """One row per difference: section, key, a, b."""
-        rows = [{"section": d.section, "key": d.key, "a": _shown(d.a), "b": _shown(d.b)} for d in self.differences]
+        rows = []
+        for d in self.differences:
+            a, b = _shown(d.a, d.in_a), _shown(d.b, d.in_b)
+            if a == b:  # equal when rounded for reading: show every digit
+                a, b = _shown(d.a, d.in_a, digits=17), _shown(d.b, d.in_b, digits=17)
+            rows.append({"section": d.section, "key": d.key, "a": a, "b": b})
         return pd.DataFrame(rows, columns=["section", "key", "a", "b"])
 
 
-def _shown(value: Any) -> str:
-    if value is None:
+def _shown(value: Any, present: bool = True, *, digits: int = 6) -> str:
+    if not present:
         return "(absent)"
+    if value is None:
+        return "null"
     if isinstance(value, float):
-        return f"{value:.6g}"
+        return f"{value:.{digits}g}"
     return json.dumps(value, ensure_ascii=False) if isinstance(value, (dict, list)) else str(value)
 
 
-def _same(a: Any, b: Any) -> bool:
-    """Equal values: 2 and 2.0 are the same number, True and 1 are not, NaN equals NaN."""
+def _same(a: Any, b: Any, *, rtol: float = 0.0) -> bool:
+    """Equal values: 2 and 2.0 are the same number, True and 1 are not, NaN equals NaN.
+
+    Numbers also count as equal when ``|a - b| <= rtol * max(|a|, |b|)``.
+    """
     numbers = (int, float)
     if isinstance(a, numbers) and isinstance(b, numbers) and not isinstance(a, bool) and not isinstance(b, bool):
-        return a == b or (isinstance(a, float) and isinstance(b, float) and math.isnan(a) and math.isnan(b))
+        if a == b or (isinstance(a, float) and isinstance(b, float) and math.isnan(a) and math.isnan(b)):
+            return True
+        return rtol > 0 and math.isfinite(a) and math.isfinite(b) and abs(a - b) <= rtol * max(abs(a), abs(b))
     return type(a) is type(b) and a == b
 
 
-def _diff(section: str, a: Any, b: Any) -> list[Difference]:
+def _diff(section: str, a: Any, b: Any, *, rtol: float = 0.0) -> list[Difference]:
     fa, fb = dict(flatten(a)), dict(flatten(b))
     out = []
     for key in sorted(set(fa) | set(fb)):
         va, vb = fa.get(key), fb.get(key)
-        if key in fa and key in fb and _same(va, vb):
+        if key in fa and key in fb and _same(va, vb, rtol=rtol):
             continue
-        out.append(Difference(section, key, va, vb))
+        out.append(Difference(section, key, va, vb, in_a=key in fa, in_b=key in fb))
     return out
+
+
+def _stage_rank(stage: str) -> tuple[int, str]:
+    from .study import STAGES
+
+    return (STAGES.index(stage) if stage in STAGES else len(STAGES), stage)
 
 
 def _read_results(record: Path) -> dict[str, Any]:
@@ -499,24 +524,31 @@ def _by_role(entries: Any, key: str) -> dict[str, str]:
     return {str(e.get(key)): e.get("sha256") for e in entries or [] if isinstance(e, dict)}
 
 
-def compare_records(record_a: str | Path, record_b: str | Path) -> Comparison:
+def compare_records(record_a: str | Path, record_b: str | Path, *, rtol: float = 0.0) -> Comparison:
     """Set two records side by side.
 
     Parameters
     ----------
     record_a, record_b : path
         Two record folders (either may have failed; what exists is compared).
+    rtol : float, default 0
+        Results whose numbers differ by at most this fraction of the larger
+        are not differences.  0 (the default) asks for identical numbers, which
+        two runs of the same study, data and code give; a small value such as
+        1e-9 ignores floating-point noise between machines or library builds.
 
     Returns
     -------
     Comparison
-        Differences in: ``record`` (status, stage statuses, riskvet version,
-        Python, platform, seeds, git commit, the model used); ``study`` (a
+        Differences in: ``record`` (status, stage statuses, riskvet version
+        and source digest, Python, platform, seeds, git commit, the model used); ``study`` (a
         key-path diff of the resolved studies); ``inputs`` and ``templates``
         (SHA-256 by role / stage); ``packages`` (versions); ``results``
         (every leaf of every ``results/<stage>.json``).  Times and run ids are
         not differences.  ``headline`` puts the key results side by side.
     """
+    if not (isinstance(rtol, (int, float)) and not isinstance(rtol, bool) and 0 <= rtol < 1):
+        raise RiskvetError(problem("compare_records(rtol)", allowed="a number from 0 up to (not including) 1", received=rtol))
     a, b = Path(record_a), Path(record_b)
     ma, mb = read_manifest(a), read_manifest(b)
     differences: list[Difference] = []
@@ -526,6 +558,7 @@ def compare_records(record_a: str | Path, record_b: str | Path) -> Comparison:
             "status": m.get("status"),
             "stages": {s.get("stage"): s.get("status") for s in m.get("stages") or [] if isinstance(s, dict)},
             "riskvet_version": m.get("riskvet_version"),
+            "riskvet_source_sha256": (m.get("riskvet_source") or {}).get("sha256"),
             "python": m.get("python"),
             "platform": m.get("platform"),
             "seeds": m.get("seeds"),
@@ -540,9 +573,15 @@ def compare_records(record_a: str | Path, record_b: str | Path) -> Comparison:
     differences += _diff("templates", _by_role(ma.get("templates"), "stage"), _by_role(mb.get("templates"), "stage"))
     differences += _diff("packages", ma.get("packages"), mb.get("packages"))
     ra, rb = _read_results(a), _read_results(b)
-    differences += _diff("results", ra, rb)
+    for stage in sorted(set(ra) | set(rb), key=_stage_rank):
+        if stage in ra and stage in rb:
+            differences += _diff("results", {stage: ra[stage]}, {stage: rb[stage]}, rtol=rtol)
+        else:
+            name = f"results/{stage}.json"
+            differences.append(Difference("results", stage, name if stage in ra else None, name if stage in rb else None,
+                                          in_a=stage in ra, in_b=stage in rb))
 
-    headline = _side_by_side(ra, rb, levels=_levels(ma) or _levels(mb))
+    headline = _side_by_side(ra, rb, levels=_levels(ma) or _levels(mb), rtol=rtol)
     return Comparison(
         record_a=str(a), record_b=str(b), run_a=ma.get("run_id"), run_b=mb.get("run_id"),
         differences=tuple(differences), headline=headline,
@@ -559,7 +598,7 @@ def _levels(manifest: Mapping[str, Any]) -> tuple[str, ...]:
         return ()
 
 
-def _side_by_side(ra: Mapping[str, Any], rb: Mapping[str, Any], *, levels: tuple[str, ...]) -> pd.DataFrame:
+def _side_by_side(ra: Mapping[str, Any], rb: Mapping[str, Any], *, levels: tuple[str, ...], rtol: float) -> pd.DataFrame:
     from .stages.summary import key_results
 
     from .study import STAGES
@@ -583,7 +622,7 @@ def _side_by_side(ra: Mapping[str, Any], rb: Mapping[str, Any], *, levels: tuple
         "b": [None if _missing(v) else v for v in merged["value_b"]],
         "key": merged["key"].to_list(),
     })
-    table["same"] = [_same(x, y) for x, y in zip(table["a"], table["b"])]
+    table["same"] = [_same(x, y, rtol=rtol) for x, y in zip(table["a"], table["b"])]
     return table
 
 

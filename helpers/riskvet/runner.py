@@ -57,6 +57,7 @@ __all__ = [
     "template_path",
     "run_study",
     "environment",
+    "package_source",
     "git_commit",
 ]
 
@@ -121,12 +122,37 @@ def _version(name: str) -> str | None:
         return None
 
 
+def package_source() -> dict[str, Any]:
+    """What riskvet's own code was: a SHA-256 over its source files, and its git commit.
+
+    The version number alone does not say which code ran while the package is
+    developed (an editable install); the digest does.  It covers every file of
+    the installed ``riskvet`` package except compiled caches, as
+    ``relative path NUL file-SHA-256`` lines in path order.
+    """
+    import riskvet
+
+    root = Path(riskvet.__file__).resolve().parent
+    digest = hashlib.sha256()
+    count = 0
+    for path in sorted(root.rglob("*")):
+        if path.is_file() and "__pycache__" not in path.parts and path.suffix not in (".pyc", ".pyo"):
+            digest.update(f"{path.relative_to(root).as_posix()}\0{sha256_file(path)}\n".encode("utf-8"))
+            count += 1
+    out: dict[str, Any] = {"sha256": digest.hexdigest(), "files": count}
+    commit = git_commit(root)
+    if commit is not None:
+        out["git"] = commit
+    return out
+
+
 def environment() -> dict[str, Any]:
-    """Versions and platform of this run: riskvet, Python, key packages, operating system."""
+    """Versions and platform of this run: riskvet (version and source digest), Python, key packages, operating system."""
     from . import __version__
 
     return {
         "riskvet_version": __version__,
+        "riskvet_source": package_source(),
         "python": platform.python_version(),
         "python_implementation": platform.python_implementation(),
         "platform": platform.platform(),
@@ -287,16 +313,18 @@ def kernel_environment(inputs: Sequence[Mapping[str, Any]]) -> dict[str, str]:
     ``PYTHONHASHSEED=0``; each of :data:`THREAD_VARIABLES` as ``1`` unless
     already set; and ``SOURCE_DATE_EPOCH`` (the reproducible-builds
     convention, which stages use for creation dates inside model files),
-    unless already set, as the latest modification time of the input files,
-    so that two runs on unchanged inputs write identical files.  The run's
-    own times are in the manifest.
+    unless already set, as the latest modification time of the study and
+    data files, so that two runs on unchanged inputs write identical files
+    (with or without an earlier record's model).  The run's own times are in
+    the manifest.
     """
     env = {"PYTHONHASHSEED": "0"}
     for name in THREAD_VARIABLES:
         env[name] = os.environ.get(name, "1")
     epoch = os.environ.get("SOURCE_DATE_EPOCH")
     if epoch is None:
-        times = [int(Path(e["path"]).stat().st_mtime) for e in inputs if Path(e["path"]).is_file()]
+        study_and_data = [e for e in inputs if e["role"] == "study" or e["role"].startswith("data.")]
+        times = [int(Path(e["path"]).stat().st_mtime) for e in study_and_data if Path(e["path"]).is_file()]
         epoch = str(max(times)) if times else "0"
     env["SOURCE_DATE_EPOCH"] = epoch
     return env
