@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+import scipy
 import statsmodels
 import statsmodels.api as sm
 from scipy import optimize, stats
@@ -31,6 +32,7 @@ from riskvet.errors import (
 from riskvet.models import CumulativeFit, _evaluate, _fit_arrays, _grad_hess, _make_design, fit_cumulative
 
 SM = f"statsmodels {statsmodels.__version__}"
+SCIPY = f"scipy {scipy.__version__}"
 UCLA_CSV = Path(statsmodels.__file__).parent / "miscmodels" / "tests" / "results" / "ologit_ucla.csv"
 LEVELS = ["unlikely", "somewhat likely", "very likely"]
 
@@ -338,6 +340,176 @@ def test_nonproportional_against_direct_maximisation_and_saturation():
     expected = np.sum(tab * np.log(tab / tab.sum(axis=1, keepdims=True)))
     assert sat.loglik == pytest.approx(expected, abs=1e-8)
     assert sat.n_crossing == 0
+
+
+def heat_like(n=900, seed=31):
+    """Invented data: a temperature near 39 with two truncated-cubic spline
+    columns, an age near 60 and a column shifted by +1000; K = 3, with
+    different slopes of temperature at the two cuts."""
+    rng = np.random.default_rng(seed)
+    temp = rng.normal(39.0, 1.0, n)
+    age = rng.normal(60.0, 15.0, n)
+    X = pd.DataFrame(
+        {
+            "temp": temp,
+            "temp_s1": np.clip(temp - 38.5, 0, None) ** 3,
+            "temp_s2": np.clip(temp - 39.5, 0, None) ** 3,
+            "age": age,
+            "lab": 1000.0 + rng.normal(size=n),
+        }
+    )
+    z = 0.03 * (age - 60) + 0.4 * (X["lab"].to_numpy() - 1000)
+    # A steeper temperature slope at the lower cut: the cumulative logits
+    # meet near 36.5 degrees (P(Y > 1) is capped at P(Y > 0) below that).
+    p_gt0 = 1 / (1 + np.exp(-(-0.5 + 1.2 * (temp - 39) + z)))
+    p_gt1 = np.minimum(p_gt0, 1 / (1 + np.exp(-(-1.5 + 0.8 * (temp - 39) + z))))
+    u = rng.random(n)
+    y = (u < p_gt0).astype(int) + (u < p_gt1).astype(int)
+    return X, y
+
+
+def logit_nonproportional_negll(Xa, y, m):
+    """Plain non-proportional cumulative logit negative log-likelihood
+    (thresholds, then per column one coefficient per cut)."""
+
+    def negll(par):
+        B = par[m:].reshape(Xa.shape[1], m)
+        cum = stats.logistic.cdf(par[:m][None, :] - Xa @ B)
+        full = np.hstack([np.zeros((len(y), 1)), cum, np.ones((len(y), 1))])
+        pr = np.diff(full, axis=1)[np.arange(len(y)), y]
+        return -np.sum(np.log(np.clip(pr, 1e-300, None)))
+
+    return negll
+
+
+def test_nonproportional_on_raw_scale_columns_matches_centred_columns_and_scipy():
+    # Columns far from zero (temperature near 39 with spline terms, a column
+    # near 1000) put the thresholds in the hundreds and, at x = 0, far from
+    # the data, the two cumulative logits out of order.
+    # The fit must reach the same maximum as on centred columns, which is
+    # checked against scipy.optimize.minimize (BFGS, gtol 1e-7, scipy
+    # version printed) on the centred and standardised columns, where BFGS
+    # is well conditioned: log-likelihoods agree to 1e-6.
+    X, y = heat_like()
+    Xa = X.to_numpy()
+    mu, sd = Xa.mean(axis=0), Xa.std(axis=0)
+    m = 2
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", ConvergenceWarning)
+        warnings.simplefilter("ignore", CrossingWarning)  # a few rows at the edges
+        raw = fit_cumulative(X, y, proportional=False)
+        cen = fit_cumulative(X - mu, y, proportional=False)
+    assert raw.converged and cen.converged
+    assert raw.iterations == cen.iterations  # Newton is affine invariant
+    assert raw.n_crossing == cen.n_crossing
+    assert np.diff(raw.thresholds.to_numpy())[0] < 0
+    negll = logit_nonproportional_negll((Xa - mu) / sd, y, m)
+    prop = fit_cumulative((X - mu) / sd, y)
+    x0 = np.r_[prop.thresholds.to_numpy(), np.repeat(prop.coef.to_numpy(), m)]
+    ref = optimize.minimize(negll, x0, method="BFGS", options={"gtol": 1e-7})
+    assert raw.loglik == pytest.approx(-ref.fun, abs=1e-6), SCIPY
+    assert raw.loglik == pytest.approx(cen.loglik, abs=1e-9)
+    # Exact map between the two parameterisations: theta_j(raw) =
+    # theta_j(centred) + mean(x) beta_j, coefficients and their covariance
+    # unchanged, cov(raw) = T cov(centred) T'.  Tolerances: both fits stop
+    # at affine images of the same iterates, so they differ by rounding, which
+    # is 1e-7 relative on thresholds in the hundreds.
+    B = cen.coef.to_numpy()
+    np.testing.assert_allclose(raw.coef.to_numpy(), B, rtol=1e-6, atol=1e-8)
+    np.testing.assert_allclose(raw.thresholds.to_numpy(), cen.thresholds.to_numpy() + mu @ B, rtol=1e-7)
+    T = np.eye(raw.n_params)
+    for j in range(m):
+        T[j, m + j :: m] = mu
+    np.testing.assert_allclose(raw.cov.to_numpy(), T @ cen.cov.to_numpy() @ T.T, rtol=1e-5, atol=1e-10)
+    # The BFGS optimum mapped to the raw scale: coefficients are sd-scaled,
+    # thresholds shifted; BFGS estimates are good to about 1e-4.
+    B_ref = ref.x[m:].reshape(-1, m) / sd[:, None]
+    np.testing.assert_allclose(raw.coef.to_numpy(), B_ref, atol=1e-4 * np.abs(B_ref).max() + 1e-4)
+    # Predictions on the data are the same from either fit (to 1e-8).
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", CrossingWarning)
+        np.testing.assert_allclose(raw.predict_proba(X), cen.predict_proba(X - mu), atol=1e-8)
+    # The proportional model on the same raw columns: same maximum as centred.
+    assert fit_cumulative(X, y).loglik == pytest.approx(fit_cumulative(X - mu, y).loglik, abs=1e-9)
+
+
+@pytest.mark.filterwarnings("ignore::riskvet.errors.CrossingWarning")
+def test_raw_scale_columns_with_weights_offset_and_warm_start():
+    # Centring uses the weighted means: frequency weights equal repeated rows
+    # (common practice); a constant offset c moves every threshold by c; a
+    # warm start from the fit itself needs at most one step.  All on the
+    # raw-scale columns of heat_like; tolerances as in the weight test above
+    # (same optimum, rounding only), 1e-7 relative on thresholds near 600.
+    X, y = heat_like(n=400, seed=32)
+    rng = np.random.default_rng(2)
+    w = rng.integers(0, 4, size=len(y)).astype(float)
+    rows = np.repeat(np.arange(len(y)), w.astype(int))
+    for prop in (True, False):
+        fw = fit_cumulative(X, y, weights=w, proportional=prop)
+        fd = fit_cumulative(X.iloc[rows].reset_index(drop=True), y[rows], proportional=prop)
+        assert fw.converged and fd.converged
+        assert fw.loglik == pytest.approx(fd.loglik, rel=1e-12)
+        np.testing.assert_allclose(fw.params.to_numpy(), fd.params.to_numpy(), rtol=1e-7, atol=1e-9)
+        np.testing.assert_allclose(fw.cov.to_numpy(), fd.cov.to_numpy(), rtol=1e-6, atol=1e-12)
+        off = fit_cumulative(X, y, weights=w, proportional=prop, offset=np.full(len(y), 0.7))
+        np.testing.assert_allclose(off.thresholds.to_numpy(), fw.thresholds.to_numpy() + 0.7, rtol=1e-7)
+        np.testing.assert_allclose(off.coef.to_numpy(), fw.coef.to_numpy(), rtol=1e-6, atol=1e-9)
+        # Each fit stops within sqrt(tol) = 1e-4 standard errors of the maximum.
+        warm = fit_cumulative(X, y, weights=w, proportional=prop, start=fw)
+        assert warm.converged and warm.iterations <= 1
+        assert np.all(np.abs(warm.params - fw.params) <= 1e-4 * fw.se)
+    # The proportional fit as the start of the non-proportional one.
+    start = fit_cumulative(X, y, proportional=False, start=fit_cumulative(X, y))
+    cold = fit_cumulative(X, y, proportional=False)
+    assert start.loglik == pytest.approx(cold.loglik, abs=1e-9)
+    assert np.all(np.abs(start.params - cold.params) <= 1e-4 * cold.se)
+
+
+def test_nonproportional_optimum_with_crossing_on_extreme_rows_is_reached():
+    # Invented data: a cluster with all three levels and a larger cluster,
+    # 4 units higher, with only the bottom and top levels; x is centred, so
+    # x = 0 is its mean.  The maximum has the cumulative logits crossing over
+    # the second cluster and at x = 0 (so the thresholds are out of order);
+    # only bottom- and top-level rows cross there, so every
+    # row's observed level keeps a positive probability and the likelihood is
+    # finite.  The fit must reach that maximum, checked against
+    # scipy.optimize.minimize (BFGS, gtol 1e-7) on the same likelihood
+    # (log-likelihoods to 1e-6, estimates to 1e-4), and report the crossing.
+    rng = np.random.default_rng(0)
+    x = np.r_[rng.normal(0, 1, 150), rng.normal(4, 1, 300)]
+    x = x - x.mean()
+    y = np.r_[rng.choice(3, 150, p=[0.3, 0.4, 0.3]), rng.choice([0, 2], 300)]
+    X = pd.DataFrame({"x": x})
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", ConvergenceWarning)
+        with pytest.warns(CrossingWarning, match="cross"):
+            fit = fit_cumulative(X, y, proportional=False)
+    assert fit.converged and fit.n_crossing > 0
+    assert np.diff(fit.thresholds.to_numpy())[0] < 0  # crossing at x = 0
+    cum = fit.cumulative_proba(X)
+    crossed = np.diff(cum, axis=1)[:, 0] < 0
+    assert not np.any(crossed & (y == 1))  # middle-level rows never cross
+    negll = logit_nonproportional_negll(x[:, None], y, 2)
+    prop = fit_cumulative(X, y)
+    x0 = np.r_[prop.thresholds.to_numpy(), np.repeat(prop.coef.to_numpy(), 2)]
+    ref = optimize.minimize(negll, x0, method="BFGS", options={"gtol": 1e-7})
+    assert fit.loglik == pytest.approx(-ref.fun, abs=1e-6), SCIPY
+    np.testing.assert_allclose(fit.params.to_numpy(), ref.x, atol=1e-4, err_msg=SCIPY)
+
+
+def test_fitter_leaves_the_callers_columns_untouched_and_models_load_is_the_model_file_reader():
+    # The fitter centres a copy: Fortran-ordered input (as variable selection
+    # passes it), sorted or unsorted by level, is not modified.
+    X, y = heat_like(n=200, seed=33)
+    for yy in (y, np.sort(y)):
+        Xf = np.asfortranarray(X.to_numpy())
+        before = Xf.copy()
+        _fit_arrays(Xf, yy, 3)
+        np.testing.assert_array_equal(Xf, before)
+    import riskvet.modelfile
+    import riskvet.models
+
+    assert riskvet.models.load is riskvet.modelfile.load_model and "load" in riskvet.models.__all__
 
 
 def test_k2_nonproportional_equals_proportional():

@@ -171,6 +171,39 @@ def test_lr_test_against_statsmodels_and_a_saturated_model():
     assert res.n_crossing == 0
 
 
+@pytest.mark.parametrize("nonpo, seed, significant", [(-0.5, 3, True), (0.0, 4, False)])
+def test_lr_test_on_raw_scale_columns_agrees_with_brant(nonpo, seed, significant):
+    # Columns far from zero (x1 as a temperature near 39, x2 near 1000) do not
+    # change either model: shifting and scaling a column is absorbed by the
+    # thresholds and slopes, so both the LR statistic and Brant's statistic
+    # must equal those of the unshifted columns (LR to 1e-6: each fit stops
+    # within tol of its maximum; Brant to 1e-8 relative: a Wald statistic of
+    # slopes only).  With nonpo = -0.5 the thresholds of the non-proportional
+    # model are out of order at x = 0, far from the data.  The two tests have
+    # the same chi-squared(p (K - 2)) null distribution (Brant 1990; Agresti
+    # 2010, section 3.5), and here, on 800 rows, they agree in size: both
+    # reject at 0.001 with the strongly non-proportional x2, neither at 0.05
+    # with proportional data.
+    X, y = po_data(800, seed=seed, nonpo=nonpo)
+    S = X.assign(x1=X["x1"] * 0.8 + 39.0, x2=X["x2"] * 15.0 + 1000.0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        lr_raw = proportional_odds_lr_test(S, y)
+        lr = proportional_odds_lr_test(X, y)
+        brant_raw = brant_test(S, y)
+        brant = brant_test(X, y)
+    assert lr_raw.nonproportional_fit.converged and lr_raw.warnings == ()
+    assert lr_raw.statistic == pytest.approx(lr.statistic, abs=1e-6)
+    assert lr_raw.loglik_nonproportional == pytest.approx(lr.loglik_nonproportional, abs=1e-7)
+    assert brant_raw.statistic == pytest.approx(brant.statistic, rel=1e-8)
+    if nonpo:
+        assert np.diff(lr_raw.nonproportional_fit.thresholds.to_numpy())[0] < 0
+    if significant:
+        assert lr_raw.p < 1e-3 and brant_raw.p < 1e-3
+    else:
+        assert lr_raw.p > 0.05 and brant_raw.p > 0.05
+
+
 def test_results_tables_and_json():
     X, y = ucla()
     res = brant_test(X, y)

@@ -37,8 +37,9 @@ from .errors import (
     SeparationWarning,
     problem,
 )
+from .modelfile import load_model as load
 
-__all__ = ["fit_cumulative", "CumulativeFit", "LRTest"]
+__all__ = ["fit_cumulative", "CumulativeFit", "LRTest", "load"]
 
 try:
     from threadpoolctl import ThreadpoolController
@@ -90,9 +91,14 @@ class _Design(NamedTuple):
     the rows with an upper threshold (levels 0..K-2) are the first ``n_a``
     and the rows with a lower threshold (levels 1..K-1) are those from
     ``s1 = starts[1]`` on; ``order`` maps sorted rows back to input rows.
+
+    With ``center`` set, the columns are stored minus their weighted means
+    and the design works in the centred parameterisation (see
+    :func:`_to_centred`); the per-row pieces of :func:`_evaluate` do not
+    depend on it.
     """
 
-    X: np.ndarray  # n x p, float64, sorted rows (a view of XT.T)
+    X: np.ndarray  # n x p, float64, sorted rows (a view of XT.T), minus center if set
     XT: np.ndarray  # p x n, C-contiguous
     y: np.ndarray  # n, int64 levels, sorted
     K: int
@@ -108,6 +114,7 @@ class _Design(NamedTuple):
     t_cut: np.ndarray  # threshold index of each argument (a's of rows < n_a, then b's of rows >= s1)
     t_row: np.ndarray  # row of each argument
     AB: np.ndarray | None  # non-proportional: the used rows of A then of B
+    center: np.ndarray | None = None  # p column means subtracted from X, or None
 
     @property
     def n_params(self) -> int:
@@ -130,7 +137,13 @@ class _Design(NamedTuple):
 
 
 class _RawFit(NamedTuple):
-    """What :func:`_fit_arrays` returns: natural-scale parameters and state."""
+    """What :func:`_fit_arrays` returns: natural-scale parameters and state.
+
+    ``design`` is the centred design the fit ran on; ``pieces`` (derivatives
+    with respect to the row arguments) are the same on either scale, so
+    :func:`_grad_hess` with natural-scale columns ``X`` gives natural-scale
+    derivatives.
+    """
 
     params: np.ndarray  # thresholds, then coefficients (per column; per cut within a column)
     loglik: float
@@ -161,17 +174,27 @@ def _ab_matrices(X: np.ndarray, iu: np.ndarray, il: np.ndarray, m: int, proporti
     return np.hstack([Zu, Au]), np.hstack([Zl, Bl])
 
 
-def _make_design(X, y, K, w, off, link, proportional, unit=False) -> _Design:
+def _make_design(X, y, K, w, off, link, proportional, unit=False, center=False) -> _Design:
+    """Sort the rows by level and precompute; ``center=True`` centres the columns.
+
+    Centring subtracts the weighted column means (weights ``w``); see
+    :func:`_to_centred` for the parameters that go with it.
+    """
     # Only the transposed copy is stored; X is its (Fortran-ordered) view.
+    mu = None
+    if center and X.shape[1]:
+        mu = (X.sum(axis=0) if unit else w @ X) / float(w.sum())
     if y.shape[0] > 1 and np.any(y[1:] < y[:-1]):
         order = np.argsort(y, kind="stable")
         XT = np.take(np.ascontiguousarray(X.T, dtype=float), order, axis=1)
+        if mu is not None:
+            XT -= mu[:, None]
         y = y[order]
         w = w[order]
         off = None if off is None else off[order]
     else:
         order = None
-        XT = np.ascontiguousarray(X.T, dtype=float)
+        XT = np.ascontiguousarray(X.T, dtype=float) if mu is None else np.subtract(X.T, mu[:, None], order="C")
     X = XT.T
     starts = np.zeros(K + 1, dtype=np.int64)
     starts[1:] = np.cumsum(np.bincount(y, minlength=K)[:K])
@@ -183,7 +206,57 @@ def _make_design(X, y, K, w, off, link, proportional, unit=False) -> _Design:
         m = K - 1
         A, B = _ab_matrices(X, np.minimum(y, m - 1), np.maximum(y - 1, 0), m, False)
         AB = np.vstack([A[:n_a], B[s1:]])
-    return _Design(X, XT, y, K, starts, w, unit, off, order, link, proportional, A, B, t_cut, t_row, AB)
+    return _Design(X, XT, y, K, starts, w, unit, off, order, link, proportional, A, B, t_cut, t_row, AB, mu)
+
+
+def _threshold_shift(d: _Design, phi: np.ndarray) -> np.ndarray | float:
+    """``center . beta_j`` for each cut (one number if proportional)."""
+    m = d.K - 1
+    if d.proportional:
+        return float(d.center @ phi[m:])
+    return d.center @ phi[m:].reshape(-1, m)
+
+
+def _to_centred(d: _Design, phi: np.ndarray) -> np.ndarray:
+    """Natural-scale parameters to those of the centred design.
+
+    Notes
+    -----
+    With ``x = x_c + mu``, ``theta_j - x beta_j = (theta_j - mu beta_j) -
+    x_c beta_j``: the coefficients are unchanged and each threshold moves by
+    ``mu beta_j`` (``beta_j = beta`` for the proportional model).
+    """
+    if d.center is None:
+        return phi
+    out = phi.copy()
+    out[: d.K - 1] -= _threshold_shift(d, phi)
+    return out
+
+
+def _to_natural(d: _Design, phi: np.ndarray, cov: np.ndarray | None = None):
+    """Centred-design parameters (and covariance) back to the natural scale.
+
+    Notes
+    -----
+    ``phi = T phi_c`` with ``T = I + E``, ``E`` holding ``mu_k`` in the row
+    of threshold ``j`` and the column of the coefficient of column ``k`` at
+    cut ``j`` (every cut if proportional); the covariance is ``T C T'``.
+    """
+    if d.center is None:
+        return phi, cov
+    out = phi.copy()
+    m = d.K - 1
+    out[:m] += _threshold_shift(d, phi)
+    if cov is None:
+        return out, None
+    p = d.center.shape[0]
+    T = np.eye(phi.shape[0])
+    if d.proportional:
+        T[:m, m:] = d.center[None, :]
+    else:
+        cols = m + np.arange(p)[None, :] * m + np.arange(m)[:, None]  # m x p
+        T[np.arange(m)[:, None], cols] = d.center[None, :]
+    return out, T @ cov @ T.T
 
 
 def _logit_parts(t: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -393,9 +466,22 @@ def _chol_inverse(fac: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
     return inv / dsc[:, None] / dsc[None, :]
 
 
-def _ordered(d: _Design, phi: np.ndarray) -> bool:
+def _admissible(d: _Design, phi: np.ndarray) -> bool:
+    """Cheap pre-check of a trial point before its log-likelihood is computed.
+
+    Proportional model: the thresholds must increase (with every level
+    observed this is exactly where the log-likelihood is finite).  The
+    non-proportional model has no such shortcut: its log-likelihood is finite
+    where every row's observed level has positive probability, which the
+    thresholds alone do not decide (their order is that of the cumulative
+    probabilities at ``x = 0``, or at the column means for a centred design,
+    a point that need not be anywhere near the data), so the finite
+    log-likelihood alone decides there.  Rows in the bottom or top level may
+    then have crossing cumulative probabilities at the optimum; they are
+    counted and warned about, not ruled out.
+    """
     m = d.K - 1
-    return m == 1 or bool(np.all(np.diff(phi[:m]) > 0.0))
+    return m == 1 or not d.proportional or bool(np.all(np.diff(phi[:m]) > 0.0))
 
 
 def _default_start(d: _Design) -> np.ndarray:
@@ -482,12 +568,15 @@ def _gradient(d: _Design, pieces: tuple) -> np.ndarray:
     return g
 
 
-def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, names, need_cov: bool, first=None) -> tuple:
+def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, check_collinear, need_cov: bool, first=None) -> tuple:
     """Newton-Raphson with step-halving; see :func:`fit_cumulative` (Notes).
 
     Each iteration after the first tries the previous factorised information
     on the new gradient (a chord step): when that decrement is already below
     ``tol`` the chord step is the last one and no new Hessian is formed.
+    ``check_collinear()`` is called when the information cannot be
+    factorised; it raises for collinear columns.  Parameters, log-likelihood
+    and covariance are those of the design ``d`` (centred if it is).
     """
     ll, pc = _evaluate(d, phi) if first is None else first
     iterations = 0
@@ -503,7 +592,7 @@ def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, names, need_
             if dec <= tol:
                 fac_current = False
                 trial = phi + step
-                if _ordered(d, trial):
+                if _admissible(d, trial):
                     ll_t, pc_t = _evaluate(d, trial)
                     if np.isfinite(ll_t) and ll_t >= ll - 1e-12 * (1.0 + abs(ll)):
                         phi, ll, pc = trial, ll_t, pc_t
@@ -513,7 +602,7 @@ def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, names, need_
         g, H = _grad_hess(d, pc)
         fac = _chol_scaled(-H)
         if fac is None:
-            _raise_if_collinear(d.X, d.w, names)
+            check_collinear()
             singular = True
             break
         fac_current = True
@@ -525,7 +614,7 @@ def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, names, need_
             # in standard-error units, so the information factorised here
             # serves for the covariance.
             trial = phi + step
-            if _ordered(d, trial):
+            if _admissible(d, trial):
                 ll_t, pc_t = _evaluate(d, trial)
                 if np.isfinite(ll_t) and ll_t >= ll - 1e-12 * (1.0 + abs(ll)):
                     phi, ll, pc = trial, ll_t, pc_t
@@ -538,7 +627,7 @@ def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, names, need_
         accepted = False
         for _ in range(_MAX_HALVINGS):
             trial = phi + t * step
-            if _ordered(d, trial):
+            if _admissible(d, trial):
                 ll_t, pc_t = _evaluate(d, trial)
                 if np.isfinite(ll_t) and ll_t >= ll:
                     accepted = True
@@ -602,6 +691,17 @@ def _fit_arrays(
     is unusable (thresholds out of order, zero probability for some row) the
     default start is used instead, which changes only the iteration count
     since the log-likelihood is concave.
+
+    Newton's method runs on the columns centred at their weighted means
+    (``raw.design`` is that centred design); estimates and covariance are
+    mapped back exactly (:func:`_to_natural`).  Newton steps are invariant
+    under this affine change of parameters, so in exact arithmetic the
+    iterates are the same; in floating point, columns far from zero (a body
+    temperature near 39 and its spline terms) would otherwise leave the
+    thresholds almost collinear with the coefficients, and the information
+    matrix ill-conditioned.  Scaling is not needed as well: the information
+    is factorised with unit diagonal (:func:`_chol_scaled`), which is the
+    same as scaling the columns.
     """
     unit = weights is None
     w = np.ones(y.shape[0]) if unit else np.asarray(weights, dtype=float)
@@ -610,19 +710,24 @@ def _fit_arrays(
         keep = w > 0
         X, y, w = X[keep], y[keep], w[keep]
         offset = None if offset is None else offset[keep]
-    d = _make_design(X, y, K, w, offset, link, proportional, unit)
+    d = _make_design(X, y, K, w, offset, link, proportional, unit, center=True)
     with one_blas_thread():
         phi = first = None
         if start is not None:
             start = np.asarray(start, dtype=float)
-            if start.shape == (d.n_params,) and np.all(np.isfinite(start)) and _ordered(d, start):
-                first = _evaluate(d, start)
-                if np.isfinite(first[0]):
-                    phi = start.copy()
+            if start.shape == (d.n_params,) and np.all(np.isfinite(start)):
+                start = _to_centred(d, np.array(start))
+                if _admissible(d, start):
+                    first = _evaluate(d, start)
+                    if np.isfinite(first[0]):
+                        phi = start
         if phi is None:
             phi = _default_start(d)
             first = None
-        phi, ll, pc, cov, converged, iterations, singular = _newton(d, phi, max_iter, tol, names, need_cov, first)
+        phi, ll, pc, cov, converged, iterations, singular = _newton(
+            d, phi, max_iter, tol, lambda: _raise_if_collinear(X, w, names), need_cov, first
+        )
+        phi, cov = _to_natural(d, phi, cov)
     P = pc[5]
     suspect = (not converged) or singular or bool(np.max(P) > 1.0 - _SEPARATION_HINT)
     return _RawFit(phi, ll, cov, converged, iterations, singular, suspect, pc, d)
@@ -746,7 +851,9 @@ class CumulativeFit:
     columns : tuple of str
         Names of the columns of the model matrix.
     thresholds : pandas.Series
-        ``theta_j`` on their own scale, indexed ``"y<=level"``.
+        ``theta_j`` on their own scale, indexed ``"y<=level"``; increasing
+        for the proportional model, and for the non-proportional one only if
+        its cumulative probabilities do not cross at ``x = 0``.
     coef : pandas.Series or pandas.DataFrame
         ``beta`` by column; for the non-proportional model a frame with one
         column per cut.
@@ -1186,11 +1293,15 @@ def fit_cumulative(
     ``P(Y <= j | x) = F(theta_j - x beta - offset)``.  The log-likelihood
     ``sum_i w_i log(F(a_i) - F(b_i))`` is concave in ``(theta, beta)`` for the
     three links (their densities are log-concave; Pratt 1981), so Newton's
-    method is run on the natural scale with step-halving, and a step is only
-    accepted if the thresholds stay strictly increasing and the
-    log-likelihood does not fall; invalid thresholds are never produced.
-    The covariance is the inverse of the observed information on the natural
-    scale.  Convergence: the Newton decrement ``g' H^{-1} g`` (about twice the
+    method is run with step-halving, and a step is only accepted if the
+    log-likelihood stays finite and does not fall (for the proportional model
+    this keeps the thresholds strictly increasing).  Newton's method works on
+    the columns centred at their weighted means, which leaves the iterates
+    unchanged in exact arithmetic but keeps the problem well conditioned for
+    columns far from zero; estimates and covariance are mapped back exactly
+    (``theta_j = theta_j^c + mean(x) beta_j``) and reported on the natural
+    scale.  The covariance is the inverse of the observed information.
+    Convergence: the Newton decrement ``g' H^{-1} g`` (about twice the
     remaining log-likelihood gain) falls below ``tol``, after which one last
     step is taken.  To save forming a Hessian, each iteration first tries
     the previous iteration's information on the new gradient: if that
@@ -1198,9 +1309,16 @@ def fit_cumulative(
     covariance is then computed at the final estimates).  Otherwise a full
     Newton step is taken; when its decrement is below ``tol`` the covariance
     comes from the information just factorised, at most ``sqrt(tol)``
-    standard errors from the final estimates.  The non-proportional model (a coefficient vector per cut;
-    Peterson & Harrell 1990) is fitted the same way on the region where every
-    row's observed level has positive probability.
+    standard errors from the final estimates.  The non-proportional model (a
+    coefficient vector per cut; Peterson & Harrell 1990) is fitted the same
+    way on the region where every row's observed level has positive
+    probability (an intersection of half-spaces, on which the log-likelihood
+    is concave).  That region does not require the thresholds to increase:
+    they are the cumulative links at ``x = 0``, which may lie far outside the
+    data.  Nor does it stop the cumulative probabilities of rows in the
+    bottom or top level from crossing, since only their observed level's
+    probability enters the likelihood; such rows are counted in
+    ``n_crossing`` and warned about.
 
     References
     ----------
@@ -1253,8 +1371,9 @@ def _crossing_rows(raw: _RawFit) -> int:
     if d.proportional or m < 2:
         return 0
     p = d.X.shape[1]
-    B = raw.params[m:].reshape(p, m)
-    u = raw.params[:m][None, :] - d.X @ B
+    phi = _to_centred(d, raw.params)  # the design's own parameterisation
+    B = phi[m:].reshape(p, m)
+    u = phi[:m][None, :] - d.X @ B
     return int(np.sum(np.any(np.diff(u, axis=1) <= 0.0, axis=1)))
 
 
