@@ -535,16 +535,19 @@ def _iso(moment: datetime) -> str:
 
 
 def _new_record(records: Path, *, study: Study, inputs: list[dict[str, Any]], started: datetime) -> Path:
-    records.mkdir(parents=True, exist_ok=True)
     stamp = started.strftime("%Y%m%dT%H%M%SZ")
-    for attempt in range(100):
-        seed = "\n".join([study.digest(), *sorted(e["sha256"] for e in inputs), started.isoformat(), str(attempt)])
-        path = records / f"{stamp}-{hashlib.sha256(seed.encode('utf-8')).hexdigest()[:8]}"
-        try:
-            path.mkdir(exist_ok=False)
-        except FileExistsError:
-            continue
-        return path
+    try:
+        records.mkdir(parents=True, exist_ok=True)
+        for attempt in range(100):
+            seed = "\n".join([study.digest(), *sorted(e["sha256"] for e in inputs), started.isoformat(), str(attempt)])
+            path = records / f"{stamp}-{hashlib.sha256(seed.encode('utf-8')).hexdigest()[:8]}"
+            try:
+                path.mkdir(exist_ok=False)
+            except FileExistsError:
+                continue
+            return path
+    except OSError as exc:
+        raise RecordError(f"output.records: cannot create a record folder in {records} ({exc.strerror or exc})") from None
     raise RecordError(f"{records}: could not create a new record folder for {stamp}")  # pragma: no cover
 
 
