@@ -74,6 +74,24 @@ def _stage_list(text: str) -> list[str]:
     return [part.strip() for part in text.split(",") if part.strip()]
 
 
+def _cmd_plan(args: argparse.Namespace) -> int:
+    from .stages.planning import plan_text
+    from .study import load_study
+
+    study = load_study(args.study)
+    if study.planning is None:
+        raise RiskvetError(f"{args.study}: planning: the study has no planning section (n_parameters, anticipated_c or anticipated_r2_cs, ...)")
+    proportions = None
+    if args.proportions:
+        try:
+            proportions = [float(v) for v in args.proportions.split(",")]
+        except ValueError:
+            raise RiskvetError(f"--proportions: expected comma-separated outcome proportions, lowest level first; received {args.proportions!r}") from None
+    print(plan_text(study, proportions=proportions))
+    print(f"\n{CAUTION}")
+    return 0
+
+
 def _cmd_run(args: argparse.Namespace) -> int:
     from .runner import run_study
 
@@ -184,6 +202,11 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--templates", type=Path, default=None, metavar="DIR", help="folder of stage templates to use")
     p.add_argument("--show-code", action="store_true", help="show code cells in the HTML renderings")
     p.set_defaults(func=_cmd_run)
+
+    p = sub.add_parser("plan", help="print the sample-size justification for a study's planning section")
+    p.add_argument("study", type=Path)
+    p.add_argument("--proportions", metavar="P0,P1,...", help="anticipated outcome proportions, lowest level first (default: the derivation data)")
+    p.set_defaults(func=_cmd_plan)
 
     p = sub.add_parser("verify", help="re-hash a record against its manifest")
     p.add_argument("record", type=Path)
