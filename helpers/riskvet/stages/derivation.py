@@ -46,7 +46,10 @@ def creation_time() -> str:
     """UTC creation time for a model file.
 
     ``SOURCE_DATE_EPOCH`` (the reproducible-builds convention), when set,
-    fixes it, so that two runs write byte-identical model files.
+    fixes it, so that two runs write byte-identical model files.  The runner
+    sets it to the latest modification time of the study and data files
+    unless the user has set it, so inside a record ``created`` is the time
+    the inputs were last changed; the manifest holds the run's own times.
     """
     epoch = os.environ.get("SOURCE_DATE_EPOCH")
     moment = datetime.fromtimestamp(int(epoch), tz=timezone.utc) if epoch else datetime.now(timezone.utc)
