@@ -44,3 +44,16 @@ def test_weights_must_be_counts(setting):
         derive(study, frame, y, weights=counts[:-1])
     with pytest.raises(DataError, match="counts"):
         derive(study, frame, y, weights=counts + 0.5)
+
+
+def test_internal_validation_takes_the_analysis_frame_itself(setting):
+    """validate_internally accepts the derivation frame after exclusions, outcome column included,
+    and gives the same result as the (frame, codes) pair."""
+    from riskvet.bootstrap import validate_internally
+
+    study, frame, y, _ = setting
+    study = study.model_copy(update={"selection": study.selection.model_copy(update={"method": "none"})})
+    small = frame.iloc[:300].reset_index(drop=True)
+    a = validate_internally(study, small, n_boot=3, seed=4, progress=False)
+    b = validate_internally(study, (small, y[:300]), n_boot=3, seed=4, progress=False)
+    assert a.to_frame().equals(b.to_frame())

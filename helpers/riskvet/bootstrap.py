@@ -690,8 +690,15 @@ def _as_data(study, data: Any, func: str) -> tuple[pd.DataFrame, np.ndarray]:
         frame, y = data.frame, data.y
     elif isinstance(data, tuple) and len(data) == 2 and isinstance(data[0], pd.DataFrame):
         frame, y = data
+    elif isinstance(data, pd.DataFrame):
+        from .derive import outcome_codes
+
+        column = study.outcome.column
+        if column not in data.columns:
+            raise DataError(problem(f"{func}(data)", allowed=f"a frame holding the outcome column {column!r}", received=f"columns {list(data.columns)[:20]}"))
+        frame, y = data, outcome_codes(study, data[column], source=f"{func}(data)")
     else:
-        raise RiskvetError(problem(f"{func}(data)", allowed="a PreparedCohort (riskvet.data.load_cohorts(...).derivation) or a (frame, y) pair", received=type(data).__name__))
+        raise RiskvetError(problem(f"{func}(data)", allowed="a PreparedCohort (riskvet.data.load_cohorts(...).derivation), the analysis frame with its outcome column, or a (frame, y) pair", received=type(data).__name__))
     columns = list(study.predictors.in_analysis)
     missing = [c for c in columns if c not in frame.columns]
     if missing:
@@ -1213,7 +1220,7 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
         ``compute.scheduler``, when set, sends the replicates to that
         dask.distributed scheduler (its workers need the same riskvet,
         numpy and scipy installed; the result is then identical to a local run).
-    data : PreparedCohort or (DataFrame, array of int)
+    data : PreparedCohort, DataFrame or (DataFrame, array of int)
         The derivation cohort (``load_cohorts(study).derivation``), or its
         complete-case frame and outcome codes 0..K-1.
     n_boot : int
