@@ -181,20 +181,22 @@ def _make_design(X, y, K, w, off, link, proportional, unit=False, center=False) 
     :func:`_to_centred` for the parameters that go with it.
     """
     # Only the transposed copy is stored; X is its (Fortran-ordered) view.
-    mu = None
-    if center and X.shape[1]:
-        mu = (X.sum(axis=0) if unit else w @ X) / float(w.sum())
+    center = bool(center and X.shape[1])
     if y.shape[0] > 1 and np.any(y[1:] < y[:-1]):
         order = np.argsort(y, kind="stable")
         XT = np.take(np.ascontiguousarray(X.T, dtype=float), order, axis=1)
-        if mu is not None:
-            XT -= mu[:, None]
         y = y[order]
         w = w[order]
         off = None if off is None else off[order]
     else:
         order = None
-        XT = np.ascontiguousarray(X.T, dtype=float) if mu is None else np.subtract(X.T, mu[:, None], order="C")
+        # Centring works in place, so it needs a copy of the caller's array.
+        XT = np.array(X.T, dtype=float, order="C") if center else np.ascontiguousarray(X.T, dtype=float)
+    mu = None
+    if center:
+        # Any centre maps back exactly; the weighted mean conditions best.
+        mu = (XT @ w) / float(w.sum())
+        XT -= mu[:, None]
     X = XT.T
     starts = np.zeros(K + 1, dtype=np.int64)
     starts[1:] = np.cumsum(np.bincount(y, minlength=K)[:K])
