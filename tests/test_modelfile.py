@@ -81,3 +81,16 @@ def test_equations_reproduce_the_prediction(fitted):
     assert model.predict_proba(frame.iloc[[0]])[0, 2] == pytest.approx(expected, rel=1e-12)
     latex = model.equation_latex()
     assert latex.startswith("\\begin{align*}") and "\\operatorname{expit}" in latex
+
+
+def test_non_proportional_model_round_trips(tmp_path, fitted):
+    """A non-proportional model's thresholds (cumulative logits at x = 0) need not increase."""
+    frame, design, X, _ = fitted
+    y = pd.Categorical(frame["disposition"], categories=list(demo.LEVELS)).codes
+    fit = fit_cumulative(X, y, proportional=False)
+    model = model_from_fit(fit, design, outcome=OUTCOME)
+    assert model.coef.shape == (len(design.columns), 2)
+    np.testing.assert_allclose(model.predict_proba(frame), fit.predict_proba(X), atol=1e-12)
+    loaded = load_model(save_model(model, tmp_path / "nonprop.json"))
+    assert np.array_equal(loaded.predict_proba(frame), model.predict_proba(frame))
+    assert "LP2" in loaded.equation_text()

@@ -75,9 +75,11 @@ class PredictionModel:
             raise ModelFileError(
                 problem("PredictionModel.coef", allowed=f"{p} coefficients (or {p} x {th.size})", received=b.shape)
             )
-        if th.size != len(self.outcome["levels"]) - 1 or np.any(np.diff(th) <= 0):
+        # a non-proportional model's thresholds are cumulative logits at x = 0, which
+        # may lie outside the data and need not increase; only the proportional ones must
+        if th.size != len(self.outcome["levels"]) - 1 or (b.ndim == 1 and np.any(np.diff(th) <= 0)):
             raise ModelFileError(
-                problem("PredictionModel.thresholds", allowed="K-1 strictly increasing values", received=th.tolist())
+                problem("PredictionModel.thresholds", allowed="K-1 values, strictly increasing for a proportional model", received=th.tolist())
             )
 
     # -- prediction ---------------------------------------------------------------

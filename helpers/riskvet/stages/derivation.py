@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import hashlib
 import os
+import warnings
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
@@ -23,7 +24,7 @@ from .. import metrics
 from .._jsonable import to_jsonable
 from ..data import descriptive_table, load_cohorts
 from ..derive import Derivation, derive
-from ..errors import RiskvetError
+from ..errors import RiskvetError, RiskvetWarning
 from ..modelfile import PredictionModel, model_from_fit, save_model
 from ..plots import plot_calibration, plot_roc
 from ..plots_derivation import plot_odds_ratios, plot_selection_curve
@@ -149,8 +150,11 @@ def run(ctx: StageContext) -> DerivationOutput:
     # -- proportional-odds checks (ordered outcomes, proportional model) ------------------
     po = {}
     if K > 2 and study.model.proportional and X.shape[1] > 0:
-        brant = brant_test(X, y, groups=derivation.design.term_columns)
-        lr = proportional_odds_lr_test(X, y, link=study.model.link)
+        # their statistical warnings are recorded on the results and shown as text
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RiskvetWarning)
+            brant = brant_test(X, y, groups=derivation.design.term_columns)
+            lr = proportional_odds_lr_test(X, y, link=study.model.link)
         po = {"brant": brant, "lr": lr}
 
     # -- the frozen model -------------------------------------------------------------------
@@ -298,8 +302,11 @@ def _po_sentence(po: dict) -> str:
         return "Proportional odds is not checked: the outcome is binary or the model is non-proportional."
     brant, lr = po["brant"], po["lr"]
     verdict = "gives little evidence against" if brant.p >= 0.05 else "suggests departures from"
+    trouble = list(brant.warnings) + list(lr.warnings)
+    note = (" Fitting trouble met on the way: " + "; ".join(trouble) + ".") if trouble else ""
     return (
         f"Brant's test (overall chi-squared {brant.statistic:.2f} on {brant.df} df, p = {brant.p:.3f}) {verdict} proportional odds; "
-        f"the likelihood-ratio test against the non-proportional model gives p = {lr.p:.3f}. "
+        f"the likelihood-ratio test against the non-proportional model gives chi-squared {lr.statistic:.2f} on {lr.df} df, p = {lr.p:.3f}. "
         "With large samples small departures are significant; read the per-term rows and the per-cut slopes for their size."
+        + note
     )
