@@ -1,6 +1,6 @@
 """Time bootstrap internal validation of a whole derivation procedure.
 
-Run:  .venv/bin/python benchmarks/bench_bootstrap.py [--n-boot 200] [--n-jobs 2] [--sm-replicates 1]
+Run:  .venv/bin/python tests/benchmarks/bench_bootstrap.py [--n-boot 200] [--n-jobs 2] [--sm-replicates 1]
 
 Data shaped like a real derivation cohort: n = 2,000 patients, 3 ordered
 outcome levels, 18 candidate predictors (the demo generator's 14, one of them

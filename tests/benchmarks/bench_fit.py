@@ -1,6 +1,6 @@
 """Time the cumulative-link fitter and forward selection (n = 2,000, 18 predictors, K = 3).
 
-Run:  /work/main/.venv/bin/python benchmarks/bench_fit.py
+Run:  .venv/bin/python tests/benchmarks/bench_fit.py
 
 Prints, in the same run and on the same invented data,
 

@@ -1,6 +1,6 @@
 """Time the performance measures for n = 2,000 patients and K = 3 ordered levels.
 
-Run:  .venv/bin/python benchmarks/bench_metrics.py
+Run:  .venv/bin/python tests/benchmarks/bench_metrics.py
 
 Prints the median wall time of
 
