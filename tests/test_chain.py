@@ -125,3 +125,26 @@ def test_no_row_level_data_anywhere_in_the_record(chain):
         assert not found, f"{path.name} shows identifiers {sorted(found)[:5]}"
         shown = [line for line in lines if line in text]
         assert not shown, f"{path.name} shows input rows, e.g. {shown[0][:60]!r}"
+
+
+def test_a_second_run_reproduces_results_and_model_bytes(chain):
+    """Two runs of the same study on the same data give identical results and model files
+    (the derivation stage is rerun; the first record stays intact)."""
+    before = verify_record(chain.record_dir)
+    study = chain.record_dir.parent.parent / "study.yaml"  # records live in the study folder's records/
+    again = run_study(study, stages=["derivation"], out=io.StringIO())
+    assert again.ok and again.record_dir != chain.record_dir
+    for name in ("results/derivation.json", "models/model.json"):
+        assert (again.record_dir / name).read_bytes() == (chain.record_dir / name).read_bytes(), name
+    assert verify_record(chain.record_dir).ok and before.ok
+
+
+def test_later_stages_run_against_an_earlier_records_model(chain):
+    """--stages with --from: the new record uses the earlier record's frozen model, unchanged."""
+    study = chain.record_dir.parent.parent / "study.yaml"
+    later = run_study(study, stages=["external_validation"], from_record=chain.record_dir, out=io.StringIO())
+    assert later.ok
+    first = json.loads((chain.record_dir / "results" / "external_validation.json").read_text())
+    second = json.loads((later.record_dir / "results" / "external_validation.json").read_text())
+    assert first == second
+    assert not (later.record_dir / "results" / "derivation.json").exists()
