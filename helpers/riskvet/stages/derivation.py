@@ -103,10 +103,14 @@ def _apparent(study, y: np.ndarray, prob: np.ndarray) -> tuple[dict[str, Any], p
     """Apparent discrimination, calibration and accuracy on the derivation data."""
     K = prob.shape[1]
     disc = metrics.ordinal_discrimination(y, prob)
+    # the development-data degrees of freedom of the Hosmer-Lemeshow tests were
+    # derived for logistic and proportional-odds logit fits; for other model
+    # forms the independent-data df (more conservative) is used
+    logit_fit = study.model.link == "logit" and study.model.proportional
     if K == 2:
-        cal = metrics.calibration(y, prob[:, 1], development=True)
+        cal = metrics.calibration(y, prob[:, 1], development=logit_fit)
     else:
-        cal = metrics.ordinal_calibration(y, prob, development=True)
+        cal = metrics.ordinal_calibration(y, prob, development=logit_fit)
     acc = metrics.overall_accuracy(y, prob)
     summary = metrics.performance_summary(y, prob)
     rows = [{"measure": k, "apparent": v} for k, v in summary.items() if k != "n_fit_warnings"]
