@@ -601,3 +601,31 @@ def test_standardised_differences_hand_worked():
     assert d[("site", "A")] == pytest.approx(0.25 / math.sqrt(0.21875), rel=1e-12)
     assert d[("site", "B")] == pytest.approx(-0.25 / math.sqrt(0.21875), rel=1e-12)
     json.dumps(standardised_differences(a, b).to_dict(), allow_nan=False)
+
+
+def test_load_cohorts_refuses_an_outcome_level_with_no_rows(tmp_path):
+    """Every stage needs every outcome level; a cohort without one is refused before anything runs."""
+    from riskvet.data import load_cohorts
+    from riskvet.scaffold import new_study_folder
+    from riskvet.study import load_study
+
+    study_path = new_study_folder(tmp_path / "s", n_derivation=200, n_validation=150, n_ratings=20, n_boot=2)
+    derivation = tmp_path / "s" / "data" / "derivation.csv"
+    lines = derivation.read_text().splitlines(keepends=True)
+    derivation.write_text("".join([lines[0]] + [line for line in lines[1:] if ",transferred" not in line]))
+    with pytest.raises(DataError, match=r"derivation\.csv.*'disposition'.*none in \['transferred'\]"):
+        load_cohorts(load_study(study_path))
+
+
+def test_binary_rated_item_with_a_third_value_is_refused(tmp_path):
+    from riskvet.data import load_cohorts
+    from riskvet.scaffold import new_study_folder
+    from riskvet.study import load_study
+
+    study_path = new_study_folder(tmp_path / "s", n_derivation=200, n_validation=150, n_ratings=20, n_boot=2)
+    ratings = tmp_path / "s" / "data" / "ratings.csv"
+    frame = pd.read_csv(ratings, dtype=str)
+    frame.loc[3, "confusion_rater_a"] = "x"
+    frame.to_csv(ratings, index=False)
+    with pytest.raises(DataError, match=r"confusion_rater_a.*scale 'binary'.*at most 2 distinct values.*'x': 1"):
+        load_cohorts(load_study(study_path))

@@ -984,6 +984,16 @@ def _prepare_ratings(study: Study, frame: pd.DataFrame, where: str) -> pd.DataFr
                 out[column] = numbers
             else:
                 out[column] = _as_text(frame[column])
+        if item.scale == "binary":
+            values = pd.concat([out[item.rater_a], out[item.rater_b]]).dropna()
+            seen = values.value_counts()
+            if len(seen) > 2:
+                problems.append(
+                    f"columns {item.rater_a!r} and {item.rater_b!r} (agreement item {item.name!r}, scale 'binary'): "
+                    f"expected at most 2 distinct values between them; received {len(seen)}: "
+                    + "; ".join(f"{v!r}: {n}" for v, n in seen.head(_SHOWN_VALUES).items())
+                    + " (use scale 'ordinal' for more categories)"
+                )
     if problems:
         _raise(where, problems)
     return pd.DataFrame(out)
@@ -1022,7 +1032,26 @@ def load_cohorts(study: Study) -> Cohorts:
     if study.data.ratings is not None:
         ratings = _prepare_ratings(study, read_table(study.data.ratings, missing_values=missing_values), str(study.data.ratings))
         ratings_audit = audit_frame(ratings, name=str(study.data.ratings))
+    for cohort in [derivation, *validation.values()]:
+        _require_every_level(study, cohort)
     return Cohorts(derivation=derivation, validation=validation, ratings=ratings, ratings_audit=ratings_audit)
+
+
+def _require_every_level(study: Study, cohort: "PreparedCohort") -> None:
+    """Refuse a cohort in which an outcome level has no analysed row.
+
+    Every stage needs each level: a cumulative model has a threshold per
+    level boundary, and each cut's discrimination and calibration need both
+    sides.  Found here, before any record is written.
+    """
+    empty = [level for level, n in cohort.outcome_counts.items() if n == 0]
+    if empty:
+        counts = ", ".join(f"{level!r}: {n}" for level, n in cohort.outcome_counts.items())
+        raise DataError(
+            f"{cohort.source}: column {study.outcome.column!r}: expected at least one analysed row in every outcome level "
+            f"{list(study.outcome.ordered_levels)}; the {cohort.label} cohort has none in {empty} after exclusions (counts {counts}). "
+            "Merge the empty level with a neighbour in the study's outcome levels, or use more data"
+        )
 
 
 # -- describing cohorts --------------------------------------------------------------------
