@@ -148,3 +148,18 @@ def test_later_stages_run_against_an_earlier_records_model(chain):
     second = json.loads((later.record_dir / "results" / "external_validation.json").read_text())
     assert first == second
     assert not (later.record_dir / "results" / "derivation.json").exists()
+
+
+def test_from_a_record_whose_model_reads_other_predictors_is_refused(chain, tmp_path):
+    """An earlier model that reads a column this study does not name as a predictor is refused
+    before any record is written."""
+    from riskvet.errors import RecordError
+
+    study = chain.record_dir.parent.parent / "study.yaml"  # the model forces core_temp in
+    text = study.read_text().replace("data/", str(study.parent / "data") + "/")
+    text = text.replace("    core_temp: spline 4\n", "").replace("forced: [core_temp]", "forced: []")
+    other = tmp_path / "other.yaml"
+    other.write_text(text)
+    with pytest.raises(RecordError, match=r"reads columns \['core_temp'\]"):
+        run_study(other, stages=["external_validation"], from_record=chain.record_dir, out=io.StringIO())
+    assert not (tmp_path / "records").exists()

@@ -287,7 +287,8 @@ def test_failing_stage_marks_the_record_failed(study, tmp_path, first, first_has
     assert manifest["status"] == "failed"
     assert [s["status"] for s in manifest["stages"]] == ["failed", "skipped", "skipped"]
     assert manifest["stages"][0]["error"]["ename"] == "ValueError"
-    assert (result.record_dir / "html" / f"{stage_stem('derivation')}.html").is_file()  # the partial notebook, rendered
+    page = (result.record_dir / "html" / f"{stage_stem('derivation')}.html").read_text()  # the partial notebook, rendered
+    assert "THIS STAGE FAILED" in page and "cell 3 with ValueError: deliberate failure" in page
     assert not (result.record_dir / "results").exists()
     assert verify_record(result.record_dir).ok  # a failed record is still a complete, hashed record
     assert "FAILED" in out.getvalue() and "skipped" in out.getvalue()

@@ -77,7 +77,7 @@ def external_references(html: str, *, links: bool = True) -> list[str]:
     return [address for _, address in sorted(found)]
 
 
-def render_html(notebook_path: str | Path, html_path: str | Path, *, show_code: bool = False) -> Path:
+def render_html(notebook_path: str | Path, html_path: str | Path, *, show_code: bool = False, failure: str | None = None) -> Path:
     """Render an executed notebook as one self-contained HTML file.
 
     Parameters
@@ -89,6 +89,9 @@ def render_html(notebook_path: str | Path, html_path: str | Path, *, show_code: 
     show_code : bool, default False
         Show the code cells too.  Off by default: the reviewer rendering
         shows markdown, tables and figures.
+    failure : str, optional
+        For a stage that failed: a sentence shown as a banner at the top of
+        the page, so no reader takes its partial output for a result.
 
     Returns
     -------
@@ -115,6 +118,13 @@ def render_html(notebook_path: str | Path, html_path: str | Path, *, show_code: 
     except Exception as exc:  # nbformat raises several unrelated types for damaged files
         raise RecordError(f"{notebook_path}: not a readable notebook ({type(exc).__name__}: {exc})") from None
     notebook.metadata["title"] = notebook_path.stem
+    if failure:
+        banner = nbformat.v4.new_markdown_cell(
+            "<div style=\"border:3px solid #D55E00;padding:0.6em 1em;font-weight:bold\">"
+            f"THIS STAGE FAILED. {failure} The output below is incomplete and is not a result; "
+            "later stages did not run.</div>"
+        )
+        notebook.cells.insert(0, banner)
     body, _ = _exporter(show_code=show_code).from_notebook_node(notebook)
     fetched = external_references(body, links=False)
     if fetched:

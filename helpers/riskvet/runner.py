@@ -500,7 +500,25 @@ def _select_stages(study: Study, stages: Sequence[str] | None, from_record: Path
     return tuple(chosen)
 
 
-def _earlier_model(from_record: Path) -> dict[str, Any]:
+def _check_model_fits_study(model, study, source: Path) -> None:
+    """Refuse an earlier model whose outcome or predictors are not this study's."""
+    wanted = {"column": study.outcome.column, "type": study.outcome.type, "levels": list(study.outcome.ordered_levels)}
+    found = {k: model.outcome.get(k) for k in wanted}
+    if found != wanted:
+        raise RecordError(
+            f"{source}: the model's outcome {found} is not this study's outcome {wanted}; "
+            "--from needs a record of a model for the same outcome and levels"
+        )
+    allowed = set(study.predictors.candidates) | set(study.updating.new_predictors)
+    unknown = sorted(set(model.design.sources) - allowed)
+    if unknown:
+        raise RecordError(
+            f"{source}: the model reads columns {unknown} that are not predictors of this study; "
+            f"the study's candidates are {sorted(study.predictors.candidates)}"
+        )
+
+
+def _earlier_model(from_record: Path, study=None) -> dict[str, Any]:
     from .modelfile import load_model
 
     manifest = read_manifest(from_record)
@@ -514,7 +532,9 @@ def _earlier_model(from_record: Path) -> dict[str, Any]:
             f"{model}: does not match the earlier record's manifest (listed {listed!r}, found {actual!r}); "
             "run 'riskvet verify' on that record"
         )
-    load_model(model)  # schema and content hash
+    frozen = load_model(model)  # schema and content hash
+    if study is not None:
+        _check_model_fits_study(frozen, study, model)
     return {
         "role": "model",
         "path": str(model.resolve()),
@@ -524,6 +544,15 @@ def _earlier_model(from_record: Path) -> dict[str, Any]:
         "run_id": manifest.get("run_id"),
         "study_sha256": (manifest.get("study") or {}).get("sha256"),
     }
+
+
+def _failure_sentence(error: dict[str, Any]) -> str:
+    """One line for the failure banner of a stage's HTML page."""
+    where = error.get("template_cell_index")
+    cell = f" in cell {where}" if where is not None else ""
+    name, value = error.get("ename") or error.get("kind") or "error", str(error.get("evalue") or "").splitlines()
+    detail = f": {value[0][:300]}" if value else ""
+    return f"It stopped{cell} with {name}{detail}."
 
 
 def _now() -> datetime:
@@ -614,7 +643,7 @@ def run_study(
     if importlib.util.find_spec("ipykernel") is None:
         raise RecordError(f"ipykernel is not installed for {sys.executable}; stage notebooks cannot run (pip install ipykernel)")
     inputs = _input_files(study_path, study)
-    model_input = _earlier_model(earlier) if earlier is not None else None
+    model_input = _earlier_model(earlier, study) if earlier is not None else None
     if model_input is not None:
         inputs.append(model_input)
 
@@ -691,7 +720,7 @@ def run_study(
             if study.output.html and notebook.is_file() and interrupted is None:
                 target = record / "html" / f"{stage_stem(stage)}.html"
                 try:
-                    render_html(notebook, target, show_code=show_code)
+                    render_html(notebook, target, show_code=show_code, failure=_failure_sentence(error) if error else None)
                     html = target.relative_to(record).as_posix()
                 except RiskvetError as exc:
                     html_error = str(exc)
