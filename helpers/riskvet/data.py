@@ -602,7 +602,7 @@ def _close(name: str, columns: Sequence[str]) -> list[str]:
 
 def _missing_column_line(need: _Need, columns: Sequence[str]) -> str:
     near = _close(need.column, columns)
-    hint = f"; did you mean {', '.join(repr(n) for n in near)}?" if near else ""
+    hint = f"; did you mean {', '.join(repr(n) for n in near)}?" if near else "."
     shown = list(columns[:_SHOWN_COLUMNS])
     more = f" and {len(columns) - _SHOWN_COLUMNS} more" if len(columns) > _SHOWN_COLUMNS else ""
     return f"column {need.column!r} ({need.purpose}) not found{hint} The file has columns {shown}{more}"

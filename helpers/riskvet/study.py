@@ -474,9 +474,9 @@ class Study(_Section):
                 raise ValueError(
                     f"thresholds.{key}: keys are the levels a cut starts at, one of {upper}; received {key!r}"
                 )
-            for v in values:
-                if not 0 < v < 1:
-                    raise ValueError(f"thresholds.{key}: each threshold strictly between 0 and 1; received {v}")
+            outside = [v for v in values if not 0 < v < 1]
+            if outside:
+                raise ValueError(f"thresholds.{key}: each threshold strictly between 0 and 1; received {outside} outside")
             if len(set(values)) != len(values):
                 raise ValueError(f"thresholds.{key}: each threshold once; received {list(values)}")
         columns = set(self.predictors.candidates) | set(self.updating.new_predictors)
@@ -582,14 +582,18 @@ def _describe(error: dict[str, Any]) -> str:
         parent = _model_at(loc[:-1])
         allowed = sorted(parent.model_fields) if parent is not None else []
         near = difflib.get_close_matches(str(loc[-1]), allowed, n=1, cutoff=0.5)
-        hint = f"; did you mean {near[0]!r}?" if near else ""
+        hint = f"; did you mean {near[0]!r}?" if near else "."
         return f"{_path_text(loc)}: unknown key{hint} Allowed keys here: {', '.join(allowed)}"
     if kind == "missing":
         return f"{_path_text(loc)}: required key is missing"
     message = error["msg"].removeprefix("Value error, ")
     received = error.get("input")
-    shown = "" if isinstance(received, dict) else f" (received {received!r})"
-    return f"{_path_text(loc)}: {message}{shown}"
+    # a message that names its own place or value is not given them twice
+    shown = "" if isinstance(received, dict) or "received" in message else f" (received {received!r})"
+    place = _path_text(loc)
+    if not loc or message.split(":", 1)[0].split("[", 1)[0].split(".", 1)[0] in Study.model_fields:
+        return f"{message}{shown}"
+    return f"{place}: {message}{shown}"
 
 
 def study_from_dict(raw: Any, *, base_dir: str | Path | None = None, source: str = "study") -> Study:
