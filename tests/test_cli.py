@@ -52,3 +52,23 @@ def test_plan_prints_the_binding_criterion(study_path, capsys):
 def test_plan_rejects_bad_proportions(study_path, capsys):
     assert main(["plan", str(study_path), "--proportions", "0.7,x"]) == 1
     assert "--proportions" in capsys.readouterr().err
+
+
+def test_check_warns_about_a_value_that_looks_like_a_missing_code(study_path, tmp_path, capsys):
+    """-999 in core temperature is flagged (a common missing-value code; common practice), not changed."""
+    import shutil
+
+    folder = tmp_path / "s"
+    shutil.copytree(study_path.parent, folder)
+    data = folder / "data" / "derivation.csv"
+    lines = data.read_text().splitlines()
+    header = lines[0].split(",")
+    col = header.index("core_temp")
+    first_complete = next(i for i, line in enumerate(lines[1:], start=1) if "" not in line.split(","))
+    row = lines[first_complete].split(",")
+    row[col] = "-999"
+    lines[first_complete] = ",".join(row)
+    data.write_text("\n".join(lines) + "\n")
+    assert main(["check", str(folder / "study.yaml")]) == 0
+    out = capsys.readouterr().out
+    assert "warning:" in out and "'core_temp' holds 1 value(s) of -999" in out and "data.missing_values" in out

@@ -41,7 +41,7 @@ def _cmd_new(args: argparse.Namespace) -> int:
 
 def check_report(study_path: str | Path, *, out=None) -> int:
     """Validate a study and its data, print the audit; return the exit status."""
-    from .data import load_cohorts
+    from .data import load_cohorts, suspect_codes
     from .study import load_study
 
     out = out or sys.stdout
@@ -58,6 +58,8 @@ def check_report(study_path: str | Path, *, out=None) -> int:
         _print_frame(pd.DataFrame({"level": list(cohort.outcome_counts), "n": list(cohort.outcome_counts.values())}), out=out)
         print("\ncolumns as received:", file=out)
         _print_frame(cohort.audit.to_frame(), out=out)
+        for note in suspect_codes(cohort):
+            print(f"warning: {note}", file=out)
         for m in cohort.category_mappings:
             print(f"mapped {m.count} value(s) of {m.column!r}: {m.source_level!r} -> {m.target_level!r}", file=out)
     if cohorts.ratings is not None:

@@ -1370,3 +1370,44 @@ def standardised_differences(a: PreparedCohort, b: PreparedCohort) -> Standardis
 def _prop_difference(pa: float, pb: float) -> float:
     pooled = math.sqrt((pa * (1 - pa) + pb * (1 - pb)) / 2)
     return (pa - pb) / pooled if pooled > 0 else float("nan")
+
+
+# -- values that look like missing-value codes --------------------------------------------------
+
+#: Numbers commonly used as missing-value codes (common practice, no published list).
+SUSPECT_CODES = (-99999.0, -9999.0, -999.0, -99.0, -9.0, 999.0, 9999.0, 99999.0)
+
+
+def suspect_codes(cohort: "PreparedCohort") -> list[str]:
+    """Warnings about numeric predictor values that look like missing-value codes.
+
+    A value is flagged when it equals one of :data:`SUSPECT_CODES` and lies more
+    than three interquartile ranges outside the quartiles of the column's
+    other values.  Nothing is changed: if the value is a code, the study
+    lists it under ``data.missing_values``.
+
+    Returns
+    -------
+    list of str
+        One sentence per flagged column and code (empty when none).
+    """
+    notes = []
+    for column in cohort.predictors:
+        if cohort.forms.get(column) == "categorical":
+            continue
+        values = pd.to_numeric(cohort.frame[column], errors="coerce").dropna()
+        for code in SUSPECT_CODES:
+            hits = int((values == code).sum())
+            if not hits:
+                continue
+            rest = values[values != code]
+            if rest.empty:
+                continue
+            q1, q3 = rest.quantile([0.25, 0.75])
+            spread = max(q3 - q1, 1e-12)
+            if code < q1 - 3 * spread or code > q3 + 3 * spread:
+                notes.append(
+                    f"{cohort.source}: column {column!r} holds {hits} value(s) of {code:g}, far outside its other values "
+                    f"({rest.min():g} to {rest.max():g}); if {code:g} is a missing-value code, add it to data.missing_values"
+                )
+    return notes
