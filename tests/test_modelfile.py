@@ -94,3 +94,20 @@ def test_non_proportional_model_round_trips(tmp_path, fitted):
     loaded = load_model(save_model(model, tmp_path / "nonprop.json"))
     assert np.array_equal(loaded.predict_proba(frame), model.predict_proba(frame))
     assert "LP2" in loaded.equation_text()
+
+
+def test_binary_equation_reads_as_an_intercept_and_reproduces_the_prediction():
+    """For K = 2 with the logit link, P(event) = expit(-theta + LP): ordinary logistic regression
+    written the usual way (common practice)."""
+    frame = demo.draw(400, season="derivation", seed=8)
+    y = (frame["disposition"] == "transferred").astype(int).to_numpy()
+    design = build_design(frame, linear=["age", "confusion"])
+    X = design.transform(frame)
+    fit = fit_cumulative(X, y)
+    outcome = {"column": "transferred", "type": "binary", "levels": ["no", "yes"], "labels": {}}
+    model = model_from_fit(fit, design, outcome=outcome)
+    text = model.equation_text(digits=12)
+    assert "P(yes) = expit(" in text and "or higher" not in text
+    intercept = float(text.split("P(yes) = expit(")[1].split(" + LP")[0])
+    lp = float(X.iloc[0].to_numpy() @ model.coef)
+    assert model.predict_proba(frame.iloc[[0]])[0, 1] == pytest.approx(1 / (1 + np.exp(-(intercept + lp))), rel=1e-10)

@@ -69,6 +69,18 @@ def plain_equation(model: "PredictionModel", *, digits: int = 4) -> str:
     if model.proportional:
         parts = [f"{_num(b, digits)} x {c}" for c, b in zip(model.design.columns, model.coef)]
         lines.append("LP = " + (" + ".join(parts) if parts else "0").replace("+ -", "- "))
+        if len(levels) == 2:
+            # a binary model read the usual way: intercept -theta, P(event) = F(intercept + LP) for the logit
+            # and probit links (symmetric); for cloglog 1 - G(theta - LP) is kept as it is
+            if model.link in ("logit", "probit"):
+                lines.append(f"P({levels[1]}) = {fname}({_num(-model.thresholds[0], digits)} + LP)   (intercept {_num(-model.thresholds[0], digits)})")
+            else:
+                lines.append(f"P({levels[1]}) = 1 - {fname}({_num(model.thresholds[0], digits)} - LP)")
+            lines.append(f"P({levels[0]}) = 1 - P({levels[1]}).")
+            lines.append(f"Here {fnote}.")
+            lines += _spline_notes(model, digits)
+            lines += _category_notes(model)
+            return "\n".join(lines)
         for j in cuts:
             lines.append(f"P({levels[j + 1]} or higher) = 1 - {fname}({_num(model.thresholds[j], digits)} - LP)")
     else:

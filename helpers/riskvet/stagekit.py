@@ -130,6 +130,17 @@ def stage_context(stage: str, *, study_path: str | Path, record_dir: str | Path,
     return StageContext(stage=stage, study=study, study_path=Path(study_path).resolve(), record_dir=record, model_path=model)
 
 
+def _reviewer_display() -> None:
+    """Table display for reviewers: every column, whole cells, three decimals."""
+    import pandas as pd
+
+    pd.set_option("display.max_columns", None)
+    pd.set_option("display.max_colwidth", None)
+    pd.set_option("display.width", 250)
+    pd.set_option("display.max_rows", 300)
+    pd.set_option("display.precision", 3)
+
+
 def open_stage(stage: str, namespace: Mapping[str, Any]) -> StageContext:
     """Validate a stage notebook's parameters and open its context.
 
@@ -159,6 +170,7 @@ def open_stage(stage: str, namespace: Mapping[str, Any]) -> StageContext:
         raise RiskvetError(
             problem(f"{stage} notebook parameters", allowed=f"only {sorted(STAGE_PARAMETERS)}", received=unknown)
         )
+    _reviewer_display()
     values = {k: namespace.get(k, default) for k, default in STAGE_PARAMETERS.items()}
     for k, v in values.items():
         if not isinstance(v, str):
