@@ -79,10 +79,14 @@ _INJECTED_TAG = "injected-parameters"
 
 
 def default_templates_dir() -> Path:
-    """The ``templates/`` folder of the riskvet source tree (an editable install)."""
+    """The stage templates: the source tree's ``templates/`` (an editable install),
+    else ``<prefix>/share/riskvet/templates`` where a regular install puts them."""
     import riskvet
 
-    return Path(riskvet.__file__).resolve().parents[2] / "templates"
+    source = Path(riskvet.__file__).resolve().parents[2] / "templates"
+    if source.is_dir():
+        return source
+    return Path(sys.prefix) / "share" / "riskvet" / "templates"
 
 
 def template_path(stage: str, *, templates_dir: str | Path | None = None) -> Path:
