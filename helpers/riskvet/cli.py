@@ -245,6 +245,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print(f"riskvet {args.command}: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:
+        # the reader (for example `| head`) closed the pipe: stop quietly
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
 
 
 if __name__ == "__main__":  # pragma: no cover
