@@ -1,4 +1,4 @@
-"""Tests of riskvet.calibration against statsmodels, the package fitter, slow code and simulation.
+"""Tests of riskvet.calibration against statsmodels, numpy, the package fitter, slow code and simulation.
 
 Tolerances: ``rel=1e-12`` (or ``abs=1e-12``) compares the same closed-form quantity computed in
 a different order, so only floating-point rounding separates the two; wider tolerances are
@@ -99,9 +99,11 @@ def test_oe_ratio_interval_matches_statsmodels_log_binomial():
 
 
 def test_smoothed_curve_equals_statsmodels_lowess():
-    # statsmodels 0.15.0 lowess, frac = 0.75, it = 0 (no robustness iterations), at the curve's points.
+    # statsmodels 0.15.0 lowess, frac = 0.75, it = 0 (no robustness iterations), at the curve's
+    # points: the local linear smoother (degree = 1).
     y, prob, _ = miscalibrated(n=1200, seed=6)
-    res = calibration(y, prob)
+    res = calibration(y, prob, degree=1)
+    assert res.degree == 1
     order = np.argsort(prob)
     ref = lowess(y[order].astype(float), prob[order], frac=0.75, it=0, xvals=res.curve_predicted)
     np.testing.assert_allclose(res.curve_observed, ref, rtol=0, atol=1e-10)
@@ -115,6 +117,89 @@ def test_smoothed_curve_equals_statsmodels_lowess():
     assert res.e90 == pytest.approx(np.quantile(err, 0.9), abs=5e-4)
     assert res.emax == pytest.approx(err.max(), abs=5e-4)
     assert np.all(res.curve_lower <= res.curve_observed) and np.all(res.curve_observed <= res.curve_upper)
+
+
+def _direct_local_fit(x, y, x0, frac, degree):
+    """Slow reference: tricube weights over the floor(frac n) nearest x, one weighted polynomial fit."""
+    dist = np.abs(x - x0)
+    radius = np.sort(dist)[int(frac * x.size) - 1]
+    w = np.where(dist < radius, (1 - (dist / radius) ** 3) ** 3, 0.0)
+    # numpy.polyfit multiplies the unsquared residuals by its w, so sqrt(w) gives weights w.
+    intercept = np.polyfit(x - x0, y, degree, w=np.sqrt(w))[-1]
+    # Equivalent kernel from the pseudoinverse of the weighted design (an SVD, not the normal
+    # equations the package solves): s(x0) = sum_j l_j y_j.
+    design = np.vander(x - x0, degree + 1, increasing=True)
+    kernel = np.linalg.pinv(np.sqrt(w)[:, None] * design)[0] * np.sqrt(w)
+    return intercept, kernel
+
+
+def test_local_quadratic_curve_and_band_equal_direct_weighted_fits():
+    # Reference: numpy 2.4 polyfit (weighted least squares) at each evaluation point, and the
+    # equivalent kernel from numpy.linalg.pinv of the weighted design.  Both are exact linear
+    # algebra on the same weights, so 1e-10 leaves room for rounding only (values are O(0.1)).
+    y, prob, _ = miscalibrated(n=900, seed=15)
+    res = calibration(y, prob, frac=0.6)  # degree 2 is the default
+    assert res.degree == 2
+    order = np.argsort(prob)
+    x, ys = prob[order], y[order].astype(float)
+    pi = np.clip(np.interp(x, res.curve_predicted, res.curve_observed), 0, 1)
+    z = stats.norm.ppf(0.975)
+    fits, kernels = zip(*(_direct_local_fit(x, ys, x0, 0.6, 2) for x0 in res.curve_predicted))
+    np.testing.assert_allclose(res.curve_observed, fits, rtol=0, atol=1e-10)
+    np.testing.assert_allclose(np.array(kernels) @ ys, fits, rtol=0, atol=1e-10)
+    se = np.sqrt((np.array(kernels) ** 2) @ (pi * (1 - pi)))
+    inside = (res.curve_lower > 0) & (res.curve_upper < 1)
+    assert inside.sum() > 50
+    np.testing.assert_allclose((res.curve_upper - res.curve_observed)[inside], z * se[inside], rtol=0, atol=1e-10)
+    # The check discriminates: the local linear curve on the same data is far from these fits.
+    linear = calibration(y, prob, frac=0.6, degree=1)
+    assert np.max(np.abs(linear.curve_observed - np.array(fits))) > 1e-3
+    # The ordinal path passes the degree on to each cut.
+    two = ordinal_calibration(y, np.column_stack([1 - prob, prob]), frac=0.6, degree=1)
+    np.testing.assert_array_equal(two.cuts[0].curve_observed, linear.curve_observed)
+
+
+def test_score_with_few_values_lowers_the_degree_where_the_window_needs_it():
+    # Predictions with four distinct values.  The prediction at the window's radius gets weight
+    # 0, so some windows hold only two distinct values with positive weight and cannot support
+    # a quadratic: there the fit must be the weighted straight line (numpy 2.4 polyfit of
+    # degree 1); elsewhere it is the quadratic.  Same 1e-10 as above.
+    rng = np.random.default_rng(17)
+    sizes = [120, 80, 60, 40]
+    prob = np.repeat([0.1, 0.3, 0.45, 0.6], sizes)
+    y = (rng.random(prob.size) < np.repeat([0.15, 0.25, 0.5, 0.7], sizes)).astype(int)
+    with pytest.warns(RiskvetWarning, match="non-empty groups"):
+        res = calibration(y, prob, frac=0.75)
+    order = np.argsort(prob, kind="stable")
+    x, ys = prob[order], y[order].astype(float)
+    k = int(0.75 * x.size)
+    used = []
+    for x0, fitted in zip(res.curve_predicted, res.curve_observed):
+        dist = np.abs(x - x0)
+        degree = min(2, np.unique(x[dist < np.sort(dist)[k - 1]]).size - 1)
+        used.append(degree)
+        assert fitted == pytest.approx(_direct_local_fit(x, ys, x0, 0.75, degree)[0], abs=1e-10)
+    assert set(used) == {1, 2}  # both kinds of window occur
+    assert np.all(np.isfinite(res.curve_lower)) and np.isfinite(res.ici)
+
+
+@pytest.mark.parametrize("degree", [1, 2])
+def test_ici_is_small_on_perfectly_calibrated_data(degree):
+    # With y ~ Bernoulli(prob) the true calibration curve is the identity, which a local
+    # polynomial of degree >= 1 reproduces exactly (Fan & Gijbels 1996, ch. 3), so the curve
+    # carries noise only, of SD about the band's SE; the mean absolute noise is then about
+    # 0.8 SE, and 2 x the mean SE is a bound it should not reach.  For contrast, a true
+    # calibration slope of 0.8 gives an ICI near 0.05 on the same predictions, so the check
+    # can fail.
+    rng = np.random.default_rng(16)
+    n = 20_000
+    prob = special.expit(rng.normal(-1.0, 1.0, n))
+    y = (rng.random(n) < prob).astype(int)
+    res = calibration(y, prob, degree=degree)
+    mean_se = np.mean((res.curve_upper - res.curve_lower) / (2 * stats.norm.ppf(0.975)))
+    assert res.ici < 2 * mean_se < 0.02
+    y_off = (rng.random(n) < special.expit(0.1 + 0.8 * special.logit(prob))).astype(int)
+    assert calibration(y_off, prob, degree=degree).ici > 0.03
 
 
 def test_band_matches_simulated_spread_of_the_smoother():
@@ -243,6 +328,11 @@ def test_bad_input_and_serialisation():
         calibration(y, prob, n_groups=1)
     with pytest.raises(RiskvetError, match=r"calibration\(frac=\)"):
         calibration(y, prob, frac=0)
+    for bad in (0, 3, True, 2.0):
+        with pytest.raises(RiskvetError, match=r"calibration\(degree=\).*1 \(local linear\) or 2.*received"):
+            calibration(y, prob, degree=bad)
+    with pytest.raises(RiskvetError, match=r"ordinal_calibration\(degree=\)"):
+        ordinal_calibration(np.r_[y, 2], np.full((y.size + 1, 3), 1 / 3), degree=0)
     with pytest.raises(RiskvetError, match=r"calibration\(development=\)"):
         calibration(y, prob, development="yes")
     with pytest.raises(DataError, match="both events and non-events"):
