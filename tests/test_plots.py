@@ -9,10 +9,12 @@ import matplotlib
 matplotlib.use("Agg")
 
 import numpy as np
+import pandas as pd
 import pytest
 from matplotlib.collections import PolyCollection
 from matplotlib.container import ErrorbarContainer
 from matplotlib.figure import Figure
+from matplotlib.legend import Legend
 from scipy import special
 
 from riskvet.agreement import bland_altman
@@ -106,6 +108,12 @@ def test_decision_curve_model_rule_and_references(tmp_path):
     assert len(per_cut.axes) == 2
 
 
+def _points(ax):
+    """The data markers: the one scatter collection holding offsets."""
+    (points,) = [c for c in ax.collections if len(c.get_offsets())]
+    return points
+
+
 def test_bland_altman_from_agreement_result_and_plain_object(tmp_path):
     rng = np.random.default_rng(5)
     truth = rng.normal(30, 5, 60)
@@ -114,8 +122,12 @@ def test_bland_altman_from_agreement_result_and_plain_object(tmp_path):
     res = bland_altman(a, b)
     fig = plot_bland_altman(res, units="mmHg", labels=("nurse", "doctor"))
     ax = fig.axes[0]
-    np.testing.assert_allclose(ax.lines[1].get_xdata(), res.means)
-    levels = sorted(line.get_ydata()[0] for line in ax.lines[2:])
+    # continuous readings: no ties, so one marker per pair, all of one size
+    points = _points(ax)
+    np.testing.assert_allclose(points.get_offsets()[:, 0], res.means)
+    np.testing.assert_allclose(points.get_offsets()[:, 1], res.differences)
+    assert len(set(points.get_sizes())) == 1
+    levels = sorted(line.get_ydata()[0] for line in ax.lines[1:])
     assert levels == pytest.approx(sorted([res.lower, res.bias, res.upper]))
     assert len([p for p in ax.patches]) == 3  # interval bands
     assert ax.get_ylabel() == "nurse - doctor (mmHg)"
@@ -123,6 +135,35 @@ def test_bland_altman_from_agreement_result_and_plain_object(tmp_path):
     plain = SimpleNamespace(means=[1.0, 2.0, 3.0], differences=[0.1, -0.2, 0.05], bias=-0.02, lower=-0.3, upper=0.26)
     fig2 = plot_bland_altman(plain)
     assert len(fig2.axes[0].patches) == 0
+
+
+def test_bland_altman_draws_tied_pairs_once_sized_by_count(tmp_path):
+    # Whole-number readings (as respiratory rates are) tie often.
+    rng = np.random.default_rng(11)
+    truth = rng.integers(12, 24, 200)
+    a = truth + rng.integers(-2, 3, 200)
+    b = truth + rng.integers(-2, 3, 200)
+    res = bland_altman(a.astype(float), b.astype(float))
+    fig = plot_bland_altman(res)
+    ax = fig.axes[0]
+    points = _points(ax)
+    # Reference: pandas 3.1 value_counts of the (mean, difference) pairs.
+    counts = pd.DataFrame({"m": res.means, "d": res.differences}).value_counts()
+    drawn = {(float(x), float(y)): float(s) for (x, y), s in zip(points.get_offsets(), points.get_sizes())}
+    assert len(drawn) == len(counts) < len(a)
+    assert {key: 1 for key in drawn} == {(float(m), float(d)): 1 for m, d in counts.index}
+    # marker area proportional to the number of pairs at the point
+    area_per_pair = {drawn[(float(m), float(d))] / n for (m, d), n in counts.items()}
+    assert max(area_per_pair) == pytest.approx(min(area_per_pair), rel=1e-12)
+    # the legend of sizes: one entry per size level, 1 first, the largest count last
+    legends = [c for c in ax.get_children() if isinstance(c, Legend)]
+    sizes = next(lg for lg in legends if lg.get_title().get_text().startswith("pairs"))
+    texts = [t.get_text() for t in sizes.get_texts()]
+    assert texts[0] == "1 pair" and texts[-1] == f"{counts.max()} pairs"
+    # bias and limits are still drawn
+    levels = sorted(line.get_ydata()[0] for line in ax.lines[1:])
+    assert levels == pytest.approx(sorted([res.lower, res.bias, res.upper]))
+    saved_png(fig, tmp_path, "bland_altman_ties")
 
 
 def test_palette_is_okabe_ito():

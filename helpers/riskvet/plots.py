@@ -377,6 +377,33 @@ class AgreementLike(Protocol):
     upper: float
 
 
+def _distinct_pairs(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Distinct (x, y) points and how many pairs sit at each, in order of first appearance.
+
+    Values equal to about nine significant digits of the largest one count as
+    the same point, so that ties computed by different floating-point routes
+    are not drawn apart.
+    """
+    scale = np.array([max(np.max(np.abs(x), initial=0.0), 1e-300), max(np.max(np.abs(y), initial=0.0), 1e-300)])
+    keys = np.round(np.column_stack([x, y]) / scale, 9)
+    _, first, counts = np.unique(keys, axis=0, return_index=True, return_counts=True)
+    order = np.argsort(first, kind="stable")
+    first, counts = first[order], counts[order]
+    return x[first], y[first], counts
+
+
+def _size_levels(most: int) -> list[int]:
+    """Pair counts for the size legend: 1, the largest, and between them round numbers (1-2-5) spaced evenly on a log scale."""
+    if most <= 3:
+        return list(range(1, most + 1))
+    nice = []
+    for step in (1 / 3, 2 / 3):
+        target = most**step
+        power = 10 ** np.floor(np.log10(target))
+        nice.append(int(min((power * f for f in (1, 2, 5, 10)), key=lambda v: abs(np.log(v / target)))))
+    return sorted({1, *(v for v in nice if 1 < v < most), most})
+
+
 def plot_bland_altman(
     result: AgreementLike,
     *,
@@ -400,9 +427,12 @@ def plot_bland_altman(
     Returns
     -------
     matplotlib.figure.Figure
-        Points, a solid bias line, dashed limits, each with its confidence
-        interval as a shaded band when the result carries one, and the
-        values written at the right edge.
+        One hollow circle per distinct (mean, difference) point, its area
+        proportional to the number of pairs there (readings on a coarse
+        scale tie often, and one marker per pair would hide how many), with
+        a legend of sizes; a solid bias line, dashed limits, each with its
+        confidence interval as a shaded band when the result carries one,
+        and the values written at the right edge.
 
     References
     ----------
@@ -422,10 +452,16 @@ def plot_bland_altman(
     unit = f" ({units})" if units else ""
     a, b = labels
     conf = getattr(result, "confidence", None)
+    x, y, counts = _distinct_pairs(means, diffs)
+    most = int(counts.max(initial=1))
+    # Area per pair: about 16 pt^2 for a lone pair, less when many pairs tie, so
+    # the largest marker stays readable; never under 5 pt^2.
+    unit_area = max(5.0, min(16.0, 700.0 / most))
     with mpl.rc_context(_STYLE):
-        fig, axes = _new_figure(ax, (5.0, 3.8))
+        fig, axes = _new_figure(ax, (5.8, 3.9))
         axes.axhline(0.0, color=_REFERENCE, linewidth=0.8, linestyle=":")
-        axes.plot(means, diffs, linestyle="none", marker="o", markersize=3.5, color=PALETTE[0], markerfacecolor="none", alpha=0.8, label="pairs")
+        axes.scatter(x, y, s=unit_area * counts, facecolors="none", edgecolors=PALETTE[0], linewidths=0.9, alpha=0.85, zorder=3)
+        axes.margins(x=0.07, y=0.07)  # room for the largest markers at the edges
         lines = (
             ("bias", float(result.bias), getattr(result, "bias_interval", None), "-", PALETTE[1]),
             ("limits of agreement", float(result.lower), getattr(result, "lower_interval", None), "--", PALETTE[2]),
@@ -441,6 +477,17 @@ def plot_bland_altman(
             axes.annotate(f"{value:.3g}", xy=(1.0, value), xycoords=("axes fraction", "data"), xytext=(3, 0), textcoords="offset points", va="center", fontsize=7.5, color=colour)
         axes.set_xlabel(f"mean of {a} and {b}{unit}")
         axes.set_ylabel(f"{a} - {b}{unit}")
-        # Above the axes: a legend inside would cover points.
-        axes.legend(loc="lower left", bbox_to_anchor=(0.0, 1.01), ncol=2, borderaxespad=0.0)
+        # Outside the axes: a legend inside would cover points.  Lines above,
+        # marker sizes to the right (clear of the values at the right edge).
+        lines_legend = axes.legend(loc="lower left", bbox_to_anchor=(0.0, 1.01), ncol=3, borderaxespad=0.0)
+        levels = _size_levels(most)
+        sizes = [axes.scatter([], [], s=unit_area * k, facecolors="none", edgecolors=PALETTE[0], linewidths=0.9) for k in levels]
+        # Room for the largest marker: its diameter is sqrt(area) points.
+        font = float(_STYLE["legend.fontsize"])
+        widest = float(np.sqrt(unit_area * levels[-1]))
+        axes.legend(sizes, [f"{k} pair" if k == 1 else f"{k} pairs" for k in levels], title="pairs at\na point",
+                    loc="upper left", bbox_to_anchor=(1.09, 1.0), borderaxespad=0.0, borderpad=0.6, scatterpoints=1,
+                    labelspacing=max(0.8, widest / font - 0.4), handlelength=max(1.0, widest / font), handletextpad=0.6,
+                    title_fontsize=7.5)
+        axes.add_artist(lines_legend)
     return fig
