@@ -15,7 +15,7 @@ from sklearn.metrics import cohen_kappa_score
 from riskvet.agreement import icc_table, kappa
 from riskvet.data import load_cohorts
 from riskvet.design import build_design
-from riskvet.errors import ModelFileError, RecordError, RiskvetError, RiskvetWarning, StudyError
+from riskvet.errors import DataError, ModelFileError, RecordError, RiskvetError, RiskvetWarning, StudyError
 from riskvet.modelfile import PredictionModel, save_model
 from riskvet.plots_agreement import plot_item_agreement, plot_risk_agreement
 from riskvet.scaffold import new_study_folder
@@ -123,17 +123,174 @@ def test_predictor_agreement_matches_references(folder, study, raw_ratings, tmp_
     assert sorted(saved["figures"]) == ["bland_altman_resp_rate"]
 
 
-def test_cross_table_suppresses_small_counts(study, cohorts):
-    out = stage.assess(study, cohorts=cohorts)
+def _published_equations(table, published, *, bands):
+    """What a reader of the record knows, as linear equations on the K x K cells.
+
+    The visible cells, the visible totals (the raters' rates), n, and the
+    number of pairs on each agreement line: the diagonal and the rest (kappa's
+    observed agreement), or each distance |i - j| (with a weighted kappa).
+    """
+    t = np.asarray(table)
+    K = t.shape[0]
+    rows, rhs = [], []
+
+    def eq(mask, value):
+        rows.append(mask.ravel().astype(float))
+        rhs.append(float(value))
+
+    for i in range(K):
+        for j in range(K):
+            if published.cells[i][j] != stage.SUPPRESSED:
+                mask = np.zeros((K, K))
+                mask[i, j] = 1
+                eq(mask, published.cells[i][j])
+    for i in range(K):
+        if published.row_totals[i] != stage.SUPPRESSED:
+            mask = np.zeros((K, K))
+            mask[i, :] = 1
+            eq(mask, published.row_totals[i])
+        if published.column_totals[i] != stage.SUPPRESSED:
+            mask = np.zeros((K, K))
+            mask[:, i] = 1
+            eq(mask, published.column_totals[i])
+    eq(np.ones((K, K)), published.n)
+    distance = np.abs(np.subtract.outer(np.arange(K), np.arange(K)))
+    for d in (range(K) if bands else (0,)):
+        eq(distance == d, t[distance == d].sum())
+    return np.array(rows), np.array(rhs)
+
+
+def _other_table_exists(a_eq, b_eq, t, hidden, cell):
+    """Is there another table of whole counts >= 0, agreeing with everything published, with a different ``cell``?
+
+    A slow, obviously correct exhaustive search, independent of the stage's
+    integer programmes: the suppressed cells are filled one at a time with
+    every whole number the equations' remainders allow (each equation has
+    coefficients 0 or 1), with ``cell`` set to each value other than its
+    true one; any complete filling that meets every equation is such a table.
+    """
+    visible = np.ones(t.size, bool)
+    visible[hidden] = False
+    rest = b_eq - a_eq[:, visible] @ t.ravel()[visible]
+    members = [np.flatnonzero(a_eq[:, c]) for c in hidden]
+    order = [hidden.index(cell)] + [k for k in range(len(hidden)) if hidden[k] != cell]
+    last = {}  # equation -> the position in ``order`` that completes it
+    for pos, k in enumerate(order):
+        for e in members[k]:
+            last[e] = pos
+
+    def fill(pos, rest):
+        if pos == len(order):
+            return True
+        k = order[pos]
+        top = int(min(rest[members[k]])) if len(members[k]) else 0
+        for v in range(top + 1):
+            if pos == 0 and v == t.ravel()[cell]:
+                continue
+            after = rest.copy()
+            after[members[k]] -= v
+            if all(after[e] == 0 for e in members[k] if last[e] == pos) and fill(pos + 1, after):
+                return True
+        return False
+
+    return fill(0, rest.astype(np.int64))
+
+
+def _assert_protected(table, published, *, bands, m):
+    t = np.asarray(table)
+    K = t.shape[0]
+    a_eq, b_eq = _published_equations(t, published, bands=bands)
+    hidden = [i * K + j for i in range(K) for j in range(K) if published.cells[i][j] == stage.SUPPRESSED]
+    for i in range(K):
+        for j in range(K):
+            shown = published.cells[i][j]
+            if shown != stage.SUPPRESSED:
+                assert shown == t[i, j] and not 0 < shown < m
+            elif t[i, j] > 0:
+                # no suppressed count is fixed by the published counts and totals, by
+                # subtraction or otherwise: another whole-count table agrees with
+                # everything published and differs in it
+                assert _other_table_exists(a_eq, b_eq, t, hidden, i * K + j), (t.tolist(), (i, j), published)
+    # the totals shown are true, and none is small
+    for i in range(K):
+        for shown, true in ((published.row_totals[i], t[i].sum()), (published.column_totals[i], t[:, i].sum())):
+            assert shown == stage.SUPPRESSED or (shown == true and not 0 < true < m)
+    if not published.margins_shown:
+        assert set(published.row_totals) == set(published.column_totals) == {stage.SUPPRESSED}
+
+
+@pytest.mark.parametrize("table", [
+    [[130, 9], [4, 7]],          # the demo's confusion item: 4 was recoverable from 150 and the rates
+    [[140, 2], [0, 8]],          # a visible 0 would give the 2 away
+    [[3, 0], [0, 0]],
+    [[50, 3, 0], [4, 40, 6], [0, 7, 30]],
+    [[20, 1, 0, 0], [2, 15, 3, 0], [0, 4, 12, 1], [0, 0, 2, 9]],
+    [[60, 0], [0, 40]],
+])
+@pytest.mark.parametrize("bands", [False, True])
+def test_cross_table_hides_no_recoverable_count(table, bands):
+    published = stage.publish_cross_table(table, min_cell_count=5, bands=bands)
+    _assert_protected(table, published, bands=bands, m=5)
+
+
+def test_cross_table_without_small_counts_is_shown_whole():
+    published = stage.publish_cross_table([[105, 21], [13, 11]], min_cell_count=5)
+    assert published.cells == ((105, 21), (13, 11)) and published.n_suppressed == 0
+    assert published.row_totals == (126, 24) and published.column_totals == (118, 32) and published.margins_shown
+    # min_cell_count 0 or 1 suppresses nothing
+    assert stage.publish_cross_table([[130, 9], [4, 7]], min_cell_count=1).cells == ((130, 9), (4, 7))
+
+
+from hypothesis import given, settings, strategies as st
+
+
+@settings(max_examples=80, deadline=None)
+@given(st.integers(2, 3).flatmap(lambda k: st.lists(st.lists(st.integers(0, 40), min_size=k, max_size=k), min_size=k, max_size=k)),
+       st.booleans(), st.integers(2, 11))
+def test_cross_table_property(table, bands, m):
+    _assert_protected(table, stage.publish_cross_table(table, min_cell_count=m, bands=bands), bands=bands, m=m)
+
+
+def test_cross_table_refusals():
+    with pytest.raises(DataError, match="square"):
+        stage.publish_cross_table([[1, 2, 3]], min_cell_count=5)
+    with pytest.raises(DataError, match="whole counts"):
+        stage.publish_cross_table([[1, -2], [3, 4]], min_cell_count=5)
+    with pytest.raises(DataError, match="min_cell_count"):
+        stage.publish_cross_table([[1, 2], [3, 4]], min_cell_count=-1)
+
+
+def test_record_publishes_the_protected_tables_only(study, cohorts):
+    out = stage.assess(study, cohorts=cohorts, model=_model(study, cohorts, COEF, categorical={"sex": "female"}))
     m = study.output.min_cell_count
     for item in out.items:
         if item.kappa is None:
             continue
-        shown = item.agreement_table().to_numpy().ravel().tolist()
-        true = np.array(item.kappa.table).ravel().tolist()
-        for s, t in zip(shown, true):
-            assert s == (f"<{m}" if 0 < t < m else t)
-        assert item.to_dict()["kappa"]["table"] == item.agreement_table().to_numpy().tolist()
+        published = stage.publish_cross_table(item.kappa.table, min_cell_count=m, bands=item.weighted_kappa is not None)
+        assert item.published == published
+        _assert_protected(item.kappa.table, published, bands=item.weighted_kappa is not None, m=m)
+        shown = item.agreement_table()
+        assert shown.iloc[:-1, :-1].to_numpy().tolist() == [list(r) for r in published.cells]
+        assert shown.iloc[-1, -1] == item.kappa.n
+        d = item.to_dict()
+        assert d["kappa"]["table"] == [list(r) for r in published.cells] and d["cross_table"]["margins_shown"] == published.margins_shown
+        # the raters' rates appear in the sentence only when their totals are published
+        assert ("%" in item.text.split("people.")[1].split("Cohen")[0]) == published.margins_shown
+    for cut in out.risk.cuts:
+        for i, (saved, d) in enumerate(zip(cut.to_dict()["decisions"], cut.decisions)):
+            published = cut.published(i)
+            _assert_protected(d.decisions.table, published, bands=False, m=m)
+            assert saved["decisions"]["table"] == [list(r) for r in published.cells]
+            assert (saved["positive_a"], saved["positive_b"]) == (published.row_totals[-1], published.column_totals[-1])
+
+
+def test_small_count_example_of_the_review():
+    # 130 | 9 / 4 | 7 of 150 people: with n and the raters' rates a reader could
+    # subtract 4 out; now the off-diagonal counts and the rates are suppressed.
+    item_table = [[130, 9], [4, 7]]
+    published = stage.publish_cross_table(item_table, min_cell_count=5)
+    assert published.cells == ((130, stage.SUPPRESSED), (stage.SUPPRESSED, 7))
+    assert not published.margins_shown and published.n == 150
 
 
 def test_ordinal_item_and_missing_pairs(folder, tmp_path):
@@ -275,16 +432,20 @@ def test_figures_draw_the_results(study, cohorts):
     assert isinstance(fig, Figure)
     ba = item.bland_altman
     assert _line_levels(fig) == pytest.approx(sorted([0.0, ba.bias, ba.lower, ba.upper]), abs=1e-12)
-    points = next(line for line in fig.axes[0].lines if line.get_linestyle() == "None")
-    assert np.array_equal(points.get_ydata(), ba.differences)
+    (points,) = [c for c in fig.axes[0].collections if len(c.get_offsets())]
+    # one marker per distinct (mean, difference) pair, area by count; reference: pandas 3.1 value_counts
+    counts = pd.DataFrame({"m": ba.means, "d": ba.differences}).value_counts()
+    drawn = {(float(x), float(y)): float(s) for (x, y), s in zip(points.get_offsets(), points.get_sizes())}
+    assert sorted(drawn) == sorted((float(m), float(d)) for m, d in counts.index)
+    assert len({round(drawn[(float(m), float(d))] / n, 9) for (m, d), n in counts.items()}) == 1
     assert item.rater_a in fig.axes[0].get_ylabel()
     # Risks are drawn in percent: every line and point is the result times 100.
     cut = out.risk.cuts[0]
     fig = plot_risk_agreement(cut)
     r = cut.risks
     assert _line_levels(fig) == pytest.approx(sorted([0.0, 100 * r.bias, 100 * r.lower, 100 * r.upper]), abs=1e-10)
-    points = next(line for line in fig.axes[0].lines if line.get_linestyle() == "None")
-    assert np.allclose(points.get_xdata(), 100 * r.means, rtol=0, atol=1e-12)
+    (points,) = [c for c in fig.axes[0].collections if len(c.get_offsets())]
+    assert set(np.round(points.get_offsets()[:, 0], 9)) == set(np.round(100 * r.means, 9))
     assert cut.label in fig.axes[0].get_title(loc="left")
     with pytest.raises(RiskvetError, match="continuous item"):
         plot_item_agreement(out.item("confusion"))

@@ -18,6 +18,12 @@ of decisions by kappa (:func:`riskvet.agreement.decision_agreement`).
 
 :func:`run` does this for a stage notebook: results JSON, one Bland–Altman
 figure per continuous item and per cut.
+
+Every cross-table the record publishes (the raters' categories, and the
+decisions at each threshold) goes through :func:`publish_cross_table`: counts
+from 1 to ``min_cell_count − 1`` are suppressed, and so is any further count
+or total from which a suppressed count could be worked out with the totals
+and agreement counts the record states.
 """
 
 from __future__ import annotations
@@ -25,6 +31,7 @@ from __future__ import annotations
 import dataclasses
 import math
 import re
+import warnings
 from dataclasses import dataclass, field
 from typing import Any, Mapping
 
@@ -33,13 +40,14 @@ import pandas as pd
 
 from .._jsonable import to_jsonable
 from ..agreement import BlandAltmanResult, DecisionAgreement, ICCTable, KappaResult, bland_altman, decision_agreement, icc_table, kappa
-from ..data import Cohorts, load_cohorts, read_table
-from ..errors import DataError, ModelFileError, StudyError, problem
+from ..data import Cohorts, _suppress, load_cohorts, read_table
+from ..errors import DataError, ModelFileError, RiskvetWarning, StudyError, problem
 from ..modelfile import PredictionModel, load_model
 from ..study import RatedItem, Study
 from .planning import cut_label
 
-__all__ = ["ItemAgreement", "CutRiskAgreement", "RiskAgreement", "AgreementOutput", "assess", "run"]
+__all__ = ["PublishedTable", "publish_cross_table", "SUPPRESSED", "ItemAgreement", "CutRiskAgreement", "RiskAgreement",
+           "AgreementOutput", "assess", "run"]
 
 #: The ICC forms reported for two fixed raters: absolute agreement and consistency.
 PRIMARY_ICC_FORMS = ("2,1", "3,1")
@@ -55,8 +63,223 @@ def _fmt(x: float, digits: int = 2) -> str:
     return "undefined" if x is None or not math.isfinite(x) else f"{x:.{digits}f}".replace("-", "−")
 
 
-def _suppressed(table: tuple[tuple[int, ...], ...], minimum: int) -> list[list[int | str]]:
-    return [[f"<{minimum}" if 0 < v < minimum else v for v in row] for row in table]
+# --------------------------------------------------------------------------
+# published cross-tables
+# --------------------------------------------------------------------------
+
+#: What a suppressed count or total shows.  One marker for every suppressed
+#: cell, small or complementary, so the marker itself does not tell a reader
+#: which of them is the small one.
+SUPPRESSED = "suppressed"
+
+
+@dataclass(frozen=True)
+class PublishedTable:
+    """A K × K cross-table of counts as the record publishes it.
+
+    Attributes
+    ----------
+    cells : tuple of tuple of (int or str)
+        The counts, first rater in rows; a suppressed count is
+        :data:`SUPPRESSED`.
+    row_totals, column_totals : tuple of (int or str)
+        Totals of each row (first rater) and column (second rater); all
+        :data:`SUPPRESSED` when ``margins_shown`` is False.
+    n : int
+        The grand total (always published).
+    margins_shown : bool
+        Whether the raters' totals are published.  They are withheld when,
+        together with the agreement counts, they would let a reader work out
+        a suppressed count.
+    min_cell_count : int
+        Counts from 1 to ``min_cell_count − 1`` are suppressed.
+    n_small : int
+        Counts (cells or totals) suppressed for being small.
+    n_suppressed : int
+        Every suppressed count, cells and totals.
+    """
+
+    cells: tuple[tuple[int | str, ...], ...]
+    row_totals: tuple[int | str, ...]
+    column_totals: tuple[int | str, ...]
+    n: int
+    margins_shown: bool
+    min_cell_count: int
+    n_small: int
+    n_suppressed: int
+
+    def frame(self, levels: list[str] | tuple[str, ...], *, row_name: str, column_name: str) -> pd.DataFrame:
+        """The table with a ``total`` row and column, for display."""
+        idx = pd.Index([*map(str, levels), "total"], name=row_name)
+        cols = pd.Index([*map(str, levels), "total"], name=column_name)
+        rows = [[*row, total] for row, total in zip(self.cells, self.row_totals)]
+        rows.append([*self.column_totals, self.n])
+        return pd.DataFrame(rows, index=idx, columns=cols, dtype=object)
+
+    def to_dict(self) -> dict[str, Any]:
+        return to_jsonable(dataclasses.asdict(self))
+
+
+def _determined(lines: list[list[tuple[int, int]]], hidden: set[tuple[int, int]], values: Mapping[tuple[int, int], int]) -> set[tuple[int, int]]:
+    """Suppressed non-zero counts that the published equations fix exactly.
+
+    Each line says: the sum of its parts equals its last entry.  With the
+    published values moved to the right-hand side, the suppressed counts are
+    whole numbers >= 0 solving A x = b.  A count is fixed when its smallest
+    and largest value over those solutions agree (two small integer
+    programmes per count; the true table is always a solution).
+    """
+    from scipy.optimize import Bounds, LinearConstraint, milp
+
+    unknown = sorted(hidden)
+    if not unknown:
+        return set()
+    index = {c: i for i, c in enumerate(unknown)}
+    rows, rhs = [], []
+    for line in lines:
+        coef = np.zeros(len(unknown))
+        known = 0.0
+        for c in line[:-1]:
+            if c in index:
+                coef[index[c]] += 1.0
+            else:
+                known += values[c]
+        if line[-1] in index:
+            coef[index[line[-1]]] -= 1.0
+        else:
+            known -= values[line[-1]]
+        if coef.any():
+            rows.append(coef)
+            rhs.append(-known)
+    if not rows:
+        return set()
+    constraint = LinearConstraint(np.vstack(rows), rhs, rhs)
+    fixed = set()
+    for c in unknown:
+        if values[c] == 0:
+            continue  # a zero gives nothing away
+        objective = np.zeros(len(unknown))
+        objective[index[c]] = 1.0
+        ends = []
+        for sign in (1.0, -1.0):
+            res = milp(sign * objective, constraints=constraint, integrality=np.ones(len(unknown)), bounds=Bounds(0, np.inf))
+            ends.append(sign * res.fun if res.status == 0 else float("nan"))
+        if not ends[0] < ends[1] - 0.5:  # also fixed when the programme fails: err on the side of hiding
+            fixed.add(c)
+    return fixed
+
+
+def publish_cross_table(table: Any, *, min_cell_count: int, bands: bool = False) -> PublishedTable:
+    """Suppress a raters' cross-table so that no small count can be recovered.
+
+    Parameters
+    ----------
+    table : K × K counts
+        First rater in rows, second in columns (``KappaResult.table``).
+    min_cell_count : int, keyword-only
+        Counts from 1 to ``min_cell_count − 1`` are suppressed
+        (``output.min_cell_count``); 0 or 1 suppresses nothing.
+    bands : bool, keyword-only
+        Whether a weighted kappa is published as well.  Its observed weighted
+        agreement, with the unweighted one, states the number of pairs at
+        each distance |i − j| between the categories, so each such band is
+        protected rather than only the diagonal and the off-diagonal.
+
+    Returns
+    -------
+    PublishedTable
+
+    Raises
+    ------
+    DataError
+        ``table`` is not square, or holds negative or fractional counts.
+
+    Notes
+    -----
+    What the record states besides the cells: the number of pairs n, the
+    number of pairs on which the raters agree (the observed agreement of
+    kappa) and so the number on which they differ, with ``bands`` the number
+    at each distance, and the raters' totals (their rates of each category)
+    unless withheld.
+
+    1. Primary suppression: every cell or total from 1 to m − 1.
+    2. Complementary suppression (Cox 1980): a line of counts that sums to a
+       published total (a row, a column, the diagonal, ...) with exactly one
+       suppressed count would give it away by subtraction, so the smallest
+       other count of the line is suppressed too, until no line has exactly
+       one (``riskvet.data``'s rule for descriptive tables).
+    3. Check: no suppressed count above 0 may be fixed by the published
+       equations taken together (not only one line at a time) with the
+       counts being whole numbers >= 0: its smallest and largest value over
+       every table consistent with them, found by integer programming
+       (scipy.optimize.milp), must differ.
+    4. If the raters' totals fail that check, they are withheld and steps
+       1–2 are redone with only the agreement counts published.  The lines
+       then partition the cells (diagonal and off-diagonal, or the bands),
+       and a line holding a suppressed count holds at least two, with a
+       remainder R >= 1 to share between them; each can take any value
+       from 0 to R, so none is fixed.
+
+    Statistics computed from the full table (kappa, its standard errors)
+    are published unrounded as well; they are not equations of this kind
+    and are not part of this check.
+
+    References
+    ----------
+    Cox LH. Suppression methodology and statistical disclosure control.
+    Journal of the American Statistical Association 1980; 75(370): 377–385.
+
+    Hundepool A, Domingo-Ferrer J, Franconi L, et al. Statistical Disclosure
+    Control. Wiley, 2012 (ch. 4, tabular data).
+    """
+    counts_in = np.asarray(table)
+    if counts_in.ndim != 2 or counts_in.shape[0] != counts_in.shape[1] or counts_in.size == 0:
+        raise DataError(problem("publish_cross_table(table)", allowed="a square table of counts", received=f"shape {counts_in.shape}"))
+    if not np.all(np.isfinite(counts_in.astype(float))) or np.any(counts_in.astype(float) < 0) or np.any(counts_in.astype(float) % 1):
+        raise DataError(problem("publish_cross_table(table)", allowed="whole counts >= 0", received=counts_in.tolist()))
+    if isinstance(min_cell_count, bool) or not isinstance(min_cell_count, (int, np.integer)) or min_cell_count < 0:
+        raise DataError(problem("publish_cross_table(min_cell_count=)", allowed="a whole number >= 0", received=min_cell_count))
+    t = counts_in.astype(int)
+    K, m, n = t.shape[0], int(min_cell_count), int(t.sum())
+    interior = {(i, j): int(t[i, j]) for i in range(K) for j in range(K)}
+    totals = {**{(i, K): int(t[i].sum()) for i in range(K)}, **{(K, j): int(t[:, j].sum()) for j in range(K)}}
+    # Agreement lines: their totals (keys (K + 1, d)) are stated by the
+    # statistics whatever is suppressed, so they take a count of at least m
+    # and are never suppressed themselves.
+    if bands:
+        groups = [[c for c in interior if abs(c[0] - c[1]) == d] for d in range(K)]
+    else:
+        groups = [[c for c in interior if c[0] == c[1]], [c for c in interior if c[0] != c[1]]]
+    agreement = [[*g, (K + 1, d)] for d, g in enumerate(groups) if g]
+    stated = {line[-1]: max(m, sum(interior[c] for c in line[:-1])) for line in agreement}
+    stated[(K, K)] = max(m, n)
+    margins = [[*[(i, j) for j in range(K)], (i, K)] for i in range(K)]
+    margins += [[*[(i, j) for i in range(K)], (K, j)] for j in range(K)]
+    margins += [[*[(K, j) for j in range(K)], (K, K)], [*[(i, K) for i in range(K)], (K, K)]]
+
+    hidden: set[tuple[int, int]] = set()
+    shown = True
+    if K >= 2 and m > 1:
+        lines = margins + agreement
+        values = {**interior, **totals, **stated}
+        hidden = _suppress(values, lines, m)
+        if _determined(lines, hidden, values):
+            shown = False
+            hidden = _suppress({**interior, **stated}, agreement, m)
+    small = sum(1 for c, v in {**interior, **(totals if shown else {})}.items() if 0 < v < m and c in hidden)
+
+    def show(c: tuple[int, int], value: int) -> int | str:
+        return SUPPRESSED if c in hidden else value
+
+    cells = tuple(tuple(show((i, j), interior[(i, j)]) for j in range(K)) for i in range(K))
+    if shown:
+        row_totals = tuple(show((i, K), totals[(i, K)]) for i in range(K))
+        column_totals = tuple(show((K, j), totals[(K, j)]) for j in range(K))
+    else:
+        row_totals = column_totals = (SUPPRESSED,) * K
+    n_suppressed = sum(v == SUPPRESSED for row in cells for v in row) + sum(v == SUPPRESSED for v in row_totals + column_totals)
+    return PublishedTable(cells=cells, row_totals=row_totals, column_totals=column_totals, n=n, margins_shown=shown,
+                          min_cell_count=m, n_small=small, n_suppressed=n_suppressed)
 
 
 # --------------------------------------------------------------------------
@@ -89,11 +312,14 @@ class ItemAgreement:
     bland_altman : BlandAltmanResult or None
         Limits of agreement of rater_a − rater_b (continuous).
     min_cell_count : int
-        Cross-table counts below this are shown as ``"<m"``.
+        Cross-table counts from 1 to ``min_cell_count − 1`` are suppressed.
     text : str
         One interpreting sentence.
     warnings : tuple of str
         Statistical trouble and statistics that could not be computed.
+    published : PublishedTable or None
+        The cross-table as published (:func:`publish_cross_table`); None for
+        continuous items.
     """
 
     name: str
@@ -111,14 +337,13 @@ class ItemAgreement:
     min_cell_count: int
     text: str
     warnings: tuple[str, ...] = ()
+    published: PublishedTable | None = None
 
     def agreement_table(self) -> pd.DataFrame | None:
-        """The raters' cross-table (rater_a in rows), small counts suppressed; None for continuous items."""
-        if self.kappa is None:
+        """The raters' cross-table (rater_a in rows) with totals, as published; None for continuous items."""
+        if self.published is None:
             return None
-        idx = pd.Index(list(self.levels), name=f"{self.name}: {self.rater_a}")
-        cols = pd.Index(list(self.levels), name=self.rater_b)
-        return pd.DataFrame(_suppressed(self.kappa.table, self.min_cell_count), index=idx, columns=cols, dtype=object)
+        return self.published.frame(self.levels, row_name=f"{self.name}: {self.rater_a}", column_name=self.rater_b)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready summary: statistics, the suppressed cross-table, no per-pair values."""
@@ -141,8 +366,9 @@ class ItemAgreement:
                 out[key] = None
             else:
                 d = k.to_dict()
-                d["table"] = _suppressed(k.table, self.min_cell_count)
+                d["table"] = [list(row) for row in self.published.cells]
                 out[key] = d
+        out["cross_table"] = None if self.published is None else self.published.to_dict()
         out["icc"] = None if self.icc is None else self.icc.to_dict()
         out["bland_altman"] = None if self.bland_altman is None else _ba_summary(self.bland_altman)
         return to_jsonable(out)
@@ -189,6 +415,9 @@ class CutRiskAgreement:
         Risk from rater_a's readings minus risk from rater_b's.
     decisions : tuple of DecisionAgreement
         One per threshold the study gives for this cut (may be empty).
+    min_cell_count : int
+        The decision cross-tables are published through
+        :func:`publish_cross_table` with this minimum.
     text : str
         One interpreting sentence.
     """
@@ -197,15 +426,26 @@ class CutRiskAgreement:
     label: str
     risks: BlandAltmanResult
     decisions: tuple[DecisionAgreement, ...]
+    min_cell_count: int
     text: str
+
+    def published(self, threshold_index: int) -> PublishedTable:
+        """The decision cross-table at the study's ``threshold_index``-th threshold, as published."""
+        return publish_cross_table(self.decisions[threshold_index].decisions.table, min_cell_count=self.min_cell_count)
 
     def to_dict(self) -> dict[str, Any]:
         decisions = []
-        for d in self.decisions:
+        for i, d in enumerate(self.decisions):
             item = d.to_dict()
             item["risks"] = _ba_summary(d.risks)
+            table = self.published(i)
+            item["decisions"]["table"] = [list(row) for row in table.cells]
+            # positive_a / positive_b are the raters' totals of the "at or above" row and column
+            item["positive_a"], item["positive_b"] = table.row_totals[-1], table.column_totals[-1]
+            item["cross_table"] = table.to_dict()
             decisions.append(item)
-        return to_jsonable({"cut": self.cut, "label": self.label, "risks": _ba_summary(self.risks), "decisions": decisions, "text": self.text})
+        return to_jsonable({"cut": self.cut, "label": self.label, "risks": _ba_summary(self.risks), "decisions": decisions,
+                            "min_cell_count": self.min_cell_count, "text": self.text})
 
 
 @dataclass(frozen=True)
@@ -283,6 +523,9 @@ class AgreementOutput:
     texts : dict of str to str
         Interpreting sentences: ``"summary"`` (one line per stage for the
         record's summary), ``"items"`` and ``"risk"``.
+    notes : tuple of str
+        Statistical warnings met while :func:`run` assessed the study (each
+        is also recorded on the result it concerns).
     """
 
     items: tuple[ItemAgreement, ...]
@@ -290,6 +533,7 @@ class AgreementOutput:
     risk_note: str
     texts: Mapping[str, str]
     figures: Mapping[str, str] = field(default_factory=dict)
+    notes: tuple[str, ...] = ()
 
     def item(self, name: str) -> ItemAgreement:
         """The result of one rated item."""
@@ -314,6 +558,7 @@ class AgreementOutput:
             "risk_note": self.risk_note,
             "figures": dict(self.figures),
             "texts": dict(self.texts),
+            "notes": list(self.notes),
         })
 
     def to_frame(self) -> pd.DataFrame:
@@ -321,8 +566,8 @@ class AgreementOutput:
         return pd.concat([i.to_frame() for i in self.items], ignore_index=True)
 
     def risk_frame(self) -> pd.DataFrame | None:
-        """The risk and decision comparison table, or None."""
-        return None if self.risk is None else self.risk.to_frame()
+        """The risk and decision comparison table (the event in words, no cut number), or None."""
+        return None if self.risk is None else self.risk.to_frame().drop(columns="cut")
 
 
 # --------------------------------------------------------------------------
@@ -343,20 +588,27 @@ def _level_order(values: pd.Series, item: RatedItem, study: Study, cohorts: Coho
     return seen, "sorted as text"
 
 
-def _kappa_sentence(item: RatedItem, k: KappaResult, wk: KappaResult | None, levels: list[str]) -> str:
+def _rate(total: int | str, n: int) -> str:
+    if total == SUPPRESSED:
+        return "a share not shown (small counts)"
+    return f"{total / n:.0%}"
+
+
+def _kappa_sentence(item: RatedItem, k: KappaResult, wk: KappaResult | None, levels: list[str], published: PublishedTable) -> str:
     share = k.observed_agreement
-    if item.scale == "binary":
-        table = np.array(k.table)
-        top = levels[-1]
-        pa, pb = table[-1, :].sum() / k.n, table[:, -1].sum() / k.n
-        rates = f"{item.rater_a} recorded {top!r} for {pa:.0%} and {item.rater_b} for {pb:.0%}. "
+    if item.scale == "binary" and not published.margins_shown:
+        rates = (f"How often each rater recorded {levels[-1]!r} is not shown: with the number of people on whom they agree, "
+                 f"it would let a reader work out a count below {published.min_cell_count}. ")
+    elif item.scale == "binary":
+        pa, pb = _rate(published.row_totals[-1], k.n), _rate(published.column_totals[-1], k.n)
+        rates = f"{item.rater_a} recorded {levels[-1]!r} for {pa} and {item.rater_b} for {pb}. "
     else:
         rates = ""
     if not math.isfinite(k.value):
         return (f"{item.name}: the raters recorded the same value for {share:.0%} of {k.n} people. {rates}"
                 "Kappa is undefined because both raters used a single category.")
     text = (f"{item.name}: the raters recorded the same value for {share:.0%} of {k.n} people. {rates}"
-            f"Cohen's kappa, the agreement beyond what these rates give by chance, is {_fmt(k.value)} "
+            f"Cohen's kappa, the agreement beyond what the raters' own rates would give by chance, is {_fmt(k.value)} "
             f"({k.confidence:.0%} CI {_fmt(k.lower)} to {_fmt(k.upper)}).")
     if wk is not None and math.isfinite(wk.value):
         text += f" With quadratic weights, which count near misses between ordered categories as part agreement, it is {_fmt(wk.value)} ({_fmt(wk.lower)} to {_fmt(wk.upper)})."
@@ -380,7 +632,7 @@ def _item_agreement(item: RatedItem, ratings: pd.DataFrame, study: Study, cohort
     both = (a.notna() & b.notna()).to_numpy()
     a, b = a[both].reset_index(drop=True), b[both].reset_index(drop=True)
     notes: list[str] = []
-    k = wk = table = ba = None
+    k = wk = table = ba = published = None
     levels: list[str] = []
     order = "numeric"
     text = ""
@@ -399,7 +651,8 @@ def _item_agreement(item: RatedItem, ratings: pd.DataFrame, study: Study, cohort
                 if order == "sorted as text":
                     notes.append(f"The order of the categories of {item.name} is not known (not numbers, no study levels); they were sorted as text, which the weighted kappa depends on.")
             notes.extend(k.warnings)
-            text = _kappa_sentence(item, k, wk, levels)
+            published = publish_cross_table(k.table, min_cell_count=study.output.min_cell_count, bands=wk is not None)
+            text = _kappa_sentence(item, k, wk, levels, published)
     except DataError as exc:
         notes.append(f"Not computed: {exc}")
         text = f"{item.name}: agreement could not be computed ({exc})."
@@ -407,7 +660,7 @@ def _item_agreement(item: RatedItem, ratings: pd.DataFrame, study: Study, cohort
         name=item.name, scale=item.scale, rater_a=item.rater_a, rater_b=item.rater_b,
         n_rows=len(ratings), n_pairs=int(both.sum()), levels=tuple(levels), level_order=order if levels else "",
         kappa=k, weighted_kappa=wk, icc=table, bland_altman=ba,
-        min_cell_count=study.output.min_cell_count, text=text, warnings=tuple(notes),
+        min_cell_count=study.output.min_cell_count, text=text, warnings=tuple(notes), published=published,
     )
 
 
@@ -495,7 +748,8 @@ def _risk_agreement(study: Study, cohorts: Cohorts, model: PredictionModel, rati
     for j in range(len(levels) - 1):
         risk_a, risk_b = prob_a[:, j + 1 :].sum(axis=1), prob_b[:, j + 1 :].sum(axis=1)
         decisions = tuple(decision_agreement(risk_a, risk_b, threshold=t) for t in study.thresholds_for_cut(j))
-        draft = CutRiskAgreement(cut=j, label=cut_label(levels, j, binary=binary), risks=bland_altman(risk_a, risk_b), decisions=decisions, text="")
+        draft = CutRiskAgreement(cut=j, label=cut_label(levels, j, binary=binary), risks=bland_altman(risk_a, risk_b), decisions=decisions,
+                                 min_cell_count=study.output.min_cell_count, text="")
         cuts.append(dataclasses.replace(draft, text=_risk_sentence(draft)))
     note = _DEVICE
     if from_file:
@@ -642,7 +896,12 @@ def run(ctx) -> AgreementOutput:
     if ctx.results_path.exists():
         ctx.new_path(ctx.results_path)  # raises: records are write-once, checked before any work
     model = load_model(ctx.model_path) if ctx.model_path.is_file() else None
-    out = assess(ctx.study, model=model)
+    # Warnings are recorded on the results and listed in the notebook's notes,
+    # rather than printed into the reviewer's page as they arise.
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", RiskvetWarning)
+        out = assess(ctx.study, model=model)
+    notes = tuple(dict.fromkeys(str(w.message) for w in caught if issubclass(w.category, RiskvetWarning)))
     figures: dict[str, str] = {}
 
     def save(name: str, fig) -> None:
@@ -657,6 +916,6 @@ def run(ctx) -> AgreementOutput:
         for c in out.risk.cuts:
             name = f"risk_bland_altman_cut{c.cut}"
             save(name, plot_risk_agreement(c))
-    out = dataclasses.replace(out, figures=figures)
+    out = dataclasses.replace(out, figures=figures, notes=notes)
     ctx.write_results(out.to_dict())
     return out
