@@ -16,11 +16,15 @@
   bootstrap shrinkage factor, thresholds re-estimated;
 * writes ``results/internal_validation.json`` (deterministic content: the
   same study, data and package give the same file, whatever n_jobs or
-  cluster ran it).
+  cluster ran it, and no run time: times are in the record's manifest).
+
+Progress lines are shown only when standard error is a terminal, so an
+executed notebook holds none.
 """
 
 from __future__ import annotations
 
+import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping
@@ -179,6 +183,11 @@ def _texts(validation: InternalValidation, crossval: CrossValidation | None, shr
     return texts
 
 
+def _on_terminal() -> bool:
+    """Whether standard error is an interactive terminal (False in a notebook kernel, a pipe or a log file)."""
+    return bool(getattr(sys.stderr, "isatty", lambda: False)())
+
+
 def run(ctx) -> InternalValidationOutput:
     """Run the internal validation stage: results JSON, figures, optional shrunken model.
 
@@ -206,11 +215,15 @@ def run(ctx) -> InternalValidationOutput:
     cfg = study.internal_validation
     cohort = load_cohorts(study).derivation
     n_jobs = study.compute.n_jobs
-    validation = validate_internally(study, cohort, n_boot=cfg.n_boot, seed=cfg.seed, n_jobs=n_jobs)
+    # A progress bar only on a terminal: inside a notebook it would become an
+    # output of the record (with a run time), and the times belong to the
+    # manifest, not the results.
+    progress = _on_terminal()
+    validation = validate_internally(study, cohort, n_boot=cfg.n_boot, seed=cfg.seed, n_jobs=n_jobs, progress=progress)
     crossval = None
     if cfg.cv_repeats > 0:
         crossval = cross_validate(study, cohort, n_folds=cfg.cv_folds, n_repeats=cfg.cv_repeats,
-                                  seed=crossval_seed(cfg.seed), n_jobs=n_jobs)
+                                  seed=crossval_seed(cfg.seed), n_jobs=n_jobs, progress=progress)
 
     notes: list[str] = []
     shrunk: str | None = None
