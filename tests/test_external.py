@@ -111,6 +111,46 @@ def test_bootstrap_interval_redone_by_hand(shifted, model):
     assert row["se"] == pytest.approx(np.std(draws, ddof=1), abs=1e-12)
 
 
+@pytest.fixture(scope="module")
+def binary():
+    d = demo.draw(3000, season="derivation", seed=41)
+    design = build_design(d, linear=LINEAR, splines={"core_temp": 4}, categorical={"sex": "female"})
+    outcome = {"column": "disposition", "type": "binary", "levels": ["not transferred", "transferred"], "labels": {}}
+    model = model_from_fit(fit_cumulative(design.transform(d), (codes(d) == 2).astype(np.int64)), design, outcome=outcome)
+    v = demo.draw(800, season="validation", seed=42)
+    y = (codes(v) == 2).astype(np.int64)
+    return model, v, y, validate_cohort(model, v, y, label="site B", thresholds={0: (0.1,)}, subgroups=[SubgroupSpec("sex")], n_boot=8, seed=3)
+
+
+def test_binary_cohort_is_read_in_words(binary):
+    model, v, y, result = binary
+    p1 = model.predict_proba(v)[:, 1]
+    apparent = performance_summary(y, model.predict_proba(v))
+    # For two levels the measures of an ordered outcome are the C statistic
+    # itself (reference: scikit-learn 1.9 roc_auc_score), so they are not shown twice.
+    for key in ("average_cut_auc", "ordinal_c", "generalised_c", "auc_cut0"):
+        assert apparent[key] == pytest.approx(roc_auc_score(y, p1), abs=1e-12)
+    perf = result.performance
+    assert not perf["measure"].isin(["average_cut_auc", "ordinal_c", "generalised_c"]).any()
+    assert perf.loc[perf["measure"] == "auc", "label"].tolist() == ["C statistic (AUC)"]
+    # the outcome is the event level, not "Y >= transferred" or "all levels"
+    assert set(perf["outcome"]) == set(result.subgroups["outcome"]) == {"transferred"}
+    calibration = result.calibration_frame()
+    assert set(calibration["outcome"]) == {"transferred"} and not calibration["measure"].str.contains("ordinal|_").any()
+    assert list(calibration.columns) == ["cohort", "outcome", "measure", "estimate", "se", "lower", "upper"]
+    text = result.summary()
+    assert "the C statistic is" in text and "For transferred, calibration-in-the-large" in text and "Y >=" not in text
+    assert set(result.threshold_frame()["outcome"]) == {"transferred"}
+    # the subgroup figure defaults to the C statistic for a binary outcome
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from riskvet.plots_external import plot_cohort_calibration, plot_subgroups
+
+    assert "C statistic" in plot_subgroups(result).axes[0].get_xlabel()
+    assert plot_cohort_calibration(result).axes[0].get_title().endswith(": transferred")
+
+
 def test_results_do_not_depend_on_the_number_of_workers(model):
     v = demo.draw(300, season="validation", seed=34)
     y = codes(v)
@@ -253,7 +293,7 @@ def test_external_validation_stage(record):
     ctx = stage_context("external_validation", study_path=study_path, record_dir=record_dir)
     out = external_validation.run(ctx)
     assert list(out.cohorts) == ["season-2025"]
-    assert set(out.texts) >= {"flow", "case_mix", "membership", "linear_predictor", "performance", "calibration", "thresholds", "decision", "subgroups", "rule", "caution"}
+    assert set(out.texts) >= {"summary", "flow", "case_mix", "membership", "linear_predictor", "performance", "calibration", "thresholds", "decision", "subgroups", "rule", "caution"}
     assert "season-2025" in out.rule and out.rule["season-2025"].positive_from == "red"
     for path in out.figures.values():
         assert (record_dir / path).is_file() and (record_dir / path).with_suffix(".svg").is_file()
@@ -265,6 +305,14 @@ def test_external_validation_stage(record):
     for frame in (out.flow_frame(), out.case_mix_frame(), out.membership_frame(), out.performance_frame(), out.calibration_frame(),
                   out.threshold_frame(), out.subgroup_frame(), out.rule_frame(), out.rule_net_benefit_frame()):
         assert isinstance(frame, pd.DataFrame) and len(frame) > 0
+        # for reading: measures by name, outcomes in words, no cut numbers or missing-value markers
+        assert "cut" not in frame.columns
+        if "measure" in frame.columns:
+            assert not frame["measure"].str.contains("_").any()
+        if "outcome" in frame.columns:
+            assert not frame["outcome"].isna().any()
+    # the rule sentence never reads as if 0 were a threshold
+    assert "at 0." not in out.texts["rule"]
     # no row of the data in the results: no attendee id appears
     assert "GW-0" not in ctx.results_path.read_text()
     with pytest.raises(RecordError, match="never overwritten"):
@@ -285,4 +333,7 @@ def test_external_validation_notebook_template():
             assert cell["outputs"] == [] and cell["execution_count"] is None
     # every text a cell shows is one the stage writes
     keys = {k for c in cells for k in re.findall(r'out\.texts\["(\w+)"\]', c["source"])}
-    assert keys <= {"flow", "case_mix", "membership", "linear_predictor", "performance", "calibration", "thresholds", "decision", "subgroups", "rule", "caution"}
+    assert keys <= {"summary", "flow", "case_mix", "membership", "linear_predictor", "performance", "calibration", "thresholds", "decision", "subgroups", "rule", "caution"}
+    # each text is shown once, and the caution only in the first cell's markdown
+    shown = [k for c in cells if c["cell_type"] == "code" for k in re.findall(r'out\.texts\["(\w+)"\]', c["source"])]
+    assert len(shown) == len(set(shown)) and "caution" not in shown

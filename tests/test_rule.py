@@ -85,6 +85,11 @@ def test_rule_net_benefit_by_hand():
     assert list(nb["difference"]) == pytest.approx([0.125, 0.0])
     assert nb["nb_treat_all"].iloc[0] == pytest.approx(0.125)
     assert out.rule_positive_share == pytest.approx(0.3)
+    # without bootstrap intervals no threshold is clearly better or worse; the
+    # sentence says so in words rather than "at 0" (which reads as a threshold)
+    text = out.summary()
+    assert "at none of them, and below it, with the interval below 0, at none of them." in text
+    assert "at 0." not in text and "2 thresholds" in text
 
 
 def test_bootstrap_replicate_is_paired_and_reproducible(data, result):

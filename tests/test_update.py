@@ -25,11 +25,14 @@ from riskvet.modelfile import load_model, model_from_fit, save_model
 from riskvet.models import fit_cumulative
 from riskvet.study import PredictorSpec
 from riskvet.update import (
+    METHOD_NAMES,
     METHODS,
     UpdateFit,
     closed_test,
     extend,
     frame_digest,
+    method_label,
+    method_name,
     recalibrate,
     recalibrate_in_the_large,
     revise,
@@ -103,6 +106,26 @@ def test_binary_update_has_one_recalibration_in_the_large(binary_model):
     # for K = 2 the common shift and the re-estimated threshold are one model
     assert list(result.fits) == ["original", "in_the_large", "recalibration", "revision"]
     assert [t.simpler for t in result.closed_test.tests] == ["original", "in_the_large", "recalibration"]
+
+
+def test_updates_are_named_in_words(model, binary_model):
+    # Sentences, labels and legends name the updates in words, never by their keys.
+    keys = [m for m in METHODS if "_" in m]
+    v, y = validation(600, 21)
+    ordinal = update_model(model, v, y)
+    vb = demo.draw(600, season="validation", seed=22)
+    binary = update_model(binary_model, vb, (codes(vb) == 2).astype(np.int64))
+    for result in (ordinal, binary):
+        words = result.summary() + " " + result.closed_test.reason + " " + " ".join(f.label for f in result.fits.values())
+        assert not any(k in words for k in keys)
+        assert " LP" not in words and "(lp" not in words.lower()
+    # a binary model has one threshold: its recalibrations re-estimate "the intercept"
+    assert binary.fits["in_the_large"].label == method_label("in_the_large", binary=True)
+    assert "intercept" in binary.fits["recalibration"].label and "intercept" not in ordinal.fits["recalibration"].label
+    assert method_name("in_the_large", binary=True) == "recalibration in the large"
+    assert set(METHOD_NAMES) == set(METHODS)
+    # the optimism warning can be left to the notebook
+    assert "optimistic" not in ordinal.summary(caution=False)
 
 
 def test_binary_recalibration_matches_statsmodels_logit(binary_model):
@@ -427,10 +450,21 @@ def test_updating_stage_writes_new_model_files_and_refuses_a_second_run(record):
     assert saved["result"]["closed_test"]["chosen"] == out.result.closed_test.chosen
     assert "optimistic" in saved["texts"]["optimism"]
     assert all((record_dir / p).is_file() for p in out.figures.values())
-    # tables for the notebook
+    # tables for the notebook: updates, measures and outcomes in words, no missing-value markers
     assert list(out.tests_frame().columns[:3]) == ["step", "simpler", "extensive"]
-    assert "original" in out.performance_frame().columns
-    assert "original" in out.coefficients_frame().columns
+    perf = out.performance_frame()
+    assert "original" in perf.columns and "original" in out.coefficients_frame().columns
+    assert list(perf.columns[:2]) == ["measure", "outcome"] and not perf[["measure", "outcome"]].isna().any().any()
+    assert not perf["measure"].str.contains("_").any() and "cut" not in perf.columns
+    keys = [m for m in out.result.fits if "_" in m]
+    shown = " ".join([*out.texts.values(), *map(str, out.tests_frame()[["simpler", "extensive"]].to_numpy().ravel()),
+                      *map(str, out.fits_frame()["update"]), *map(str, perf.columns), *map(str, out.coefficients_frame().columns)])
+    assert not any(k in shown for k in keys)
+    from riskvet.plots_external import plot_update_calibration
+
+    fig = plot_update_calibration(out.result)
+    legend = " ".join(t.get_text() for ax in fig.axes for t in ax.get_legend().get_texts())
+    assert not any(k in legend for k in keys) and "_" not in fig.get_suptitle()
     with pytest.raises(RecordError, match="never overwritten"):
         updating.run(ctx)
     # no row of the data in the results: no attendee id appears
@@ -456,3 +490,8 @@ def test_updating_notebook_template():
     for cell in cells:
         if cell["cell_type"] == "code":
             assert cell["outputs"] == [] and cell["execution_count"] is None
+    # each text is shown once (the optimism warning among them)
+    import re
+
+    shown = [k for c in cells if c["cell_type"] == "code" for k in re.findall(r'out\.texts\["(\w+)"\]', c["source"])]
+    assert len(shown) == len(set(shown)) and shown.count("optimism") == 1

@@ -41,6 +41,8 @@ __all__ = [
     "validate_cohort",
     "run_replicates",
     "cut_name",
+    "measure_label",
+    "calibration_label",
 ]
 
 #: Measures shown in performance tables, in order (keys of performance_summary without the cut suffix).
@@ -71,9 +73,50 @@ _MEASURE_LABELS = {
 }
 
 
-def cut_name(levels: Sequence[str], cut: int) -> str:
-    """Display name of cut j: ``"Y >= <level j+1>"``."""
+#: Measures of the ordered outcome as a whole that equal the cut's C when there are two levels.
+_ORDINAL_ONLY = ("average_cut_auc", "ordinal_c", "generalised_c")
+
+#: Display names of the calibration summaries (``OrdinalCalibration.to_frame`` measures).
+_CALIBRATION_LABELS = {
+    "calibration_in_the_large": "calibration-in-the-large",
+    "slope": "calibration slope",
+    "oe_ratio": "observed/expected ratio",
+    "mean_observed": "observed proportion",
+    "mean_predicted": "mean predicted risk",
+    "ici": "integrated calibration index (ICI)",
+    "e50": "E50 (median absolute calibration error)",
+    "e90": "E90 (90th percentile of the error)",
+    "emax": "Emax (largest error)",
+    "hosmer_lemeshow": "Hosmer-Lemeshow statistic",
+    "hosmer_lemeshow_pvalue": "Hosmer-Lemeshow p",
+    "ordinal_hosmer_lemeshow": "ordinal Hosmer-Lemeshow statistic",
+    "ordinal_hosmer_lemeshow_df": "ordinal Hosmer-Lemeshow df",
+    "ordinal_hosmer_lemeshow_pvalue": "ordinal Hosmer-Lemeshow p",
+}
+
+
+def cut_name(levels: Sequence[str], cut: int | None) -> str:
+    """Display name of cut j: ``"Y >= <level j+1>"``, or the event level for a binary outcome.
+
+    ``cut`` None names the outcome as a whole: ``"all levels"`` (binary: the event level).
+    """
+    if len(levels) == 2:
+        return str(levels[1])
+    if cut is None:
+        return "all levels"
     return f"Y >= {levels[cut + 1]}"
+
+
+def measure_label(measure: str, n_levels: int) -> str:
+    """Display name of a performance measure (a key of ``performance_summary`` without its cut suffix)."""
+    if n_levels == 2 and measure == "auc":
+        return "C statistic (AUC)"
+    return _MEASURE_LABELS.get(measure, measure.replace("_", " "))
+
+
+def calibration_label(measure: str) -> str:
+    """Display name of a calibration summary (a ``measure`` of ``OrdinalCalibration.to_frame``)."""
+    return _CALIBRATION_LABELS.get(measure, measure.replace("_", " "))
 
 
 def _split_key(key: str) -> tuple[str, int | None]:
@@ -268,10 +311,11 @@ class _Replicate:
 def _interval_rows(apparent: Mapping[str, float] | None, reps: list[Mapping[str, float] | None], keys: Sequence[str], confidence: float, levels: Sequence[str]) -> list[dict[str, Any]]:
     ok = [r for r in reps if r is not None]
     tail = 100 * (1 - confidence) / 2
+    K = len(levels)
     rows = []
     for key in keys:
         measure, cut = _split_key(key)
-        if measure not in _SHOWN:
+        if measure not in _SHOWN or (K == 2 and measure in _ORDINAL_ONLY):
             continue
         values = np.array([r[key] for r in ok], dtype=float)
         values = values[np.isfinite(values)]
@@ -283,9 +327,9 @@ def _interval_rows(apparent: Mapping[str, float] | None, reps: list[Mapping[str,
         rows.append(
             {
                 "measure": measure,
-                "label": _MEASURE_LABELS[measure],
+                "label": measure_label(measure, K),
                 "cut": cut,
-                "outcome": cut_name(levels, cut) if cut is not None else "all levels",
+                "outcome": cut_name(levels, cut),
                 "estimate": float(apparent[key]) if apparent is not None else float("nan"),
                 "se": se,
                 "lower": float(lower),
@@ -345,7 +389,9 @@ class CohortValidation:
         Headline measures with bootstrap standard errors and percentile
         intervals: ``measure``, ``label``, ``cut``, ``outcome``,
         ``estimate`` (on the cohort as observed), ``se``, ``lower``,
-        ``upper``, ``n_boot_used``.
+        ``upper``, ``n_boot_used``.  For a binary outcome the measures of an
+        ordered outcome (average dichotomised C, ordinal c-index,
+        generalised C) are left out: they equal the C statistic.
     subgroups : DataFrame
         The same measures per subgroup with ``column``, ``group``, ``n``,
         ``n_top`` (patients in the highest level), ``small`` (n below
@@ -400,19 +446,34 @@ class CohortValidation:
         return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=["cohort", "cut", "outcome", "threshold"])
 
     def calibration_frame(self) -> pd.DataFrame:
-        """Per-cut calibration summaries (apparent, with model-based intervals)."""
+        """Per-cut calibration summaries (apparent, with model-based intervals), in words.
+
+        Columns ``cohort``, ``outcome``, ``measure`` (display name), ``estimate``,
+        ``se``, ``lower``, ``upper``.  For a binary outcome the ordinal
+        Hosmer-Lemeshow rows are left out (they repeat the binary test).
+        """
         table = self.calibration.to_frame()
-        table.insert(0, "cohort", self.label)
-        return table
+        if len(self.levels) == 2:
+            table = table[~table["measure"].str.startswith("ordinal_")]
+        cuts = [None if pd.isna(c) else int(c) for c in table["cut"]]
+        out = pd.DataFrame({
+            "cohort": self.label,
+            "outcome": [cut_name(self.levels, c) for c in cuts],
+            "measure": [calibration_label(m) for m in table["measure"]],
+        })
+        for column in ("estimate", "se", "lower", "upper"):
+            out[column] = table[column].to_numpy()
+        return out
 
     def summary(self) -> str:
         """Sentences reading the headline numbers."""
         perf = {(r["measure"], None if pd.isna(r["cut"]) else int(r["cut"])): r for r in self.performance.to_dict(orient="records")}
         ci = f"{round(100 * self.confidence)}%"
         parts = []
-        avg = perf.get(("average_cut_auc", None))
+        binary = len(self.levels) == 2
+        avg = perf.get(("auc", 0) if binary else ("average_cut_auc", None))
         if avg is not None:
-            what = "C statistic" if len(self.levels) == 2 else "average dichotomised C"
+            what = "C statistic" if binary else "average dichotomised C"
             parts.append(
                 f"In {self.label} (n = {self.n}) the {what} is {avg['estimate']:.3f} "
                 f"({ci} interval {avg['lower']:.3f} to {avg['upper']:.3f})."

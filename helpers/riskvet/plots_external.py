@@ -23,7 +23,7 @@ from .errors import RiskvetError, problem
 from .external import CohortValidation, cut_name
 from .plots import LINESTYLES, PALETTE, _REFERENCE, _STYLE, plot_calibration, plot_decision_curve
 from .rule import RuleComparison
-from .update import METHOD_LABELS, UpdateResult
+from .update import UpdateResult, method_name
 
 __all__ = [
     "plot_case_mix",
@@ -137,15 +137,16 @@ def plot_cohort_decision_curves(result: CohortValidation, rule: RuleComparison |
     return fig
 
 
-def plot_subgroups(result: CohortValidation, *, measure: str = "average_cut_auc", cut: int | None = None) -> Figure:
+def plot_subgroups(result: CohortValidation, *, measure: str | None = None, cut: int | None = None) -> Figure:
     """Forest plot of one measure in every subgroup, with the whole cohort for reference.
 
     Parameters
     ----------
     result : CohortValidation
-    measure : str, keyword-only
+    measure : str, optional, keyword-only
         A measure of ``result.performance`` (``average_cut_auc``,
-        ``calibration_intercept``, ...).
+        ``calibration_intercept``, ...); default the average dichotomised C,
+        or the C statistic (``auc``) for a binary outcome.
     cut : int, optional, keyword-only
         The cut, for per-cut measures (default: the last cut).
 
@@ -159,6 +160,8 @@ def plot_subgroups(result: CohortValidation, *, measure: str = "average_cut_auc"
     func = "plot_subgroups"
     result = _check(result, CohortValidation, func, "result")
     perf = result.performance
+    if measure is None:
+        measure = "auc" if len(result.levels) == 2 else "average_cut_auc"
     known = list(dict.fromkeys(perf["measure"]))
     if measure not in known:
         raise RiskvetError(problem(f"{func}(measure=)", allowed=f"one of {known}", received=measure))
@@ -243,7 +246,7 @@ def plot_rule_comparison(result: RuleComparison) -> Figure:
             ax.vlines(x, nb["boot_lower"], nb["boot_upper"], color=PALETTE[0], linewidth=1.2)
             ax.plot(x, nb["difference"], linestyle="none", marker="o", color=PALETTE[0])
             ax.axhline(0.0, color=_REFERENCE, linewidth=1.0)
-            ax.set_xticks(x, [f"{o.split()[-1]}\n{t:g}" for o, t in zip(nb["outcome"], nb["threshold"])], fontsize=7)
+            ax.set_xticks(x, [f"{o.removeprefix('Y >= ')}\n{t:g}" for o, t in zip(nb["outcome"], nb["threshold"])], fontsize=7)
             ax.set_ylabel("NB model - NB rule")
             ax.set_title("net benefit at the study thresholds")
     return fig
@@ -268,14 +271,14 @@ def plot_update_calibration(result: UpdateResult) -> Figure:
     result = _check(result, UpdateResult, func, "result")
     levels = result.fits["original"].model.levels
     before, after = result.calibration_before.cuts, result.calibration_after.cuts
-    chosen = result.closed_test.chosen
+    chosen = method_name(result.closed_test.chosen, binary=len(levels) == 2)
     with mpl.rc_context(_STYLE):
         fig = Figure(figsize=(4.0 * len(before), 3.8), layout="constrained")
         for j, (b, a) in enumerate(zip(before, after)):
             ax = fig.add_subplot(1, len(before), j + 1)
             ax.plot([0, 1], [0, 1], color=_REFERENCE, linestyle=":", linewidth=1.0, label="ideal")
-            ax.plot(b.curve_predicted, b.curve_observed, color=PALETTE[0], linestyle=LINESTYLES[0], label=f"original (intercept {b.calibration_in_the_large:+.2f})")
-            ax.plot(a.curve_predicted, a.curve_observed, color=PALETTE[2], linestyle=LINESTYLES[1], label=f"{chosen} (intercept {a.calibration_in_the_large:+.2f})")
+            ax.plot(b.curve_predicted, b.curve_observed, color=PALETTE[0], linestyle=LINESTYLES[0], label=f"original (calibration-in-the-large {b.calibration_in_the_large:+.2f})")
+            ax.plot(a.curve_predicted, a.curve_observed, color=PALETTE[2], linestyle=LINESTYLES[1], label=f"{chosen} ({a.calibration_in_the_large:+.2f})")
             top = float(max(np.nanmax(b.curve_predicted), np.nanmax(a.curve_predicted)))
             limit = min(1.0, top * 1.05) if top < 0.95 else 1.0
             ax.set_xlim(0, limit)
@@ -284,5 +287,5 @@ def plot_update_calibration(result: UpdateResult) -> Figure:
             ax.set_ylabel("observed proportion (smoothed)")
             ax.set_title(f"{result.cohort}: {cut_name(levels, j)}")
             ax.legend(loc="upper left", fontsize=7)
-        fig.suptitle(f"Calibration before and after: {METHOD_LABELS[chosen]} (apparent)", fontsize=9)
+        fig.suptitle(f"Calibration before and after {chosen}, on the data that fitted it (apparent: optimistic)", fontsize=9)
     return fig

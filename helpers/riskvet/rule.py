@@ -172,9 +172,19 @@ class RuleComparison:
         if len(self.net_benefit_table):
             better = self.net_benefit_table[self.net_benefit_table["boot_lower"] > 0]
             worse = self.net_benefit_table[self.net_benefit_table["boot_upper"] < 0]
+            total = len(self.net_benefit_table)
+
+            def how_many(k: int) -> str:
+                if k == 0:
+                    return "none of them"
+                if k == total:
+                    return "all of them" if total > 1 else "it"
+                return f"{k} of them"
+
+            noun = "threshold" if total == 1 else f"{total} thresholds"
             parts.append(
-                f"At the study's thresholds, the model's net benefit exceeds the rule's with the bootstrap interval above 0 at "
-                f"{len(better)} of {len(self.net_benefit_table)} threshold(s), and falls below it at {len(worse)}."
+                f"At the study's {noun}, the model's net benefit is above the rule's, with the bootstrap interval of the "
+                f"difference above 0, at {how_many(len(better))}, and below it, with the interval below 0, at {how_many(len(worse))}."
             )
         elif self.positive_from is None:
             parts.append("Net benefit of the rule needs positive_from (the lowest category that counts as a positive decision).")

@@ -48,6 +48,9 @@ from .models import fit_cumulative
 __all__ = [
     "METHODS",
     "METHOD_LABELS",
+    "METHOD_NAMES",
+    "method_label",
+    "method_name",
     "UpdateFit",
     "LRComparison",
     "ClosedTest",
@@ -72,15 +75,48 @@ METHODS: tuple[str, ...] = (
     "extension",
 )
 
-#: Display name of each method.
+#: Display name of each method, with what it re-estimates (ordered outcome).
 METHOD_LABELS: dict[str, str] = {
     "original": "original model (no update)",
     "in_the_large": "recalibration in the large (one common shift of the thresholds)",
-    "in_the_large_thresholds": "recalibration in the large (thresholds re-estimated, LP as offset)",
-    "recalibration": "logistic recalibration (thresholds and one slope on the LP)",
+    "in_the_large_thresholds": "recalibration in the large (every threshold re-estimated, linear predictor as offset)",
+    "recalibration": "logistic recalibration (thresholds and one slope on the linear predictor)",
     "revision": "model revision (all coefficients re-estimated, same design)",
     "extension": "model extension (revision plus new predictors)",
 }
+
+#: The same for a binary outcome, where the one threshold is the intercept.
+_BINARY_LABELS: dict[str, str] = {
+    **METHOD_LABELS,
+    "in_the_large": "recalibration in the large (new intercept, linear predictor as offset)",
+    "recalibration": "logistic recalibration (new intercept and one slope on the linear predictor)",
+}
+
+#: Short name of each method, for sentences, table columns and legends.
+METHOD_NAMES: dict[str, str] = {
+    "original": "original",
+    "in_the_large": "recalibration in the large, common shift",
+    "in_the_large_thresholds": "recalibration in the large, all thresholds",
+    "recalibration": "logistic recalibration",
+    "revision": "revision",
+    "extension": "extension",
+}
+
+
+def method_label(method: str, *, binary: bool = False) -> str:
+    """Display name of an update method with what it re-estimates (:data:`METHOD_LABELS`)."""
+    return (_BINARY_LABELS if binary else METHOD_LABELS)[method]
+
+
+def method_name(method: str, *, binary: bool = False) -> str:
+    """Short display name of an update method (:data:`METHOD_NAMES`); binary outcomes have one recalibration in the large."""
+    if binary and method == "in_the_large":
+        return "recalibration in the large"
+    return METHOD_NAMES[method]
+
+
+def _phrase(method: str, binary: bool) -> str:
+    return "the original model" if method == "original" else method_name(method, binary=binary)
 
 _OPTIMISM_NOTE = (
     "Performance on the data used to choose and fit the update is optimistic: the same patients "
@@ -134,7 +170,7 @@ class UpdateFit:
 
     @property
     def label(self) -> str:
-        return METHOD_LABELS[self.method]
+        return method_label(self.method, binary=len(self.model.levels) == 2)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready summary; the model is given by its digest and coefficient table."""
@@ -335,8 +371,16 @@ class UpdateResult:
         ]
         return pd.DataFrame(rows)
 
-    def summary(self) -> str:
-        """A sentence naming the chosen update and what it changed."""
+    def summary(self, *, caution: bool = True) -> str:
+        """A sentence naming the chosen update and what it changed.
+
+        Parameters
+        ----------
+        caution : bool, keyword-only
+            End with the warning that performance on the updating data is
+            optimistic (when an update was chosen); a notebook that states it
+            elsewhere passes False.
+        """
         chosen = self.chosen
         first = self.closed_test.tests[0]
         text = (
@@ -345,13 +389,14 @@ class UpdateResult:
         )
         if chosen.method == "in_the_large":
             d = chosen.parameters["shift"]
+            what = "The threshold moves" if len(chosen.model.levels) == 2 else "The thresholds move"
             text += (
-                f" The thresholds move by {d:+.3f} on the link scale "
+                f" {what} by {d:+.3f} on the link scale "
                 f"({'lower' if d > 0 else 'higher'} predicted risks at the same predictor values)."
             )
         elif chosen.method == "recalibration":
             text += f" The calibration slope on the linear predictor is {chosen.parameters['slope']:.3f}."
-        if first.reached and chosen.method != "original":
+        if caution and first.reached and chosen.method != "original":
             text += " " + _OPTIMISM_NOTE
         return text
 
@@ -425,7 +470,7 @@ def _provenance(parent: PredictionModel, method: str, *, cohort: str, data_sha25
         "riskvet_version": __version__,
         "parent_model_sha256": parent.digest(),
         "update_method": method,
-        "update_method_label": METHOD_LABELS[method],
+        "update_method_label": method_label(method, binary=len(parent.levels) == 2),
         "updated_on": {"cohort": cohort, "data_sha256": data_sha256, "n": int(n)},
     }
     for key in ("study_sha256", "derivation_data_sha256"):
@@ -789,12 +834,14 @@ def closed_test(fits: Mapping[str, UpdateFit] | Sequence[UpdateFit], *, alpha: f
         raise RiskvetError(problem(f"{func}(fits=)", allowed="the original model and at least one update", received=sorted(by_method)))
     ordered = [by_method[m] for m in METHODS if m in by_method]
     original, most = ordered[0], ordered[-1]
+    binary = len(original.model.levels) == 2
+    most_name = _phrase(most.method, binary)
     tests = [_compare(original, most, a, True)]
     chosen: str | None = None
     if not tests[0].significant:
         chosen = "original"
         reason = (
-            f"The most extensive update ({most.method}) did not fit significantly better than the original model "
+            f"The most extensive update ({most_name}) did not fit significantly better than the original model "
             f"(LR {tests[0].statistic:.2f}, df {tests[0].df}, p = {tests[0].p:.3g}), so the original model is kept."
         )
     for simpler in ordered[1:-1]:
@@ -803,18 +850,20 @@ def closed_test(fits: Mapping[str, UpdateFit] | Sequence[UpdateFit], *, alpha: f
         if chosen is None and not t.significant:
             chosen = simpler.method
             if t.df > 0:
+                name = _phrase(simpler.method, binary)
                 reason = (
-                    f"The original model fits significantly worse than {most.method} (p = {tests[0].p:.3g}), and "
-                    f"{simpler.method} is not significantly worse than {most.method} (LR {t.statistic:.2f}, df {t.df}, "
+                    f"The original model fits significantly worse than {most_name} (p = {tests[0].p:.3g}), and "
+                    f"{name} is not significantly worse than {most_name} (LR {t.statistic:.2f}, df {t.df}, "
                     f"p = {t.p:.3g}), so the simpler update is chosen."
                 )
             else:
-                reason = f"{simpler.method} and {most.method} are the same model here; the simpler description is kept."
+                name = _phrase(simpler.method, binary)
+                reason = f"{name[0].upper() + name[1:]} and {most_name} are the same model here; the simpler description is kept."
     if chosen is None:
         chosen = most.method
         reason = (
-            f"The original model and every simpler update fit significantly worse than {most.method} "
-            f"(largest p = {max(t.p for t in tests if t.df > 0):.3g}), so {most.method} is chosen."
+            f"The original model and every simpler update fit significantly worse than {most_name} "
+            f"(largest p = {max(t.p for t in tests if t.df > 0):.3g}), so {most_name} is chosen."
         )
     return ClosedTest(alpha=a, most_extensive=most.method, tests=tuple(tests), chosen=chosen, reason=reason)
 

@@ -27,7 +27,7 @@ from .._jsonable import to_jsonable
 from ..casemix import CaseMix, case_mix
 from ..data import Cohorts, load_cohorts
 from ..errors import StudyError, problem
-from ..external import CohortValidation, apply_model, validate_cohort
+from ..external import CohortValidation, apply_model, cut_name, validate_cohort
 from ..modelfile import PredictionModel, load_model
 from ..rule import RuleComparison, compare_with_rule
 from ..study import Study
@@ -76,9 +76,9 @@ class ExternalValidationOutput:
         Figure name -> PNG path relative to the record.
     texts : dict of str to str
         One interpreting paragraph per notebook table or figure:
-        ``flow``, ``case_mix``, ``membership``, ``linear_predictor``, ``performance``,
-        ``calibration``, ``thresholds``, ``decision``, ``subgroups``,
-        ``rule``, ``caution``.
+        ``summary``, ``flow``, ``case_mix``, ``membership``, ``linear_predictor``,
+        ``performance``, ``calibration``, ``thresholds``, ``decision``,
+        ``subgroups``, ``rule``, ``caution``.
     notes : tuple of str
         Statistical warnings met, by cohort.
     """
@@ -111,9 +111,16 @@ class ExternalValidationOutput:
         """Linear predictor and membership-model summary, one row per cohort."""
         return pd.concat([cm.summary_frame() for cm in self.case_mix.values()], ignore_index=True)
 
+    # The frames below are for reading: measures by name, the outcome in
+    # words rather than cut numbers (the results JSON keeps the keys).
+
     def performance_frame(self) -> pd.DataFrame:
-        """Headline measures with bootstrap intervals, every cohort stacked."""
-        return pd.concat([c.to_frame() for c in self.cohorts.values()], ignore_index=True)
+        """Headline measures with bootstrap intervals, every cohort stacked.
+
+        Columns ``cohort``, ``measure`` (display name), ``outcome``,
+        ``estimate``, ``se``, ``lower``, ``upper``, ``n_boot_used``.
+        """
+        return pd.concat([_readable(c.to_frame()) for c in self.cohorts.values()], ignore_index=True)
 
     def calibration_frame(self) -> pd.DataFrame:
         """Per-cut calibration summaries with model-based intervals, every cohort."""
@@ -121,24 +128,31 @@ class ExternalValidationOutput:
 
     def threshold_frame(self) -> pd.DataFrame:
         """Classification at the study's thresholds, every cohort."""
-        return pd.concat([c.threshold_frame() for c in self.cohorts.values()], ignore_index=True)
+        return pd.concat([c.threshold_frame().drop(columns="cut") for c in self.cohorts.values()], ignore_index=True)
 
     def subgroup_frame(self) -> pd.DataFrame:
-        """Subgroup measures (``small`` flags subgroups too small to read), every cohort."""
+        """Subgroup measures (``small`` flags subgroups too small to read), every cohort.
+
+        ``n_top`` is named after the highest outcome level (``n <level>``).
+        """
         parts = []
         for label, c in self.cohorts.items():
-            t = c.subgroups.copy()
+            t = _readable(c.subgroups).rename(columns={"n_top": f"n {c.levels[-1]}"})
             t.insert(0, "cohort", label)
             parts.append(t)
         return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()
 
     def rule_frame(self) -> pd.DataFrame:
         """Model against rule: C per cut with the DeLong test and bootstrap interval."""
-        return pd.concat([r.to_frame() for r in self.rule.values()], ignore_index=True) if self.rule else pd.DataFrame()
+        if not self.rule:
+            return pd.DataFrame()
+        return pd.concat([r.to_frame().drop(columns="cut") for r in self.rule.values()], ignore_index=True)
 
     def rule_net_benefit_frame(self) -> pd.DataFrame:
         """Model against rule: net benefit at the study's thresholds."""
-        return pd.concat([r.net_benefit_frame() for r in self.rule.values()], ignore_index=True) if self.rule else pd.DataFrame()
+        if not self.rule:
+            return pd.DataFrame()
+        return pd.concat([r.net_benefit_frame().drop(columns="cut") for r in self.rule.values()], ignore_index=True)
 
     def to_frame(self) -> pd.DataFrame:
         return self.performance_frame()
@@ -158,6 +172,11 @@ class ExternalValidationOutput:
         )
 
 
+def _readable(table: pd.DataFrame) -> pd.DataFrame:
+    """A performance table for reading: the display name as ``measure``, no key or cut number."""
+    return table.drop(columns=["measure", "cut"]).rename(columns={"label": "measure"})
+
+
 def _thresholds(study: Study) -> dict[int, tuple[float, ...]]:
     K = len(study.outcome.ordered_levels)
     return {j: tuple(study.thresholds_for_cut(j)) for j in range(K - 1) if study.thresholds_for_cut(j)}
@@ -172,7 +191,13 @@ def _texts(out: dict[str, Any], study: Study) -> dict[str, str]:
             f"{label}: {d['n_screened']} rows screened, {dropped} excluded by complete-case analysis, {d['n_analysed']} analysed "
             f"({', '.join(f'{k} {v}' for k, v in d['outcome_counts'].items())})."
         )
+    n_cohorts = len(out["data"])
     texts = {
+        "summary": (
+            f"The frozen model was applied unchanged to {n_cohorts} validation cohort{'s' if n_cohorts != 1 else ''}: "
+            + "; ".join(f"{label} ({d['n_analysed']} of {d['n_screened']} rows analysed)" for label, d in out["data"].items())
+            + ". Nothing was refitted; updating is the next stage."
+        ),
         "caution": _CAUTION,
         "flow": " ".join(flow),
         "membership": " ".join(cm.interpretation for cm in out["case_mix"].values()),
@@ -205,7 +230,7 @@ def _texts(out: dict[str, Any], study: Study) -> dict[str, str]:
             else:
                 where = "close to the diagonal on average"
             cal.append(
-                f"In {c.label}, for Y >= {c.levels[r.cut + 1]} the smoothed curve lies {where}; observed/expected is "
+                f"In {c.label}, for {cut_name(c.levels, r.cut)} the smoothed curve lies {where}; observed/expected is "
                 f"{r.oe_ratio:.2f} and the mean distance between predicted and smoothed observed risk (ICI) is {r.ici:.3f}."
             )
     texts["calibration"] = " ".join(cal)
@@ -214,7 +239,7 @@ def _texts(out: dict[str, Any], study: Study) -> dict[str, str]:
         for c in cohorts.values():
             for cut, tab in c.threshold_tables.items():
                 items = ", ".join(f"{t:g}: sensitivity {se:.2f}, specificity {sp:.2f}" for t, se, sp in zip(tab.threshold, tab.sensitivity, tab.specificity))
-                parts.append(f"In {c.label}, for Y >= {c.levels[cut + 1]} at thresholds {items}.")
+                parts.append(f"In {c.label}, for {cut_name(c.levels, cut)} at thresholds {items}.")
         texts["thresholds"] = " ".join(parts)
     else:
         texts["thresholds"] = "The study lists no risk thresholds, so no classification table is shown."
@@ -223,7 +248,7 @@ def _texts(out: dict[str, Any], study: Study) -> dict[str, str]:
         for curve in c.decision_curves:
             above = (curve.net_benefit > curve.treat_all) & (curve.net_benefit > 0)
             span = f"from {curve.threshold[above].min():.2f} to {curve.threshold[above].max():.2f}" if above.any() else "at no threshold"
-            dec.append(f"In {c.label}, for Y >= {c.levels[curve.cut + 1]} the model beats both treating everybody and treating nobody {span}.")
+            dec.append(f"In {c.label}, for {cut_name(c.levels, curve.cut)} the model beats both treating everybody and treating nobody {span}.")
     texts["decision"] = " ".join(dec)
     if study.external_validation.subgroups:
         texts["subgroups"] = " ".join(

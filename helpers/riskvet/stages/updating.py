@@ -26,7 +26,8 @@ from ..data import load_cohorts
 from ..errors import StudyError, problem
 from ..modelfile import load_model, save_model
 from ..study import Study
-from ..update import METHOD_LABELS, UpdateResult, update_model
+from ..external import cut_name, measure_label
+from ..update import UpdateResult, method_label, method_name, update_model
 from .external_validation import figure_name, label_slug
 
 __all__ = ["UpdatingOutput", "run", "update_study_model"]
@@ -52,8 +53,8 @@ class UpdatingOutput:
         Figure name -> PNG path relative to the record.
     texts : dict of str to str
         One interpreting paragraph per notebook table or figure: ``choice``,
-        ``tests``, ``performance``, ``optimism``, ``models``, ``coefficients``,
-        ``caution``.
+        ``tests``, ``performance``, ``optimism``, ``calibration``, ``models``,
+        ``coefficients``, ``caution``.
     """
 
     result: UpdateResult = field(repr=False)
@@ -61,24 +62,50 @@ class UpdatingOutput:
     figures: Mapping[str, str]
     texts: Mapping[str, str]
 
+    @property
+    def _levels(self) -> tuple[str, ...]:
+        return tuple(self.result.fits["original"].model.levels)
+
+    def _name(self, method: str) -> str:
+        return method_name(method, binary=len(self._levels) == 2)
+
     def tests_frame(self) -> pd.DataFrame:
-        """Every likelihood-ratio test of the closed procedure."""
-        return self.result.closed_test.to_frame()
+        """Every likelihood-ratio test of the closed procedure, the updates by name."""
+        table = self.result.closed_test.to_frame()
+        for column in ("simpler", "extensive"):
+            table[column] = [self._name(m) for m in table[column]]
+        return table
 
     def fits_frame(self) -> pd.DataFrame:
-        """One row per update with its model file."""
+        """One row per update: name, description, parameters estimated, log-likelihood, chosen, model file."""
         table = self.result.to_frame()
-        table["model_file"] = [self.model_files.get(m, {}).get("path", "") for m in table["method"]]
+        files = [self.model_files.get(m, {}).get("path", "") for m in table["method"]]
+        table.insert(0, "update", [self._name(m) for m in table["method"]])
+        table = table.drop(columns="method").rename(columns={"label": "description"})
+        table["model_file"] = files
         return table
 
     def performance_frame(self) -> pd.DataFrame:
-        """Measures on the updating data: one column per model (apparent), and the chosen model's corrected value."""
+        """Measures on the updating data: one column per model (apparent), and the chosen model's corrected value.
+
+        Rows are named in words (``measure``, ``outcome``); for a binary outcome
+        the measures of an ordered outcome, which equal the C statistic, are
+        left out.  Values are rounded to 3 decimals for reading.
+        """
         t = self.result.performance.to_frame()
+        levels = self._levels
+        K = len(levels)
         chosen = self.result.closed_test.chosen
-        rows = t[t["method"] == "original"][["measure", "cut"]].reset_index(drop=True)
+        base = t[t["method"] == "original"].reset_index(drop=True)
+        cuts = [None if pd.isna(c) else int(c) for c in base["cut"]]
+        rows = pd.DataFrame({"measure": [measure_label(m, K) for m in base["measure"]], "outcome": [cut_name(levels, c) for c in cuts]})
         for method in self.result.fits:
-            rows[method] = t.loc[t["method"] == method, "apparent"].to_numpy()
-        rows[f"{chosen} (bootstrap-corrected)"] = t.loc[t["method"] == chosen, "corrected"].to_numpy()
+            rows[self._name(method)] = t.loc[t["method"] == method, "apparent"].to_numpy()
+        rows[f"{self._name(chosen)} (bootstrap-corrected)"] = t.loc[t["method"] == chosen, "corrected"].to_numpy()
+        if K == 2:
+            rows = rows[~base["measure"].isin(("average_cut_auc", "ordinal_c", "generalised_c")).to_numpy()].reset_index(drop=True)
+        numeric = [c for c in rows.columns if c not in ("measure", "outcome")]
+        rows[numeric] = rows[numeric].astype(float).round(3)
         return rows
 
     def coefficients_frame(self) -> pd.DataFrame:
@@ -86,7 +113,7 @@ class UpdatingOutput:
         table = self.result.fits["original"].model.coefficient_table().rename(columns={"estimate": "original"})
         chosen_fit = self.result.chosen
         if chosen_fit.method != "original":
-            chosen = chosen_fit.model.coefficient_table().rename(columns={"estimate": chosen_fit.method})
+            chosen = chosen_fit.model.coefficient_table().rename(columns={"estimate": self._name(chosen_fit.method)})
             table = table.merge(chosen, on="parameter", how="outer", sort=False)
         return table
 
@@ -117,17 +144,31 @@ def update_study_model(study: Study, model, cohorts) -> UpdateResult:
     )
 
 
+def _capital(text: str) -> str:
+    return text[:1].upper() + text[1:]
+
+
 def _texts(result: UpdateResult, files: Mapping[str, Mapping[str, str]]) -> dict[str, str]:
     ct = result.closed_test
     chosen = result.chosen
-    texts = {"caution": _CAUTION, "choice": result.summary()}
+    levels = tuple(result.fits["original"].model.levels)
+    binary = len(levels) == 2
+    most = method_name(ct.most_extensive, binary=binary)
+    # The notebook states the optimism warning once, beside the performance table.
+    texts = {"caution": _CAUTION, "choice": result.summary(caution=False)}
+    texts["calibration"] = (
+        "Smoothed observed proportion against predicted risk on the updating data, for the original model and "
+        + ("the original model again (no update was chosen)." if chosen.method == "original" else
+           f"the chosen update ({method_name(chosen.method, binary=binary)}); the updated curve is drawn on the data "
+           "that fitted it, so its closeness to the diagonal is optimistic.")
+    )
     reached = [t for t in ct.tests if t.reached]
     texts["tests"] = (
         f"{len(ct.tests)} likelihood-ratio tests at alpha = {ct.alpha:g}; the procedure used {len(reached)} of them "
         f"(the rest are shown for completeness). Each test asks whether the simpler model fits significantly worse than "
-        f"{ct.most_extensive}, after the first has shown that the original fits worse than it."
+        f"{most}, after the first has shown that the original fits worse than it."
         if ct.tests[0].significant
-        else f"The first test found no evidence that {ct.most_extensive} fits better than the original model, so "
+        else f"The first test found no evidence that {most} fits better than the original model, so "
         "no update is needed on these data; the other tests are shown for completeness."
     )
     perf = result.performance.to_frame()
@@ -153,22 +194,22 @@ def _texts(result: UpdateResult, files: Mapping[str, Mapping[str, str]]) -> dict
         texts["coefficients"] = "The original model is kept; its thresholds and coefficients are unchanged."
         return texts
     for j in range(K - 1):
-        level = result.fits["original"].model.levels[j + 1]
         parts.append(
-            f"For Y >= {level}, calibration-in-the-large moves from {value('original', 'calibration_intercept', j):+.2f} "
+            f"For {cut_name(levels, j)}, calibration-in-the-large moves from {value('original', 'calibration_intercept', j):+.2f} "
             f"to {value(chosen.method, 'calibration_intercept', j):+.2f} and the slope from "
             f"{value('original', 'calibration_slope', j):.2f} to {value(chosen.method, 'calibration_slope', j):.2f}."
         )
+    c_key, c_cut, c_name = ("auc", 0, "C statistic") if binary else ("average_cut_auc", None, "average dichotomised C")
     parts.append(
-        f"The average dichotomised C is {value('original', 'average_cut_auc', None):.3f} before and "
-        f"{value(chosen.method, 'average_cut_auc', None):.3f} after."
+        f"The {c_name} is {value('original', c_key, c_cut):.3f} before and "
+        f"{value(chosen.method, c_key, c_cut):.3f} after."
     )
     texts["performance"] = " ".join(parts)
     if result.performance.n_boot and chosen.method != "original":
         texts["optimism"] = (
             f"Warning: {result.performance.note} With {result.performance.n_boot} bootstrap replicates repeating the whole "
-            f"procedure, the optimism-corrected average dichotomised C of the chosen update is "
-            f"{value(chosen.method, 'average_cut_auc', None, 'corrected'):.3f}."
+            f"procedure, the optimism-corrected {c_name} of the chosen update is "
+            f"{value(chosen.method, c_key, c_cut, 'corrected'):.3f}."
         )
     else:
         texts["optimism"] = f"Warning: {result.performance.note}"
@@ -178,7 +219,7 @@ def _texts(result: UpdateResult, files: Mapping[str, Mapping[str, str]]) -> dict
         f"{result.data_sha256[:12]}...). The chosen file is {files.get(chosen.method, {}).get('path', 'the original model')}."
     )
     texts["coefficients"] = (
-        f"{METHOD_LABELS[chosen.method].capitalize()}: thresholds and coefficients of the chosen model beside the original. "
+        f"{_capital(method_label(chosen.method, binary=binary))}: thresholds and coefficients of the chosen model beside the original. "
         "A recalibration keeps every coefficient's ratio to the others; a revision or extension re-estimates each one."
     )
     return texts
