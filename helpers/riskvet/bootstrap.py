@@ -285,9 +285,12 @@ class MeasureEstimate:
     estimate_632, estimate_632plus : float
         The .632 and .632+ estimates (NaN for calibration slope and intercept).
     optimism_sd, optimism_lower, optimism_upper : float
-        SD and 2.5 / 97.5 percentiles of the per-replicate optimism.
+        SD and 2.5 / 97.5 percentiles of the per-replicate optimism (the
+        central 95% of replicates; there is no confidence setting for the
+        bootstrap spread).
     test_sd, test_lower, test_upper : float
-        SD and 2.5 / 97.5 percentiles of the original-data measure across replicates.
+        SD and 2.5 / 97.5 percentiles (central 95%) of the original-data
+        measure across replicates.
     n_replicates : int
         Replicates in which both the bootstrap-sample and the original-data
         measure could be computed (the optimism is averaged over these).
@@ -470,16 +473,18 @@ class ShrinkageEstimate:
         Mean over replicates of the calibration slope of each replicate
         model's linear predictor on the original data.
     bootstrap_sd, bootstrap_lower, bootstrap_upper : float
-        SD and 2.5 / 97.5 percentiles of those slopes.
+        SD and 2.5 / 97.5 percentiles (central 95%) of those slopes.
     source : str
         How the slope was measured (see :func:`validate_internally` Notes).
     heuristic : float
-        (model chi2 - df) / model chi2 with df the final model's degrees of freedom.
+        (model chi2 - df) / model chi2 with df the final model's degrees of
+        freedom; shown for comparison, optimistic after selection.
     heuristic_candidates : float
-        The same with df counting every candidate parameter the procedure
-        considered (the honest count when selection was used).
+        The same chi2 with df counting every candidate parameter the
+        procedure considered (the honest count when selection was used).
     model_chi2 : float
-        Likelihood-ratio chi-square of the apparent model against the null model.
+        Likelihood-ratio chi-square of the apparent (selected) model against
+        the null model; the same value enters both heuristic factors.
     df_final, df_candidates : int
         Degrees of freedom of the final model and of all candidates.
     n_replicates : int
@@ -1184,12 +1189,25 @@ def _replicate(payload: _Payload, item: tuple[int, np.random.SeedSequence]) -> d
 # ---------------------------------------------------------------------------
 
 
+#: Share of the replicates between the reported lower and upper spread limits.
+#: Neither :func:`validate_internally` nor the study's ``internal_validation``
+#: section has a confidence setting, so the spread is always the central 95%.
+_SPREAD_SHARE = 0.95
+
+
 def _spread(values: np.ndarray) -> tuple[float, float, float]:
+    """SD and the central ``_SPREAD_SHARE`` (95%) of the finite replicate values.
+
+    The limits are the empirical 2.5 and 97.5 percentiles (numpy's default
+    linear interpolation).  They describe how the replicates scatter; they
+    are not presented as a confidence interval of the corrected estimate.
+    """
     v = values[np.isfinite(values)]
     if v.size == 0:
         return float("nan"), float("nan"), float("nan")
     sd = float(np.std(v, ddof=1)) if v.size > 1 else float("nan")
-    lo, hi = np.percentile(v, [2.5, 97.5])
+    tail = 100.0 * (1.0 - _SPREAD_SHARE) / 2.0
+    lo, hi = np.percentile(v, [tail, 100.0 - tail])
     return sd, float(lo), float(hi)
 
 
@@ -1278,7 +1296,13 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
       calibration slope of Cox 1958).  For a non-proportional model the LP
       is a matrix and the per-cut slopes are averaged instead.  The
       heuristic factor (model chi2 - df) / model chi2 (van Houwelingen &
-      le Cessie 1990) is reported beside it.
+      le Cessie 1990) is reported beside it, with chi2 the likelihood-ratio
+      chi-square of the model selected on all data and df counting every
+      candidate parameter (the honest count with selection; with the final
+      model's df for comparison);
+    * spread: the SD and the 2.5 / 97.5 percentiles of the replicate
+      values, i.e. their central 95% (there is no confidence setting for
+      it).
 
     References
     ----------
@@ -1420,6 +1444,16 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
         slopes = np.nanmean(np.vstack([arrays["original"][k] for k in cut_keys]), axis=0)
         source = "mean of the per-cut logistic calibration slopes on the original data (non-proportional model)"
     s_sd, s_lo, s_hi = _spread(slopes)
+    # Heuristic shrinkage (van Houwelingen & le Cessie 1990), (chi2 - df) / chi2.
+    # chi2 is the likelihood-ratio chi-square of the model the procedure selected
+    # on all data against the null model: the fit the shrinkage would be applied to.
+    # It is paired with two df.  The candidate df (every parameter the procedure
+    # considered) is the honest one when variables were selected: selection picks
+    # the columns that happen to fit these data best, so the selected model's chi2
+    # carries the chance fit of all candidates, and charging only the final model's
+    # df would overstate the factor (Steyerberg, Clinical Prediction Models, 2019,
+    # recalled from memory).  The final-model df is shown for comparison; without
+    # selection the two are equal.
     chi2 = float(fit.lr_test.statistic)
     df_final = int(fit.lr_test.df)
     per_column = 1 if study.model.proportional else K - 1
