@@ -99,6 +99,21 @@ def _fmt(value: float, digits: int = 3) -> str:
     return "n/a" if value is None or not np.isfinite(value) else f"{value:.{digits}f}"
 
 
+#: Summary measures that only mean something for three or more levels.
+_ORDINAL_ONLY = {"average_cut_auc", "ordinal_c", "generalised_c"}
+
+
+def _summary_label(key: str, levels) -> str:
+    """``auc_cut1`` -> ``C statistic (AUC), Y >= transferred`` (binary: the measure alone)."""
+    from ..external import cut_name, measure_label
+
+    head, sep, tail = key.rpartition("_cut")
+    if sep and tail.isdigit():
+        words = measure_label(head, len(levels))
+        return words if len(levels) == 2 else f"{words}, {cut_name(levels, int(tail))}"
+    return measure_label(key, len(levels))
+
+
 def _apparent(study, y: np.ndarray, prob: np.ndarray) -> tuple[dict[str, Any], pd.DataFrame, list, Any]:
     """Apparent discrimination, calibration and accuracy on the derivation data."""
     K = prob.shape[1]
@@ -113,7 +128,8 @@ def _apparent(study, y: np.ndarray, prob: np.ndarray) -> tuple[dict[str, Any], p
         cal = metrics.ordinal_calibration(y, prob, development=logit_fit)
     acc = metrics.overall_accuracy(y, prob)
     summary = metrics.performance_summary(y, prob)
-    rows = [{"measure": k, "apparent": v} for k, v in summary.items() if k != "n_fit_warnings"]
+    rows = [{"measure": _summary_label(k, study.outcome.ordered_levels), "apparent": v}
+            for k, v in summary.items() if k != "n_fit_warnings" and (K > 2 or k not in _ORDINAL_ONLY)]
     rocs, tables = [], []
     for j in range(K - 1):
         yj, pj = metrics.dichotomise(y, prob, cut=j)

@@ -77,8 +77,10 @@ Row = tuple[str, Any, Any, Any, str]
 
 
 def _cut_name(cut: Any, levels: tuple[str, ...]) -> str:
-    if isinstance(cut, int) and 0 <= cut < len(levels) - 1:
-        return f"Y >= {levels[cut + 1]}"
+    from ..external import cut_name
+
+    if len(levels) >= 2:
+        return cut_name(levels, cut if isinstance(cut, int) and 0 <= cut < len(levels) - 1 else None)
     return "all levels"
 
 
@@ -139,6 +141,10 @@ def _measure_label(key: str, levels: tuple[str, ...]) -> str:
     """``auc_cut1`` -> ``AUC, Y >= <level 2>``."""
     match = re.fullmatch(r"(.+)_cut(\d+)", key)
     base = match.group(1) if match else key
+    from ..external import measure_label
+
+    if len(levels) == 2:
+        return measure_label(base, 2)  # a binary outcome has one cut: its event
     words = _MEASURE_WORDS.get(base, base.replace("_", " "))
     return f"{words}, {_cut_name(int(match.group(2)), levels)}" if match else words
 
