@@ -292,15 +292,15 @@ def test_external_validation_stage(record):
     study_path, record_dir = record
     ctx = stage_context("external_validation", study_path=study_path, record_dir=record_dir)
     out = external_validation.run(ctx)
-    assert list(out.cohorts) == ["season-2025"]
+    assert list(out.cohorts) == ["season-2026"]
     assert set(out.texts) >= {"summary", "flow", "case_mix", "membership", "linear_predictor", "performance", "calibration", "thresholds", "decision", "subgroups", "rule", "caution"}
-    assert "season-2025" in out.rule and out.rule["season-2025"].positive_from == "red"
+    assert "season-2026" in out.rule and out.rule["season-2026"].positive_from == "red"
     for path in out.figures.values():
         assert (record_dir / path).is_file() and (record_dir / path).with_suffix(".svg").is_file()
     saved = json.loads(ctx.results_path.read_text())
     assert saved["model_sha256"] == out.model_sha256
     # tables for the notebook
-    assert saved["data"]["season-2025"]["n_analysed"] == out.cohorts["season-2025"].n
+    assert saved["data"]["season-2026"]["n_analysed"] == out.cohorts["season-2026"].n
     assert str(record_dir.parent.parent) not in ctx.results_path.read_text()  # no file paths
     for frame in (out.flow_frame(), out.case_mix_frame(), out.membership_frame(), out.performance_frame(), out.calibration_frame(),
                   out.threshold_frame(), out.subgroup_frame(), out.rule_frame(), out.rule_net_benefit_frame()):

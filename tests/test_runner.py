@@ -163,7 +163,7 @@ def test_manifest_lists_hashes_versions_and_seeds(first, study, templates):
     assert manifest["files"] == record_files(first.record_dir)
     assert manifest["files"]["models/model.json"]["sha256"] == sha256_file(first.record_dir / "models" / "model.json")
     roles = {e["role"]: e for e in manifest["inputs"]}
-    assert set(roles) == {"study", "data.derivation", "data.validation.season-2025", "data.ratings"}
+    assert set(roles) == {"study", "data.derivation", "data.validation.season-2026", "data.ratings"}
     assert roles["study"]["sha256"] == sha256_file(study)
     assert roles["data.derivation"]["sha256"] == sha256_file(study.parent / "data" / "derivation.csv")
     assert [t["stage"] for t in manifest["templates"]] == STAGES_RUN

@@ -94,9 +94,9 @@ def test_run_ordinal_matches_direct_calls(study, cohorts, folder, tmp_path):
     assert dev["n_required"] == direct.n
     assert dev["n_met"] is (cohorts.derivation.n_analysed >= direct.n)
     assert dev["events_available"] == sum(cohorts.derivation.outcome_counts[lv] for lv in levels[direct.binding_cut + 1 :])
-    val = cohorts.validation["season-2025"]
+    val = cohorts.validation["season-2026"]
     for j in (0, 1):
-        c = checks[("season-2025", "validation", j)]
+        c = checks[("season-2026", "validation", j)]
         assert c["n_available"] == val.n_analysed
         assert c["events_available"] == sum(val.outcome_counts[lv] for lv in levels[j + 1 :])
         assert c["n_met"] is (val.n_analysed >= c["n_required"])
