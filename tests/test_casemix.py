@@ -34,7 +34,7 @@ LINEAR = ["heart_rate", "systolic_bp", "resp_rate", "confusion", "collapse", "vo
 @pytest.fixture(scope="module")
 def study():
     raw = yaml.safe_load(demo_study_text())
-    raw["data"] = {"derivation": "d.csv", "validation": [{"label": "season-2025", "path": "v.csv"}]}
+    raw["data"] = {"derivation": "d.csv", "validation": [{"label": "season-2026", "path": "v.csv"}]}
     raw.pop("agreement")
     return study_from_dict(raw, base_dir="/tmp")
 

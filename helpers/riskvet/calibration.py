@@ -26,15 +26,11 @@ predictions (frac = 0.75 by default), and no robustness iterations: the
 robustness reweighting of lowess treats the large residuals that a 0/1
 outcome always has as outliers and would bias the curve.  The defaults
 follow the curve behind the ICI, E50, E90 and Emax of Austin & Steyerberg
-(2019), which the paper describes as a loess fit with R's default settings:
-degree 2, tricube weights, span 0.75, gaussian family, i.e. no robustness
-iterations (from the paper's description of R loess defaults, recalled from
-memory).  Each local fit is computed directly at its evaluation point, as
-R's loess does with ``surface = "direct"``; R's default ``surface =
-"interpolate"`` instead fits at the vertices of a k-d tree and interpolates
-between them, which differs slightly.  Small details of R's own code (for
-example how it treats predictions at the very edge of a neighbourhood) have
-not been checked against it.
+(2019), which the paper describes as a local regression with degree 2,
+tricube weights, span 0.75 and no robustness iterations (recalled from
+memory).  Each local fit is computed exactly at its evaluation point; an
+implementation that fits only at the vertices of a tree and interpolates
+between them differs slightly.
 
 The curve is evaluated at about 100 points (50 evenly spaced over the range
 of prob and 50 at its quantiles) and linearly interpolated in between, which
@@ -723,12 +719,11 @@ def calibration(
         d_j = (p_j - x0) / r(x0),  w_j = (1 - |d_j|^3)^3 for |d_j| < 1 else 0,
 
     q = ``degree``, r(x0) the distance from x0 to its floor(frac n)-th
-    nearest prediction; it is computed directly at each evaluation point
-    (as R's loess with ``surface = "direct"``, not its default k-d tree
-    interpolation) and interpolated linearly between them (module Notes).
-    The defaults (q = 2, frac = 0.75, no robustness iterations) are the
-    loess settings behind the published ICI (Austin & Steyerberg 2019, as
-    recalled from memory); q = 1 is the local linear smoother.
+    nearest prediction; it is computed exactly at each evaluation point and
+    interpolated linearly between them (module Notes).  The defaults
+    (q = 2, frac = 0.75, no robustness iterations) are the local-regression
+    settings behind the published ICI (Austin & Steyerberg 2019, as recalled
+    from memory); q = 1 is the local linear smoother.
 
     Hosmer–Lemeshow: C = sum_g (O_g - E_g)^2 / (E_g (1 - E_g / n_g)) over
     quantile groups of prob, referred to chi-square with g - 2 df on
@@ -823,7 +818,7 @@ def ordinal_calibration(
     memory); on independent data g (K - 1) df is used (common practice, by
     analogy with the binary test).  For K = 2 both reduce to the binary test.
     The smoothed curve of each cut is the local polynomial fit of
-    :func:`calibration` (degree 2 by default, the loess setting behind the
+    :func:`calibration` (degree 2 by default, the local-regression setting behind the
     published ICI; see the module Notes).
 
     References

@@ -138,7 +138,7 @@ def performance_summary(y: Any, prob: Any) -> dict[str, float]:
             As in :func:`overall_accuracy` (multi-category Brier for K > 2).
         ``calibration_intercept_cut{j}``, ``calibration_slope_cut{j}``, ``ici_cut{j}``
             Calibration-in-the-large, calibration slope and ICI of cut j, as
-            in :func:`calibration` with its default smoother (frac = 0.75).
+            in :func:`calibration` with its default smoother (local quadratic, frac = 0.75).
         ``n_fit_warnings``
             Number of warnings the recalibration fits met (separation,
             non-convergence); the warnings themselves are issued as usual.
