@@ -53,6 +53,19 @@ STAGES = (
 )
 
 
+def _as_text_tuple(value: Any) -> Any:
+    """Level lists as text: YAML reads ``[0, 1]`` as numbers, data files compare as text."""
+    if isinstance(value, (list, tuple)):
+        return tuple(str(v) for v in value)
+    return value
+
+
+def _listed_twice(values) -> list:
+    """The values that occur more than once, sorted."""
+    values = list(values)
+    return sorted({x for x in values if values.count(x) > 1})
+
+
 class _Section(BaseModel):
     # Numbers become text where text is expected: YAML reads ``levels: [0, 1]``,
     # ``event: 1`` and ``thresholds: {1: [0.1]}`` as numbers, and level names
@@ -134,7 +147,7 @@ class DataSection(_Section):
     @classmethod
     def _unique_labels(cls, value: tuple[ValidationCohort, ...]) -> tuple[ValidationCohort, ...]:
         labels = [c.label for c in value]
-        twice = sorted({x for x in labels if labels.count(x) > 1})
+        twice = _listed_twice(labels)
         if twice:
             raise ValueError(f"each cohort label once; listed more than once: {twice}")
         return value
@@ -151,17 +164,12 @@ class OutcomeSection(_Section):
     labels: dict[str, str] = Field(default_factory=dict, description="Display label per level.")
     event: str | None = Field(default=None, description="Binary outcomes: the level that is the event.")
 
-    @field_validator("levels", mode="before")
-    @classmethod
-    def _levels_as_text(cls, value: Any) -> Any:
-        if isinstance(value, (list, tuple)):
-            return tuple(str(v) for v in value)
-        return value
+    _levels_as_text = field_validator("levels", mode="before")(classmethod(lambda cls, v: _as_text_tuple(v)))
 
     @model_validator(mode="after")
     def _check(self) -> "OutcomeSection":
         levels = list(self.levels)
-        twice = sorted({x for x in levels if levels.count(x) > 1})
+        twice = _listed_twice(levels)
         if twice:
             raise ValueError(f"levels: each level once; listed more than once: {twice}")
         if self.type == "binary":
@@ -204,12 +212,7 @@ class PredictorSpec(_Section):
     reference: str | None = Field(default=None, description="Categorical: the reference level.")
     levels: tuple[str, ...] | None = Field(default=None, description="Categorical: allowed levels in order.")
 
-    @field_validator("levels", mode="before")
-    @classmethod
-    def _levels_as_text(cls, value: Any) -> Any:
-        if isinstance(value, (list, tuple)):
-            return tuple(str(v) for v in value)
-        return value
+    _levels_as_text = field_validator("levels", mode="before")(classmethod(lambda cls, v: _as_text_tuple(v)))
 
     @field_validator("reference", mode="before")
     @classmethod
@@ -229,7 +232,7 @@ class PredictorSpec(_Section):
             raise ValueError("reference/levels: only for form 'categorical'")
         if self.levels is not None:
             lv = list(self.levels)
-            twice = sorted({x for x in lv if lv.count(x) > 1})
+            twice = _listed_twice(lv)
             if twice:
                 raise ValueError(f"levels: each level once; listed more than once: {twice}")
             if self.reference is not None and self.reference not in lv:
@@ -367,12 +370,7 @@ class ExistingRule(_Section):
         default=None, description="Categories: the lowest category that counts as a positive decision."
     )
 
-    @field_validator("levels", mode="before")
-    @classmethod
-    def _levels_as_text(cls, value: Any) -> Any:
-        if isinstance(value, (list, tuple)):
-            return tuple(str(v) for v in value)
-        return value
+    _levels_as_text = field_validator("levels", mode="before")(classmethod(lambda cls, v: _as_text_tuple(v)))
 
     @model_validator(mode="after")
     def _check(self) -> "ExistingRule":
@@ -380,7 +378,7 @@ class ExistingRule(_Section):
             if not self.levels or len(self.levels) < 2:
                 raise ValueError("levels: a rule of kind 'categories' lists at least 2 categories, lowest risk first")
             lv = list(self.levels)
-            twice = sorted({x for x in lv if lv.count(x) > 1})
+            twice = _listed_twice(lv)
             if twice:
                 raise ValueError(f"levels: each category once; listed more than once: {twice}")
             if self.positive_from is not None and self.positive_from not in lv:
