@@ -71,14 +71,21 @@ def test_score_person_matches_frame_prediction(fitted):
 
 
 def test_equations_reproduce_the_prediction(fitted):
-    """Evaluating the plain-language equation by hand gives the model's probabilities."""
+    """The numbers written in the plain-language equation, evaluated by hand, give the model's probabilities."""
+    import re
+
     frame, design, X, fit = fitted
     model = model_from_fit(fit, design, outcome=OUTCOME)
     text = model.equation_text(digits=12)
     assert "expit" in text and "knots" in text
-    lp = float(X.iloc[0].to_numpy() @ model.coef)
-    expected = 1 - 1 / (1 + np.exp(-(model.thresholds[1] - lp)))
-    assert model.predict_proba(frame.iloc[[0]])[0, 2] == pytest.approx(expected, rel=1e-12)
+    lp_line = next(line for line in text.splitlines() if line.startswith("LP = "))
+    terms = re.findall(r"([+-]?\s*[0-9.]+(?:e[+-]?\d+)?) x (\S+)", lp_line.removeprefix("LP = "))
+    written = {column: float(number.replace(" ", "")) for number, column in terms}
+    assert set(written) == set(design.columns)
+    theta = float(re.search(r"P\(transferred or higher\) = 1 - expit\(([-0-9.e]+) - LP\)", text).group(1))
+    lp = sum(written[c] * X[c].iloc[0] for c in design.columns)
+    expected = 1 - 1 / (1 + np.exp(-(theta - lp)))
+    assert model.predict_proba(frame.iloc[[0]])[0, 2] == pytest.approx(expected, rel=1e-9)
     latex = model.equation_latex()
     assert latex.startswith("\\begin{align*}") and "\\operatorname{expit}" in latex
 
