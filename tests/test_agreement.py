@@ -1,4 +1,4 @@
-"""Tests of riskvet.agreement against published examples and reference libraries."""
+"""Tests of riskvet.measures.agreement against published examples and reference libraries."""
 
 from __future__ import annotations
 
@@ -14,7 +14,7 @@ from sklearn.metrics import cohen_kappa_score
 from statsmodels.stats.anova import anova_lm
 from statsmodels.stats.inter_rater import cohens_kappa
 
-from riskvet.agreement import (
+from riskvet.measures.agreement import (
     ICC_FORMS,
     bland_altman,
     decision_agreement,

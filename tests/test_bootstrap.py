@@ -1,4 +1,4 @@
-"""Tests of riskvet.bootstrap and the internal validation stage.
+"""Tests of riskvet.validation.bootstrap and the internal validation stage.
 
 References checked against: Steyerberg et al., J Clin Epidemiol 2001 (the
 optimism-corrected estimate is closer to performance in new data than the
@@ -21,7 +21,7 @@ import pytest
 import yaml
 
 from riskvet import demo
-from riskvet.bootstrap import (
+from riskvet.validation.bootstrap import (
     InternalValidation,
     _estimator_632,
     _no_information,
@@ -31,15 +31,16 @@ from riskvet.bootstrap import (
     validate_internally,
     write_shrunken_model,
 )
-from riskvet.data import load_cohorts
-from riskvet.derive import derive, outcome_codes
+from riskvet.intake.data import load_cohorts
+from riskvet.intake.outcome import outcome_codes
+from riskvet.modelling.derive import derive
 from riskvet.errors import RiskvetError
-from riskvet.metrics import performance_summary
-from riskvet.modelfile import load_model, model_from_fit, save_model
-from riskvet.models import fit_cumulative
-from riskvet.overall import brier, overall_accuracy
-from riskvet.scaffold import new_study_folder
-from riskvet.study import load_study
+from riskvet.measures.summary import performance_summary
+from riskvet.modelling.modelfile import load_model, model_from_fit, save_model
+from riskvet.modelling.fitter import fit_cumulative
+from riskvet.measures.overall import brier, overall_accuracy
+from riskvet.chain.scaffold import new_study_folder
+from riskvet.intake.study import load_study
 
 # Binary predictors that are rare in the demo data and separate in small
 # resamples; the tests that are not about failures leave them out.
@@ -464,8 +465,8 @@ def frozen_model(study_path: Path, record: Path) -> Path:
 
 
 def test_stage_writes_results_figures_and_shrunken_model(stage_folder, tmp_path):
-    from riskvet.stagekit import stage_context
-    from riskvet.stages import internal_validation as stage
+    from riskvet.chain.stagekit import stage_context
+    from riskvet.chain.stages import internal_validation as stage
 
     record = tmp_path / "record"
     frozen_model(stage_folder, record)
@@ -496,7 +497,7 @@ def test_stage_shows_progress_on_a_terminal_only(monkeypatch):
     import io
     import sys
 
-    from riskvet.stages import internal_validation as stage
+    from riskvet.chain.stages import internal_validation as stage
 
     class Terminal(io.StringIO):
         def isatty(self):

@@ -1,4 +1,4 @@
-"""Tests of riskvet.calibration against statsmodels, numpy, the package fitter, slow code and simulation.
+"""Tests of riskvet.measures.calibration against statsmodels, numpy, the package fitter, slow code and simulation.
 
 Tolerances: ``rel=1e-12`` (or ``abs=1e-12``) compares the same closed-form quantity computed in
 a different order, so only floating-point rounding separates the two; wider tolerances are
@@ -18,10 +18,10 @@ from scipy import special, stats
 from statsmodels.nonparametric.smoothers_lowess import lowess
 from statsmodels.stats.proportion import proportion_confint
 
-from riskvet.calibration import calibration, ordinal_calibration
-from riskvet.discrimination import dichotomise
+from riskvet.measures.calibration import calibration, ordinal_calibration
+from riskvet.measures.discrimination import dichotomise
 from riskvet.errors import DataError, RiskvetError, RiskvetWarning, SeparationWarning
-from riskvet.models import fit_cumulative
+from riskvet.modelling.fitter import fit_cumulative
 
 
 def miscalibrated(n=1500, seed=3):
@@ -294,7 +294,7 @@ def test_ordinal_hosmer_lemeshow_df_by_simulation():
         y = (rng.random(500)[:, None] > cum).sum(axis=1)
         true = np.diff(np.c_[np.zeros(500), cum, np.ones(500)], axis=1)
         fitted = po_probs(fit_cumulative(x, y), x)
-        from riskvet.calibration import _ordinal_hosmer_lemeshow
+        from riskvet.measures.calibration import _ordinal_hosmer_lemeshow
 
         dev.append(_ordinal_hosmer_lemeshow(y, fitted, 10, True)[0])
         val.append(_ordinal_hosmer_lemeshow(y, true, 10, False)[0])
@@ -351,7 +351,7 @@ def test_bad_input_and_serialisation():
 
 @pytest.mark.parametrize("k", [2, 3, 4])
 def test_performance_summary_equals_the_full_results(k):
-    from riskvet import metrics
+    from riskvet.measures import summary as metrics
 
     x, y = ordinal_data(n=400, seed=20 + k, k=k)
     prob = po_probs(fit_cumulative(x, y), x)
@@ -376,7 +376,7 @@ def test_performance_summary_equals_the_full_results(k):
 
 
 def test_performance_summary_refuses_a_missing_level():
-    from riskvet import metrics
+    from riskvet.measures import summary as metrics
 
     with pytest.raises(DataError, match=r"performance_summary\(y=\).*every level"):
         metrics.performance_summary([0, 0, 2, 2], np.full((4, 3), 1 / 3))

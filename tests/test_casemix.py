@@ -1,4 +1,4 @@
-"""Tests for riskvet.casemix.
+"""Tests for riskvet.validation.casemix.
 
 References: scikit-learn 1.9 (unpenalised LogisticRegression and
 roc_auc_score) for the membership model and its C; numpy for means, SDs and
@@ -19,14 +19,14 @@ from sklearn.linear_model import LogisticRegression
 from sklearn.metrics import roc_auc_score
 
 from riskvet import demo
-from riskvet.casemix import CaseMix, case_mix
-from riskvet.data import prepare_cohort
-from riskvet.design import build_design
+from riskvet.validation.casemix import CaseMix, case_mix
+from riskvet.intake.data import prepare_cohort
+from riskvet.intake.design import build_design
 from riskvet.errors import DataError, RiskvetError
-from riskvet.modelfile import model_from_fit
-from riskvet.models import fit_cumulative
-from riskvet.scaffold import demo_study_text
-from riskvet.study import study_from_dict
+from riskvet.modelling.modelfile import model_from_fit
+from riskvet.modelling.fitter import fit_cumulative
+from riskvet.chain.scaffold import demo_study_text
+from riskvet.intake.study import study_from_dict
 
 LINEAR = ["heart_rate", "systolic_bp", "resp_rate", "confusion", "collapse", "vomiting", "dry_skin", "wbgt", "prior_heat_illness"]
 
@@ -153,7 +153,7 @@ def test_case_mix_figure(shifted, same):
     matplotlib.use("Agg")
     from matplotlib.figure import Figure
 
-    from riskvet.plots_external import plot_case_mix
+    from riskvet.reporting.figures.external_validation import plot_case_mix
 
     assert isinstance(plot_case_mix([shifted, same]), Figure)
     assert len(plot_case_mix(shifted).axes) == 1

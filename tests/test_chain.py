@@ -15,11 +15,12 @@ from pathlib import Path
 
 import pytest
 
-from riskvet.html import external_references
-from riskvet.record import read_manifest, stage_stem, verify_record
-from riskvet.runner import RunResult, run_study, template_path
-from riskvet.scaffold import new_study_folder
-from riskvet.study import STAGES
+from riskvet.reporting.html import external_references
+from riskvet.chain.record import read_manifest, verify_record
+from riskvet.intake.study import stage_stem
+from riskvet.chain.runner import RunResult, run_study, template_path
+from riskvet.chain.scaffold import new_study_folder
+from riskvet.intake.study import STAGES
 
 # Small data and few replicates keep the chain fast; the numbers are not examined here.
 SMALL = dict(n_derivation=400, n_validation=300, n_ratings=60, n_boot=5)

@@ -10,12 +10,12 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from riskvet.data import load_cohorts
-from riskvet.modelfile import load_model
-from riskvet.record import verify_record
-from riskvet.runner import run_study
-from riskvet.scaffold import new_study_folder
-from riskvet.study import load_study
+from riskvet.intake.data import load_cohorts
+from riskvet.modelling.modelfile import load_model
+from riskvet.chain.record import verify_record
+from riskvet.chain.runner import run_study
+from riskvet.chain.scaffold import new_study_folder
+from riskvet.intake.study import load_study
 
 
 def _binary_study(folder):

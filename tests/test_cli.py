@@ -6,9 +6,9 @@ from pathlib import Path
 
 import pytest
 
-from riskvet.cli import main
-from riskvet.planning import development_size
-from riskvet.scaffold import new_study_folder
+from riskvet.chain.cli import main
+from riskvet.planning.samplesize import development_size
+from riskvet.chain.scaffold import new_study_folder
 
 
 @pytest.fixture(scope="module")
@@ -42,7 +42,7 @@ def test_plan_prints_the_binding_criterion(study_path, capsys):
     assert main(["plan", str(study_path), "--proportions", "0.7,0.2,0.1"]) == 0
     out = capsys.readouterr().out
     # per-cut extension: the cut 'transferred' has prevalence 0.1; the study's 16 parameters and C 0.82
-    from riskvet.planning import r2_from_c
+    from riskvet.planning.samplesize import r2_from_c
 
     direct = development_size(n_parameters=16, prevalence=0.1, r2_cs=r2_from_c(0.82, 0.1))
     assert f"{direct.n:,}" in out

@@ -1,4 +1,4 @@
-"""Tests of riskvet.crossval.
+"""Tests of riskvet.validation.crossval.
 
 References: scikit-learn 1.9 (LogisticRegression without penalty, roc_auc_score,
 brier_score_loss) on the same folds for a binary outcome; invariants of the
@@ -14,10 +14,10 @@ import pytest
 import yaml
 
 from riskvet import demo
-from riskvet.crossval import cross_validate, stratified_folds
+from riskvet.validation.crossval import cross_validate, stratified_folds
 from riskvet.errors import RiskvetError
-from riskvet.scaffold import new_study_folder
-from riskvet.study import load_study
+from riskvet.chain.scaffold import new_study_folder
+from riskvet.intake.study import load_study
 
 PREDICTORS = ["age", "core_temp", "heart_rate", "resp_rate", "wbgt"]
 

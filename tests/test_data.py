@@ -1,4 +1,4 @@
-"""Tests of riskvet.data on small invented frames.
+"""Tests of riskvet.intake.data on small invented frames.
 
 Counts are checked against hand counts written beside each frame; summaries
 against numpy/pandas; file formats by writing with pandas (to_csv, to_parquet
@@ -15,21 +15,21 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from riskvet.data import (
+from riskvet.intake.data import (
     MISSING_VALUES,
     SUFFIXES,
     Cohorts,
     FrameAudit,
     PreparedCohort,
     audit_frame,
-    descriptive_table,
     load_cohorts,
     prepare_cohort,
     read_table,
     standardised_differences,
 )
 from riskvet.errors import DataError, RiskvetError
-from riskvet.study import study_from_dict
+from riskvet.reporting.descriptive import descriptive_table
+from riskvet.intake.study import study_from_dict
 
 
 def make_study(base_dir=None, **changes):
@@ -605,9 +605,9 @@ def test_standardised_differences_hand_worked():
 
 def test_load_cohorts_refuses_an_outcome_level_with_no_rows(tmp_path):
     """Every stage needs every outcome level; a cohort without one is refused before anything runs."""
-    from riskvet.data import load_cohorts
-    from riskvet.scaffold import new_study_folder
-    from riskvet.study import load_study
+    from riskvet.intake.data import load_cohorts
+    from riskvet.chain.scaffold import new_study_folder
+    from riskvet.intake.study import load_study
 
     study_path = new_study_folder(tmp_path / "s", n_derivation=200, n_validation=150, n_ratings=20, n_boot=2)
     derivation = tmp_path / "s" / "data" / "derivation.csv"
@@ -618,9 +618,9 @@ def test_load_cohorts_refuses_an_outcome_level_with_no_rows(tmp_path):
 
 
 def test_binary_rated_item_with_a_third_value_is_refused(tmp_path):
-    from riskvet.data import load_cohorts
-    from riskvet.scaffold import new_study_folder
-    from riskvet.study import load_study
+    from riskvet.intake.data import load_cohorts
+    from riskvet.chain.scaffold import new_study_folder
+    from riskvet.intake.study import load_study
 
     study_path = new_study_folder(tmp_path / "s", n_derivation=200, n_validation=150, n_ratings=20, n_boot=2)
     ratings = tmp_path / "s" / "data" / "ratings.csv"

@@ -1,4 +1,4 @@
-"""Tests of riskvet.decision: hand-worked net benefit, statsmodels and scikit-learn references.
+"""Tests of riskvet.measures.decision: hand-worked net benefit, statsmodels and scikit-learn references.
 
 Tolerances: ``rel=1e-12`` (or ``abs=1e-12``) compares the same closed-form quantity computed in
 a different order, so only floating-point rounding separates the two; wider tolerances are
@@ -15,7 +15,7 @@ import statsmodels
 from sklearn.metrics import confusion_matrix
 from statsmodels.stats.proportion import confint_proportions_2indep, proportion_confint
 
-from riskvet.decision import (
+from riskvet.measures.decision import (
     net_benefit,
     ordinal_net_benefit,
     rule_net_benefit,
@@ -171,7 +171,7 @@ def test_ordinal_net_benefit_bad_input():
 
 def test_wilson_limits_are_exact_at_zero_and_all_events():
     """Wilson (1927): with 0 of m events the lower limit is exactly 0, with m of m the upper is exactly 1."""
-    from riskvet.decision import _proportion_interval
+    from riskvet.measures.decision import _proportion_interval
 
     lower, upper = _proportion_interval(np.array([0.0, 7.0]), np.array([7.0, 7.0]), 1.959963984540054, 0.95, "wilson")
     assert lower[0] == 0.0 and upper[1] == 1.0

@@ -7,10 +7,10 @@ import pandas as pd
 import pytest
 
 from riskvet import demo
-from riskvet.derive import derive
+from riskvet.modelling.derive import derive
 from riskvet.errors import DataError
-from riskvet.study import load_study
-from riskvet.scaffold import new_study_folder
+from riskvet.intake.study import load_study
+from riskvet.chain.scaffold import new_study_folder
 
 
 @pytest.fixture(scope="module")
@@ -49,7 +49,7 @@ def test_weights_must_be_counts(setting):
 def test_internal_validation_takes_the_analysis_frame_itself(setting):
     """validate_internally accepts the derivation frame after exclusions, outcome column included,
     and gives the same result as the (frame, codes) pair."""
-    from riskvet.bootstrap import validate_internally
+    from riskvet.validation.bootstrap import validate_internally
 
     study, frame, y, _ = setting
     study = study.model_copy(update={"selection": study.selection.model_copy(update={"method": "none"})})

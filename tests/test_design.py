@@ -1,4 +1,4 @@
-"""Tests of riskvet.design: knots, spline basis, design specification."""
+"""Tests of riskvet.intake.design: knots, spline basis, design specification."""
 
 from __future__ import annotations
 
@@ -13,7 +13,7 @@ import statsmodels.api as sm
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from riskvet.design import (
+from riskvet.intake.design import (
     KNOT_QUANTILES,
     DesignSpec,
     Term,

@@ -1,4 +1,4 @@
-"""Tests of riskvet.discrimination against published values, reference libraries and slow counting.
+"""Tests of riskvet.measures.discrimination against published values, reference libraries and slow counting.
 
 Tolerances: ``rel=1e-12`` (or ``abs=1e-12``) compares the same closed-form quantity computed in
 a different order, so only floating-point rounding separates the two; wider tolerances are
@@ -19,7 +19,7 @@ from hypothesis import strategies as st
 from sklearn.metrics import roc_auc_score
 from sklearn.metrics import roc_curve as sk_roc_curve
 
-from riskvet.discrimination import (
+from riskvet.measures.discrimination import (
     compare_concordance,
     concordance,
     dichotomise,

@@ -1,11 +1,11 @@
-"""Tests for riskvet.external and the external validation stage.
+"""Tests for riskvet.validation.external and the external validation stage.
 
 References: the demo's known truth (riskvet.demo: the validation season
 raises both thresholds by 0.5, so a model derived in the derivation season
 over-predicts there: calibration-in-the-large near -0.5 at both cuts);
 scikit-learn 1.9 roc_auc_score and confusion_matrix for a bootstrap redone by
 hand and for the classification counts; pandas value counts for subgroup
-sizes; riskvet.metrics.performance_summary for the point estimates.
+sizes; riskvet.measures.summary.performance_summary for the point estimates.
 """
 
 from __future__ import annotations
@@ -20,12 +20,12 @@ import pytest
 from sklearn.metrics import confusion_matrix, roc_auc_score
 
 from riskvet import demo
-from riskvet.design import build_design
+from riskvet.intake.design import build_design
 from riskvet.errors import DataError, DesignError, RecordError, RiskvetError
-from riskvet.external import SubgroupSpec, apply_model, decision_grid, subgroup_masks, validate_cohort
-from riskvet.metrics import performance_summary
-from riskvet.modelfile import model_from_fit, save_model
-from riskvet.models import fit_cumulative
+from riskvet.validation.external import SubgroupSpec, apply_model, decision_grid, subgroup_masks, validate_cohort
+from riskvet.measures.summary import performance_summary
+from riskvet.modelling.modelfile import model_from_fit, save_model
+from riskvet.modelling.fitter import fit_cumulative
 
 LINEAR = ["heart_rate", "systolic_bp", "resp_rate", "confusion", "collapse", "vomiting", "dry_skin", "wbgt", "prior_heat_illness"]
 OUTCOME = {"column": "disposition", "type": "ordinal", "levels": list(demo.LEVELS), "labels": {}}
@@ -145,7 +145,7 @@ def test_binary_cohort_is_read_in_words(binary):
     import matplotlib
 
     matplotlib.use("Agg")
-    from riskvet.plots_external import plot_cohort_calibration, plot_subgroups
+    from riskvet.reporting.figures.external_validation import plot_cohort_calibration, plot_subgroups
 
     assert "C statistic" in plot_subgroups(result).axes[0].get_xlabel()
     assert plot_cohort_calibration(result).axes[0].get_title().endswith(": transferred")
@@ -249,7 +249,7 @@ def test_json_and_figures(shifted):
     matplotlib.use("Agg")
     from matplotlib.figure import Figure
 
-    from riskvet.plots_external import plot_cohort_calibration, plot_cohort_decision_curves, plot_subgroups
+    from riskvet.reporting.figures.external_validation import plot_cohort_calibration, plot_cohort_decision_curves, plot_subgroups
 
     _, _, result = shifted
     json.dumps(result.to_dict(), allow_nan=False)
@@ -269,9 +269,9 @@ def test_json_and_figures(shifted):
 
 @pytest.fixture(scope="module")
 def record(tmp_path_factory):
-    from riskvet.data import load_cohorts
-    from riskvet.scaffold import new_study_folder
-    from riskvet.study import load_study
+    from riskvet.intake.data import load_cohorts
+    from riskvet.chain.scaffold import new_study_folder
+    from riskvet.intake.study import load_study
 
     folder = tmp_path_factory.mktemp("study")
     study_path = new_study_folder(folder, n_derivation=1500, n_validation=900, n_ratings=40, n_boot=5)
@@ -286,8 +286,8 @@ def test_external_validation_stage(record):
     import matplotlib
 
     matplotlib.use("Agg")
-    from riskvet.stagekit import stage_context
-    from riskvet.stages import external_validation
+    from riskvet.chain.stagekit import stage_context
+    from riskvet.chain.stages import external_validation
 
     study_path, record_dir = record
     ctx = stage_context("external_validation", study_path=study_path, record_dir=record_dir)

@@ -9,10 +9,10 @@ import pandas as pd
 import pytest
 
 from riskvet import demo
-from riskvet.design import build_design
+from riskvet.intake.design import build_design
 from riskvet.errors import DesignError, ModelFileError
-from riskvet.modelfile import SCHEMA, load_model, model_from_fit, save_model
-from riskvet.models import fit_cumulative
+from riskvet.modelling.modelfile import SCHEMA, load_model, model_from_fit, save_model
+from riskvet.modelling.fitter import fit_cumulative
 
 OUTCOME = {"column": "disposition", "type": "ordinal", "levels": list(demo.LEVELS), "labels": {}}
 

@@ -1,4 +1,4 @@
-"""Tests of riskvet.models.fit_cumulative.
+"""Tests of riskvet.modelling.fitter.fit_cumulative.
 
 Reference fits come from statsmodels (OrderedModel, Logit, Probit, GLM; the
 version is printed in assertion messages), from the R MASS polr results that
@@ -29,7 +29,7 @@ from riskvet.errors import (
     RiskvetError,
     SeparationWarning,
 )
-from riskvet.models import CumulativeFit, _evaluate, _fit_arrays, _grad_hess, _make_design, fit_cumulative
+from riskvet.modelling.fitter import CumulativeFit, _evaluate, _fit_arrays, _grad_hess, _make_design, fit_cumulative
 
 SM = f"statsmodels {statsmodels.__version__}"
 SCIPY = f"scipy {scipy.__version__}"
@@ -506,10 +506,10 @@ def test_fitter_leaves_the_callers_columns_untouched_and_models_load_is_the_mode
         before = Xf.copy()
         _fit_arrays(Xf, yy, 3)
         np.testing.assert_array_equal(Xf, before)
-    import riskvet.modelfile
+    import riskvet.modelling.modelfile
     import riskvet.models
 
-    assert riskvet.models.load is riskvet.modelfile.load_model and "load" in riskvet.models.__all__
+    assert riskvet.models.load is riskvet.modelling.modelfile.load_model and "load" in riskvet.models.__all__
 
 
 def test_k2_nonproportional_equals_proportional():
@@ -722,7 +722,7 @@ def test_bad_data_raise():
 def test_separation_check_directly():
     # The linear programme finds no direction on ordinary data (even with a
     # strong predictor), and finds the separating column in both model forms.
-    from riskvet.models import _separated_columns
+    from riskvet.modelling.fitter import _separated_columns
 
     X, y = simulated(n=300, K=3, seed=26)
     strong = X.assign(v0=X["v0"] * 4.0).to_numpy()

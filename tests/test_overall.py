@@ -1,4 +1,4 @@
-"""Tests of riskvet.overall against scikit-learn, statsmodels and limiting cases.
+"""Tests of riskvet.measures.overall against scikit-learn, statsmodels and limiting cases.
 
 Tolerances: ``rel=1e-12`` (or ``abs=1e-12``) compares the same closed-form quantity computed in
 a different order, so only floating-point rounding separates the two; wider tolerances are
@@ -17,7 +17,7 @@ import statsmodels.api as sm
 from sklearn.metrics import brier_score_loss, log_loss
 
 from riskvet.errors import DataError, RiskvetWarning
-from riskvet.overall import brier, overall_accuracy
+from riskvet.measures.overall import brier, overall_accuracy
 
 
 def binary_example(n=400, seed=1):

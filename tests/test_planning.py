@@ -1,4 +1,4 @@
-"""Tests of riskvet.planning: published formulas worked by hand, reference libraries, invariants."""
+"""Tests of riskvet.planning.samplesize: published formulas worked by hand, reference libraries, invariants."""
 
 from __future__ import annotations
 
@@ -12,7 +12,7 @@ from scipy import special, stats
 from sklearn.metrics import roc_auc_score
 
 from riskvet.errors import StudyError
-from riskvet.planning import (
+from riskvet.planning.samplesize import (
     DevelopmentSize,
     development_size,
     justification_text,

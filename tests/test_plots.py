@@ -1,4 +1,4 @@
-"""Tests of riskvet.plots: each figure has the expected artists and saves as PNG."""
+"""Tests of riskvet.reporting.figures.performance: each figure has the expected artists and saves as PNG."""
 
 from __future__ import annotations
 
@@ -17,12 +17,12 @@ from matplotlib.figure import Figure
 from matplotlib.legend import Legend
 from scipy import special
 
-from riskvet.agreement import bland_altman
-from riskvet.calibration import calibration, ordinal_calibration
-from riskvet.decision import net_benefit, ordinal_net_benefit, rule_net_benefit, threshold_table
-from riskvet.discrimination import dichotomise, roc_curve
+from riskvet.measures.agreement import bland_altman
+from riskvet.measures.calibration import calibration, ordinal_calibration
+from riskvet.measures.decision import net_benefit, ordinal_net_benefit, rule_net_benefit, threshold_table
+from riskvet.measures.discrimination import dichotomise, roc_curve
 from riskvet.errors import RiskvetError
-from riskvet.plots import PALETTE, plot_bland_altman, plot_calibration, plot_decision_curve, plot_roc
+from riskvet.reporting.figures.performance import PALETTE, plot_bland_altman, plot_calibration, plot_decision_curve, plot_roc
 
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
 

@@ -1,4 +1,4 @@
-"""Tests of riskvet.po_checks: Brant's test and the proportional-odds LR test."""
+"""Tests of riskvet.modelling.proportional_odds: Brant's test and the proportional-odds LR test."""
 
 from __future__ import annotations
 
@@ -15,7 +15,7 @@ from scipy import stats
 from statsmodels.miscmodels.ordinal_model import OrderedModel
 
 from riskvet.errors import CrossingWarning, FitError, RiskvetError
-from riskvet.po_checks import brant_test, proportional_odds_lr_test
+from riskvet.modelling.proportional_odds import brant_test, proportional_odds_lr_test
 
 SM = f"statsmodels {statsmodels.__version__}"
 UCLA_CSV = Path(statsmodels.__file__).parent / "miscmodels" / "tests" / "results" / "ologit_ucla.csv"

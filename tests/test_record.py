@@ -11,26 +11,25 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from riskvet import cli
+from riskvet.chain import cli
 from riskvet.errors import RecordError, RiskvetError
-from riskvet.record import (
+from riskvet.chain.record import (
     MANIFEST,
     compare_records,
-    flatten,
-    headline_results,
     manifest_digest,
     read_manifest,
     record_files,
     sha256_file,
-    stage_stem,
     verify_record,
     write_manifest,
 )
-from riskvet.runner import run_study, template_path
-from riskvet.scaffold import new_study_folder
-from riskvet.stagekit import stage_context
-from riskvet.stages import summary as summary_stage
-from riskvet.tripod import LEFT_TO_THE_REPORT, TRIPOD_ITEMS, notebook_headings, tripod_table
+from riskvet.chain.runner import run_study, template_path
+from riskvet.chain.scaffold import new_study_folder
+from riskvet.chain.stagekit import stage_context
+from riskvet.chain.stages import summary as summary_stage
+from riskvet.intake.study import stage_stem
+from riskvet.reporting.headlines import flatten, headline_results, key_results
+from riskvet.reporting.tripod import LEFT_TO_THE_REPORT, TRIPOD_ITEMS, notebook_headings, tripod_table
 
 from test_runner import SMALL, write_fake_templates
 
@@ -316,16 +315,16 @@ def test_summary_stage_run_directly(tmp_path):
 
 def test_key_results_fall_back_to_generic_headline():
     results = {"external_validation": {"cohorts": [{"label": "season", "auc": 0.78, "calibration_slope": 0.9}]}}
-    frame = summary_stage.key_results(results)
+    frame = key_results(results)
     assert set(frame["key"]) == {"cohorts[0].auc", "cohorts[0].calibration_slope"}
-    assert summary_stage.key_results({}).empty
+    assert key_results({}).empty
 
 
 @pytest.mark.parametrize("stage", ["planning", "agreement", "derivation", "internal_validation", "external_validation", "updating"])
 def test_key_results_tolerate_unexpected_shapes(stage):
     keys = ("cohorts", "case_mix", "rule", "items", "checks", "validation", "bootstrap", "result", "cohort", "selection", "apparent", "texts")
     odd = dict.fromkeys(keys, [1, "x"])
-    frame = summary_stage.key_results({stage: odd})
+    frame = key_results({stage: odd})
     assert list(frame.columns) == ["stage", "measure", "value", "lower", "upper", "key"]
     assert summary_stage.findings({stage: odd}).empty
 

@@ -1,6 +1,6 @@
-"""Tests for riskvet.rule.
+"""Tests for riskvet.validation.rule.
 
-References: riskvet.discrimination.compare_concordance (the package's paired
+References: riskvet.measures.discrimination.compare_concordance (the package's paired
 DeLong test, itself tested against published examples) for the paired
 comparison; scikit-learn 1.9 roc_auc_score for C of the rule's category
 codes and of the model; net benefit worked by hand on a ten-patient case
@@ -16,9 +16,9 @@ import pandas as pd
 import pytest
 from sklearn.metrics import roc_auc_score
 
-from riskvet.discrimination import compare_concordance, dichotomise
+from riskvet.measures.discrimination import compare_concordance, dichotomise
 from riskvet.errors import DataError, RiskvetError
-from riskvet.rule import compare_with_rule, rule_positive, rule_score
+from riskvet.validation.rule import compare_with_rule, rule_positive, rule_score
 
 LEVELS = ["green", "amber", "red"]
 
@@ -171,7 +171,7 @@ def test_json_and_figures(result):
     matplotlib.use("Agg")
     from matplotlib.figure import Figure
 
-    from riskvet.plots_external import plot_rule_comparison
+    from riskvet.reporting.figures.external_validation import plot_rule_comparison
 
     json.dumps(result.to_dict(), allow_nan=False)
     fig = plot_rule_comparison(result)

@@ -17,23 +17,23 @@ from pathlib import Path
 import nbformat
 import pytest
 
-from riskvet import cli
+from riskvet.chain import cli
 from riskvet.errors import DataError, RecordError, RiskvetError, StudyError
-from riskvet.html import external_references
-from riskvet.record import read_manifest, record_files, sha256_file, stage_stem, verify_record
-from riskvet.runner import RunResult, environment, run_study, template_path
-from riskvet.scaffold import new_study_folder
-from riskvet.study import STAGES
+from riskvet.reporting.html import external_references
+from riskvet.chain.record import read_manifest, record_files, sha256_file, verify_record
+from riskvet.chain.runner import RunResult, environment, run_study, template_path
+from riskvet.chain.scaffold import new_study_folder
+from riskvet.intake.study import STAGES, stage_stem
 
 # -- fake stage templates ------------------------------------------------------------------------
 
-_OPEN = 'from riskvet import stagekit\nctx = stagekit.open_stage("{stage}", globals())'
+_OPEN = 'from riskvet.chain import stagekit\nctx = stagekit.open_stage("{stage}", globals())'
 
 _DERIVE = """\
 import numpy as np
-from riskvet.data import load_cohorts
-from riskvet.design import build_design
-from riskvet.modelfile import PredictionModel, save_model
+from riskvet.intake.data import load_cohorts
+from riskvet.intake.design import build_design
+from riskvet.modelling.modelfile import PredictionModel, save_model
 cohorts = load_cohorts(ctx.study)
 frame = cohorts.derivation.frame
 design = build_design(frame, linear=["age"])
@@ -45,8 +45,8 @@ numbers = {"n_analysed": cohorts.derivation.n_analysed, "mean_age": float(frame[
            "kernel": {k: os.environ.get(k) for k in ("PYTHONHASHSEED", "OPENBLAS_NUM_THREADS", "SOURCE_DATE_EPOCH")}}"""
 
 _USE = """\
-from riskvet.data import load_cohorts
-from riskvet.modelfile import load_model
+from riskvet.intake.data import load_cohorts
+from riskvet.modelling.modelfile import load_model
 model = load_model(ctx.model_path)
 cohort = next(iter(load_cohorts(ctx.study).validation.values()))
 mean_lp = float(model.linear_predictor(cohort.frame).mean())
@@ -184,7 +184,7 @@ def test_git_commit_of_the_study_folder(tmp_path):
 
     if shutil.which("git") is None:
         pytest.skip("git is not installed")
-    from riskvet.runner import git_commit
+    from riskvet.chain.runner import git_commit
 
     assert git_commit(tmp_path) is None  # not a repository
     run = lambda *a: subprocess.run(["git", "-C", str(tmp_path), *a], check=True, capture_output=True, text=True)  # noqa: E731
@@ -202,7 +202,7 @@ def test_git_commit_of_the_study_folder(tmp_path):
 
 
 def test_manifest_study_is_the_resolved_study(first, study):
-    from riskvet.study import load_study
+    from riskvet.intake.study import load_study
 
     loaded = load_study(study)
     manifest = read_manifest(first.record_dir)
@@ -421,7 +421,7 @@ def _executed_like(tmp_path: Path, *, markdown: str = "# Title\n\nText.") -> Pat
 
 
 def test_render_html_hides_code_unless_asked(tmp_path):
-    from riskvet.html import render_html
+    from riskvet.reporting.html import render_html
 
     notebook = _executed_like(tmp_path)
     hidden = render_html(notebook, tmp_path / "hidden.html").read_text(encoding="utf-8")
@@ -436,7 +436,7 @@ def test_render_html_hides_code_unless_asked(tmp_path):
 
 
 def test_render_html_refuses_network_resources_but_allows_links(tmp_path):
-    from riskvet.html import render_html
+    from riskvet.reporting.html import render_html
 
     linked = _executed_like(tmp_path, markdown="See [the checklist](https://example.org/list).")
     text = render_html(linked, tmp_path / "linked.html").read_text(encoding="utf-8")

@@ -1,4 +1,4 @@
-"""Tests of riskvet.selection.select_terms."""
+"""Tests of riskvet.modelling.selection.select_terms."""
 
 from __future__ import annotations
 
@@ -14,8 +14,8 @@ from scipy import stats
 from statsmodels.miscmodels.ordinal_model import OrderedModel
 
 from riskvet.errors import DesignError, FitError
-from riskvet.models import fit_cumulative
-from riskvet.selection import _folds, select_terms
+from riskvet.modelling.fitter import fit_cumulative
+from riskvet.modelling.selection import _folds, select_terms
 
 SM = f"statsmodels {statsmodels.__version__}"
 
@@ -293,7 +293,7 @@ def test_log_p_value_far_in_the_tail():
     # For even df the chi-squared upper tail has the closed form
     # exp(-x) sum_{i<df/2} x^i / i!, x = stat/2 (the Poisson sum; common
     # practice): check the log tail where the p-value itself underflows.
-    from riskvet.selection import _log_chi2_sf
+    from riskvet.modelling.selection import _log_chi2_sf
 
     stat = 5000.0
     x = stat / 2

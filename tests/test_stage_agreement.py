@@ -12,16 +12,17 @@ import yaml
 from matplotlib.figure import Figure
 from sklearn.metrics import cohen_kappa_score
 
-from riskvet.agreement import icc_table, kappa
-from riskvet.data import load_cohorts
-from riskvet.design import build_design
+from riskvet.measures.agreement import icc_table, kappa
+from riskvet.intake.data import load_cohorts
+from riskvet.intake.design import build_design
 from riskvet.errors import DataError, ModelFileError, RecordError, RiskvetError, RiskvetWarning, StudyError
-from riskvet.modelfile import PredictionModel, save_model
-from riskvet.plots_agreement import plot_item_agreement, plot_risk_agreement
-from riskvet.scaffold import new_study_folder
-from riskvet.stagekit import stage_context
-from riskvet.stages import agreement as stage
-from riskvet.study import load_study, study_from_dict
+from riskvet.modelling.modelfile import PredictionModel, save_model
+from riskvet.reporting.figures.agreement import plot_item_agreement, plot_risk_agreement
+from riskvet.chain.scaffold import new_study_folder
+from riskvet.chain.stagekit import stage_context
+from riskvet.chain.stages import agreement as stage
+from riskvet.reporting.disclosure import SUPPRESSED, PublishedTable, publish_cross_table
+from riskvet.intake.study import load_study, study_from_dict
 
 
 @pytest.fixture(scope="module")
@@ -140,16 +141,16 @@ def _published_equations(table, published, *, bands):
 
     for i in range(K):
         for j in range(K):
-            if published.cells[i][j] != stage.SUPPRESSED:
+            if published.cells[i][j] != SUPPRESSED:
                 mask = np.zeros((K, K))
                 mask[i, j] = 1
                 eq(mask, published.cells[i][j])
     for i in range(K):
-        if published.row_totals[i] != stage.SUPPRESSED:
+        if published.row_totals[i] != SUPPRESSED:
             mask = np.zeros((K, K))
             mask[i, :] = 1
             eq(mask, published.row_totals[i])
-        if published.column_totals[i] != stage.SUPPRESSED:
+        if published.column_totals[i] != SUPPRESSED:
             mask = np.zeros((K, K))
             mask[:, i] = 1
             eq(mask, published.column_totals[i])
@@ -200,11 +201,11 @@ def _assert_protected(table, published, *, bands, m):
     t = np.asarray(table)
     K = t.shape[0]
     a_eq, b_eq = _published_equations(t, published, bands=bands)
-    hidden = [i * K + j for i in range(K) for j in range(K) if published.cells[i][j] == stage.SUPPRESSED]
+    hidden = [i * K + j for i in range(K) for j in range(K) if published.cells[i][j] == SUPPRESSED]
     for i in range(K):
         for j in range(K):
             shown = published.cells[i][j]
-            if shown != stage.SUPPRESSED:
+            if shown != SUPPRESSED:
                 assert shown == t[i, j] and not 0 < shown < m
             elif t[i, j] > 0:
                 # no suppressed count is fixed by the published counts and totals, by
@@ -214,9 +215,9 @@ def _assert_protected(table, published, *, bands, m):
     # the totals shown are true, and none is small
     for i in range(K):
         for shown, true in ((published.row_totals[i], t[i].sum()), (published.column_totals[i], t[:, i].sum())):
-            assert shown == stage.SUPPRESSED or (shown == true and not 0 < true < m)
+            assert shown == SUPPRESSED or (shown == true and not 0 < true < m)
     if not published.margins_shown:
-        assert set(published.row_totals) == set(published.column_totals) == {stage.SUPPRESSED}
+        assert set(published.row_totals) == set(published.column_totals) == {SUPPRESSED}
 
 
 @pytest.mark.parametrize("table", [
@@ -229,16 +230,16 @@ def _assert_protected(table, published, *, bands, m):
 ])
 @pytest.mark.parametrize("bands", [False, True])
 def test_cross_table_hides_no_recoverable_count(table, bands):
-    published = stage.publish_cross_table(table, min_cell_count=5, bands=bands)
+    published = publish_cross_table(table, min_cell_count=5, bands=bands)
     _assert_protected(table, published, bands=bands, m=5)
 
 
 def test_cross_table_without_small_counts_is_shown_whole():
-    published = stage.publish_cross_table([[105, 21], [13, 11]], min_cell_count=5)
+    published = publish_cross_table([[105, 21], [13, 11]], min_cell_count=5)
     assert published.cells == ((105, 21), (13, 11)) and published.n_suppressed == 0
     assert published.row_totals == (126, 24) and published.column_totals == (118, 32) and published.margins_shown
     # min_cell_count 0 or 1 suppresses nothing
-    assert stage.publish_cross_table([[130, 9], [4, 7]], min_cell_count=1).cells == ((130, 9), (4, 7))
+    assert publish_cross_table([[130, 9], [4, 7]], min_cell_count=1).cells == ((130, 9), (4, 7))
 
 
 from hypothesis import given, settings, strategies as st
@@ -248,16 +249,16 @@ from hypothesis import given, settings, strategies as st
 @given(st.integers(2, 3).flatmap(lambda k: st.lists(st.lists(st.integers(0, 40), min_size=k, max_size=k), min_size=k, max_size=k)),
        st.booleans(), st.integers(2, 11))
 def test_cross_table_property(table, bands, m):
-    _assert_protected(table, stage.publish_cross_table(table, min_cell_count=m, bands=bands), bands=bands, m=m)
+    _assert_protected(table, publish_cross_table(table, min_cell_count=m, bands=bands), bands=bands, m=m)
 
 
 def test_cross_table_refusals():
     with pytest.raises(DataError, match="square"):
-        stage.publish_cross_table([[1, 2, 3]], min_cell_count=5)
+        publish_cross_table([[1, 2, 3]], min_cell_count=5)
     with pytest.raises(DataError, match="whole counts"):
-        stage.publish_cross_table([[1, -2], [3, 4]], min_cell_count=5)
+        publish_cross_table([[1, -2], [3, 4]], min_cell_count=5)
     with pytest.raises(DataError, match="min_cell_count"):
-        stage.publish_cross_table([[1, 2], [3, 4]], min_cell_count=-1)
+        publish_cross_table([[1, 2], [3, 4]], min_cell_count=-1)
 
 
 def test_record_publishes_the_protected_tables_only(study, cohorts):
@@ -266,7 +267,7 @@ def test_record_publishes_the_protected_tables_only(study, cohorts):
     for item in out.items:
         if item.kappa is None:
             continue
-        published = stage.publish_cross_table(item.kappa.table, min_cell_count=m, bands=item.weighted_kappa is not None)
+        published = publish_cross_table(item.kappa.table, min_cell_count=m, bands=item.weighted_kappa is not None)
         assert item.published == published
         _assert_protected(item.kappa.table, published, bands=item.weighted_kappa is not None, m=m)
         shown = item.agreement_table()
@@ -288,8 +289,8 @@ def test_small_count_example_of_the_review():
     # 130 | 9 / 4 | 7 of 150 people: with n and the raters' rates a reader could
     # subtract 4 out; now the off-diagonal counts and the rates are suppressed.
     item_table = [[130, 9], [4, 7]]
-    published = stage.publish_cross_table(item_table, min_cell_count=5)
-    assert published.cells == ((130, stage.SUPPRESSED), (stage.SUPPRESSED, 7))
+    published = publish_cross_table(item_table, min_cell_count=5)
+    assert published.cells == ((130, SUPPRESSED), (SUPPRESSED, 7))
     assert not published.margins_shown and published.n == 150
 
 

@@ -7,13 +7,13 @@ import json
 import numpy as np
 import pytest
 
-from riskvet.data import load_cohorts
+from riskvet.intake.data import load_cohorts
 from riskvet.errors import RecordError, RiskvetError
-from riskvet.modelfile import load_model
-from riskvet.models import fit_cumulative
-from riskvet.scaffold import new_study_folder
-from riskvet.stagekit import stage_context
-from riskvet.stages import derivation
+from riskvet.modelling.modelfile import load_model
+from riskvet.modelling.fitter import fit_cumulative
+from riskvet.chain.scaffold import new_study_folder
+from riskvet.chain.stagekit import stage_context
+from riskvet.chain.stages import derivation
 
 
 @pytest.fixture(scope="module")

@@ -8,18 +8,18 @@ import pandas as pd
 import pytest
 import yaml
 
-from riskvet.data import load_cohorts
+from riskvet.intake.data import load_cohorts
 from riskvet.errors import RecordError, StudyError
-from riskvet.planning import (
+from riskvet.planning.samplesize import (
     development_size,
     justification_text,
     ordinal_development_size,
     validation_size,
 )
-from riskvet.scaffold import new_study_folder
-from riskvet.stagekit import stage_context
-from riskvet.stages import planning as stage
-from riskvet.study import load_study, study_from_dict
+from riskvet.chain.scaffold import new_study_folder
+from riskvet.chain.stagekit import stage_context
+from riskvet.chain.stages import planning as stage
+from riskvet.intake.study import load_study, study_from_dict
 
 
 @pytest.fixture(scope="module")

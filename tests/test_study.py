@@ -1,4 +1,4 @@
-"""Tests of the study-file schema (riskvet.study): every kind of error names its key.
+"""Tests of the study-file schema (riskvet.intake.study): every kind of error names its key.
 
 The expected behaviour is the schema's own specification (key paths, nearest
 valid key, allowed values); the studies are small invented ones.
@@ -15,7 +15,7 @@ import pytest
 import yaml
 
 from riskvet.errors import RiskvetError, StudyError
-from riskvet.study import Study, load_study, study_from_dict
+from riskvet.intake.study import Study, load_study, study_from_dict
 
 
 def minimal() -> dict:

@@ -1,4 +1,4 @@
-"""Tests for riskvet.update and the updating stage.
+"""Tests for riskvet.validation.update and the updating stage.
 
 References: statsmodels 0.15 (GLM Binomial with offset, Logit, OrderedModel
 with offset) for the fits; the demo's known truth (riskvet.demo: the
@@ -19,12 +19,12 @@ from scipy import optimize, stats
 from statsmodels.miscmodels.ordinal_model import OrderedModel
 
 from riskvet import demo
-from riskvet.design import build_design
+from riskvet.intake.design import build_design
 from riskvet.errors import DataError, ModelFileError, RecordError, RiskvetError
-from riskvet.modelfile import load_model, model_from_fit, save_model
-from riskvet.models import fit_cumulative
-from riskvet.study import PredictorSpec
-from riskvet.update import (
+from riskvet.modelling.modelfile import load_model, model_from_fit, save_model
+from riskvet.modelling.fitter import fit_cumulative
+from riskvet.intake.study import PredictorSpec
+from riskvet.validation.update import (
     METHOD_NAMES,
     METHODS,
     UpdateFit,
@@ -414,9 +414,9 @@ def test_methods_are_ordered_least_to_most_extensive():
 
 @pytest.fixture(scope="module")
 def record(tmp_path_factory):
-    from riskvet.data import load_cohorts
-    from riskvet.scaffold import new_study_folder
-    from riskvet.study import load_study
+    from riskvet.intake.data import load_cohorts
+    from riskvet.chain.scaffold import new_study_folder
+    from riskvet.intake.study import load_study
 
     folder = tmp_path_factory.mktemp("study")
     study_path = new_study_folder(folder, n_derivation=1500, n_validation=900, n_ratings=40, n_boot=5)
@@ -433,8 +433,8 @@ def test_updating_stage_writes_new_model_files_and_refuses_a_second_run(record):
     import matplotlib
 
     matplotlib.use("Agg")
-    from riskvet.stagekit import stage_context
-    from riskvet.stages import updating
+    from riskvet.chain.stagekit import stage_context
+    from riskvet.chain.stages import updating
 
     study_path, record_dir = record
     ctx = stage_context("updating", study_path=study_path, record_dir=record_dir)
@@ -460,7 +460,7 @@ def test_updating_stage_writes_new_model_files_and_refuses_a_second_run(record):
     shown = " ".join([*out.texts.values(), *map(str, out.tests_frame()[["simpler", "extensive"]].to_numpy().ravel()),
                       *map(str, out.fits_frame()["update"]), *map(str, perf.columns), *map(str, out.coefficients_frame().columns)])
     assert not any(k in shown for k in keys)
-    from riskvet.plots_external import plot_update_calibration
+    from riskvet.reporting.figures.external_validation import plot_update_calibration
 
     fig = plot_update_calibration(out.result)
     legend = " ".join(t.get_text() for ax in fig.axes for t in ax.get_legend().get_texts())

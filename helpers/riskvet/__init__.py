@@ -21,35 +21,23 @@ from .errors import RiskvetError, RiskvetWarning
 
 __version__ = "0.1.0"
 
-#: Public modules, imported on first attribute access.
+#: Subpackages in chain order, the stable import paths, and the demo
+#: scenario; each is imported on first attribute access.
 MODULES = (
+    "intake",
+    "modelling",
+    "measures",
+    "validation",
+    "planning",
+    "reporting",
+    "chain",
+    "models",
+    "metrics",
     "agreement",
     "bootstrap",
-    "calibration",
-    "casemix",
-    "crossval",
-    "data",
-    "decision",
-    "demo",
-    "derive",
-    "design",
-    "discrimination",
-    "equation",
-    "external",
-    "metrics",
-    "modelfile",
-    "models",
-    "overall",
-    "planning",
-    "plots",
-    "po_checks",
-    "record",
-    "rule",
-    "runner",
-    "selection",
-    "stagekit",
     "study",
-    "update",
+    "data",
+    "demo",
 )
 
 __all__ = ["__version__", "RiskvetError", "RiskvetWarning", *MODULES]

@@ -1,41 +1,12 @@
-"""Performance measures of predicted probabilities: the public entry point.
+"""Performance measures of predicted probabilities.
 
-The measures live in modules by concern and are re-exported here:
-
-* :mod:`riskvet.discrimination` - concordance (AUC) with DeLong SE, paired
-  comparison, ROC points, ordinal discrimination;
-* :mod:`riskvet.calibration` - recalibration intercept and slope, O/E,
-  smoothed curve and ICI, grouped table, Hosmer–Lemeshow tests;
-* :mod:`riskvet.overall` - Brier scores, log-likelihood, R²;
-* :mod:`riskvet.decision` - classification at thresholds, net benefit.
-
-:func:`performance_summary` computes the headline numbers in one lean pass
-for resampling (the bootstrap calls it about a thousand times).
-
-Conventions: outcome levels 0 .. K-1; ``prob`` is the n x K matrix of
-predicted level probabilities (or a vector of event probabilities for a
-binary outcome); cut j is Y > j versus Y <= j with predicted probability
-``prob[:, j+1:].sum(axis=1)``.  Data lacking an outcome level that a measure
-needs raise :class:`riskvet.errors.DataError`, everywhere.
+A stable import path for the measures of :mod:`riskvet.measures`:
+discrimination, calibration, overall accuracy, decisions and net benefit,
+and the lean :func:`performance_summary` used in resampling.
 """
 
-from __future__ import annotations
-
-from typing import Any
-
-import numpy as np
-
-from .calibration import (
-    DEFAULT_FRAC,
-    CalibrationResult,
-    OrdinalCalibration,
-    _logit,
-    _recalibrate,
-    _smooth,
-    calibration,
-    ordinal_calibration,
-)
-from .decision import (
+from .measures.calibration import CalibrationResult, OrdinalCalibration, calibration, ordinal_calibration
+from .measures.decision import (
     NetBenefitResult,
     ThresholdChoice,
     ThresholdTable,
@@ -45,24 +16,19 @@ from .decision import (
     threshold_for,
     threshold_table,
 )
-from .discrimination import (
+from .measures.discrimination import (
     ConcordanceComparison,
     ConcordanceResult,
     OrdinalDiscrimination,
     RocCurveResult,
-    _as_outcome,
-    _as_prob_matrix,
-    _auc_only,
-    _cut_probs,
-    _pairwise_c,
     compare_concordance,
     concordance,
     dichotomise,
     ordinal_discrimination,
     roc_curve,
 )
-from .errors import DataError, problem
-from .overall import BrierResult, OverallAccuracy, _brier_parts, _log_likelihoods, _r2, _scaled, brier, overall_accuracy
+from .measures.overall import BrierResult, OverallAccuracy, brier, overall_accuracy
+from .measures.summary import performance_summary, summary_keys
 
 __all__ = [
     "concordance",
@@ -93,110 +59,3 @@ __all__ = [
     "ThresholdChoice",
     "NetBenefitResult",
 ]
-
-
-def summary_keys(n_levels: int) -> tuple[str, ...]:
-    """The keys :func:`performance_summary` returns for an outcome with ``n_levels`` levels, in order."""
-    cuts = range(n_levels - 1)
-    return (
-        *(f"auc_cut{j}" for j in cuts),
-        "average_cut_auc",
-        "ordinal_c",
-        "generalised_c",
-        "brier",
-        "scaled_brier",
-        "nagelkerke_r2",
-        *(f"calibration_intercept_cut{j}" for j in cuts),
-        *(f"calibration_slope_cut{j}" for j in cuts),
-        *(f"ici_cut{j}" for j in cuts),
-        "n_fit_warnings",
-    )
-
-
-def performance_summary(y: Any, prob: Any) -> dict[str, float]:
-    """Headline performance measures in one lean pass, for resampling.
-
-    Parameters
-    ----------
-    y : array-like of int, shape (n,)
-        Outcome levels 0 .. K-1; every level must occur.
-    prob : array-like of float, shape (n, K) or (n,)
-        Predicted level probabilities, or event probabilities of a binary
-        outcome.
-
-    Returns
-    -------
-    dict of str to float
-        In the order of :func:`summary_keys`:
-
-        ``auc_cut{j}``
-            C of P(Y > j) for cut j (:func:`concordance`).
-        ``average_cut_auc``, ``ordinal_c``, ``generalised_c``
-            As ``average_cut_c``, ``ordinal_c``, ``generalised_c`` of
-            :func:`ordinal_discrimination` (ranking on the expected level).
-        ``brier``, ``scaled_brier``, ``nagelkerke_r2``
-            As in :func:`overall_accuracy` (multi-category Brier for K > 2).
-        ``calibration_intercept_cut{j}``, ``calibration_slope_cut{j}``, ``ici_cut{j}``
-            Calibration-in-the-large, calibration slope and ICI of cut j, as
-            in :func:`calibration` with its default smoother (local quadratic, frac = 0.75).
-        ``n_fit_warnings``
-            Number of warnings the recalibration fits met (separation,
-            non-convergence); the warnings themselves are issued as usual.
-
-    Raises
-    ------
-    DataError
-        Bad input, or an outcome level with no patients.
-
-    Notes
-    -----
-    Every value equals the corresponding field of the full result functions
-    (tested); no standard errors, intervals, tables or curves are computed.
-    """
-    func = "performance_summary"
-    y_arr = _as_outcome(y, func)
-    matrix = _as_prob_matrix(prob, y_arr.shape[0], func)
-    k = matrix.shape[1]
-    _as_outcome(y_arr, func, n_levels=k)
-    counts = np.bincount(y_arr, minlength=k)
-    if np.any(counts == 0):
-        raise DataError(problem(f"{func}(y=)", allowed=f"patients at every level 0 .. {k - 1}", received=f"level counts {counts.tolist()}"))
-    n = y_arr.shape[0]
-    cut_p = _cut_probs(matrix)
-    out: dict[str, float] = {}
-    aucs = [_auc_only(y_arr > j, cut_p[:, j]) for j in range(k - 1)]
-    for j, value in enumerate(aucs):
-        out[f"auc_cut{j}"] = value
-    out["average_cut_auc"] = float(np.mean(aucs))
-    if k == 2:
-        out["ordinal_c"] = out["generalised_c"] = aucs[0]
-    else:
-        _, pair_c, pair_n = _pairwise_c(y_arr, matrix @ np.arange(k, dtype=float), k)
-        out["ordinal_c"] = float(np.mean(pair_c))
-        out["generalised_c"] = float(np.dot(pair_c, pair_n) / pair_n.sum())
-    score, null, _ = _brier_parts(y_arr, matrix)
-    out["brier"] = score
-    out["scaled_brier"] = _scaled(score, null)
-    ll, ll0, _ = _log_likelihoods(y_arr, matrix)
-    out["nagelkerke_r2"] = float(_r2(ll, ll0, n)[3])
-    intercepts, slopes, icis = [], [], []
-    n_warn = 0
-    for j in range(k - 1):
-        y_cut = (y_arr > j).astype(np.int64)
-        p = cut_p[:, j]
-        lp, _ = _logit(p)
-        rec = _recalibrate(y_cut, lp)
-        n_warn += len(rec.notes)
-        intercepts.append(rec.citl)
-        slopes.append(rec.slope)
-        order = np.argsort(p, kind="stable")
-        sm = _smooth(y_cut[order].astype(float), p[order], DEFAULT_FRAC, with_se=False)
-        icis.append(float(np.mean(np.abs(sm.per_patient - p[order]))))
-    for j in range(k - 1):
-        out[f"calibration_intercept_cut{j}"] = intercepts[j]
-    for j in range(k - 1):
-        out[f"calibration_slope_cut{j}"] = slopes[j]
-    for j in range(k - 1):
-        out[f"ici_cut{j}"] = icis[j]
-    out["n_fit_warnings"] = float(n_warn)
-    return out

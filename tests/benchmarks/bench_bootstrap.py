@@ -50,9 +50,9 @@ NOISE = ("noise_a", "noise_b", "noise_c", "noise_d")
 
 def _study_and_data(folder: Path, n_boot: int, n_jobs: int):
     from riskvet import demo
-    from riskvet.derive import outcome_codes
-    from riskvet.scaffold import new_study_folder
-    from riskvet.study import load_study
+    from riskvet.intake.outcome import outcome_codes
+    from riskvet.chain.scaffold import new_study_folder
+    from riskvet.intake.study import load_study
 
     path = new_study_folder(folder, n_derivation=100, n_validation=50, n_ratings=10, n_boot=n_boot)
     raw = yaml.safe_load(path.read_text(encoding="utf-8"))
@@ -171,8 +171,8 @@ def _sm_forward(X, y, groups, forced, test=None):
 
 def _sm_replicate(study, frame, y, rng):
     """One bootstrap replicate of the procedure with statsmodels fits."""
-    from riskvet.crossval import stratified_folds
-    from riskvet.derive import candidate_design
+    from riskvet.validation.crossval import stratified_folds
+    from riskvet.modelling.derive import candidate_design
 
     idx = rng.integers(0, len(y), size=len(y))
     fb, yb = frame.iloc[idx].reset_index(drop=True), y[idx]
@@ -199,7 +199,7 @@ def main() -> None:
     parser.add_argument("--sm-replicates", type=int, default=1, help="replicates timed with statsmodels fits (each takes minutes)")
     args = parser.parse_args()
 
-    from riskvet.bootstrap import _Payload, _one_thread, _replicate, validate_internally
+    from riskvet.validation.bootstrap import _Payload, _one_thread, _replicate, validate_internally
 
     with tempfile.TemporaryDirectory() as tmp:
         study, frame, y = _study_and_data(Path(tmp), args.n_boot, args.n_jobs)
@@ -240,8 +240,8 @@ def main() -> None:
         print(f"one replicate, one process: {ours:.2f} s (median of {len(times)})")
 
         # One fit of the model with every candidate column, each fitter, same data.
-        from riskvet.derive import candidate_design
-        from riskvet.models import fit_cumulative
+        from riskvet.modelling.derive import candidate_design
+        from riskvet.modelling.fitter import fit_cumulative
         from statsmodels.miscmodels.ordinal_model import OrderedModel
 
         design = candidate_design(study, frame)

@@ -5,16 +5,16 @@ Run:  .venv/bin/python tests/benchmarks/bench_fit.py
 Prints, in the same run and on the same invented data,
 
 * statsmodels ``OrderedModel(...).fit(method="bfgs")`` (the reference),
-* ``riskvet.models.fit_cumulative`` cold (default start) and warm-started
+* ``riskvet.modelling.fitter.fit_cumulative`` cold (default start) and warm-started
   (from the fit itself, and a bootstrap-like refit: resampled rows as
   frequency weights, started from the original fit), and the lean
   ``_fit_arrays`` entry,
-* one full ``riskvet.selection.select_terms`` forward selection with
+* one full ``riskvet.modelling.selection.select_terms`` forward selection with
   10-fold cross-validation over the 18 single-column terms,
 
 as median wall times, with the ratio statsmodels / riskvet, and checks that
 the estimates agree.  riskvet runs its fits with one BLAS thread (its
-products are small; see ``riskvet.models.one_blas_thread``); statsmodels is
+products are small; see ``riskvet.modelling.fitter.one_blas_thread``); statsmodels is
 timed with default and with single-thread BLAS and given the better of the
 two.  The data are invented for timing only.
 """
@@ -56,8 +56,8 @@ def main() -> None:
     from statsmodels.miscmodels.ordinal_model import OrderedModel
     from threadpoolctl import threadpool_limits
 
-    from riskvet.models import _fit_arrays, fit_cumulative
-    from riskvet.selection import select_terms
+    from riskvet.modelling.fitter import _fit_arrays, fit_cumulative
+    from riskvet.modelling.selection import select_terms
 
     X, y = _data()
     Xa = X.to_numpy()

@@ -50,7 +50,7 @@ def main() -> None:
     import statsmodels.api as sm
     from statsmodels.nonparametric.smoothers_lowess import lowess
 
-    from riskvet import metrics
+    from riskvet.measures import summary as metrics
 
     y, prob = _data()
     n, k = prob.shape
@@ -101,13 +101,13 @@ def main() -> None:
             metrics.concordance(yc[j], cut_p[j])
 
     def own_recalibration():
-        from riskvet.calibration import _recalibrate
+        from riskvet.measures.calibration import _recalibrate
 
         for j in range(k - 1):
             _recalibrate(yc[j], lp[j])
 
     def own_smooth():
-        from riskvet.calibration import _smooth
+        from riskvet.measures.calibration import _smooth
 
         for j in range(k - 1):
             order = np.argsort(cut_p[j])

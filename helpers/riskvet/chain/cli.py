@@ -1,0 +1,257 @@
+"""The ``riskvet`` command.
+
+Every sub-command exits 0 on success, 1 when the study, data or record is
+unusable (the message says what and where), when a stage of ``run`` fails or
+when ``verify`` finds a record altered, and 2 on a usage error.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+from typing import Sequence
+
+import pandas as pd
+
+from ..errors import RiskvetError
+
+__all__ = ["main"]
+
+CAUTION = (
+    "Statistical evaluation is not clearance for clinical use: local validation, "
+    "governance and licensed clinical judgement decide."
+)
+
+
+def _print_frame(frame: pd.DataFrame, *, out=None) -> None:
+    out = out or sys.stdout
+    with pd.option_context("display.max_rows", 200, "display.max_columns", 20, "display.width", 160):
+        print(frame.to_string(index=False), file=out)
+
+
+def _cmd_new(args: argparse.Namespace) -> int:
+    from .scaffold import new_study_folder
+
+    study = new_study_folder(args.folder, seed=args.seed)
+    print(f"wrote {study} and its demo data in {study.parent / 'data'}")
+    print(f"next: riskvet check {study}   then   riskvet run {study}")
+    return 0
+
+
+def check_report(study_path: str | Path, *, out=None) -> int:
+    """Validate a study and its data, print the audit; return the exit status."""
+    from ..intake.data import load_cohorts, suspect_codes
+    from ..intake.study import load_study
+
+    out = out or sys.stdout
+    study = load_study(study_path)
+    print(f"study {study.study.name!r}: file valid (sha256 {study.digest()[:12]})", file=out)
+    print(f"stages: {', '.join(study.enabled_stages)}", file=out)
+    cohorts = load_cohorts(study)
+    for cohort in [cohorts.derivation, *cohorts.validation.values()]:
+        print(f"\n== {cohort.label} ({cohort.source}) ==", file=out)
+        print(f"rows screened {cohort.n_screened}, analysed {cohort.n_analysed}", file=out)
+        print("\nexclusions (complete case):", file=out)
+        _print_frame(cohort.exclusions, out=out)
+        print("\noutcome:", file=out)
+        _print_frame(pd.DataFrame({"level": list(cohort.outcome_counts), "n": list(cohort.outcome_counts.values())}), out=out)
+        print("\ncolumns as received:", file=out)
+        _print_frame(cohort.audit.to_frame(), out=out)
+        for note in suspect_codes(cohort):
+            print(f"warning: {note}", file=out)
+        for m in cohort.category_mappings:
+            print(f"mapped {m.count} value(s) of {m.column!r}: {m.source_level!r} -> {m.target_level!r}", file=out)
+    if cohorts.ratings is not None:
+        print(f"\n== ratings ({study.data.ratings}) ==\nrows {len(cohorts.ratings)}", file=out)
+    print(f"\nusable. {CAUTION}", file=out)
+    return 0
+
+
+def _cmd_check(args: argparse.Namespace) -> int:
+    return check_report(args.study)
+
+
+def _stage_list(text: str) -> list[str]:
+    return [part.strip() for part in text.split(",") if part.strip()]
+
+
+def _cmd_plan(args: argparse.Namespace) -> int:
+    from .stages.planning import plan_text
+    from ..intake.study import load_study
+
+    study = load_study(args.study)
+    if study.planning is None:
+        raise RiskvetError(f"{args.study}: planning: the study has no planning section (n_parameters, anticipated_c or anticipated_r2_cs, ...)")
+    proportions = None
+    if args.proportions:
+        try:
+            proportions = [float(v) for v in args.proportions.split(",")]
+        except ValueError:
+            raise RiskvetError(f"--proportions: expected comma-separated outcome proportions, lowest level first; received {args.proportions!r}") from None
+    print(plan_text(study, proportions=proportions))
+    print(f"\n{CAUTION}")
+    return 0
+
+
+def _cmd_run(args: argparse.Namespace) -> int:
+    from .runner import run_study
+
+    result = run_study(
+        args.study, stages=args.stages, from_record=args.from_record,
+        templates_dir=args.templates, show_code=args.show_code,
+    )
+    failed = result.failed_stage
+    if failed is not None:
+        print(f"stage {failed.stage!r} failed; see {result.record_dir / (failed.notebook or 'manifest.json')}", file=sys.stderr)
+        return 1
+    print(CAUTION)
+    return 0
+
+
+def _cmd_demo(args: argparse.Namespace) -> int:
+    from .runner import run_study
+    from .scaffold import new_study_folder
+
+    study = new_study_folder(args.folder, seed=args.seed)
+    print(f"wrote the demo study {study} (invented data, seed {args.seed})")
+    result = run_study(study, templates_dir=args.templates)
+    if result.failed_stage is not None:
+        return 1
+    print(f"open the reviewer pages in {result.record_dir / 'html'}")
+    print(CAUTION)
+    return 0
+
+
+def _cmd_verify(args: argparse.Namespace) -> int:
+    from .record import verify_record
+
+    verification = verify_record(args.record, check_inputs=not args.no_inputs)
+    counts = ", ".join(f"{n} {status}" for status, n in verification.counts().items())
+    print(f"record {verification.run_id} (run {verification.run_status}): {counts}")
+    shown = verification.to_frame()
+    if not args.all:
+        shown = shown[shown["status"] != "ok"]
+    if len(shown):
+        _print_frame(shown)
+    if verification.run_status == "running":
+        print("note: the run never finished (its manifest still says running), so the files it wrote were never listed")
+    if verification.ok:
+        print("intact: every listed file has its recorded SHA-256 and nothing was added")
+        return 0
+    print(f"ALTERED: {len(verification.problems)} problem(s)", file=sys.stderr)
+    return 1
+
+
+def _cmd_compare(args: argparse.Namespace) -> int:
+    from .record import compare_records
+
+    comparison = compare_records(args.record_a, args.record_b, rtol=args.rtol)
+    print(f"A: {comparison.run_a}  ({comparison.record_a})\nB: {comparison.run_b}  ({comparison.record_b})")
+    frame = comparison.to_frame()
+    titles = {
+        "record": "run", "study": "study settings", "inputs": "input files (SHA-256)",
+        "templates": "templates (SHA-256)", "packages": "package versions", "results": "results",
+    }
+    for section, title in titles.items():
+        part = frame[frame["section"] == section].drop(columns="section")
+        if section in ("inputs", "templates"):
+            part = part.assign(a=part["a"].str[:12], b=part["b"].str[:12])
+        print(f"\n== {title}: {'no differences' if part.empty else f'{len(part)} difference(s)'} ==")
+        if not part.empty:
+            _print_frame(part if args.all else part.head(args.limit))
+            if not args.all and len(part) > args.limit:
+                print(f"... {len(part) - args.limit} more (--all shows every one)")
+    headline = comparison.headline
+    if not headline.empty:
+        shown = headline.assign(
+            a=[f"{v:.6g}" if isinstance(v, float) else ("(absent)" if v is None else str(v)) for v in headline["a"]],
+            b=[f"{v:.6g}" if isinstance(v, float) else ("(absent)" if v is None else str(v)) for v in headline["b"]],
+            same=["" if same else "differs" for same in headline["same"]],
+        ).drop(columns="key")
+        print(f"\n== key results side by side: {int((~headline['same']).sum())} of {len(headline)} differ ==")
+        _print_frame(shown if args.all else shown.head(args.limit * 4))
+        if not args.all and len(shown) > args.limit * 4:
+            print(f"... {len(shown) - args.limit * 4} more (--all shows every one)")
+    return 0
+
+
+def _parser() -> argparse.ArgumentParser:
+    from .. import __version__
+
+    parser = argparse.ArgumentParser(
+        prog="riskvet",
+        description="Derive, validate, update and report clinical prediction models. " + CAUTION,
+    )
+    parser.add_argument("--version", action="version", version=f"riskvet {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    p = sub.add_parser("new", help="write a ready-to-run study folder with the demo data")
+    p.add_argument("folder", type=Path)
+    p.add_argument("--seed", type=int, default=2024, help="seed of the demo data (default 2024)")
+    p.set_defaults(func=_cmd_new)
+
+    p = sub.add_parser("check", help="validate a study file and its data; print the audit")
+    p.add_argument("study", type=Path)
+    p.set_defaults(func=_cmd_check)
+
+    p = sub.add_parser("run", help="run the study's stage notebooks into a new record")
+    p.add_argument("study", type=Path)
+    p.add_argument("--stages", type=_stage_list, default=None, metavar="A,B",
+                   help="run only these enabled stages (comma-separated), in chain order")
+    p.add_argument("--from", dest="from_record", type=Path, default=None, metavar="RECORD",
+                   help="use the frozen model of an earlier record instead of deriving one")
+    p.add_argument("--templates", type=Path, default=None, metavar="DIR", help="folder of stage templates to use")
+    p.add_argument("--show-code", action="store_true", help="show code cells in the HTML renderings")
+    p.set_defaults(func=_cmd_run)
+
+    p = sub.add_parser("plan", help="print the sample-size justification for a study's planning section")
+    p.add_argument("study", type=Path)
+    p.add_argument("--proportions", metavar="P0,P1,...", help="anticipated outcome proportions, lowest level first (default: the derivation data)")
+    p.set_defaults(func=_cmd_plan)
+
+    p = sub.add_parser("verify", help="re-hash a record against its manifest")
+    p.add_argument("record", type=Path)
+    p.add_argument("--no-inputs", action="store_true", help="check only the record's own files")
+    p.add_argument("--all", action="store_true", help="list every file, not only problems")
+    p.set_defaults(func=_cmd_verify)
+
+    p = sub.add_parser("compare", help="show what differs between two records")
+    p.add_argument("record_a", type=Path)
+    p.add_argument("record_b", type=Path)
+    p.add_argument("--limit", type=int, default=25, help="rows shown per section (default 25)")
+    p.add_argument("--rtol", type=float, default=0.0,
+                   help="numbers within this relative difference count as equal (default 0: identical)")
+    p.add_argument("--all", action="store_true", help="show every difference")
+    p.set_defaults(func=_cmd_compare)
+
+    p = sub.add_parser("demo", help="write the invented demo study and run the whole chain on it")
+    p.add_argument("folder", type=Path, nargs="?", default=Path("riskvet-demo"))
+    p.add_argument("--seed", type=int, default=2024, help="seed of the demo data (default 2024)")
+    p.add_argument("--templates", type=Path, default=None, metavar="DIR", help=argparse.SUPPRESS)
+    p.set_defaults(func=_cmd_demo)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``riskvet`` console script."""
+    parser = _parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args.func(args) or 0)
+    except RiskvetError as exc:
+        print(f"riskvet {args.command}: {exc}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print(f"riskvet {args.command}: interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        # the reader (for example `| head`) closed the pipe: stop quietly
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

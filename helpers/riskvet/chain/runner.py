@@ -1,0 +1,771 @@
+"""Running a study's notebook chain into a new, self-verifying record.
+
+:func:`run_study` validates the study and its data (nothing runs on a bad
+study), creates a new record folder under the study's records folder, and
+executes each enabled stage notebook in order with papermill, injecting
+``study_path``, ``record_dir`` and ``model_path``.  Each executed notebook is
+kept, rendered as a self-contained HTML file for reviewers, and hashed into
+the record's manifest together with every input file, template and output.
+
+A record is written once: its folder is created with ``exist_ok=False`` and no
+earlier record is ever opened for writing.  A stage that fails marks the
+record failed (with the failing cell and the error), keeps its partly executed
+notebook, and the later stages are skipped.
+
+The kernel that runs each notebook is always the interpreter running riskvet
+(``sys.executable``), whatever kernel specifications are installed elsewhere.
+It runs with a fixed string-hash seed, single-threaded numerical libraries
+and a fixed ``SOURCE_DATE_EPOCH`` (:func:`kernel_environment`), so that two
+runs of the same study on the same data write the same results and model files.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import importlib.metadata
+import importlib.util
+import logging
+import os
+import platform
+import re
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any, Mapping, Sequence, TextIO
+
+import pandas as pd
+
+from ..errors import RecordError, RiskvetError, StudyError, problem
+from .record import MANIFEST_SCHEMA, read_manifest, record_files, sha256_file, write_manifest
+from .stagekit import STAGE_PARAMETERS
+from ..intake.study import STAGES, Study, load_study, stage_stem
+
+__all__ = [
+    "KEY_PACKAGES",
+    "MODEL_STAGES",
+    "THREAD_VARIABLES",
+    "kernel_environment",
+    "StageRun",
+    "RunResult",
+    "default_templates_dir",
+    "template_path",
+    "run_study",
+    "environment",
+    "package_source",
+    "git_commit",
+]
+
+#: Packages whose versions every manifest records.
+KEY_PACKAGES = (
+    "numpy", "scipy", "pandas", "statsmodels", "scikit-learn", "matplotlib", "papermill", "nbconvert",
+    "nbclient", "nbformat", "ipykernel", "jupyter_client", "joblib", "pydantic", "pyyaml", "dask",
+)
+
+#: Stages that use the frozen model: they need the derivation stage in the same run or ``from_record``.
+MODEL_STAGES = ("internal_validation", "external_validation", "updating")
+
+_PARAMETERS_TAG = "parameters"
+_ERROR_TAG = "papermill-error-cell-tag"
+_INJECTED_TAG = "injected-parameters"
+
+
+# -- templates --------------------------------------------------------------------------------
+
+
+def default_templates_dir() -> Path:
+    """The stage templates: the source tree's ``templates/`` (an editable install),
+    else ``<prefix>/share/riskvet/templates`` where a regular install puts them."""
+    import riskvet
+
+    source = Path(riskvet.__file__).resolve().parents[2] / "templates"
+    if source.is_dir():
+        return source
+    return Path(sys.prefix) / "share" / "riskvet" / "templates"
+
+
+def template_path(stage: str, *, templates_dir: str | Path | None = None) -> Path:
+    """The notebook template of ``stage``: ``<templates_dir>/<stage>.ipynb``."""
+    if stage not in STAGES:
+        raise RiskvetError(problem("stage", allowed=f"one of {list(STAGES)}", received=stage))
+    folder = Path(templates_dir) if templates_dir is not None else default_templates_dir()
+    return folder / f"{stage}.ipynb"
+
+
+def _check_template(stage: str, path: Path) -> None:
+    import nbformat
+
+    if not path.is_file():
+        raise RecordError(
+            f"stage {stage!r}: template {path} not found; every stage to run needs its notebook "
+            f"template (pass templates_dir to use another folder)"
+        )
+    try:
+        notebook = nbformat.read(path, as_version=4)
+    except Exception as exc:  # nbformat raises several unrelated types for damaged files
+        raise RecordError(f"stage {stage!r}: template {path} is not a readable notebook ({type(exc).__name__}: {exc})") from None
+    tagged = [c for c in notebook.cells if c.cell_type == "code" and _PARAMETERS_TAG in c.get("metadata", {}).get("tags", [])]
+    if len(tagged) != 1:
+        raise RecordError(
+            problem(f"stage {stage!r}: template {path}", allowed="exactly one code cell tagged 'parameters'", received=f"{len(tagged)} such cells")
+        )
+
+
+# -- environment ------------------------------------------------------------------------------
+
+
+def _version(name: str) -> str | None:
+    try:
+        return importlib.metadata.version(name)
+    except importlib.metadata.PackageNotFoundError:
+        return None
+
+
+def package_source() -> dict[str, Any]:
+    """What riskvet's own code was: a SHA-256 over its source files, and its git commit.
+
+    The version number alone does not say which code ran while the package is
+    developed (an editable install); the digest does.  It covers every file of
+    the installed ``riskvet`` package except compiled caches, as
+    ``relative path NUL file-SHA-256`` lines in path order.
+    """
+    import riskvet
+
+    root = Path(riskvet.__file__).resolve().parent
+    digest = hashlib.sha256()
+    count = 0
+    for path in sorted(root.rglob("*")):
+        if path.is_file() and "__pycache__" not in path.parts and path.suffix not in (".pyc", ".pyo"):
+            digest.update(f"{path.relative_to(root).as_posix()}\0{sha256_file(path)}\n".encode("utf-8"))
+            count += 1
+    out: dict[str, Any] = {"sha256": digest.hexdigest(), "files": count}
+    commit = git_commit(root)
+    if commit is not None:
+        out["git"] = commit
+    return out
+
+
+def environment() -> dict[str, Any]:
+    """Versions and platform of this run: riskvet (version and source digest), Python, key packages, operating system."""
+    from .. import __version__
+
+    return {
+        "riskvet_version": __version__,
+        "riskvet_source": package_source(),
+        "python": platform.python_version(),
+        "python_implementation": platform.python_implementation(),
+        "platform": platform.platform(),
+        "machine": platform.machine(),
+        "packages": {name: _version(name) for name in KEY_PACKAGES},
+    }
+
+
+def git_commit(folder: str | Path, *, ignore: str | Path | None = None) -> dict[str, Any] | None:
+    """The git commit checked out in ``folder`` and whether the folder has uncommitted changes.
+
+    Parameters
+    ----------
+    folder : path
+        The study folder.
+    ignore : path, optional
+        A folder inside ``folder`` whose changes do not count (the records folder).
+
+    Returns
+    -------
+    dict or None
+        ``commit`` (``git rev-parse HEAD``) and ``dirty`` (files under
+        ``folder`` modified or untracked); ``None`` when ``folder`` is not
+        inside a git work tree or git is not installed.
+    """
+    folder = Path(folder).resolve()
+    spec = ["."]
+    if ignore is not None:
+        ignored = Path(ignore).resolve()
+        if ignored.is_relative_to(folder) and ignored != folder:
+            spec.append(f":(exclude){ignored.relative_to(folder).as_posix()}")
+    try:
+        head = subprocess.run(["git", "-C", str(folder), "rev-parse", "HEAD"], capture_output=True, text=True, timeout=20)
+        if head.returncode != 0:
+            return None
+        status = subprocess.run(
+            ["git", "-C", str(folder), "status", "--porcelain", "--", *spec], capture_output=True, text=True, timeout=60
+        )
+    except (OSError, subprocess.SubprocessError):
+        return None
+    return {"commit": head.stdout.strip(), "dirty": bool(status.stdout.strip()) if status.returncode == 0 else None}
+
+
+# -- results ------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class StageRun:
+    """How one stage of a run went.
+
+    Attributes
+    ----------
+    stage : str
+    status : {"ok", "failed", "skipped"}
+        ``skipped``: not run because an earlier stage failed.
+    notebook, html : str or None
+        Executed notebook and its rendering, relative to the record.
+    seconds : float or None
+        Wall time of the execution (without rendering).
+    error : dict or None
+        For a failed stage: ``kind`` (``cell error``, ``kernel died``,
+        ``interrupted``, ``runner error``), ``ename``, ``evalue`` and the
+        failing cell (``cell_index`` in the executed notebook,
+        ``template_cell_index``, ``execution_count``, ``cell_source``) when known.
+    """
+
+    stage: str
+    status: str
+    notebook: str | None = None
+    html: str | None = None
+    seconds: float | None = None
+    started: str | None = None
+    finished: str | None = None
+    error: Mapping[str, Any] | None = None
+    html_error: str | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "stage": self.stage,
+            "status": self.status,
+            "notebook": self.notebook,
+            "html": self.html,
+            "seconds": self.seconds,
+            "started": self.started,
+            "finished": self.finished,
+            "error": dict(self.error) if self.error is not None else None,
+            "html_error": self.html_error,
+        }
+
+
+@dataclass(frozen=True)
+class RunResult:
+    """The outcome of :func:`run_study`.
+
+    Attributes
+    ----------
+    record_dir : Path
+        The new record folder.
+    run_id : str
+        Its name: UTC start time and a short hash.
+    status : {"complete", "failed"}
+    stages : tuple of StageRun
+        Every stage that was to run, in order.
+    manifest : dict
+        The manifest as written.
+    """
+
+    record_dir: Path
+    run_id: str
+    status: str
+    stages: tuple[StageRun, ...]
+    manifest: Mapping[str, Any] = field(repr=False)
+
+    @property
+    def ok(self) -> bool:
+        return self.status == "complete"
+
+    @property
+    def failed_stage(self) -> StageRun | None:
+        return next((s for s in self.stages if s.status == "failed"), None)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "record_dir": str(self.record_dir),
+            "run_id": self.run_id,
+            "status": self.status,
+            "stages": [s.to_dict() for s in self.stages],
+        }
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per stage: stage, status, seconds, notebook, html, error (``ename: evalue``)."""
+        rows = [
+            {
+                "stage": s.stage,
+                "status": s.status,
+                "seconds": s.seconds,
+                "notebook": s.notebook,
+                "html": s.html,
+                "error": f"{s.error.get('ename')}: {s.error.get('evalue')}" if s.error else None,
+            }
+            for s in self.stages
+        ]
+        return pd.DataFrame(rows, columns=["stage", "status", "seconds", "notebook", "html", "error"])
+
+
+# -- the kernel --------------------------------------------------------------------------------
+
+
+#: Thread counts of the numerical libraries inside the kernel (and, through joblib's
+#: inheritance rule, its worker processes), unless the user's environment sets them:
+#: a floating-point sum split over a varying number of threads is not reproducible.
+THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
+
+
+def kernel_environment(inputs: Sequence[Mapping[str, Any]]) -> dict[str, str]:
+    """Environment variables the runner sets in every stage kernel.
+
+    ``PYTHONHASHSEED=0``; each of :data:`THREAD_VARIABLES` as ``1`` unless
+    already set; and ``SOURCE_DATE_EPOCH`` (the reproducible-builds
+    convention, which stages use for creation dates inside model files),
+    unless already set, as the latest modification time of the study and
+    data files, so that two runs on unchanged inputs write identical files
+    (with or without an earlier record's model).  The run's own times are in
+    the manifest.
+    """
+    env = {"PYTHONHASHSEED": "0"}
+    for name in THREAD_VARIABLES:
+        env[name] = os.environ.get(name, "1")
+    epoch = os.environ.get("SOURCE_DATE_EPOCH")
+    if epoch is None:
+        study_and_data = [e for e in inputs if e["role"] == "study" or e["role"].startswith("data.")]
+        times = [int(Path(e["path"]).stat().st_mtime) for e in study_and_data if Path(e["path"]).is_file()]
+        epoch = str(max(times)) if times else "0"
+    env["SOURCE_DATE_EPOCH"] = epoch
+    return env
+
+
+def _kernel_manager_class(log, variables: Mapping[str, str]):
+    """A kernel manager that always starts this interpreter's ipykernel, its output to ``log``."""
+    from jupyter_client.manager import AsyncKernelManager
+
+    class _ThisInterpreterKernel(AsyncKernelManager):
+        def format_kernel_cmd(self, extra_arguments=None):
+            # The command is fixed rather than read from a kernel specification,
+            # which could name another environment's Python.
+            return [
+                sys.executable, "-Xfrozen_modules=off", "-m", "ipykernel_launcher",
+                "-f", os.path.realpath(self.connection_file), *(extra_arguments or []),
+            ]
+
+        async def start_kernel(self, **kw):
+            env = dict(kw.pop("env", None) or os.environ)
+            env.update(variables)
+            env.pop("MPLBACKEND", None)  # ipykernel chooses the inline backend
+            kw.update(env=env, stdout=log, stderr=log)
+            return await super().start_kernel(**kw)
+
+    return _ThisInterpreterKernel
+
+
+@contextlib.contextmanager
+def _quiet_papermill():
+    # papermill (and nbclient through it) log kernel messages at warning level;
+    # the runner reports outcomes itself.
+    logger = logging.getLogger("papermill")
+    level, propagate = logger.level, logger.propagate
+    logger.setLevel(logging.CRITICAL + 1)
+    logger.propagate = False
+    try:
+        yield
+    finally:
+        logger.setLevel(level)
+        logger.propagate = propagate
+
+
+def _tail(path: Path, *, lines: int = 20) -> str:
+    try:
+        text = path.read_text(encoding="utf-8", errors="replace")
+    except OSError:
+        return ""
+    kept = [ln for ln in text.splitlines() if "running over TCP without encryption" not in ln]
+    return "\n".join(kept[-lines:])
+
+
+_ANSI = re.compile(r"\x1b\[[0-9;]*[A-Za-z]")
+
+
+def _failing_cell(notebook_path: Path, *, dead: bool = False) -> dict[str, Any]:
+    """Locate the failing cell in a saved, partly executed notebook."""
+    import nbformat
+
+    try:
+        notebook = nbformat.read(notebook_path, as_version=4)
+    except Exception:  # a notebook that was never written or is damaged: no cell to show
+        return {}
+    found = None
+    for index, cell in enumerate(notebook.cells):
+        if cell.cell_type != "code":
+            continue
+        meta = cell.get("metadata", {}).get("papermill", {})
+        errored = any(o.get("output_type") == "error" for o in cell.get("outputs", [])) or meta.get("exception") is True
+        if errored:
+            found = index
+            break
+        if dead and meta.get("start_time"):
+            found = index  # the last cell that started
+    if found is None:
+        return {}
+    template_index = sum(
+        1
+        for c in notebook.cells[:found]
+        if not {_ERROR_TAG, _INJECTED_TAG} & set(c.get("metadata", {}).get("tags", []))
+    )
+    cell = notebook.cells[found]
+    return {
+        "cell_index": found,
+        "template_cell_index": template_index,
+        "execution_count": cell.get("execution_count"),
+        "cell_source": cell.source,
+    }
+
+
+def _execute(
+    template: Path, notebook: Path, parameters: Mapping[str, str], *, cwd: Path, log_path: Path, variables: Mapping[str, str]
+) -> dict[str, Any] | None:
+    """Execute one notebook; return ``None`` on success, else the error description."""
+    import papermill
+    from nbclient.exceptions import DeadKernelError
+    from papermill.exceptions import PapermillExecutionError
+
+    try:
+        with _quiet_papermill(), open(log_path, "ab") as log:
+            papermill.execute_notebook(
+                str(template), str(notebook), parameters=dict(parameters),
+                kernel_name="python3", language="python", progress_bar=False, log_output=False,
+                cwd=str(cwd), start_timeout=120, kernel_manager_class=_kernel_manager_class(log, variables),
+            )
+    except PapermillExecutionError as exc:
+        return {
+            "kind": "cell error",
+            "ename": exc.ename,
+            "evalue": _ANSI.sub("", str(exc.evalue)),
+            **_failing_cell(notebook),
+        }
+    except DeadKernelError as exc:
+        return {
+            "kind": "kernel died",
+            "ename": type(exc).__name__,
+            "evalue": f"kernel died: {exc}",
+            "kernel_log": _tail(log_path),
+            **_failing_cell(notebook, dead=True),
+        }
+    except KeyboardInterrupt:
+        raise
+    except Exception as exc:  # anything else papermill or the kernel machinery raises
+        return {"kind": "runner error", "ename": type(exc).__name__, "evalue": str(exc), "kernel_log": _tail(log_path), **_failing_cell(notebook)}
+    return None
+
+
+# -- inputs ---------------------------------------------------------------------------------------
+
+
+def _input_files(study_path: Path, study: Study) -> list[dict[str, Any]]:
+    files = [("study", study_path), ("data.derivation", study.data.derivation)]
+    files += [(f"data.validation.{c.label}", c.path) for c in study.data.validation]
+    if study.data.ratings is not None:
+        files.append(("data.ratings", study.data.ratings))
+    return [
+        {"role": role, "path": str(Path(path).resolve()), "sha256": sha256_file(path), "bytes": Path(path).stat().st_size}
+        for role, path in files
+    ]
+
+
+def _select_stages(study: Study, stages: Sequence[str] | None, from_record: Path | None) -> tuple[str, ...]:
+    enabled = study.enabled_stages
+    if stages is None:
+        chosen = list(enabled)
+        if from_record is not None:
+            chosen = [s for s in chosen if s != "derivation"]
+    else:
+        names = [str(s).strip() for s in stages]
+        unknown = [s for s in names if s not in STAGES]
+        if unknown or not names:
+            raise RiskvetError(problem("stages", allowed=f"a comma-separated subset of {list(STAGES)}", received=names if not unknown else unknown))
+        twice = sorted({s for s in names if names.count(s) > 1})
+        if twice:
+            raise RiskvetError(problem("stages", allowed="each stage once", received=twice))
+        off = [s for s in names if s not in enabled]
+        if off:
+            raise StudyError(
+                f"stages: {off} not enabled in the study file (enabled there: {list(enabled)}); "
+                "enable the section or leave the stage out"
+            )
+        chosen = [s for s in STAGES if s in names]
+    if from_record is not None and "derivation" in chosen:
+        raise RiskvetError(
+            problem("stages", allowed="no 'derivation' with from_record (the earlier record supplies the model)", received=list(chosen))
+        )
+    needing = [s for s in chosen if s in MODEL_STAGES]
+    if from_record is None and needing and "derivation" not in chosen:
+        raise RiskvetError(
+            f"stages: {needing} use the frozen model; include 'derivation' or name an earlier record to take the model from "
+            f"(riskvet run --from RECORD)"
+        )
+    return tuple(chosen)
+
+
+def _check_model_fits_study(model, study, source: Path) -> None:
+    """Refuse an earlier model whose outcome or predictors are not this study's."""
+    wanted = {"column": study.outcome.column, "type": study.outcome.type, "levels": list(study.outcome.ordered_levels)}
+    found = {k: model.outcome.get(k) for k in wanted}
+    if found != wanted:
+        raise RecordError(
+            f"{source}: the model's outcome {found} is not this study's outcome {wanted}; "
+            "--from needs a record of a model for the same outcome and levels"
+        )
+    allowed = set(study.predictors.candidates) | set(study.updating.new_predictors)
+    unknown = sorted(set(model.design.sources) - allowed)
+    if unknown:
+        raise RecordError(
+            f"{source}: the model reads columns {unknown} that are not predictors of this study; "
+            f"the study's candidates are {sorted(study.predictors.candidates)}"
+        )
+
+
+def _earlier_model(from_record: Path, study=None) -> dict[str, Any]:
+    from ..modelling.modelfile import load_model
+
+    manifest = read_manifest(from_record)
+    model = from_record / "models" / "model.json"
+    if not model.is_file():
+        raise RecordError(f"{from_record}: has no models/model.json to take the model from")
+    listed = (manifest.get("files") or {}).get("models/model.json", {}).get("sha256")
+    actual = sha256_file(model)
+    if listed != actual:
+        raise RecordError(
+            f"{model}: does not match the earlier record's manifest (listed {listed!r}, found {actual!r}); "
+            "run 'riskvet verify' on that record"
+        )
+    frozen = load_model(model)  # schema and content hash
+    if study is not None:
+        _check_model_fits_study(frozen, study, model)
+    return {
+        "role": "model",
+        "path": str(model.resolve()),
+        "sha256": actual,
+        "bytes": model.stat().st_size,
+        "record": str(from_record.resolve()),
+        "run_id": manifest.get("run_id"),
+        "study_sha256": (manifest.get("study") or {}).get("sha256"),
+    }
+
+
+def _failure_sentence(error: dict[str, Any]) -> str:
+    """One line for the failure banner of a stage's HTML page."""
+    where = error.get("template_cell_index")
+    cell = f" in cell {where}" if where is not None else ""
+    name, value = error.get("ename") or error.get("kind") or "error", str(error.get("evalue") or "").splitlines()
+    detail = f": {value[0][:300]}" if value else ""
+    return f"It stopped{cell} with {name}{detail}."
+
+
+def _now() -> datetime:
+    return datetime.now(timezone.utc)
+
+
+def _iso(moment: datetime) -> str:
+    return moment.isoformat(timespec="seconds").replace("+00:00", "Z")
+
+
+def _new_record(records: Path, *, study: Study, inputs: list[dict[str, Any]], started: datetime) -> Path:
+    stamp = started.strftime("%Y%m%dT%H%M%SZ")
+    try:
+        records.mkdir(parents=True, exist_ok=True)
+        for attempt in range(100):
+            seed = "\n".join([study.digest(), *sorted(e["sha256"] for e in inputs), started.isoformat(), str(attempt)])
+            path = records / f"{stamp}-{hashlib.sha256(seed.encode('utf-8')).hexdigest()[:8]}"
+            try:
+                path.mkdir(exist_ok=False)
+            except FileExistsError:
+                continue
+            return path
+    except OSError as exc:
+        raise RecordError(f"output.records: cannot create a record folder in {records} ({exc.strerror or exc})") from None
+    raise RecordError(f"{records}: could not create a new record folder for {stamp}")  # pragma: no cover
+
+
+# -- the run --------------------------------------------------------------------------------------
+
+
+def run_study(
+    study_path: str | Path,
+    *,
+    stages: Sequence[str] | None = None,
+    from_record: str | Path | None = None,
+    templates_dir: str | Path | None = None,
+    show_code: bool = False,
+    out: TextIO | None = None,
+) -> RunResult:
+    """Run a study's stage notebooks into a new record.
+
+    Parameters
+    ----------
+    study_path : path
+        The study file.
+    stages : sequence of str, optional
+        A subset of the study's enabled stages (run in chain order).  Default:
+        every enabled stage (less ``derivation`` when ``from_record`` is given).
+    from_record : path, optional
+        An earlier record whose frozen model (``models/model.json``) the
+        stages use instead of deriving one; its hash is checked against that
+        record's manifest, listed among this record's inputs, and the file is
+        copied into this record's ``models/``.
+    templates_dir : path, optional
+        Folder of the stage templates (default :func:`default_templates_dir`).
+    show_code : bool, default False
+        Show code cells in the HTML renderings.
+    out : text stream, optional
+        Where progress lines go (default standard output); one line as each
+        stage starts and one as it ends, with its duration.
+
+    Returns
+    -------
+    RunResult
+        ``status`` is ``complete`` or ``failed``; the record exists in both cases.
+
+    Raises
+    ------
+    StudyError, DataError, RecordError, RiskvetError
+        Before anything runs and before any record folder is created: an
+        invalid study or data file, a stage selection the study does not
+        allow, a missing template, an unusable earlier record.
+    KeyboardInterrupt
+        Re-raised after the record's manifest has marked the run interrupted.
+    """
+    from ..intake.data import load_cohorts
+    from ..reporting.html import render_html
+
+    out = out if out is not None else sys.stdout
+    study_path = Path(study_path).resolve()
+    study = load_study(study_path)
+    load_cohorts(study)  # every data problem surfaces before a record exists
+    earlier = Path(from_record).resolve() if from_record is not None else None
+    chosen = _select_stages(study, stages, earlier)
+    templates = {s: template_path(s, templates_dir=templates_dir).resolve() for s in chosen}
+    for stage, path in templates.items():
+        _check_template(stage, path)
+    if importlib.util.find_spec("ipykernel") is None:
+        raise RecordError(f"ipykernel is not installed for {sys.executable}; stage notebooks cannot run (pip install ipykernel)")
+    inputs = _input_files(study_path, study)
+    model_input = _earlier_model(earlier, study) if earlier is not None else None
+    if model_input is not None:
+        inputs.append(model_input)
+
+    variables = kernel_environment(inputs)
+    commit = git_commit(study_path.parent, ignore=study.output.records)
+    started = _now()
+    record = _new_record(Path(study.output.records), study=study, inputs=inputs, started=started)
+    run_id = record.name
+    (record / "study.json").write_text(study.canonical_json() + "\n", encoding="utf-8")
+    model_path = record / "models" / "model.json"
+    if model_input is not None:
+        model_path.parent.mkdir(parents=True, exist_ok=True)
+        shutil.copyfile(model_input["path"], model_path)
+    parameters = {
+        "study_path": str(study_path),
+        "record_dir": str(record),
+        "model_path": model_input["path"] if model_input is not None else str(model_path),
+    }
+    assert set(parameters) == set(STAGE_PARAMETERS)
+
+    manifest: dict[str, Any] = {
+        "schema": MANIFEST_SCHEMA,
+        "run_id": run_id,
+        "status": "running",
+        "started": _iso(started),
+        "finished": None,
+        **environment(),
+        "kernel": {"python": sys.executable, "environment": variables},
+        "study": {"path": str(study_path), "name": study.study.name, "sha256": study.digest(), "resolved": study.to_dict()},
+        "seeds": {
+            "selection": study.selection.seed,
+            "internal_validation": study.internal_validation.seed,
+            "external_validation": study.external_validation.seed,
+        },
+        "inputs": inputs,
+        "templates": [],
+        "from_record": None if model_input is None else {k: model_input[k] for k in ("record", "run_id", "study_sha256")},
+        "parameters": parameters,
+        "show_code": bool(show_code),
+        "stages": [StageRun(stage=s, status="pending").to_dict() for s in chosen],
+        "files": {},
+    }
+    if commit is not None:
+        manifest["git"] = commit
+    write_manifest(record, manifest)
+
+    print(f"riskvet run: study {study.study.name!r} (sha256 {study.digest()[:12]}) -> {record}", file=out)
+    if model_input is not None:
+        note = "" if model_input["study_sha256"] == study.digest() else " (made with different study settings)"
+        print(f"model from {model_input['run_id']}: sha256 {model_input['sha256'][:12]}{note}", file=out)
+    results: list[StageRun] = []
+    failed = False
+    interrupted: BaseException | None = None
+    with tempfile.TemporaryDirectory(prefix="riskvet-kernel-") as scratch:
+        for position, stage in enumerate(chosen, start=1):
+            label = f"[{position}/{len(chosen)}] {stage}"
+            if failed:
+                results.append(StageRun(stage=stage, status="skipped"))
+                print(f"{label}: skipped (an earlier stage failed)", file=out)
+                continue
+            manifest["templates"].append({"stage": stage, "path": str(templates[stage]), "sha256": sha256_file(templates[stage])})
+            notebook = record / "notebooks" / f"{stage_stem(stage)}.ipynb"
+            notebook.parent.mkdir(exist_ok=True)
+            print(f"{label}: running", file=out, flush=True)
+            begin, tick = _now(), time.perf_counter()
+            try:
+                error = _execute(
+                    templates[stage], notebook, parameters, cwd=record, log_path=Path(scratch) / f"{stage}.log", variables=variables
+                )
+            except KeyboardInterrupt as exc:
+                error, interrupted = {"kind": "interrupted", "ename": "KeyboardInterrupt", "evalue": "run interrupted"}, exc
+            seconds = round(time.perf_counter() - tick, 2)
+            html = html_error = None
+            if study.output.html and notebook.is_file() and interrupted is None:
+                target = record / "html" / f"{stage_stem(stage)}.html"
+                try:
+                    render_html(notebook, target, show_code=show_code, failure=_failure_sentence(error) if error else None)
+                    html = target.relative_to(record).as_posix()
+                except RiskvetError as exc:
+                    html_error = str(exc)
+            run = StageRun(
+                stage=stage,
+                status="failed" if error else "ok",
+                notebook=notebook.relative_to(record).as_posix() if notebook.is_file() else None,
+                html=html,
+                seconds=seconds,
+                started=_iso(begin),
+                finished=_iso(_now()),
+                error=error,
+                html_error=html_error,
+            )
+            results.append(run)
+            if error:
+                failed = True
+                where = f" in cell {error['cell_index']} (In [{error.get('execution_count')}])" if "cell_index" in error else ""
+                print(f"{label}: FAILED after {seconds:.1f} s{where}: {error['ename']}: {error['evalue']}", file=out, flush=True)
+            else:
+                print(f"{label}: ok in {seconds:.1f} s", file=out, flush=True)
+            if html_error:
+                print(f"{label}: no HTML rendering: {html_error}", file=out)
+            manifest["stages"] = [r.to_dict() for r in results] + [
+                StageRun(stage=s, status="pending").to_dict() for s in chosen[len(results):]
+            ]
+            write_manifest(record, manifest, replace=True)
+            if interrupted is not None:
+                failed = True
+
+    status = "failed" if failed else "complete"
+    manifest.update(
+        status="interrupted" if interrupted is not None else status,
+        finished=_iso(_now()),
+        stages=[r.to_dict() for r in results],
+        files=record_files(record),
+    )
+    write_manifest(record, manifest, replace=True)
+    if interrupted is not None:
+        raise interrupted
+    total = sum(r.seconds or 0 for r in results)
+    print(f"record {status}: {record} ({total:.1f} s in stages)", file=out)
+    print(f"check it any time with: riskvet verify {record}", file=out)
+    return RunResult(record_dir=record, run_id=run_id, status=status, stages=tuple(results), manifest=manifest)

@@ -1,0 +1,84 @@
+"""Writing a ready-to-run study folder (``riskvet new``)."""
+
+from __future__ import annotations
+
+import re
+from importlib import resources
+from pathlib import Path
+
+from .. import demo
+from ..errors import RiskvetError
+
+__all__ = ["new_study_folder", "demo_study_text"]
+
+_FOLDER_README = """\
+# {name}: a riskvet study folder
+
+This folder was written by `riskvet new`. It holds an invented demo scenario
+(heat illness in the first-aid tents of a fictional city's summer run
+series); no row describes a real person.
+
+- `study.yaml` describes the analysis; every key is commented.
+- `data/` holds the derivation cohort, a later-season validation cohort and a
+  small paired-ratings file, all drawn by `riskvet.demo` with seed {seed}.
+
+Check it, then run the whole chain:
+
+    riskvet check study.yaml
+    riskvet run study.yaml
+
+Each run writes a new record folder under `records/`; earlier records are
+never touched. `riskvet verify records/<run>` re-hashes a record.
+
+Statistical evaluation is not clearance for clinical use: local validation,
+governance and licensed clinical judgement decide.
+"""
+
+
+def demo_study_text(*, n_boot: int | None = None) -> str:
+    """The commented demo study file, optionally with fewer bootstrap replicates."""
+    text = resources.files("riskvet").joinpath("resources/demo_study.yaml").read_text(encoding="utf-8")
+    if n_boot is not None:
+        if n_boot < 1:
+            raise RiskvetError(f"n_boot: expected a whole number of at least 1; received {n_boot!r}")
+        text = re.sub(r"(?m)^(\s+n_boot:) \d+", rf"\g<1> {n_boot}", text)
+    return text
+
+
+def new_study_folder(
+    folder: str | Path,
+    *,
+    seed: int = demo.DEFAULT_SEED,
+    n_derivation: int = 2000,
+    n_validation: int = 1500,
+    n_ratings: int = 150,
+    n_boot: int | None = None,
+) -> Path:
+    """Write a study folder: ``study.yaml``, ``data/`` and ``README.md``.
+
+    Parameters
+    ----------
+    folder : path
+        Created if absent; must not already hold a ``study.yaml`` or ``data/``
+        (nothing is overwritten).
+    seed, n_derivation, n_validation, n_ratings
+        Passed to :func:`riskvet.demo.write_demo_data`.
+    n_boot : int, optional
+        Bootstrap replicates written into the study file (default as in the
+        demo study, 200).
+
+    Returns
+    -------
+    Path
+        The study file.
+    """
+    folder = Path(folder)
+    for name in ("study.yaml", "data", "README.md"):
+        if (folder / name).exists():
+            raise RiskvetError(f"{folder / name}: already exists; riskvet new never overwrites (choose an empty folder)")
+    folder.mkdir(parents=True, exist_ok=True)
+    demo.write_demo_data(folder / "data", seed=seed, n_derivation=n_derivation, n_validation=n_validation, n_ratings=n_ratings)
+    study = folder / "study.yaml"
+    study.write_text(demo_study_text(n_boot=n_boot), encoding="utf-8")
+    (folder / "README.md").write_text(_FOLDER_README.format(name=folder.name, seed=seed), encoding="utf-8")
+    return study

@@ -1,0 +1,703 @@
+"""The agreement stage: do two raters record the same predictors, and does it matter?
+
+For each rated item of the study's ``agreement`` section, :func:`assess`
+computes Cohen's kappa (binary and ordinal items; quadratic-weighted kappa as
+well for ordinal items) or the intraclass correlations and Bland–Altman limits
+of agreement (continuous items), on the pairs where both raters recorded a
+value.
+
+The second question, whether the raters' readings lead to the same predicted
+risk and the same decision, needs the frozen model.  When it is given, each
+rater's readings are put into the model in turn.  Predictors the ratings file
+does not hold are fixed at the derivation cohort's median (numbers) or most
+frequent category, so the comparison is a sensitivity device that isolates the
+effect of the raters' differences; it is not an estimate of risk for the
+people rated.  At each cut, the two sets of risks are compared by
+Bland–Altman, and at each of the study's thresholds for that cut the two sets
+of decisions by kappa (:func:`riskvet.agreement.decision_agreement`).
+
+:func:`run` does this for a stage notebook: results JSON, one Bland–Altman
+figure per continuous item and per cut.
+
+Every cross-table the record publishes (the raters' categories, and the
+decisions at each threshold) goes through :func:`publish_cross_table`: counts
+from 1 to ``min_cell_count − 1`` are suppressed, and so is any further count
+or total from which a suppressed count could be worked out with the totals
+and agreement counts the record states.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import re
+import warnings
+from dataclasses import dataclass, field
+from typing import Any, Mapping
+
+import numpy as np
+import pandas as pd
+
+from ..._jsonable import to_jsonable
+from ...measures.agreement import BlandAltmanResult, DecisionAgreement, ICCTable, KappaResult, bland_altman, decision_agreement, icc_table, kappa
+from ...intake.data import Cohorts, load_cohorts, read_table
+from ...reporting.disclosure import SUPPRESSED, PublishedTable, publish_cross_table
+from ...errors import DataError, ModelFileError, RiskvetWarning, StudyError, problem
+from ...modelling.modelfile import PredictionModel, load_model
+from ...intake.study import RatedItem, Study
+from .planning import cut_label
+
+__all__ = ["ItemAgreement", "CutRiskAgreement", "RiskAgreement",
+           "AgreementOutput", "assess", "run"]
+
+#: The ICC forms reported for two fixed raters: absolute agreement and consistency.
+PRIMARY_ICC_FORMS = ("2,1", "3,1")
+
+_DEVICE = (
+    "These risks are a sensitivity device, not estimates for the people rated: predictors the ratings file does not hold "
+    "are fixed at the derivation cohort's median (numbers) or most frequent category, so the comparison shows how far the "
+    "raters' differences alone move the predicted risk and the decision."
+)
+
+
+def _fmt(x: float, digits: int = 2) -> str:
+    return "undefined" if x is None or not math.isfinite(x) else f"{x:.{digits}f}".replace("-", "−")
+
+
+# --------------------------------------------------------------------------
+# results
+# --------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class ItemAgreement:
+    """Agreement of the two raters on one item.
+
+    Attributes
+    ----------
+    name, scale, rater_a, rater_b : str
+        As in the study's ``agreement.items``.
+    n_rows : int
+        Rows of the ratings file.
+    n_pairs : int
+        Rows where both raters recorded a value (the pairs analysed).
+    levels : tuple of str
+        Categories in order (binary and ordinal items); empty for continuous.
+    level_order : str
+        How that order was decided: ``"numeric"``, ``"study levels"``,
+        ``"derivation levels"`` or ``"sorted as text"``; empty for continuous items.
+    kappa : KappaResult or None
+        Unweighted kappa (binary and ordinal).
+    weighted_kappa : KappaResult or None
+        Quadratic-weighted kappa (ordinal).
+    icc : ICCTable or None
+        All six intraclass correlations (continuous).
+    bland_altman : BlandAltmanResult or None
+        Limits of agreement of rater_a − rater_b (continuous).
+    min_cell_count : int
+        Cross-table counts from 1 to ``min_cell_count − 1`` are suppressed.
+    text : str
+        One interpreting sentence.
+    warnings : tuple of str
+        Statistical trouble and statistics that could not be computed.
+    published : PublishedTable or None
+        The cross-table as published (:func:`publish_cross_table`); None for
+        continuous items.
+    """
+
+    name: str
+    scale: str
+    rater_a: str
+    rater_b: str
+    n_rows: int
+    n_pairs: int
+    levels: tuple[str, ...]
+    level_order: str
+    kappa: KappaResult | None
+    weighted_kappa: KappaResult | None
+    icc: ICCTable | None
+    bland_altman: BlandAltmanResult | None
+    min_cell_count: int
+    text: str
+    warnings: tuple[str, ...] = ()
+    published: PublishedTable | None = None
+
+    def agreement_table(self) -> pd.DataFrame | None:
+        """The raters' cross-table (rater_a in rows) with totals, as published; None for continuous items."""
+        if self.published is None:
+            return None
+        return self.published.frame(self.levels, row_name=f"{self.name}: {self.rater_a}", column_name=self.rater_b)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready summary: statistics, the suppressed cross-table, no per-pair values."""
+        out: dict[str, Any] = {
+            "name": self.name,
+            "scale": self.scale,
+            "rater_a": self.rater_a,
+            "rater_b": self.rater_b,
+            "n_rows": self.n_rows,
+            "n_pairs": self.n_pairs,
+            "levels": list(self.levels),
+            "level_order": self.level_order,
+            "min_cell_count": self.min_cell_count,
+            "text": self.text,
+            "warnings": list(self.warnings),
+        }
+        for key in ("kappa", "weighted_kappa"):
+            k = getattr(self, key)
+            if k is None:
+                out[key] = None
+            else:
+                d = k.to_dict()
+                d["table"] = [list(row) for row in self.published.cells]
+                out[key] = d
+        out["cross_table"] = None if self.published is None else self.published.to_dict()
+        out["icc"] = None if self.icc is None else self.icc.to_dict()
+        out["bland_altman"] = None if self.bland_altman is None else _ba_summary(self.bland_altman)
+        return to_jsonable(out)
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per statistic: item, scale, statistic, estimate, ci_lower, ci_upper, n."""
+        rows = []
+        if self.kappa is not None:
+            rows.append(("kappa", self.kappa.value, self.kappa.lower, self.kappa.upper))
+        if self.weighted_kappa is not None:
+            rows.append(("quadratic-weighted kappa", self.weighted_kappa.value, self.weighted_kappa.lower, self.weighted_kappa.upper))
+        if self.icc is not None:
+            for form in PRIMARY_ICC_FORMS:
+                r = self.icc[form]
+                rows.append((f"ICC({form})", r.value, r.lower, r.upper))
+        if self.bland_altman is not None:
+            for q, e, lo, hi in self.bland_altman.to_frame()[["quantity", "estimate", "ci_lower", "ci_upper"]].itertuples(index=False):
+                rows.append((q, e, lo, hi))
+        out = pd.DataFrame(rows, columns=["statistic", "estimate", "ci_lower", "ci_upper"])
+        out.insert(0, "scale", self.scale)
+        out.insert(0, "item", self.name)
+        out["n"] = self.n_pairs
+        return out
+
+
+def _ba_summary(ba: BlandAltmanResult) -> dict[str, Any]:
+    d = ba.to_dict()
+    d.pop("means")
+    d.pop("differences")
+    return d
+
+
+@dataclass(frozen=True)
+class CutRiskAgreement:
+    """Agreement of the predicted risk of one cut, and of the decisions at its thresholds.
+
+    Attributes
+    ----------
+    cut : int
+        Cut j: the risk is P(Y > j).
+    label : str
+        The event in words.
+    risks : BlandAltmanResult
+        Risk from rater_a's readings minus risk from rater_b's.
+    decisions : tuple of DecisionAgreement
+        One per threshold the study gives for this cut (may be empty).
+    min_cell_count : int
+        The decision cross-tables are published through
+        :func:`publish_cross_table` with this minimum.
+    text : str
+        One interpreting sentence.
+    """
+
+    cut: int
+    label: str
+    risks: BlandAltmanResult
+    decisions: tuple[DecisionAgreement, ...]
+    min_cell_count: int
+    text: str
+
+    def published(self, threshold_index: int) -> PublishedTable:
+        """The decision cross-table at the study's ``threshold_index``-th threshold, as published."""
+        return publish_cross_table(self.decisions[threshold_index].decisions.table, min_cell_count=self.min_cell_count)
+
+    def to_dict(self) -> dict[str, Any]:
+        decisions = []
+        for i, d in enumerate(self.decisions):
+            item = d.to_dict()
+            item["risks"] = _ba_summary(d.risks)
+            table = self.published(i)
+            item["decisions"]["table"] = [list(row) for row in table.cells]
+            # positive_a / positive_b are the raters' totals of the "at or above" row and column
+            item["positive_a"], item["positive_b"] = table.row_totals[-1], table.column_totals[-1]
+            item["cross_table"] = table.to_dict()
+            decisions.append(item)
+        return to_jsonable({"cut": self.cut, "label": self.label, "risks": _ba_summary(self.risks), "decisions": decisions,
+                            "min_cell_count": self.min_cell_count, "text": self.text})
+
+
+@dataclass(frozen=True)
+class RiskAgreement:
+    """Do the raters' readings give the same predicted risk and decision?
+
+    Attributes
+    ----------
+    model_sha256 : str
+        Content hash of the model file used.
+    items_in_model : tuple of str
+        Rated items the model uses (their readings vary between the raters).
+    items_not_in_model : tuple of str
+        Rated items the model does not use (they cannot change its risk).
+    from_ratings_file : tuple of str
+        Other predictors read from the ratings file.
+    fixed : dict
+        Other predictors fixed for everyone, with the value used.
+    n : int
+        People with a complete scoring row from both raters.
+    cuts : tuple of CutRiskAgreement
+        One per cut of the outcome.
+    device_note : str
+        What the comparison is and is not.
+    """
+
+    model_sha256: str
+    items_in_model: tuple[str, ...]
+    items_not_in_model: tuple[str, ...]
+    from_ratings_file: tuple[str, ...]
+    fixed: Mapping[str, Any]
+    n: int
+    cuts: tuple[CutRiskAgreement, ...]
+    device_note: str
+
+    def to_dict(self) -> dict[str, Any]:
+        return to_jsonable({
+            "model_sha256": self.model_sha256,
+            "items_in_model": list(self.items_in_model),
+            "items_not_in_model": list(self.items_not_in_model),
+            "from_ratings_file": list(self.from_ratings_file),
+            "fixed": dict(self.fixed),
+            "n": self.n,
+            "cuts": [c.to_dict() for c in self.cuts],
+            "device_note": self.device_note,
+        })
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per cut and quantity: risk bias and limits, then decision kappa and discordance per threshold."""
+        rows = []
+        for c in self.cuts:
+            for q, e, lo, hi in c.risks.to_frame()[["quantity", "estimate", "ci_lower", "ci_upper"]].iloc[:3].itertuples(index=False):
+                rows.append({"cut": c.cut, "event": c.label, "threshold": None, "quantity": f"risk {q}", "estimate": e, "ci_lower": lo, "ci_upper": hi, "discordant": None, "n": c.risks.n})
+            for d in c.decisions:
+                rows.append({"cut": c.cut, "event": c.label, "threshold": d.threshold, "quantity": "decision kappa", "estimate": d.decisions.value,
+                             "ci_lower": d.decisions.lower, "ci_upper": d.decisions.upper, "discordant": d.discordant, "n": d.n})
+        return pd.DataFrame(rows, columns=["cut", "event", "threshold", "quantity", "estimate", "ci_lower", "ci_upper", "discordant", "n"])
+
+
+@dataclass(frozen=True)
+class AgreementOutput:
+    """Everything the agreement stage found.
+
+    Attributes
+    ----------
+    items : tuple of ItemAgreement
+        One per rated item, in study order.
+    risk : RiskAgreement or None
+        The risk and decision comparison, or None when it was not possible
+        (``risk_note`` says why).
+    risk_note : str
+        Why the risk comparison was skipped, or what it is.
+    figures : dict of str to str
+        Figure name -> PNG path relative to the record folder (filled by :func:`run`).
+    texts : dict of str to str
+        Interpreting sentences: ``"summary"`` (one line per stage for the
+        record's summary), ``"items"`` and ``"risk"``.
+    notes : tuple of str
+        Statistical warnings met while :func:`run` assessed the study (each
+        is also recorded on the result it concerns).
+    """
+
+    items: tuple[ItemAgreement, ...]
+    risk: RiskAgreement | None
+    risk_note: str
+    texts: Mapping[str, str]
+    figures: Mapping[str, str] = field(default_factory=dict)
+    notes: tuple[str, ...] = ()
+
+    def item(self, name: str) -> ItemAgreement:
+        """The result of one rated item."""
+        for it in self.items:
+            if it.name == name:
+                return it
+        raise StudyError(problem("AgreementOutput.item(name)", allowed=f"one of {[i.name for i in self.items]}", received=name))
+
+    def item_figure(self, name: str) -> str | None:
+        """The Bland–Altman figure of a continuous item (PNG path relative to the record), if drawn."""
+        return self.figures.get(_figure_name("bland_altman", name))
+
+    def risk_figure(self, cut: int) -> str | None:
+        """The Bland–Altman figure of the predicted risks at cut ``cut``, if drawn."""
+        return self.figures.get(f"risk_bland_altman_cut{cut}")
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready content of the stage's results file (no per-pair values)."""
+        return to_jsonable({
+            "items": [i.to_dict() for i in self.items],
+            "risk": None if self.risk is None else self.risk.to_dict(),
+            "risk_note": self.risk_note,
+            "figures": dict(self.figures),
+            "texts": dict(self.texts),
+            "notes": list(self.notes),
+        })
+
+    def to_frame(self) -> pd.DataFrame:
+        """Every item's statistics, stacked (see :meth:`ItemAgreement.to_frame`)."""
+        return pd.concat([i.to_frame() for i in self.items], ignore_index=True)
+
+    def risk_frame(self) -> pd.DataFrame | None:
+        """The risk and decision comparison table (the event in words, no cut number), or None."""
+        return None if self.risk is None else self.risk.to_frame().drop(columns="cut")
+
+
+# --------------------------------------------------------------------------
+# predictor agreement
+# --------------------------------------------------------------------------
+
+def _level_order(values: pd.Series, item: RatedItem, study: Study, cohorts: Cohorts) -> tuple[list[str], str]:
+    seen = sorted(set(values.tolist()))
+    numbers = pd.to_numeric(pd.Series(seen, dtype=object), errors="coerce")
+    if len(seen) and numbers.notna().all():
+        return [s for _, s in sorted(zip(numbers.tolist(), seen))], "numeric"
+    spec = study.predictors.candidates.get(item.name)
+    if spec is not None and spec.levels is not None and set(seen) <= set(spec.levels):
+        return list(spec.levels), "study levels"
+    known = cohorts.derivation.category_levels.get(item.name)
+    if known is not None and set(seen) <= set(known):
+        return list(known), "derivation levels"
+    return seen, "sorted as text"
+
+
+def _rate(total: int | str, n: int) -> str:
+    if total == SUPPRESSED:
+        return "a share not shown (small counts)"
+    return f"{total / n:.0%}"
+
+
+def _kappa_sentence(item: RatedItem, k: KappaResult, wk: KappaResult | None, levels: list[str], published: PublishedTable) -> str:
+    share = k.observed_agreement
+    if item.scale == "binary" and not published.margins_shown:
+        rates = (f"How often each rater recorded {levels[-1]!r} is not shown: with the number of people on whom they agree, "
+                 f"it would let a reader work out a count below {published.min_cell_count}. ")
+    elif item.scale == "binary":
+        pa, pb = _rate(published.row_totals[-1], k.n), _rate(published.column_totals[-1], k.n)
+        rates = f"{item.rater_a} recorded {levels[-1]!r} for {pa} and {item.rater_b} for {pb}. "
+    else:
+        rates = ""
+    if not math.isfinite(k.value):
+        return (f"{item.name}: the raters recorded the same value for {share:.0%} of {k.n} people. {rates}"
+                "Kappa is undefined because both raters used a single category.")
+    text = (f"{item.name}: the raters recorded the same value for {share:.0%} of {k.n} people. {rates}"
+            f"Cohen's kappa, the agreement beyond what the raters' own rates would give by chance, is {_fmt(k.value)} "
+            f"({k.confidence:.0%} CI {_fmt(k.lower)} to {_fmt(k.upper)}).")
+    if wk is not None and math.isfinite(wk.value):
+        text += f" With quadratic weights, which count near misses between ordered categories as part agreement, it is {_fmt(wk.value)} ({_fmt(wk.lower)} to {_fmt(wk.upper)})."
+    return text
+
+
+def _continuous_sentence(item: RatedItem, table: ICCTable, ba: BlandAltmanResult) -> str:
+    a, c = table["2,1"], table["3,1"]
+    return (
+        f"{item.name}: for {ba.n} people, ICC(2,1) (absolute agreement of single readings) is {_fmt(a.value)} "
+        f"({a.confidence:.0%} CI {_fmt(a.lower)} to {_fmt(a.upper)}) and ICC(3,1) (consistency, ignoring a fixed offset) {_fmt(c.value)}. "
+        f"On average {item.rater_a} reads {_fmt(abs(ba.bias), 3)} {'higher' if ba.bias >= 0 else 'lower'} than {item.rater_b} "
+        f"({ba.confidence:.0%} CI of the bias {_fmt(ba.bias_interval[0], 3)} to {_fmt(ba.bias_interval[1], 3)}); "
+        f"for 95% of people the difference is expected between {_fmt(ba.lower, 3)} and {_fmt(ba.upper, 3)} in the item's units. "
+        "Whether differences this large matter is a clinical judgement."
+    )
+
+
+def _item_agreement(item: RatedItem, ratings: pd.DataFrame, study: Study, cohorts: Cohorts) -> ItemAgreement:
+    a, b = ratings[item.rater_a], ratings[item.rater_b]
+    both = (a.notna() & b.notna()).to_numpy()
+    a, b = a[both].reset_index(drop=True), b[both].reset_index(drop=True)
+    notes: list[str] = []
+    k = wk = table = ba = published = None
+    levels: list[str] = []
+    order = "numeric"
+    text = ""
+    if len(a) < len(ratings):
+        notes.append(f"{len(ratings) - len(a)} of {len(ratings)} rows lack a reading from one or both raters and are left out.")
+    try:
+        if item.scale == "continuous":
+            table = icc_table(pd.DataFrame({"a": a, "b": b}))
+            ba = bland_altman(a, b)
+            text = _continuous_sentence(item, table, ba)
+        else:
+            levels, order = _level_order(pd.concat([a, b]), item, study, cohorts)
+            k = kappa(a, b, levels=levels)
+            if item.scale == "ordinal":
+                wk = kappa(a, b, levels=levels, weights="quadratic")
+                if order == "sorted as text":
+                    notes.append(f"The order of the categories of {item.name} is not known (not numbers, no study levels); they were sorted as text, which the weighted kappa depends on.")
+            notes.extend(k.warnings)
+            published = publish_cross_table(k.table, min_cell_count=study.output.min_cell_count, bands=wk is not None)
+            text = _kappa_sentence(item, k, wk, levels, published)
+    except DataError as exc:
+        notes.append(f"Not computed: {exc}")
+        text = f"{item.name}: agreement could not be computed ({exc})."
+    return ItemAgreement(
+        name=item.name, scale=item.scale, rater_a=item.rater_a, rater_b=item.rater_b,
+        n_rows=len(ratings), n_pairs=int(both.sum()), levels=tuple(levels), level_order=order if levels else "",
+        kappa=k, weighted_kappa=wk, icc=table, bland_altman=ba,
+        min_cell_count=study.output.min_cell_count, text=text, warnings=tuple(notes), published=published,
+    )
+
+
+# --------------------------------------------------------------------------
+# risk and decision agreement
+# --------------------------------------------------------------------------
+
+def _as_form(values: pd.Series, form: str, where: str) -> pd.Series:
+    if form == "categorical":
+        return values.astype("object").where(values.notna(), None)
+    numbers = pd.to_numeric(values, errors="coerce")
+    bad = values.notna() & numbers.isna()
+    if bad.any():
+        shown = sorted({str(v) for v in values[bad]})[:5]
+        raise DataError(problem(where, allowed="numbers (the predictor is numeric in the model)", received=f"{int(bad.sum())} value(s) such as {shown}"))
+    return numbers.astype(float)
+
+
+def _fixed_value(cohorts: Cohorts, name: str) -> Any:
+    d = cohorts.derivation
+    column = d.frame[name]
+    if d.forms.get(name) == "categorical":
+        counts = column.value_counts()
+        order = list(d.category_levels.get(name, sorted(counts.index)))
+        return max(order, key=lambda lv: (int(counts.get(lv, 0)), -order.index(lv)))
+    return float(np.median(column.to_numpy(dtype=float)))
+
+
+def _risk_sentence(c: CutRiskAgreement) -> str:
+    ba = c.risks
+    text = (
+        f"Risk of '{c.label}': the rater_a readings give risks {_fmt(abs(ba.bias) * 100, 1)} percentage points "
+        f"{'higher' if ba.bias >= 0 else 'lower'} than the rater_b readings on average; for 95% of people the two risks differ by between "
+        f"{_fmt(ba.lower * 100, 1)} and {_fmt(ba.upper * 100, 1)} percentage points."
+    )
+    for d in c.decisions:
+        text += f" At the threshold {d.threshold:g}, the raters' readings lead to different decisions for {d.discordant} of {d.n} people"
+        if math.isfinite(d.decisions.value):
+            text += f" (kappa on the decisions {_fmt(d.decisions.value)})."
+        else:
+            text += "; everyone falls on the same side of the threshold with both raters' readings, so kappa on the decisions is undefined."
+    if not c.decisions:
+        text += " The study gives no threshold for this cut, so decisions were not compared."
+    return text
+
+
+def _risk_agreement(study: Study, cohorts: Cohorts, model: PredictionModel, ratings: pd.DataFrame) -> tuple[RiskAgreement | None, str]:
+    levels = tuple(study.outcome.ordered_levels)
+    if tuple(model.levels) != levels:
+        raise ModelFileError(problem("agreement: model outcome levels", allowed=f"the study's levels {list(levels)}", received=list(model.levels)))
+    items = study.agreement.items
+    sources = list(model.design.sources)
+    in_model = [it for it in items if it.name in sources]
+    not_in = tuple(it.name for it in items if it.name not in sources)
+    if not in_model:
+        return None, "None of the rated items is a predictor of the model, so the raters' readings cannot change its predicted risk."
+    raw = read_table(study.data.ratings, missing_values=study.data.missing_values)
+    forms = cohorts.derivation.forms
+    rated = {it.name for it in in_model}
+    unknown = [s for s in sources if s not in rated and s not in raw.columns and s not in cohorts.derivation.frame.columns]
+    if unknown:
+        return None, f"The model uses {unknown}, which neither the ratings file nor the derivation cohort holds, so the risks could not be computed."
+    from_file = tuple(s for s in sources if s not in rated and s in raw.columns)
+    fixed = {s: _fixed_value(cohorts, s) for s in sources if s not in rated and s not in raw.columns}
+    frames = []
+    for key in ("rater_a", "rater_b"):
+        columns = {}
+        for s in sources:
+            form = forms.get(s, "linear")
+            if s in rated:
+                column = getattr(next(it for it in in_model if it.name == s), key)
+                columns[s] = _as_form(ratings[column], form, f"{study.data.ratings}: column {column!r}")
+            elif s in from_file:
+                columns[s] = _as_form(raw[s].reset_index(drop=True), form, f"{study.data.ratings}: column {s!r}")
+            else:
+                columns[s] = pd.Series([fixed[s]] * len(ratings), dtype=object if forms.get(s) == "categorical" else float)
+        frames.append(pd.DataFrame(columns))
+    complete = (frames[0].notna().all(axis=1) & frames[1].notna().all(axis=1)).to_numpy()
+    if complete.sum() < 3:
+        return None, f"Only {int(complete.sum())} people have every reading the model uses from both raters; at least 3 are needed to compare risks."
+    prob_a = model.predict_proba(frames[0][complete].reset_index(drop=True))
+    prob_b = model.predict_proba(frames[1][complete].reset_index(drop=True))
+    binary = study.outcome.type == "binary"
+    cuts = []
+    for j in range(len(levels) - 1):
+        risk_a, risk_b = prob_a[:, j + 1 :].sum(axis=1), prob_b[:, j + 1 :].sum(axis=1)
+        decisions = tuple(decision_agreement(risk_a, risk_b, threshold=t) for t in study.thresholds_for_cut(j))
+        draft = CutRiskAgreement(cut=j, label=cut_label(levels, j, binary=binary), risks=bland_altman(risk_a, risk_b), decisions=decisions,
+                                 min_cell_count=study.output.min_cell_count, text="")
+        cuts.append(dataclasses.replace(draft, text=_risk_sentence(draft)))
+    note = _DEVICE
+    if from_file:
+        note = note.replace("predictors the ratings file does not hold are fixed", f"predictors read from the ratings file ({', '.join(from_file)}) are used as recorded; the others are fixed")
+    if not fixed:
+        note = "Every predictor of the model comes from the ratings file, so these are the risks the model gives the people rated, once with each rater's readings."
+    result = RiskAgreement(
+        model_sha256=model.digest(), items_in_model=tuple(it.name for it in in_model), items_not_in_model=not_in,
+        from_ratings_file=from_file, fixed=fixed, n=int(complete.sum()), cuts=tuple(cuts), device_note=note,
+    )
+    return result, note
+
+
+# --------------------------------------------------------------------------
+# public functions
+# --------------------------------------------------------------------------
+
+def assess(study: Study, *, cohorts: Cohorts | None = None, model: PredictionModel | None = None) -> AgreementOutput:
+    """Agreement of the raters on each rated item and, given a model, on risk and decision.
+
+    Parameters
+    ----------
+    study : Study
+        A study with an ``agreement`` section and ``data.ratings``.
+    cohorts : Cohorts, optional
+        The study's data (:func:`riskvet.data.load_cohorts`); read when omitted.
+    model : PredictionModel, optional
+        The frozen model.  Without it only the predictors' agreement is assessed.
+
+    Returns
+    -------
+    AgreementOutput
+
+    Raises
+    ------
+    StudyError
+        No ``agreement`` section.
+    ModelFileError
+        A model whose outcome levels are not the study's.
+    DataError
+        From reading the data, or a rated reading the model cannot use.
+
+    Notes
+    -----
+    Binary and ordinal items: Cohen's kappa (1960), with quadratic weights
+    (Cohen 1968) as well for ordinal items; categories are ordered as
+    numbers when they all are numbers, otherwise by the study's or the
+    derivation cohort's levels.  Continuous items: all six intraclass
+    correlations of Shrout & Fleiss (1979), of which ICC(2,1) and ICC(3,1)
+    are shown, since the same two raters rated everyone; and Bland–Altman
+    95% limits of agreement of rater_a − rater_b (1986).  Only pairs with
+    both readings are used; the number left out is recorded.
+
+    Risk and decision: the model's P(Y > j) from each rater's readings, other
+    predictors as in the ratings file when it holds them, else fixed at the
+    derivation cohort's median or most frequent category.
+
+    References
+    ----------
+    Cohen J. A coefficient of agreement for nominal scales. Educational and
+    Psychological Measurement 1960; 20(1): 37–46.
+
+    Cohen J. Weighted kappa: nominal scale agreement with provision for scaled
+    disagreement or partial credit. Psychological Bulletin 1968; 70(4): 213–220.
+
+    Shrout PE, Fleiss JL. Intraclass correlations: uses in assessing rater
+    reliability. Psychological Bulletin 1979; 86(2): 420–428.
+
+    Bland JM, Altman DG. Statistical methods for assessing agreement between
+    two methods of clinical measurement. Lancet 1986; 327(8476): 307–310.
+    """
+    if not isinstance(study, Study):
+        raise StudyError(problem("assess(study)", allowed="a Study from load_study", received=type(study).__name__))
+    if study.agreement is None:
+        raise StudyError(problem("agreement", allowed="an agreement section listing the rated items", received="no agreement section"))
+    cohorts = load_cohorts(study) if cohorts is None else cohorts
+    ratings = cohorts.ratings
+    if ratings is None:
+        raise StudyError(problem("data.ratings", allowed="the paired-ratings file", received=None))
+    ratings = ratings.reset_index(drop=True)
+    items = tuple(_item_agreement(it, ratings, study, cohorts) for it in study.agreement.items)
+    items_text = (
+        f"Agreement of the two raters was assessed for {len(items)} item(s) in {len(ratings)} people rated by both. "
+        "Kappa and the intraclass correlation are 1 for perfect agreement and 0 for agreement no better than chance; "
+        "the limits of agreement are in the item's own units."
+    )
+    if model is None:
+        risk, note = None, (
+            "Whether the raters' readings give the same predicted risk and decision needs the frozen model, "
+            "which did not exist when this stage ran; only the predictors' agreement is reported."
+        )
+        risk_text = note
+    else:
+        risk, note = _risk_agreement(study, cohorts, model, ratings)
+        risk_text = note if risk is None else note + " " + " ".join(c.text for c in risk.cuts)
+    return AgreementOutput(items=items, risk=risk, risk_note=note,
+                           texts={"summary": _summary(items, risk), "items": items_text, "risk": risk_text})
+
+
+def _summary(items: tuple[ItemAgreement, ...], risk: RiskAgreement | None) -> str:
+    parts = []
+    for it in items:
+        if it.kappa is not None:
+            k = it.weighted_kappa if it.weighted_kappa is not None else it.kappa
+            kind = "quadratic-weighted kappa" if it.weighted_kappa is not None else "kappa"
+            parts.append(f"{it.name} {kind} {_fmt(k.value)} ({_fmt(k.lower)} to {_fmt(k.upper)})")
+        elif it.icc is not None:
+            r = it.icc["2,1"]
+            parts.append(f"{it.name} ICC(2,1) {_fmt(r.value)} ({_fmt(r.lower)} to {_fmt(r.upper)}), "
+                         f"limits of agreement {_fmt(it.bland_altman.lower, 3)} to {_fmt(it.bland_altman.upper, 3)}")
+    text = "Rater agreement: " + "; ".join(parts) + "." if parts else "Rater agreement could not be computed for any item."
+    if risk is None:
+        return text + " Agreement of predicted risk was not assessed."
+    limits = "; ".join(f"'{c.label}' {_fmt(c.risks.lower * 100, 1)} to {_fmt(c.risks.upper * 100, 1)}" for c in risk.cuts)
+    fixed = ", other predictors fixed" if risk.fixed else ""
+    return text + f" Limits of agreement of the predicted risk from each rater's readings (percentage points{fixed}): {limits}."
+
+
+def _figure_name(prefix: str, name: str) -> str:
+    return f"{prefix}_{re.sub(r'[^A-Za-z0-9_-]+', '_', name)}"
+
+
+def run(ctx) -> AgreementOutput:
+    """Run the agreement stage: results JSON and Bland–Altman figures.
+
+    Parameters
+    ----------
+    ctx : riskvet.stagekit.StageContext
+        The stage's context.  The model at ``ctx.model_path`` is used when
+        that file exists.
+
+    Returns
+    -------
+    AgreementOutput
+        With ``figures`` naming the PNG files written (SVG beside each).
+
+    Raises
+    ------
+    RecordError
+        The record already holds this stage's results.
+    """
+    from ...reporting.figures.agreement import plot_item_agreement, plot_risk_agreement
+
+    if ctx.results_path.exists():
+        ctx.new_path(ctx.results_path)  # raises: records are write-once, checked before any work
+    model = load_model(ctx.model_path) if ctx.model_path.is_file() else None
+    # Warnings are recorded on the results and listed in the notebook's notes,
+    # rather than printed into the reviewer's page as they arise.
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", RiskvetWarning)
+        out = assess(ctx.study, model=model)
+    notes = tuple(dict.fromkeys(str(w.message) for w in caught if issubclass(w.category, RiskvetWarning)))
+    figures: dict[str, str] = {}
+
+    def save(name: str, fig) -> None:
+        ctx.save_figure(fig, name)
+        figures[name] = (ctx.figures_dir / f"{name}.png").relative_to(ctx.record_dir).as_posix()
+
+    for item in out.items:
+        if item.bland_altman is not None:
+            name = _figure_name("bland_altman", item.name)
+            save(name, plot_item_agreement(item))
+    if out.risk is not None:
+        for c in out.risk.cuts:
+            name = f"risk_bland_altman_cut{c.cut}"
+            save(name, plot_risk_agreement(c))
+    out = dataclasses.replace(out, figures=figures, notes=notes)
+    ctx.write_results(out.to_dict())
+    return out

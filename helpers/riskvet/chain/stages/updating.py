@@ -1,0 +1,275 @@
+"""The updating stage: update the frozen model on one validation cohort.
+
+:func:`run` fits the whole updating hierarchy on the cohort named by
+``updating.cohort`` (the first validation cohort by default), chooses among
+the updates by the closed testing procedure at ``updating.alpha``
+(:func:`riskvet.update.update_model`), writes every update as a new model
+file into the record's ``models/`` folder (never overwriting one), and
+writes ``results/updating.json`` with every test, the choice, the
+performance before and after, and the figure.
+
+Performance of an update on the data that fitted it is optimistic; the stage
+says so in its results and its notebook, and adds bootstrap-corrected
+figures for the chosen update (``external_validation.n_boot`` replicates,
+seed ``external_validation.seed``, repeating the whole procedure in each).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Mapping
+
+import pandas as pd
+
+from ..._jsonable import to_jsonable
+from ...intake.data import load_cohorts
+from ...errors import StudyError, problem
+from ...modelling.modelfile import load_model, save_model
+from ...intake.study import Study
+from ...intake.outcome import cut_name
+from ...validation.external import measure_label
+from ...validation.update import UpdateResult, method_label, method_name, update_model
+from .external_validation import figure_name, label_slug
+
+__all__ = ["UpdatingOutput", "run", "update_study_model"]
+
+_CAUTION = (
+    "Statistical evaluation is not clearance for clinical use: local validation, governance and "
+    "licensed clinical judgement decide whether a model is used."
+)
+
+
+@dataclass(frozen=True)
+class UpdatingOutput:
+    """Everything the updating stage did.
+
+    Attributes
+    ----------
+    result : UpdateResult
+        Every update, the closed test and the performance.
+    model_files : dict of str to dict
+        Method -> ``{"path": relative to the record, "sha256": digest}`` of
+        the model file written for it.
+    figures : dict of str to str
+        Figure name -> PNG path relative to the record.
+    texts : dict of str to str
+        One interpreting paragraph per notebook table or figure: ``choice``,
+        ``tests``, ``performance``, ``optimism``, ``calibration``, ``models``,
+        ``coefficients``, ``caution``.
+    """
+
+    result: UpdateResult = field(repr=False)
+    model_files: Mapping[str, Mapping[str, str]]
+    figures: Mapping[str, str]
+    texts: Mapping[str, str]
+
+    @property
+    def _levels(self) -> tuple[str, ...]:
+        return tuple(self.result.fits["original"].model.levels)
+
+    def _name(self, method: str) -> str:
+        return method_name(method, binary=len(self._levels) == 2)
+
+    def tests_frame(self) -> pd.DataFrame:
+        """Every likelihood-ratio test of the closed procedure, the updates by name."""
+        table = self.result.closed_test.to_frame()
+        for column in ("simpler", "extensive"):
+            table[column] = [self._name(m) for m in table[column]]
+        return table
+
+    def fits_frame(self) -> pd.DataFrame:
+        """One row per update: name, description, parameters estimated, log-likelihood, chosen, model file."""
+        table = self.result.to_frame()
+        files = [self.model_files.get(m, {}).get("path", "") for m in table["method"]]
+        table.insert(0, "update", [self._name(m) for m in table["method"]])
+        table = table.drop(columns="method").rename(columns={"label": "description"})
+        table["model_file"] = files
+        return table
+
+    def performance_frame(self) -> pd.DataFrame:
+        """Measures on the updating data: one column per model (apparent), and the chosen model's corrected value.
+
+        Rows are named in words (``measure``, ``outcome``); for a binary outcome
+        the measures of an ordered outcome, which equal the C statistic, are
+        left out.  Values are rounded to 3 decimals for reading.
+        """
+        t = self.result.performance.to_frame()
+        levels = self._levels
+        K = len(levels)
+        chosen = self.result.closed_test.chosen
+        base = t[t["method"] == "original"].reset_index(drop=True)
+        cuts = [None if pd.isna(c) else int(c) for c in base["cut"]]
+        rows = pd.DataFrame({"measure": [measure_label(m, K) for m in base["measure"]], "outcome": [cut_name(levels, c) for c in cuts]})
+        for method in self.result.fits:
+            rows[self._name(method)] = t.loc[t["method"] == method, "apparent"].to_numpy()
+        rows[f"{self._name(chosen)} (bootstrap-corrected)"] = t.loc[t["method"] == chosen, "corrected"].to_numpy()
+        if K == 2:
+            rows = rows[~base["measure"].isin(("average_cut_auc", "ordinal_c", "generalised_c")).to_numpy()].reset_index(drop=True)
+        numeric = [c for c in rows.columns if c not in ("measure", "outcome")]
+        rows[numeric] = rows[numeric].astype(float).round(3)
+        return rows
+
+    def coefficients_frame(self) -> pd.DataFrame:
+        """Thresholds and coefficients of the original and the chosen model side by side."""
+        table = self.result.fits["original"].model.coefficient_table().rename(columns={"estimate": "original"})
+        chosen_fit = self.result.chosen
+        if chosen_fit.method != "original":
+            chosen = chosen_fit.model.coefficient_table().rename(columns={"estimate": self._name(chosen_fit.method)})
+            table = table.merge(chosen, on="parameter", how="outer", sort=False)
+        return table
+
+    def to_frame(self) -> pd.DataFrame:
+        return self.fits_frame()
+
+    def to_dict(self) -> dict[str, Any]:
+        return to_jsonable(
+            {
+                "result": self.result.to_dict(),
+                "model_files": {k: dict(v) for k, v in self.model_files.items()},
+                "figures": dict(self.figures),
+                "texts": dict(self.texts),
+            }
+        )
+
+
+def update_study_model(study: Study, model, cohorts) -> UpdateResult:
+    """Run :func:`riskvet.update.update_model` with the study's settings on its updating cohort."""
+    label = study.updating_cohort
+    if label is None or label not in cohorts.validation:
+        raise StudyError(problem("updating.cohort", allowed=f"a validation cohort label among {list(cohorts.validation)}", received=label))
+    cohort = cohorts.validation[label]
+    ev = study.external_validation
+    return update_model(
+        model, cohort.frame, cohort.y, alpha=study.updating.alpha, new_predictors=dict(study.updating.new_predictors),
+        cohort=label, n_boot=ev.n_boot, seed=ev.seed, n_jobs=study.compute.n_jobs, scheduler=study.compute.scheduler,
+    )
+
+
+def _capital(text: str) -> str:
+    return text[:1].upper() + text[1:]
+
+
+def _texts(result: UpdateResult, files: Mapping[str, Mapping[str, str]]) -> dict[str, str]:
+    ct = result.closed_test
+    chosen = result.chosen
+    levels = tuple(result.fits["original"].model.levels)
+    binary = len(levels) == 2
+    most = method_name(ct.most_extensive, binary=binary)
+    # The notebook states the optimism warning once, beside the performance table.
+    texts = {"caution": _CAUTION, "choice": result.summary(caution=False)}
+    texts["calibration"] = (
+        "Smoothed observed proportion against predicted risk on the updating data, for the original model and "
+        + ("the original model again (no update was chosen)." if chosen.method == "original" else
+           f"the chosen update ({method_name(chosen.method, binary=binary)}); the updated curve is drawn on the data "
+           "that fitted it, so its closeness to the diagonal is optimistic.")
+    )
+    reached = [t for t in ct.tests if t.reached]
+    texts["tests"] = (
+        f"{len(ct.tests)} likelihood-ratio tests at alpha = {ct.alpha:g}; the procedure used {len(reached)} of them "
+        f"(the rest are shown for completeness). Each test asks whether the simpler model fits significantly worse than "
+        f"{most}, after the first has shown that the original fits worse than it."
+        if ct.tests[0].significant
+        else f"The first test found no evidence that {most} fits better than the original model, so "
+        "no update is needed on these data; the other tests are shown for completeness."
+    )
+    perf = result.performance.to_frame()
+
+    def value(method: str, measure: str, cut: int | None, column: str = "apparent") -> float:
+        rows = perf[(perf["method"] == method) & (perf["measure"] == measure)]
+        rows = rows[rows["cut"].isna()] if cut is None else rows[rows["cut"] == cut]
+        return float(rows[column].iloc[0]) if len(rows) else float("nan")
+
+    K = len(result.fits["original"].model.levels)
+    parts = []
+    if chosen.method == "original":
+        texts["performance"] = (
+            "The original model is kept, so its performance on these data is the external validation's: "
+            "the columns of the other updates show what each would have changed, on the data that fitted it."
+        )
+        texts["optimism"] = f"Warning: {result.performance.note}"
+        texts["models"] = (
+            f"Every update was still written as a new model file whose provenance names its parent model "
+            f"({result.parent_sha256[:12]}...), the method and the data it was updated on ({result.cohort}, "
+            f"{result.data_sha256[:12]}...), so that a reviewer can inspect them; the closed test chose none of them."
+        )
+        texts["coefficients"] = "The original model is kept; its thresholds and coefficients are unchanged."
+        return texts
+    for j in range(K - 1):
+        parts.append(
+            f"For {cut_name(levels, j)}, calibration-in-the-large moves from {value('original', 'calibration_intercept', j):+.2f} "
+            f"to {value(chosen.method, 'calibration_intercept', j):+.2f} and the slope from "
+            f"{value('original', 'calibration_slope', j):.2f} to {value(chosen.method, 'calibration_slope', j):.2f}."
+        )
+    c_key, c_cut, c_name = ("auc", 0, "C statistic") if binary else ("average_cut_auc", None, "average dichotomised C")
+    parts.append(
+        f"The {c_name} is {value('original', c_key, c_cut):.3f} before and "
+        f"{value(chosen.method, c_key, c_cut):.3f} after."
+    )
+    texts["performance"] = " ".join(parts)
+    if result.performance.n_boot and chosen.method != "original":
+        texts["optimism"] = (
+            f"Warning: {result.performance.note} With {result.performance.n_boot} bootstrap replicates repeating the whole "
+            f"procedure, the optimism-corrected {c_name} of the chosen update is "
+            f"{value(chosen.method, c_key, c_cut, 'corrected'):.3f}."
+        )
+    else:
+        texts["optimism"] = f"Warning: {result.performance.note}"
+    texts["models"] = (
+        f"Every update was written as a new model file whose provenance names its parent model "
+        f"({result.parent_sha256[:12]}...), the method and the data it was updated on ({result.cohort}, "
+        f"{result.data_sha256[:12]}...). The chosen file is {files.get(chosen.method, {}).get('path', 'the original model')}."
+    )
+    texts["coefficients"] = (
+        f"{_capital(method_label(chosen.method, binary=binary))}: thresholds and coefficients of the chosen model beside the original. "
+        "A recalibration keeps every coefficient's ratio to the others; a revision or extension re-estimates each one."
+    )
+    return texts
+
+
+def run(ctx) -> UpdatingOutput:
+    """Run the updating stage: model files, results JSON and figure.
+
+    Parameters
+    ----------
+    ctx : riskvet.stagekit.StageContext
+        The stage's context; the model updated is ``ctx.model_path``.
+
+    Returns
+    -------
+    UpdatingOutput
+
+    Raises
+    ------
+    RecordError
+        The record already holds this stage's results or one of its model files.
+    """
+    from ...reporting.figures.external_validation import plot_update_calibration
+
+    if ctx.results_path.exists():
+        ctx.new_path(ctx.results_path)  # raises: records are write-once, checked before any work
+    study = ctx.study
+    model = load_model(ctx.model_path)
+    cohorts = load_cohorts(study)
+    result = update_study_model(study, model, cohorts)
+
+    stem = ctx.model_path.stem
+    targets = {
+        method: ctx.models_dir / f"{stem}_{label_slug(result.cohort)}_{method}.json"
+        for method in result.fits
+        if method != "original"
+    }
+    for path in targets.values():
+        ctx.new_path(path)  # every file checked before any is written
+    files = {}
+    for method, path in targets.items():
+        saved = save_model(result.fits[method].model, path)
+        files[method] = {"path": saved.resolve().relative_to(ctx.record_dir).as_posix(), "sha256": result.fits[method].model.digest()}
+
+    figures: dict[str, str] = {}
+    name = figure_name("update_calibration", result.cohort)
+    ctx.save_figure(plot_update_calibration(result), name)
+    figures[name] = (ctx.figures_dir / f"{name}.png").relative_to(ctx.record_dir).as_posix()
+
+    out = UpdatingOutput(result=result, model_files=files, figures=figures, texts=_texts(result, files))
+    ctx.write_results(out.to_dict())
+    return out

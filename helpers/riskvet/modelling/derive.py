@@ -1,0 +1,156 @@
+"""The derivation procedure: from an analysis frame to a fitted model.
+
+:func:`derive` is the single definition of "how the model is made" in a
+study: it learns the design (spline knots, category levels) from the data it
+is given, runs the study's variable selection and fits the final model.
+Internal validation calls exactly this function inside every bootstrap
+replicate, so every modelling decision is repeated there.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .._jsonable import to_jsonable
+from ..intake.design import DesignSpec, build_design
+from ..errors import DataError
+from .selection import SelectionResult, select_terms
+from ..intake.study import Study
+
+__all__ = ["Derivation", "candidate_design", "derive"]
+
+
+@dataclass(frozen=True)
+class Derivation:
+    """A model derived by the study's procedure.
+
+    Attributes
+    ----------
+    candidate_design : DesignSpec
+        The design of every candidate term, learned from the derivation data.
+    design : DesignSpec
+        The design restricted to the selected terms, in the order of ``candidate_design``.
+    selection : SelectionResult
+        The selection path, its cross-validation curve and the final fit.
+    """
+
+    candidate_design: DesignSpec
+    design: DesignSpec
+    selection: SelectionResult
+
+    @property
+    def fit(self):
+        """The fitted final model (a :class:`riskvet.models.CumulativeFit`)."""
+        return self.selection.fit
+
+    @property
+    def terms(self) -> tuple[str, ...]:
+        """Selected terms, in design order."""
+        return tuple(t.name for t in self.design.terms)
+
+    def to_dict(self) -> dict[str, Any]:
+        return to_jsonable(
+            {
+                "candidate_design": self.candidate_design.to_dict(),
+                "design": self.design.to_dict(),
+                "selection": self.selection.to_dict(),
+            }
+        )
+
+    def to_frame(self) -> pd.DataFrame:
+        """The final model's parameter table."""
+        return self.fit.to_frame()
+
+
+def candidate_design(study: Study, frame: pd.DataFrame) -> DesignSpec:
+    """The design of every candidate term, learned from ``frame``.
+
+    Knots are placed at the study's quantiles of ``frame``; categorical levels
+    come from the study when listed, otherwise from ``frame``.
+    """
+    spec = study.predictors
+    linear, splines, categorical, levels = [], {}, {}, {}
+    for name in spec.in_analysis:
+        p = spec.candidates[name]
+        if p.form == "linear":
+            linear.append(name)
+        elif p.form == "spline":
+            splines[name] = p.knots
+        else:
+            categorical[name] = p.reference
+            if p.levels is not None:
+                levels[name] = list(p.levels)
+    return build_design(
+        frame,
+        linear=linear,
+        splines=splines,
+        categorical=categorical,
+        interactions=[(a, b) for a, b in spec.interactions],
+        levels=levels or None,
+    )
+
+
+def derive(
+    study: Study,
+    frame: pd.DataFrame,
+    y: np.ndarray,
+    *,
+    seed: int | None = None,
+    weights: np.ndarray | None = None,
+) -> Derivation:
+    """Run the study's whole derivation procedure on one data set.
+
+    Parameters
+    ----------
+    study : Study
+        The validated study settings (design, selection, model family).
+    frame : DataFrame
+        Complete-case analysis frame holding every predictor column.
+    y : array of int
+        Outcome codes 0..K-1 (see :func:`riskvet.intake.outcome.outcome_codes`).
+    seed : int, optional
+        Seed of the selection's cross-validation folds; the study's
+        ``selection.seed`` when omitted.  Bootstrap replicates pass their own.
+    weights : array of int, optional
+        Frequency weights: row i stands for ``weights[i]`` people (a bootstrap
+        resample given as counts).  The design is learned on the expanded
+        rows, so knots equal those of the resample written out row by row;
+        the fits equal the fits on the expanded rows; and the selection's
+        cross-validation deals people, not copies, to folds, so no copy of a
+        person is both in a training fold and in its held-out fold.
+
+    Returns
+    -------
+    Derivation
+    """
+    if weights is not None:
+        counts = np.asarray(weights)
+        if counts.shape != (len(frame),) or np.any(counts < 0) or not np.all(counts == np.round(counts)):
+            raise DataError(f"derive(weights=): expected {len(frame)} whole, non-negative counts; received shape {counts.shape}")
+        keep = counts > 0
+        frame, y, counts = frame.loc[keep], np.asarray(y)[keep], counts[keep].astype(np.int64)
+        design = candidate_design(study, frame.iloc[np.repeat(np.arange(len(frame)), counts)])
+    else:
+        counts = None
+        design = candidate_design(study, frame)
+    X = design.transform(frame)
+    forced = [t for t in study.predictors.forced if t in design.term_columns]
+    result = select_terms(
+        X,
+        np.asarray(y),
+        groups=design.term_columns,
+        forced=forced,
+        method=study.selection.method,
+        n_folds=study.selection.folds,
+        seed=study.selection.seed if seed is None else seed,
+        link=study.model.link,
+        proportional=study.model.proportional,
+        weights=counts,
+    )
+    chosen = set(result.terms)
+    final = design.subset([t.name for t in design.terms if t.name in chosen])
+    return Derivation(candidate_design=design, design=final, selection=result)

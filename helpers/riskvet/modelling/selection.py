@@ -1,0 +1,654 @@
+"""Variable selection for cumulative-link models, on a model matrix grouped by term.
+
+A term (a predictor) owns one or more columns of the model matrix: a
+spline basis or the indicators of a categorical predictor enter and leave
+together.  Three methods are offered, as the field uses them (and warns about
+them; Harrell 2015, section 4.3):
+
+* ``"forward"``: a forward stepwise path by score tests, the model size
+  chosen by k-fold cross-validated test log-likelihood, the path then re-run
+  on all data up to that size;
+* ``"backward"``: backward elimination by AIC from the full model;
+* ``"none"``: the pre-specified model with every term.
+
+Selection is a deterministic function of the data, the options and the
+seed, so that a bootstrap can repeat it in every resample.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import warnings
+from typing import Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+from scipy import special
+
+from .._jsonable import to_jsonable
+from ..errors import ConvergenceWarning, DesignError, FitError, RiskvetWarning, SeparationWarning, problem
+from .fitter import (
+    CumulativeFit,
+    _as_matrix,
+    _as_outcome,
+    _as_vector,
+    _check_levels,
+    _evaluate,
+    _fit_arrays,
+    _grad_hess,
+    _make_design,
+    _separated_columns,
+    fit_cumulative,
+    one_blas_thread,
+)
+from .links import LINKS
+
+__all__ = ["select_terms", "SelectionResult", "METHODS"]
+
+METHODS = ("forward", "backward", "none")
+
+_PATH_COLUMNS = ["step", "action", "term", "criterion", "statistic", "df", "p", "loglik", "aic", "n_params"]
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class SelectionResult:
+    """Outcome of :func:`select_terms`.
+
+    Attributes
+    ----------
+    method : str
+        ``"forward"``, ``"backward"`` or ``"none"``.
+    terms : tuple of str
+        Terms of the chosen model: forced terms first, then the others in
+        entry order (forward) or in the order of ``groups`` (backward, none).
+    forced : tuple of str
+        Terms kept in every model.
+    columns : tuple of str
+        Model-matrix columns of the chosen model, in the order of ``terms``.
+    path : pandas.DataFrame
+        One row per step on all data: step, action ("start", "add",
+        "remove"), term, criterion ("score" or "aic"), statistic (score
+        statistic, or the AIC after the removal), df, p (score test, or the
+        likelihood-ratio test of the removal), loglik, aic and n_params of
+        the model after the step.
+    cv : pandas.DataFrame or None
+        Forward method: for each model size (number of terms entered beyond
+        the forced ones) the mean over folds of the test log-likelihood per
+        observation, its standard error across folds, and the number of folds
+        whose path reached that size.  None for the other methods.
+    cv_by_fold : pandas.DataFrame or None
+        Long table: fold, size, test log-likelihood per observation.
+    size : int or None
+        Chosen number of non-forced terms (forward).
+    fit : CumulativeFit
+        The chosen model fitted on all data.
+    seed : int or None
+        Seed of the fold assignment (None if a Generator was given or no
+        cross-validation was run).
+    n_folds : int or None
+        Number of folds (forward).
+    link : str
+        Link of every fit.
+    proportional : bool
+        Model form of every fit.
+    warnings : tuple of str
+        Trouble met along the way (fold paths cut short, fits that did not
+        converge or hinted at separation) and the final fit's warnings.
+    """
+
+    method: str
+    terms: tuple
+    forced: tuple
+    columns: tuple
+    path: pd.DataFrame
+    cv: pd.DataFrame | None
+    cv_by_fold: pd.DataFrame | None
+    size: int | None
+    fit: CumulativeFit
+    seed: int | None
+    n_folds: int | None
+    link: str
+    proportional: bool
+    warnings: tuple
+
+    def to_frame(self) -> pd.DataFrame:
+        """The selection path (see ``path``)."""
+        return self.path.copy()
+
+    def to_dict(self) -> dict:
+        return to_jsonable(
+            {
+                "method": self.method,
+                "terms": list(self.terms),
+                "forced": list(self.forced),
+                "columns": list(self.columns),
+                "size": self.size,
+                "seed": self.seed,
+                "n_folds": self.n_folds,
+                "link": self.link,
+                "proportional": self.proportional,
+                "path": self.path,
+                "cv": self.cv,
+                "warnings": list(self.warnings),
+                "fit": self.fit.to_dict(),
+            }
+        )
+
+
+# ---------------------------------------------------------------------------
+# Pieces
+# ---------------------------------------------------------------------------
+
+
+def _log_chi2_sf(stat: float, df: int) -> float:
+    """log P(chi2_df > stat), finite far into the tail.
+
+    Notes
+    -----
+    Below 1e-300 the upper incomplete gamma function is replaced by its
+    asymptotic form ``Gamma(s, x) ~ x^(s-1) e^(-x) (1 + (s-1)/x)`` with
+    ``s = df/2``, ``x = stat/2`` (Abramowitz & Stegun 1964, section 6.5), good enough to
+    rank terms whose p-values underflow.
+    """
+    sf = special.chdtrc(df, stat)
+    if sf > 1e-300:
+        return math.log(sf)
+    s = df / 2.0
+    x = stat / 2.0
+    return (s - 1.0) * math.log(x) - x - special.gammaln(s) + math.log1p((s - 1.0) / x)
+
+
+class _Problem:
+    """The data of one selection, rows sorted by outcome level."""
+
+    def __init__(self, X, y, K, w, unit, link, proportional, term_cols, names, term_names):
+        # Columns are taken from the transposed copy, so that sub-matrices are
+        # Fortran-ordered and the fitter's own transposed copy is free.
+        self.XT = np.ascontiguousarray(X.T)
+        self.y = y
+        self.K = K
+        self.w = w
+        self.unit = unit
+        self.link = link
+        self.proportional = proportional
+        self.term_cols = term_cols  # list of column-index lists, by term position
+        self.names = names  # column names
+        self.term_names = term_names
+        self.m = K - 1
+
+    def per_col(self) -> int:
+        return 1 if self.proportional else self.m
+
+    def columns(self, rows, cols) -> np.ndarray:
+        """Rows x columns sub-matrix (Fortran-ordered)."""
+        return (self.XT[np.ix_(cols, rows)] if rows is not None else self.XT[cols]).T
+
+    def fit(self, rows, cols, start=None):
+        Xs = self.columns(rows, cols)
+        y = self.y if rows is None else self.y[rows]
+        w = None if self.unit else (self.w if rows is None else self.w[rows])
+        return _fit_arrays(
+            Xs, y, self.K, proportional=self.proportional, link=self.link, weights=w, start=start,
+            names=[self.names[c] for c in cols], need_cov=False,
+        )
+
+    def test_loglik(self, rows, cols, params) -> float:
+        """Weighted mean log-probability of the observed levels of ``rows``."""
+        Xt = self.columns(rows, cols)
+        yt = self.y[rows]
+        wt = np.ones(len(rows)) if self.unit else self.w[rows]
+        d = _make_design(Xt, yt, self.K, wt, None, self.link, self.proportional, self.unit)
+        ll = _evaluate(d, params)[0]
+        return ll / float(wt.sum()) if np.isfinite(ll) else -math.inf
+
+    def score_tests(self, raw, rows, cols, candidates):
+        """Score statistic, df and log p-value of adding each candidate term.
+
+        Notes
+        -----
+        At the current estimates (candidate coefficients zero) with score
+        ``U`` and observed information ``I`` of the model holding every
+        candidate column, the statistic of candidate ``g`` is
+        ``U_g' S_g^{-1} U_g`` with ``S_g = I_gg - I_gc I_cc^{-1} I_cg`` the
+        information of ``g`` adjusted for the current parameters ``c`` (Rao
+        1948), chi-squared with ``n_columns(g)`` (times K-1 if
+        non-proportional) df.  A candidate whose adjusted information is
+        numerically zero (a column collinear with the model, in this subset
+        of rows) cannot enter.
+        """
+        cand_cols = [c for t in candidates for c in self.term_cols[t]]
+        Xs = self.columns(rows, cols + cand_cols)
+        g, H = _grad_hess(raw.design, raw.pieces, X=Xs)
+        info = -H
+        q = raw.params.shape[0]
+        Icc = info[:q, :q]
+        Icn = info[:q, q:]
+        try:
+            L = np.linalg.cholesky(Icc)
+            Z = np.linalg.solve(L, Icn)
+            S = info[q:, q:] - Z.T @ Z
+        except np.linalg.LinAlgError:
+            return [(t, math.nan, 0, math.nan) for t in candidates]
+        U = g[q:]
+        k = self.per_col()
+        s_diag = np.diag(S)
+        # Adjusted information numerically zero relative to the unadjusted one:
+        # the column is (in these rows) a combination of the model's columns.
+        degenerate = s_diag <= 1e-10 * np.maximum(np.diag(info)[q:], 1e-300)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            single = U * U / s_diag
+        out = []
+        pos = 0
+        for t in candidates:
+            width = len(self.term_cols[t]) * k
+            sl = slice(pos, pos + width)
+            pos += width
+            if np.any(degenerate[sl]):
+                out.append((t, math.nan, width, math.nan))
+                continue
+            if width == 1:
+                stat = float(single[pos - 1])
+            else:
+                try:
+                    stat = float(U[sl] @ np.linalg.solve(S[sl, sl], U[sl]))
+                except np.linalg.LinAlgError:
+                    out.append((t, math.nan, width, math.nan))
+                    continue
+            stat = max(stat, 0.0)
+            out.append((t, stat, width, _log_chi2_sf(stat, width) if stat > 0 else 0.0))
+        return out
+
+
+def _aic(raw) -> float:
+    return -2.0 * raw.loglik + 2.0 * raw.params.shape[0]
+
+
+def _trouble(raw, cols: list[int], known: list[frozenset]) -> tuple[int, int]:
+    """(did not converge, separated) for one fit.
+
+    The separation check (a linear programme) runs only on suspicion, and
+    not at all when the model holds a set of columns already found to
+    separate these rows: adding columns cannot undo a separation, since the
+    separating direction remains available.
+    """
+    separated = 0
+    if raw.suspect_separation:
+        if any(k <= set(cols) for k in known):
+            separated = 1
+        else:
+            found = _separated_columns(raw.design)
+            if found:
+                known.append(frozenset(cols[j] for j in found))
+                separated = 1
+    return int(not raw.converged and not separated), separated
+
+
+def _forward(prob: _Problem, rows, forced, free, max_size, test_rows=None):
+    """Forward path from the forced terms; returns steps, test log-likelihoods, trouble."""
+    terms = list(forced)
+    cols = [c for t in terms for c in prob.term_cols[t]]
+    raw = prob.fit(rows, cols)
+    steps = [("start", None, math.nan, 0, math.nan, raw)]
+    tests = [prob.test_loglik(test_rows, cols, raw.params)] if test_rows is not None else []
+    known_separations: list[frozenset] = []
+    trouble = np.array(_trouble(raw, cols, known_separations))
+    stop_reason = None
+    remaining = list(free)
+    while len(terms) - len(forced) < max_size and remaining:
+        scores = [s for s in prob.score_tests(raw, rows, cols, remaining) if not math.isnan(s[1])]
+        if not scores:
+            stop_reason = "no remaining term could enter (collinear with the model)"
+            break
+        # Smallest p-value; underflowing p-values are ranked by the log tail,
+        # then by statistic per df, then by term order (stable).
+        best = min(scores, key=lambda s: (s[3], -s[1] / max(s[2], 1)))
+        t = best[0]
+        new_cols = cols + list(prob.term_cols[t])
+        start = np.r_[raw.params, np.zeros(len(prob.term_cols[t]) * prob.per_col())]
+        try:
+            new_raw = prob.fit(rows, new_cols, start=start)
+        except FitError as exc:
+            stop_reason = f"fit after adding {prob.term_names[t]!r} failed: {exc}"
+            break
+        raw, cols = new_raw, new_cols
+        terms.append(t)
+        remaining.remove(t)
+        trouble += _trouble(raw, cols, known_separations)
+        steps.append(("add", t, best[1], best[2], best[3], raw))
+        if test_rows is not None:
+            tests.append(prob.test_loglik(test_rows, cols, raw.params))
+    return terms, cols, raw, steps, tests, trouble, stop_reason
+
+
+def _path_frame(prob: _Problem, steps, criterion: str) -> pd.DataFrame:
+    rows = []
+    for i, (action, t, stat, df, logp, raw) in enumerate(steps):
+        if criterion == "score":
+            pval = math.exp(logp) if not math.isnan(logp) else math.nan
+        else:
+            pval = logp  # backward steps carry the LR p-value directly
+        rows.append(
+            {
+                "step": i,
+                "action": action,
+                "term": "" if t is None else prob.term_names[t],
+                "criterion": "" if action == "start" else criterion,
+                "statistic": stat,
+                "df": int(df),
+                "p": pval,
+                "loglik": raw.loglik,
+                "aic": _aic(raw),
+                "n_params": int(raw.params.shape[0]),
+            }
+        )
+    return pd.DataFrame(rows, columns=_PATH_COLUMNS)
+
+
+def _folds(y: np.ndarray, n_folds: int, rng: np.random.Generator) -> np.ndarray:
+    """Fold labels stratified by level: each level's rows shuffled and dealt in turn."""
+    fold = np.empty(y.shape[0], dtype=np.int64)
+    offset = 0
+    for k in range(int(y.max()) + 1):
+        idx = np.flatnonzero(y == k)
+        idx = idx[rng.permutation(idx.shape[0])]
+        fold[idx] = (offset + np.arange(idx.shape[0])) % n_folds
+        offset += idx.shape[0]
+    return fold
+
+
+# ---------------------------------------------------------------------------
+# Public function
+# ---------------------------------------------------------------------------
+
+
+def _validate_groups(columns: tuple[str, ...], groups, forced) -> tuple[list[str], list[list[int]], list[int]]:
+    if not isinstance(groups, Mapping) or not groups:
+        raise DesignError(problem("groups", allowed="a non-empty mapping of term name to a list of column names", received=groups if not isinstance(groups, Mapping) else "an empty mapping"))
+    names, cols = [], []
+    owner: dict[str, str] = {}
+    for term, members in groups.items():
+        members = [members] if isinstance(members, str) else list(members)
+        if not members:
+            raise DesignError(problem(f"groups[{term!r}]", allowed="at least one column name", received=members))
+        missing = [c for c in members if c not in columns]
+        if missing:
+            raise DesignError(problem(f"groups[{term!r}]", allowed=f"column names of X {list(columns)}", received=f"unknown {missing}"))
+        for c in members:
+            if c in owner:
+                raise DesignError(problem(f"groups[{term!r}]", allowed="each column in one term only", received=f"{c!r} also in term {owner[c]!r}"))
+            owner[c] = str(term)
+        names.append(str(term))
+        cols.append([columns.index(c) for c in members])
+    loose = [c for c in columns if c not in owner]
+    if loose:
+        raise DesignError(problem("groups", allowed="every column of X in some term", received=f"columns in no term {loose}"))
+    if isinstance(forced, str):
+        forced = [forced]
+    forced = list(forced)
+    unknown = [t for t in forced if t not in names]
+    if unknown:
+        raise DesignError(problem("forced", allowed=f"term names among {names}", received=unknown))
+    forced_idx = []
+    for t in forced:
+        i = names.index(t)
+        if i not in forced_idx:
+            forced_idx.append(i)
+    return names, cols, forced_idx
+
+
+def select_terms(
+    X,
+    y,
+    *,
+    groups: Mapping[str, Sequence[str]],
+    forced: Sequence[str] = (),
+    method: str = "forward",
+    n_folds: int = 10,
+    seed=0,
+    link: str = "logit",
+    proportional: bool = True,
+    weights=None,
+) -> SelectionResult:
+    """Select terms of a cumulative-link model.
+
+    Parameters
+    ----------
+    X : pandas.DataFrame
+        Model matrix without intercept; every column belongs to one term.
+    y : array-like of int or ordered Categorical
+        Outcome levels ``0..K-1`` (K >= 2).
+    groups : mapping, keyword-only
+        Term name -> list of column names.  A term enters or leaves whole.
+    forced : sequence of str, keyword-only
+        Terms kept in every model.
+    method : {"forward", "backward", "none"}, keyword-only
+        See the module description.
+    n_folds : int, keyword-only
+        Folds of the cross-validation choosing the forward model size.
+    seed : int or numpy.random.Generator, keyword-only
+        Source of the fold assignment.
+    link : {"logit", "probit", "cloglog"}, keyword-only
+        Link of every fit.
+    proportional : bool, keyword-only
+        Model form of every fit.
+    weights : array-like, optional, keyword-only
+        Frequency weights.  Folds are dealt over rows, so all copies that a
+        weight stands for fall in the same fold; rows of weight 0 are dropped.
+
+    Returns
+    -------
+    SelectionResult
+
+    Notes
+    -----
+    Forward: from the forced terms, each step computes for every remaining
+    term the score (Rao) statistic for adding it at the current estimates
+    and adds the term with the smallest p-value (chi-squared with as many df
+    as the term adds parameters, so multi-column terms are compared on the
+    p-value rather than the raw statistic); the enlarged model is then
+    fitted once, warm-started from the current estimates with the new
+    coefficients at zero.  The path runs until every term is in.  In each of
+    ``n_folds`` folds (stratified by outcome level) the path is run on the
+    other folds and the test log-likelihood per observation of the held-out
+    fold is recorded at every size; the size with the largest mean over
+    folds is chosen (the smallest among ties; a size that some fold's path
+    did not reach is not eligible), and the path is re-run on all data up to
+    that size.
+
+    Backward: from the model with every term, each step refits the model
+    without each non-forced term and removes the term whose removal gives
+    the lowest AIC ``-2 l + 2 k``, as long as that AIC is below the current
+    one (ties go to the earlier term in ``groups``).
+
+    References
+    ----------
+    Harrell, F. E. (2015). Regression Modeling Strategies (2nd ed.), section
+    4.3 (variable selection). Springer.
+
+    Rao, C. R. (1948). Large sample tests of statistical hypotheses concerning
+    several parameters with applications to problems of estimation.
+    Proceedings of the Cambridge Philosophical Society, 44, 50-57.
+
+    Akaike, H. (1974). A new look at the statistical model identification.
+    IEEE Transactions on Automatic Control, 19(6), 716-723.
+
+    Steyerberg, E. W. (2019). Clinical Prediction Models (2nd ed.), chapter 11.
+    Springer.
+    """
+    with one_blas_thread():
+        return _select_terms(
+            X, y, groups=groups, forced=forced, method=method, n_folds=n_folds, seed=seed,
+            link=link, proportional=proportional, weights=weights,
+        )
+
+
+def _select_terms(
+    X,
+    y,
+    *,
+    groups: Mapping[str, Sequence[str]],
+    forced: Sequence[str] = (),
+    method: str = "forward",
+    n_folds: int = 10,
+    seed=0,
+    link: str = "logit",
+    proportional: bool = True,
+    weights=None,
+) -> SelectionResult:
+    if method not in METHODS:
+        raise DesignError(problem("method", allowed=f"one of {list(METHODS)}", received=method))
+    if link not in LINKS:
+        raise FitError(problem("link", allowed=f"one of {list(LINKS)}", received=link))
+    if not isinstance(proportional, (bool, np.bool_)):
+        raise FitError(problem("proportional", allowed="True or False", received=proportional))
+    codes, K, levels = _as_outcome(y, None)
+    n = codes.shape[0]
+    Xa, columns = _as_matrix(X, n)
+    names, term_cols, forced_idx = _validate_groups(columns, groups, forced)
+    unit = weights is None
+    w = np.ones(n) if unit else _as_vector(weights, "weights", n)
+    if np.any(w < 0):
+        raise FitError(problem("weights", allowed="non-negative weights", received=f"{int(np.sum(w < 0))} negative"))
+    _check_levels(codes, K, w, levels)
+    rng = None
+    seed_used = None
+    if method == "forward":
+        if isinstance(n_folds, bool) or not isinstance(n_folds, (int, np.integer)) or n_folds < 2:
+            raise DesignError(problem("n_folds", allowed="an integer >= 2", received=n_folds))
+        if isinstance(seed, np.random.Generator):
+            rng = seed
+        elif isinstance(seed, (int, np.integer)) and not isinstance(seed, bool) and seed >= 0:
+            rng = np.random.default_rng(int(seed))
+            seed_used = int(seed)
+        else:
+            raise DesignError(problem("seed", allowed="a non-negative integer or a numpy Generator", received=seed))
+    # Keep rows with positive weight and sort them by level once: every
+    # design below is then already sorted and its rows line up with X.
+    keep = np.flatnonzero(w > 0)
+    order = keep[np.argsort(codes[keep], kind="stable")]
+    Xs = np.ascontiguousarray(Xa[order])
+    ys = codes[order]
+    ws = w[order]
+    prob = _Problem(Xs, ys, K, ws, unit, link, bool(proportional), term_cols, list(columns), names)
+    free = [i for i in range(len(names)) if i not in forced_idx]
+    msgs: list[str] = []
+    cv = cv_by_fold = None
+    size = None
+
+    if method == "forward":
+        if np.min(np.bincount(ys, minlength=K)) < 2:
+            raise DesignError(problem("y", allowed="at least 2 rows in every level for cross-validation", received=dict(zip(levels, np.bincount(ys, minlength=K).tolist()))))
+        # Folds are drawn over the input row order, then carried to the sorted rows.
+        fold_in = np.full(n, -1, dtype=np.int64)
+        fold_in[keep] = _folds(codes[keep], int(n_folds), rng)
+        fold = fold_in[order]
+        max_size = len(free)
+        table = np.full((int(n_folds), max_size + 1), np.nan)
+        trouble = np.zeros(2, dtype=np.int64)
+        for f in range(int(n_folds)):
+            train = np.flatnonzero(fold != f)
+            test = np.flatnonzero(fold == f)
+            try:
+                _, _, _, _, tests, tr, stop = _forward(prob, train, forced_idx, free, max_size, test_rows=test)
+            except FitError as exc:
+                msg = f"fold {f + 1}: the starting model could not be fitted ({exc})"
+                msgs.append(msg)
+                warnings.warn(msg, RiskvetWarning, stacklevel=3)
+                continue
+            table[f, : len(tests)] = tests
+            trouble += tr
+            if stop:
+                msg = f"fold {f + 1}: path stopped after {len(tests) - 1} terms: {stop}"
+                msgs.append(msg)
+                warnings.warn(msg, RiskvetWarning, stacklevel=3)
+        if trouble[0]:
+            msg = f"cross-validation: {trouble[0]} fold fit(s) did not converge"
+            msgs.append(msg)
+            warnings.warn(msg, ConvergenceWarning, stacklevel=3)
+        if trouble[1]:
+            msg = f"cross-validation: {trouble[1]} fold fit(s) met separation"
+            msgs.append(msg)
+            warnings.warn(msg, SeparationWarning, stacklevel=3)
+        reached = np.sum(~np.isnan(table), axis=0)
+        with np.errstate(invalid="ignore"):
+            mean = np.where(reached == n_folds, np.mean(table, axis=0), np.nan)
+            se = np.where(reached == n_folds, np.std(table, axis=0, ddof=1) / math.sqrt(n_folds), np.nan)
+        eligible = np.flatnonzero(~np.isnan(mean))
+        if eligible.size == 0:
+            raise FitError(problem("select_terms", allowed="a forward path that every fold can follow", received="no model size reached in all folds"))
+        best_val = np.max(mean[eligible])
+        size = int(eligible[np.flatnonzero(mean[eligible] == best_val)[0]])
+        cv = pd.DataFrame({"size": np.arange(max_size + 1), "mean_test_loglik": mean, "se": se, "n_folds_reached": reached})
+        f_idx, s_idx = np.meshgrid(np.arange(int(n_folds)), np.arange(max_size + 1), indexing="ij")
+        cv_by_fold = pd.DataFrame({"fold": f_idx.ravel() + 1, "size": s_idx.ravel(), "test_loglik": table.ravel()})
+        terms, cols, raw, steps, _, tr, stop = _forward(prob, None, forced_idx, free, size)
+        if stop:
+            msg = f"all data: path stopped early: {stop}"
+            msgs.append(msg)
+            warnings.warn(msg, RiskvetWarning, stacklevel=3)
+        path = _path_frame(prob, steps, "score")
+    elif method == "backward":
+        terms = list(forced_idx) + free
+        cols = [c for t in terms for c in term_cols[t]]
+        raw = prob.fit(None, cols)
+        steps = [("start", None, math.nan, 0, math.nan, raw)]
+        while True:
+            candidates = [t for t in terms if t not in forced_idx]
+            best = None
+            for t in candidates:
+                keep_terms = [u for u in terms if u != t]
+                keep_cols = [c for u in keep_terms for c in term_cols[u]]
+                start = _drop_params(raw.params, cols, term_cols[t], prob)
+                sub = prob.fit(None, keep_cols, start=start)
+                aic = _aic(sub)
+                if best is None or aic < best[1]:
+                    best = (t, aic, sub, keep_terms, keep_cols)
+            if best is None or not best[1] < _aic(raw):
+                break
+            t, aic, sub, keep_terms, keep_cols = best
+            df = raw.params.shape[0] - sub.params.shape[0]
+            lr = max(0.0, 2.0 * (raw.loglik - sub.loglik))
+            steps.append(("remove", t, aic, df, float(special.chdtrc(df, lr)), sub))
+            raw, terms, cols = sub, keep_terms, keep_cols
+        path = _path_frame(prob, steps, "aic")
+    else:
+        terms = list(forced_idx) + free
+        cols = [c for t in terms for c in term_cols[t]]
+        raw = prob.fit(None, cols)
+        path = _path_frame(prob, [("start", None, math.nan, 0, math.nan, raw)], "")
+
+    # The chosen model through the public fitter: full table, warnings, checks.
+    chosen_cols = [columns[c] for c in cols]
+    frame = pd.DataFrame(Xs[:, cols], columns=chosen_cols)
+    y_cat = pd.Categorical.from_codes(ys, categories=list(levels), ordered=True)
+    # Its warnings are issued by the fitter and recorded on it and here.
+    final = fit_cumulative(frame, y_cat, link=link, proportional=bool(proportional), weights=None if unit else ws, start=raw.params)
+    msgs.extend(f"final model: {m}" for m in final.warnings)
+    return SelectionResult(
+        method=method,
+        terms=tuple(names[t] for t in terms),
+        forced=tuple(names[t] for t in forced_idx),
+        columns=tuple(chosen_cols),
+        path=path,
+        cv=cv,
+        cv_by_fold=cv_by_fold,
+        size=size,
+        fit=final,
+        seed=seed_used,
+        n_folds=int(n_folds) if method == "forward" else None,
+        link=link,
+        proportional=bool(proportional),
+        warnings=tuple(msgs),
+    )
+
+
+def _drop_params(params: np.ndarray, cols: list[int], drop_cols: list[int], prob: _Problem) -> np.ndarray:
+    """Current estimates without the coefficients of ``drop_cols`` (a warm start)."""
+    m = prob.m
+    k = prob.per_col()
+    keep = list(range(m))
+    for i, c in enumerate(cols):
+        if c not in drop_cols:
+            keep.extend(range(m + i * k, m + (i + 1) * k))
+    return params[keep]

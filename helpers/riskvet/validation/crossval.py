@@ -1,0 +1,377 @@
+"""k-fold and repeated k-fold cross-validation of the whole derivation procedure.
+
+A second opinion beside the bootstrap (:mod:`riskvet.bootstrap`): the data
+are split into k folds stratified by outcome level; for each fold the study's
+whole derivation procedure (:func:`riskvet.derive.derive`) runs on the other
+k - 1 folds and the resulting model predicts the held-out fold.  The split is
+repeated ``n_repeats`` times with fresh random folds.
+
+Two summaries are reported for every measure, because they answer slightly
+different questions:
+
+* averaged: the measure on each held-out fold, averaged over all k x
+  n_repeats folds (its SD across folds shows how much a single small test set
+  varies);
+* pooled: within each repeat the held-out predictions of all folds are
+  pooled into one prediction per patient and the measure is computed once on
+  all n patients, then averaged over repeats.  Pooling uses n patients per
+  estimate, which steadies C statistics and calibration measures, but mixes
+  predictions from k different models.
+
+Reproducibility: repeat r takes its folds and the selection seeds of its
+folds from ``numpy.random.SeedSequence(seed).spawn(n_repeats)[r]``; results
+are combined in fold order in the calling process, so they do not depend on
+``n_jobs`` or on a dask.distributed cluster.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import warnings
+from collections import Counter
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .._jsonable import to_jsonable
+from .bootstrap import (
+    _SEED_CEILING,
+    ReplicateFailure,
+    _as_data,
+    _check_count,
+    _check_n_jobs,
+    _check_seed,
+    _check_study,
+    _execute,
+    _fit_and_predict,
+    _lower_first,
+    _mean,
+    _measure_specs,
+    _measures,
+    _predict,
+    _ReplicateFailed,
+    _spread,
+)
+from ..errors import RiskvetError, RiskvetWarning, problem
+
+__all__ = ["CrossValidationEstimate", "CrossValidation", "cross_validate", "stratified_folds"]
+
+
+@dataclass(frozen=True)
+class CrossValidationEstimate:
+    """Cross-validated estimate of one performance measure.
+
+    Attributes
+    ----------
+    measure, label, kind : str
+        As in :class:`riskvet.bootstrap.MeasureEstimate`.
+    apparent : float
+        The measure of the model derived on all data, on the same data.
+    averaged : float
+        Mean over held-out folds of the measure on each fold.
+    averaged_sd : float
+        SD of the per-fold values.
+    pooled : float
+        Mean over repeats of the measure on the pooled held-out predictions.
+    pooled_sd : float
+        SD over repeats of the pooled value (NaN for one repeat).
+    n_folds_used : int
+        Folds with a value (folds whose model failed, or whose held-out rows
+        cannot define the measure, have none).
+    """
+
+    measure: str
+    label: str
+    kind: str
+    apparent: float
+    averaged: float
+    averaged_sd: float
+    pooled: float
+    pooled_sd: float
+    n_folds_used: int
+
+    def to_dict(self) -> dict[str, Any]:
+        return to_jsonable({f: getattr(self, f) for f in self.__dataclass_fields__})
+
+
+@dataclass(frozen=True)
+class CrossValidation:
+    """Result of (repeated) k-fold cross-validation of the derivation procedure.
+
+    Attributes
+    ----------
+    estimates : tuple of CrossValidationEstimate
+        One per measure, in report order.
+    n_folds, n_repeats, seed : int
+        Settings.
+    failures : tuple of ReplicateFailure
+        Folds whose derivation produced no model; ``replicate`` is the fold
+        number ``r * n_folds + f`` (repeat r, fold f).
+    n, n_levels : int
+        Rows and outcome levels.
+    levels : tuple of str
+        Outcome levels coded 0 .. K-1.
+    fold_warnings : dict
+        Statistical warnings met inside the folds' derivations and measures,
+        by class name (counted, not re-issued).
+    apparent_warnings : tuple of str
+        Statistical warnings of the derivation on all data (also issued).
+    fold_values : DataFrame
+        Per-fold measures: ``repeat``, ``fold``, ``measure``, ``value``.
+    """
+
+    estimates: tuple[CrossValidationEstimate, ...]
+    n_folds: int
+    n_repeats: int
+    seed: int
+    failures: tuple[ReplicateFailure, ...]
+    n: int
+    n_levels: int
+    levels: tuple[str, ...]
+    fold_warnings: dict[str, int]
+    apparent_warnings: tuple[str, ...]
+    fold_values: pd.DataFrame = field(repr=False)
+
+    def estimate(self, measure: str) -> CrossValidationEstimate:
+        for e in self.estimates:
+            if e.measure == measure:
+                return e
+        raise RiskvetError(problem("CrossValidation.estimate(measure)", allowed=f"one of {[e.measure for e in self.estimates]}", received=measure))
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per measure."""
+        return pd.DataFrame([dataclasses.asdict(e) for e in self.estimates])  # NaN kept (to_dict makes it None)
+
+    @property
+    def summary_sentence(self) -> str:
+        """One sentence comparing the cross-validated headline measure with the apparent one."""
+        key = "auc" if self.n_levels == 2 else "average_cut_auc"
+        e = self.estimate(key)
+        slope = self.estimate("calibration_slope")
+        reps = f"{self.n_repeats} repeats of " if self.n_repeats > 1 else ""
+        text = (
+            f"In {reps}{self.n_folds}-fold cross-validation the {_lower_first(e.label)} of models derived without the "
+            f"held-out patients is {e.pooled:.3f} on pooled held-out predictions ({e.averaged:.3f} averaged over "
+            f"folds), against {e.apparent:.3f} apparent; the pooled calibration slope is {slope.pooled:.2f}."
+        )
+        if self.failures:
+            text += f" {len(self.failures)} fold(s) produced no model and are listed in the results."
+        return text
+
+    def to_dict(self) -> dict[str, Any]:
+        return to_jsonable(
+            {
+                "estimates": [e.to_dict() for e in self.estimates],
+                "n_folds": self.n_folds,
+                "n_repeats": self.n_repeats,
+                "seed": self.seed,
+                "failures": [f.to_dict() for f in self.failures],
+                "n": self.n,
+                "n_levels": self.n_levels,
+                "levels": self.levels,
+                "fold_warnings": self.fold_warnings,
+                "apparent_warnings": self.apparent_warnings,
+            }
+        )
+
+
+def stratified_folds(y: np.ndarray, *, n_folds: int, rng: np.random.Generator) -> np.ndarray:
+    """Fold number 0..n_folds-1 of every row, stratified by outcome level.
+
+    The rows of each level, in random order, are dealt to the folds in turn,
+    continuing from one level to the next, so fold sizes differ by at most one
+    and every fold holds about the same share of each level.
+    """
+    y = np.asarray(y)
+    fold = np.empty(y.shape[0], dtype=np.int64)
+    position = 0
+    for level in np.unique(y):
+        rows = rng.permutation(np.flatnonzero(y == level))
+        fold[rows] = (position + np.arange(rows.size)) % n_folds
+        position += rows.size
+    return fold
+
+
+@dataclass(frozen=True)
+class _CVPayload:
+    study: Any
+    frame: pd.DataFrame
+    y: np.ndarray
+    K: int
+    link: str
+    folds: np.ndarray  # n_repeats x n
+
+
+def _fold(payload: _CVPayload, item: tuple[int, int, int]) -> dict[str, Any]:
+    r, f, sel_seed = item
+    held = payload.folds[r] == f
+    train, test = np.flatnonzero(~held), np.flatnonzero(held)
+    record: dict[str, Any] = {"repeat": r, "fold": f}
+    try:
+        _, prob, lp, caught = _fit_and_predict(
+            payload.study,
+            payload.frame.iloc[train].reset_index(drop=True),
+            payload.y[train],
+            payload.frame.iloc[test].reset_index(drop=True),
+            sel_seed,
+            payload.K,
+        )
+    except _ReplicateFailed as exc:
+        record.update(status="failed", reason=exc.reason, message=exc.message)
+        return record
+    values, measure_warnings = _measures(payload.y[test], prob, lp if lp.ndim == 1 else None, K=payload.K, link=payload.link)
+    caught.update({f"measure:{k}": v for k, v in measure_warnings.items()})
+    record.update(status="ok", rows=test, prob=prob, lp=lp, values=values, warnings=dict(caught))
+    return record
+
+
+def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, n_jobs: int = 1, progress: bool = True) -> CrossValidation:
+    """(Repeated) k-fold cross-validation of the study's whole derivation procedure.
+
+    Parameters
+    ----------
+    study : Study
+        The validated study (derivation procedure, failure limit
+        ``internal_validation.max_failed_share``, ``compute.scheduler``).
+    data : PreparedCohort or (DataFrame, array of int)
+        The derivation cohort.
+    n_folds : int
+        k, at least 2.
+    n_repeats : int, default 1
+        Repeats with fresh random folds.
+    seed : int
+        Seed of the repeat streams.
+    n_jobs : int, default 1
+        Local worker processes (-1: every core); the result does not depend on it.
+    progress : bool, default True
+        Show a progress bar on standard error.
+
+    Returns
+    -------
+    CrossValidation
+
+    Raises
+    ------
+    RiskvetError
+        Bad input, or more failed folds than ``max_failed_share`` allows.
+
+    Notes
+    -----
+    See the module notes for the averaged and pooled summaries.  Folds are
+    stratified by outcome level (:func:`stratified_folds`).  Measures are those
+    of :func:`riskvet.bootstrap.validate_internally`.
+
+    References
+    ----------
+    .. [1] Stone M. Cross-validatory choice and assessment of statistical
+       predictions. J R Stat Soc B 1974;36(2):111-147.
+    .. [2] Steyerberg EW, Harrell FE, Borsboom GJJM, Eijkemans MJC, Vergouwe
+       Y, Habbema JDF. Internal validation of predictive models: efficiency
+       of some procedures for logistic regression analysis. Journal of
+       Clinical Epidemiology 2001;54(8):774-781.
+    """
+    from ..modelling.derive import derive
+
+    func = "cross_validate"
+    study = _check_study(study, func)
+    frame, y = _as_data(study, data, func)
+    n_folds = _check_count(n_folds, "n_folds", func, minimum=2)
+    n_repeats = _check_count(n_repeats, "n_repeats", func)
+    seed = _check_seed(seed, func)
+    n_jobs = _check_n_jobs(n_jobs, func)
+    n = len(frame)
+    if n_folds > n:
+        raise RiskvetError(problem(f"{func}(n_folds=)", allowed=f"at most the number of rows ({n})", received=n_folds))
+    levels = tuple(study.outcome.ordered_levels)
+    K = len(levels)
+    link = study.model.link
+
+    folds = np.empty((n_repeats, n), dtype=np.int64)
+    items = []
+    for r, child in enumerate(np.random.SeedSequence(seed).spawn(n_repeats)):
+        rng = np.random.default_rng(child)
+        folds[r] = stratified_folds(y, n_folds=n_folds, rng=rng)
+        seeds = rng.integers(0, _SEED_CEILING, size=n_folds)
+        items += [(r, f, int(seeds[f])) for f in range(n_folds)]
+
+    with warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always")
+        apparent_derivation = derive(study, frame, y)
+        prob_all, lp_all = _predict(apparent_derivation, frame)
+    apparent_warnings = tuple(dict.fromkeys(f"{w.category.__name__}: {w.message}" for w in seen if issubclass(w.category, RiskvetWarning)))
+    for w in seen:
+        if issubclass(w.category, RiskvetWarning):
+            warnings.warn(str(w.message), w.category, stacklevel=2)
+    apparent, _ = _measures(y, prob_all, lp_all if lp_all.ndim == 1 else None, K=K, link=link)
+
+    payload = _CVPayload(study=study, frame=frame, y=y, K=K, link=link, folds=folds)
+    specs = _measure_specs(levels)
+    keys = [k for k, _, _ in specs]
+    failures: list[ReplicateFailure] = []
+    warn_counts: Counter[str] = Counter()
+    per_fold: dict[str, list[float]] = {k: [] for k in keys}
+    fold_rows: list[dict[str, Any]] = []
+    pooled_prob = np.full((n_repeats, n, K), np.nan)
+    pooled_lp: np.ndarray | None = np.full((n_repeats, n), np.nan) if lp_all.ndim == 1 else None
+    for rec in _execute(_fold, payload, items, n_jobs=n_jobs, scheduler=study.compute.scheduler,
+                        desc="cross-validation", progress=progress):
+        r, f = rec["repeat"], rec["fold"]
+        if rec["status"] != "ok":
+            failures.append(ReplicateFailure(r * n_folds + f, rec["reason"], rec["message"]))
+            continue
+        warn_counts.update(rec["warnings"])
+        for k in keys:
+            per_fold[k].append(rec["values"][k])
+            fold_rows.append({"repeat": r, "fold": f, "measure": k, "value": rec["values"][k]})
+        pooled_prob[r, rec["rows"]] = rec["prob"]
+        if pooled_lp is not None:
+            pooled_lp[r, rec["rows"]] = rec["lp"]
+
+    max_failed = study.internal_validation.max_failed_share
+    total = n_folds * n_repeats
+    if len(failures) > max_failed * total or len(failures) == total:
+        counts = dict(sorted(Counter(x.reason for x in failures).items()))
+        raise RiskvetError(
+            problem(
+                f"{func}: failed folds",
+                allowed=f"at most internal_validation.max_failed_share = {max_failed:g} of {total} ({math.floor(max_failed * total)})",
+                received=f"{len(failures)} failed, by reason {counts}",
+            )
+        )
+
+    pooled: dict[str, list[float]] = {k: [] for k in keys}
+    for r in range(n_repeats):
+        have = np.all(np.isfinite(pooled_prob[r]), axis=1)
+        lp_r = pooled_lp[r, have] if pooled_lp is not None else None
+        values, _ = _measures(y[have], pooled_prob[r, have], lp_r, K=K, link=link)
+        for k in keys:
+            pooled[k].append(values[k])
+
+    estimates = []
+    for key, label, kind in specs:
+        fv = np.asarray(per_fold[key], dtype=float)
+        pv = np.asarray(pooled[key], dtype=float)
+        estimates.append(
+            CrossValidationEstimate(
+                measure=key, label=label, kind=kind, apparent=apparent[key],
+                averaged=_mean(fv), averaged_sd=_spread(fv)[0],
+                pooled=_mean(pv), pooled_sd=_spread(pv)[0] if n_repeats > 1 else float("nan"),
+                n_folds_used=int(np.isfinite(fv).sum()),
+            )
+        )
+    return CrossValidation(
+        estimates=tuple(estimates),
+        n_folds=n_folds,
+        n_repeats=n_repeats,
+        seed=seed,
+        failures=tuple(failures),
+        n=n,
+        n_levels=K,
+        levels=levels,
+        fold_warnings=dict(sorted(warn_counts.items())),
+        apparent_warnings=apparent_warnings,
+        fold_values=pd.DataFrame(fold_rows, columns=["repeat", "fold", "measure", "value"]),
+    )

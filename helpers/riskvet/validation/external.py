@@ -1,0 +1,695 @@
+"""External validation: a frozen model applied, unchanged, to a new cohort.
+
+:func:`apply_model` predicts for a cohort and refuses one the model's design
+cannot encode.  :func:`validate_cohort` reports the model's performance in
+that cohort -- discrimination per cut and over the ordered outcome,
+calibration per cut with smoothed curves, overall accuracy, classification
+at the study's risk thresholds and decision curves -- with bootstrap
+percentile intervals, and the same measures in the subgroups the study
+names, flagging subgroups too small to read.
+
+Bootstrap replicate i resamples the cohort's rows with stream i of
+``numpy.random.SeedSequence(seed).spawn(n_boot)``, so results do not depend
+on how many workers ran them.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import warnings
+from dataclasses import dataclass, field
+from typing import Any, Callable, Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+
+from .._jsonable import to_jsonable
+from ..measures.calibration import OrdinalCalibration, ordinal_calibration
+from ..measures.decision import NetBenefitResult, ThresholdTable, net_benefit, threshold_table
+from ..measures.discrimination import OrdinalDiscrimination, dichotomise, ordinal_discrimination
+from ..errors import DataError, DesignError, RiskvetError, RiskvetWarning, problem
+from ..measures.summary import performance_summary, summary_keys
+from ..modelling.modelfile import PredictionModel
+from ..measures.overall import OverallAccuracy, overall_accuracy
+from ..intake.outcome import cut_name
+
+__all__ = [
+    "SubgroupSpec",
+    "CohortValidation",
+    "apply_model",
+    "subgroup_masks",
+    "decision_grid",
+    "validate_cohort",
+    "run_replicates",
+    "measure_label",
+    "calibration_label",
+]
+
+#: Measures shown in performance tables, in order (keys of performance_summary without the cut suffix).
+_SHOWN = (
+    "auc",
+    "average_cut_auc",
+    "ordinal_c",
+    "generalised_c",
+    "calibration_intercept",
+    "calibration_slope",
+    "ici",
+    "brier",
+    "scaled_brier",
+    "nagelkerke_r2",
+)
+
+_MEASURE_LABELS = {
+    "auc": "C (AUC) of the cut",
+    "average_cut_auc": "average dichotomised C",
+    "ordinal_c": "ordinal c-index",
+    "generalised_c": "generalised C",
+    "calibration_intercept": "calibration-in-the-large",
+    "calibration_slope": "calibration slope",
+    "ici": "integrated calibration index",
+    "brier": "Brier score",
+    "scaled_brier": "scaled Brier score",
+    "nagelkerke_r2": "Nagelkerke R2",
+}
+
+
+#: Measures of the ordered outcome as a whole that equal the cut's C when there are two levels.
+_ORDINAL_ONLY = ("average_cut_auc", "ordinal_c", "generalised_c")
+
+#: Display names of the calibration summaries (``OrdinalCalibration.to_frame`` measures).
+_CALIBRATION_LABELS = {
+    "calibration_in_the_large": "calibration-in-the-large",
+    "slope": "calibration slope",
+    "oe_ratio": "observed/expected ratio",
+    "mean_observed": "observed proportion",
+    "mean_predicted": "mean predicted risk",
+    "ici": "integrated calibration index (ICI)",
+    "e50": "E50 (median absolute calibration error)",
+    "e90": "E90 (90th percentile of the error)",
+    "emax": "Emax (largest error)",
+    "hosmer_lemeshow": "Hosmer-Lemeshow statistic",
+    "hosmer_lemeshow_pvalue": "Hosmer-Lemeshow p",
+    "ordinal_hosmer_lemeshow": "ordinal Hosmer-Lemeshow statistic",
+    "ordinal_hosmer_lemeshow_df": "ordinal Hosmer-Lemeshow df",
+    "ordinal_hosmer_lemeshow_pvalue": "ordinal Hosmer-Lemeshow p",
+}
+
+
+def measure_label(measure: str, n_levels: int) -> str:
+    """Display name of a performance measure (a key of ``performance_summary`` without its cut suffix)."""
+    if n_levels == 2 and measure == "auc":
+        return "C statistic (AUC)"
+    return _MEASURE_LABELS.get(measure, measure.replace("_", " "))
+
+
+def calibration_label(measure: str) -> str:
+    """Display name of a calibration summary (a ``measure`` of ``OrdinalCalibration.to_frame``)."""
+    return _CALIBRATION_LABELS.get(measure, measure.replace("_", " "))
+
+
+def _split_key(key: str) -> tuple[str, int | None]:
+    head, sep, tail = key.rpartition("_cut")
+    if sep and tail.isdigit():
+        return head, int(tail)
+    return key, None
+
+
+# ---------------------------------------------------------------------------
+# Applying the model
+# ---------------------------------------------------------------------------
+
+
+def apply_model(model: PredictionModel, frame: pd.DataFrame, *, label: str = "validation") -> np.ndarray:
+    """Predicted level probabilities of a frozen model for every row of a cohort.
+
+    Parameters
+    ----------
+    model : PredictionModel
+        The frozen model; it is not changed.
+    frame : DataFrame
+        The cohort, with every column the model's design reads.
+    label : str, keyword-only
+        Cohort label, named in error messages.
+
+    Returns
+    -------
+    ndarray, shape (n, K)
+
+    Raises
+    ------
+    DesignError
+        The design cannot encode the cohort: a column is absent, has missing
+        values, non-numeric values, or categories the model has never seen;
+        the message names the cohort, the column and the values.
+    """
+    if not isinstance(model, PredictionModel):
+        raise RiskvetError(problem("apply_model(model=)", allowed="a PredictionModel", received=type(model).__name__))
+    if not isinstance(frame, pd.DataFrame):
+        raise DataError(problem("apply_model(frame=)", allowed="a pandas DataFrame", received=type(frame).__name__))
+    try:
+        prob = model.predict_proba(frame)
+    except DesignError as exc:
+        raise DesignError(f"validation cohort {label!r}: the model cannot be applied: {exc}") from None
+    return prob
+
+
+# ---------------------------------------------------------------------------
+# Subgroups
+# ---------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class SubgroupSpec:
+    """A subgroup definition: a categorical column, or bands of a numeric column.
+
+    Attributes
+    ----------
+    column : str
+    bands : tuple of float or None
+        Increasing cut points b_1 < ... < b_m giving the groups
+        ``< b_1``, ``b_1 to < b_2``, ..., ``>= b_m``.
+    """
+
+    column: str
+    bands: tuple[float, ...] | None = None
+
+
+def _band_labels(bands: Sequence[float]) -> list[str]:
+    b = [f"{v:g}" for v in bands]
+    labels = [f"< {b[0]}"]
+    labels += [f"{lo} to < {hi}" for lo, hi in zip(b, b[1:])]
+    labels.append(f">= {b[-1]}")
+    return labels
+
+
+def subgroup_masks(frame: pd.DataFrame, spec: SubgroupSpec | Any) -> tuple[list[tuple[str, np.ndarray]], int]:
+    """Row masks of every group of one subgroup definition.
+
+    Parameters
+    ----------
+    frame : DataFrame
+    spec : SubgroupSpec or an object with ``column`` and ``bands``
+        (such as :class:`riskvet.study.Subgroup`).
+
+    Returns
+    -------
+    groups : list of (label, boolean mask)
+        Categorical column: one group per observed value, sorted as text.
+        Bands: the groups of :class:`SubgroupSpec`, empty ones included.
+    n_missing : int
+        Rows whose value is missing (in no group).
+    """
+    column = spec.column
+    if column not in frame.columns:
+        raise DataError(problem("subgroups: column", allowed=f"a column of the cohort {list(frame.columns)[:20]}", received=column))
+    values = frame[column]
+    missing = values.isna().to_numpy()
+    bands = getattr(spec, "bands", None)
+    if bands is not None:
+        x = pd.to_numeric(values, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+        bad = ~np.isfinite(x) & ~missing
+        if bad.any():
+            raise DataError(problem(f"subgroups: column {column!r} (bands)", allowed="numbers", received=f"{int(bad.sum())} values that are not numbers"))
+        edges = np.r_[-np.inf, np.asarray(bands, dtype=float), np.inf]
+        groups = []
+        for label, lo, hi in zip(_band_labels(bands), edges[:-1], edges[1:]):
+            groups.append((label, (~missing) & (x >= lo) & (x < hi)))
+        return groups, int(missing.sum())
+    text = values.astype("string")
+    levels = sorted(str(v) for v in text.dropna().unique())
+    return [(lv, (text == lv).fillna(False).to_numpy(dtype=bool)) for lv in levels], int(missing.sum())
+
+
+# ---------------------------------------------------------------------------
+# Bootstrap machinery
+# ---------------------------------------------------------------------------
+
+
+def _call(payload: Callable[[np.random.SeedSequence], Any], stream: np.random.SeedSequence) -> Any:
+    return payload(stream)
+
+
+def run_replicates(
+    func: Callable[[np.random.SeedSequence], Any],
+    *,
+    n_boot: int,
+    seed: int,
+    n_jobs: int = 1,
+    scheduler: str | None = None,
+) -> list[Any]:
+    """Run ``func`` on stream i of ``SeedSequence(seed).spawn(n_boot)`` for i = 0..n_boot-1.
+
+    ``func`` must be picklable (a module-level function or an instance of a
+    module-level class).  Replicates run in one process (``n_jobs = 1``),
+    in joblib worker processes (``n_jobs > 1``, -1 for every core), or on a
+    dask.distributed cluster (``scheduler``, the ``compute.scheduler``
+    address), through the executor the internal bootstrap uses.  The list is
+    in replicate order whatever ran it, so results do not depend on it.
+    """
+    from .bootstrap import _execute
+
+    if n_jobs == -1:
+        import os
+
+        n_jobs = os.cpu_count() or 1
+    streams = np.random.SeedSequence(int(seed)).spawn(int(n_boot))
+    return list(_execute(_call, func, streams, n_jobs=int(n_jobs), scheduler=scheduler, desc="bootstrap", progress=False))
+
+
+def _check_boot(n_boot: Any, seed: Any, confidence: Any, func: str) -> tuple[int, int, float]:
+    if isinstance(n_boot, bool) or not isinstance(n_boot, (int, np.integer)) or n_boot < 0:
+        raise RiskvetError(problem(f"{func}(n_boot=)", allowed="a whole number >= 0", received=n_boot))
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise RiskvetError(problem(f"{func}(seed=)", allowed="a non-negative integer", received=seed))
+    if isinstance(confidence, bool) or not isinstance(confidence, (int, float)) or not 0 < float(confidence) < 1:
+        raise RiskvetError(problem(f"{func}(confidence=)", allowed="a number strictly between 0 and 1", received=confidence))
+    return int(n_boot), int(seed), float(confidence)
+
+
+def _summary_or_none(y: np.ndarray, prob: np.ndarray, K: int) -> dict[str, float] | None:
+    if np.bincount(y, minlength=K).min() == 0:
+        return None
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RiskvetWarning)
+        try:
+            return performance_summary(y, prob)
+        except DataError:
+            return None
+
+
+class _Replicate:
+    """Picklable bootstrap replicate: the whole cohort and every subgroup."""
+
+    def __init__(self, y: np.ndarray, prob: np.ndarray, masks: Mapping[tuple[str, str], np.ndarray]):
+        self.y, self.prob, self.masks = y, prob, masks
+
+    def __call__(self, stream: np.random.SeedSequence) -> dict[tuple[str, str], dict[str, float] | None]:
+        rng = np.random.default_rng(stream)
+        n = self.y.shape[0]
+        idx = rng.integers(0, n, n)
+        yb, pb = self.y[idx], self.prob[idx]
+        K = self.prob.shape[1]
+        out = {("", ""): _summary_or_none(yb, pb, K)}
+        for key, mask in self.masks.items():
+            sel = mask[idx]
+            out[key] = _summary_or_none(yb[sel], pb[sel], K) if sel.any() else None
+        return out
+
+
+def _interval_rows(apparent: Mapping[str, float] | None, reps: list[Mapping[str, float] | None], keys: Sequence[str], confidence: float, levels: Sequence[str]) -> list[dict[str, Any]]:
+    ok = [r for r in reps if r is not None]
+    tail = 100 * (1 - confidence) / 2
+    K = len(levels)
+    rows = []
+    for key in keys:
+        measure, cut = _split_key(key)
+        if measure not in _SHOWN or (K == 2 and measure in _ORDINAL_ONLY):
+            continue
+        values = np.array([r[key] for r in ok], dtype=float)
+        values = values[np.isfinite(values)]
+        if values.size >= 2:
+            lower, upper = np.percentile(values, [tail, 100 - tail])
+            se = float(np.std(values, ddof=1))
+        else:
+            lower = upper = se = float("nan")
+        rows.append(
+            {
+                "measure": measure,
+                "label": measure_label(measure, K),
+                "cut": cut,
+                "outcome": cut_name(levels, cut),
+                "estimate": float(apparent[key]) if apparent is not None else float("nan"),
+                "se": se,
+                "lower": float(lower),
+                "upper": float(upper),
+                "n_boot_used": int(values.size),
+            }
+        )
+    return rows
+
+
+def _order_rows(rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    rank = {m: i for i, m in enumerate(_SHOWN)}
+    return sorted(rows, key=lambda r: (rank[r["measure"]], -1 if r["cut"] is None else r["cut"]))
+
+
+def decision_grid(thresholds: Sequence[float] = ()) -> np.ndarray:
+    """Threshold probabilities of a decision curve: 0.01 steps up to max(0.5, 1.5 x the largest study threshold)."""
+    top = max([0.5] + [1.5 * float(t) for t in thresholds])
+    top = min(top, 0.99)
+    grid = np.round(np.arange(0.01, top + 1e-9, 0.01), 2)
+    return np.unique(np.r_[grid, np.asarray(list(thresholds), dtype=float)])
+
+
+# ---------------------------------------------------------------------------
+# Results
+# ---------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class CohortValidation:
+    """Performance of a frozen model in one validation cohort.
+
+    Attributes
+    ----------
+    label : str
+        Cohort label.
+    levels : tuple of str
+        Outcome levels coded 0..K-1.
+    n : int
+        Patients.
+    level_counts : dict
+        Patients at each outcome level.
+    discrimination : OrdinalDiscrimination
+        Per-cut C with DeLong intervals, average dichotomised C, ordinal
+        c-index, generalised C (apparent, no resampling).
+    calibration : OrdinalCalibration
+        Per cut: calibration-in-the-large, slope, O/E, smoothed curve, ICI,
+        grouped table; the ordinal Hosmer-Lemeshow test.
+    overall : OverallAccuracy
+        Brier scores and R2.
+    threshold_tables : dict of int to ThresholdTable
+        By cut, at the study's thresholds for that cut (cuts without
+        thresholds are absent).
+    decision_curves : tuple of NetBenefitResult
+        One per cut, over :func:`decision_grid` of the cut's thresholds.
+    performance : DataFrame
+        Headline measures with bootstrap standard errors and percentile
+        intervals: ``measure``, ``label``, ``cut``, ``outcome``,
+        ``estimate`` (on the cohort as observed), ``se``, ``lower``,
+        ``upper``, ``n_boot_used``.  For a binary outcome the measures of an
+        ordered outcome (average dichotomised C, ordinal c-index,
+        generalised C) are left out: they equal the C statistic.
+    subgroups : DataFrame
+        The same measures per subgroup with ``column``, ``group``, ``n``,
+        ``n_top`` (patients in the highest level), ``small`` (n below
+        ``min_subgroup_size``: flagged, not to be over-read) before them.
+    subgroup_sizes : DataFrame
+        ``column``, ``group``, ``n``, ``n_top``, ``small``, one row per group,
+        and a row ``group = "(missing)"`` when values are missing.
+    n_boot, seed : int
+        Bootstrap replicates and seed.
+    n_failed : int
+        Whole-cohort replicates that could not be evaluated (an outcome
+        level absent from the resample).
+    confidence : float
+    min_subgroup_size : int
+    warnings : tuple of str
+    """
+
+    label: str
+    levels: tuple[str, ...]
+    n: int
+    level_counts: Mapping[str, int]
+    discrimination: OrdinalDiscrimination = field(repr=False)
+    calibration: OrdinalCalibration = field(repr=False)
+    overall: OverallAccuracy = field(repr=False)
+    threshold_tables: Mapping[int, ThresholdTable] = field(repr=False)
+    decision_curves: tuple[NetBenefitResult, ...] = field(repr=False)
+    performance: pd.DataFrame = field(repr=False)
+    subgroups: pd.DataFrame = field(repr=False)
+    subgroup_sizes: pd.DataFrame = field(repr=False)
+    n_boot: int
+    seed: int
+    n_failed: int
+    confidence: float
+    min_subgroup_size: int
+    warnings: tuple[str, ...]
+
+    def to_frame(self) -> pd.DataFrame:
+        """The headline measures with intervals, with a ``cohort`` column."""
+        table = self.performance.copy()
+        table.insert(0, "cohort", self.label)
+        return table
+
+    def threshold_frame(self) -> pd.DataFrame:
+        """Classification at the study's thresholds, all cuts stacked (``cohort``, ``cut``, ``outcome`` first)."""
+        parts = []
+        for cut, tab in self.threshold_tables.items():
+            f = tab.to_frame()
+            f.insert(0, "outcome", cut_name(self.levels, cut))
+            f.insert(0, "cut", cut)
+            f.insert(0, "cohort", self.label)
+            parts.append(f)
+        return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=["cohort", "cut", "outcome", "threshold"])
+
+    def calibration_frame(self) -> pd.DataFrame:
+        """Per-cut calibration summaries (apparent, with model-based intervals), in words.
+
+        Columns ``cohort``, ``outcome``, ``measure`` (display name), ``estimate``,
+        ``se``, ``lower``, ``upper``.  For a binary outcome the ordinal
+        Hosmer-Lemeshow rows are left out (they repeat the binary test).
+        """
+        table = self.calibration.to_frame()
+        if len(self.levels) == 2:
+            table = table[~table["measure"].str.startswith("ordinal_")]
+        cuts = [None if pd.isna(c) else int(c) for c in table["cut"]]
+        out = pd.DataFrame({
+            "cohort": self.label,
+            "outcome": [cut_name(self.levels, c) for c in cuts],
+            "measure": [calibration_label(m) for m in table["measure"]],
+        })
+        for column in ("estimate", "se", "lower", "upper"):
+            out[column] = table[column].to_numpy()
+        return out
+
+    def summary(self) -> str:
+        """Sentences reading the headline numbers."""
+        perf = {(r["measure"], None if pd.isna(r["cut"]) else int(r["cut"])): r for r in self.performance.to_dict(orient="records")}
+        ci = f"{round(100 * self.confidence)}%"
+        parts = []
+        binary = len(self.levels) == 2
+        avg = perf.get(("auc", 0) if binary else ("average_cut_auc", None))
+        if avg is not None:
+            what = "C statistic" if binary else "average dichotomised C"
+            parts.append(
+                f"In {self.label} (n = {self.n}) the {what} is {avg['estimate']:.3f} "
+                f"({ci} interval {avg['lower']:.3f} to {avg['upper']:.3f})."
+            )
+        for j in range(len(self.levels) - 1):
+            key = ("calibration_intercept", j)
+            if key not in perf:
+                continue
+            row = perf[key]
+            est, lo, hi = row["estimate"], row["lower"], row["upper"]
+            if lo > 0:
+                verdict = "the model under-predicts this outcome on average"
+            elif hi < 0:
+                verdict = "the model over-predicts this outcome on average"
+            else:
+                verdict = "no systematic over- or under-prediction is shown"
+            slope = perf[("calibration_slope", j)]
+            if slope["upper"] < 1:
+                spread = "predictions are too extreme"
+            elif slope["lower"] > 1:
+                spread = "predictions are too moderate"
+            else:
+                spread = "the spread of predictions is compatible with a slope of 1"
+            parts.append(
+                f"For {cut_name(self.levels, j)}, calibration-in-the-large is {est:+.2f} ({lo:+.2f} to {hi:+.2f}): "
+                f"{verdict}; the calibration slope is {slope['estimate']:.2f} ({slope['lower']:.2f} to "
+                f"{slope['upper']:.2f}), so {spread}."
+            )
+        small = self.subgroup_sizes[self.subgroup_sizes["small"]] if len(self.subgroup_sizes) else self.subgroup_sizes
+        if len(small):
+            names = ", ".join(f"{r.column} {r.group} (n = {r.n})" for r in small.itertuples())
+            parts.append(f"Subgroups below {self.min_subgroup_size} patients are flagged and should not be over-read: {names}.")
+        return " ".join(parts)
+
+    def to_dict(self) -> dict[str, Any]:
+        return to_jsonable(
+            {
+                "label": self.label,
+                "levels": list(self.levels),
+                "n": self.n,
+                "level_counts": dict(self.level_counts),
+                "discrimination": self.discrimination.to_dict(),
+                "calibration": self.calibration.to_dict(),
+                "overall": self.overall.to_dict(),
+                "threshold_tables": {str(k): v.to_dict() for k, v in self.threshold_tables.items()},
+                "decision_curves": [d.to_dict() for d in self.decision_curves],
+                "performance": self.performance,
+                "subgroups": self.subgroups,
+                "subgroup_sizes": self.subgroup_sizes,
+                "n_boot": self.n_boot,
+                "seed": self.seed,
+                "n_failed": self.n_failed,
+                "confidence": self.confidence,
+                "min_subgroup_size": self.min_subgroup_size,
+                "warnings": list(self.warnings),
+                "summary": self.summary(),
+            }
+        )
+
+
+# ---------------------------------------------------------------------------
+# Validation of one cohort
+# ---------------------------------------------------------------------------
+
+
+def validate_cohort(
+    model: PredictionModel,
+    frame: pd.DataFrame,
+    y: Any,
+    *,
+    label: str = "validation",
+    thresholds: Mapping[int, Sequence[float]] | None = None,
+    subgroups: Sequence[Any] = (),
+    min_subgroup_size: int = 100,
+    n_boot: int = 200,
+    seed: int = 0,
+    confidence: float = 0.95,
+    n_jobs: int = 1,
+    scheduler: str | None = None,
+) -> CohortValidation:
+    """Performance of a frozen model in one validation cohort, with bootstrap intervals.
+
+    Parameters
+    ----------
+    model : PredictionModel
+        The frozen model (never refitted here).
+    frame : DataFrame
+        The cohort (a :class:`riskvet.data.PreparedCohort` frame).
+    y : array of int
+        Outcome codes 0..K-1; every level must occur.
+    label : str, keyword-only
+        Cohort label.
+    thresholds : mapping of int to sequence of float, optional, keyword-only
+        Risk thresholds of clinical interest by cut (``study.thresholds_for_cut``).
+    subgroups : sequence, keyword-only
+        :class:`SubgroupSpec` (or :class:`riskvet.study.Subgroup`) objects.
+    min_subgroup_size : int, keyword-only
+        Subgroups with fewer patients are flagged ``small``.
+    n_boot : int, keyword-only
+        Bootstrap replicates (0: no intervals).
+    seed : int, keyword-only
+        Bootstrap seed.
+    confidence : float, keyword-only
+        Level of the percentile intervals.
+    n_jobs : int, keyword-only
+        Worker processes (-1: every core).
+    scheduler : str, optional, keyword-only
+        Address of a dask.distributed scheduler (``compute.scheduler``).
+
+    Returns
+    -------
+    CohortValidation
+
+    Notes
+    -----
+    The model is applied as frozen: no parameter is re-estimated.  Interval
+    for a measure: the (1 - confidence)/2 and (1 + confidence)/2 percentiles
+    of its values over B resamples of the cohort's rows with replacement
+    (Efron & Tibshirani 1993, ch. 13); resamples lacking an outcome level
+    are left out and counted.  A subgroup's measures use the subgroup's rows
+    within each resample, so subgroup and whole-cohort intervals come from
+    the same replicates.  Measures: per-cut C (DeLong 1988), average
+    dichotomised C and ordinal c-index (Van Calster et al. 2012),
+    calibration-in-the-large and slope per cut (Cox 1958), ICI (Austin &
+    Steyerberg 2019), Brier and scaled Brier scores, classification at the
+    study's thresholds and net benefit (Vickers & Elkin 2006), all computed
+    by :mod:`riskvet.metrics`.
+
+    References
+    ----------
+    Efron B, Tibshirani RJ. An Introduction to the Bootstrap. Chapman & Hall, 1993.
+
+    Riley RD, Archer L, Snell KIE, et al. Evaluation of clinical prediction
+    models (part 2): how to undertake an external validation study. BMJ
+    2024;384:e074820.
+
+    Vickers AJ, Elkin EB. Decision curve analysis: a novel method for
+    evaluating prediction models. Medical Decision Making 2006;26(6):565-574.
+    """
+    func = "validate_cohort"
+    n_boot, seed, confidence = _check_boot(n_boot, seed, confidence, func)
+    if isinstance(min_subgroup_size, bool) or not isinstance(min_subgroup_size, (int, np.integer)) or min_subgroup_size < 1:
+        raise RiskvetError(problem(f"{func}(min_subgroup_size=)", allowed="a whole number >= 1", received=min_subgroup_size))
+    prob = apply_model(model, frame, label=label)
+    levels = tuple(model.levels)
+    K = len(levels)
+    yy = np.asarray(y)
+    if yy.ndim != 1 or yy.shape[0] != len(frame):
+        raise DataError(problem(f"{func}(y=)", allowed=f"one outcome code per row of frame ({len(frame)})", received=f"shape {yy.shape}"))
+    yy = yy.astype(np.int64)
+    counts = np.bincount(yy, minlength=K)
+    if counts.size != K or np.any(counts == 0):
+        raise DataError(problem(f"{func}(y=) in cohort {label!r}", allowed=f"every outcome level of {list(levels)} present", received=f"level counts {counts.tolist()}"))
+    thresholds = {int(k): tuple(v) for k, v in (thresholds or {}).items() if len(v)}
+    bad = [k for k in thresholds if not 0 <= k < K - 1]
+    if bad:
+        raise RiskvetError(problem(f"{func}(thresholds=)", allowed=f"cuts 0..{K - 2}", received=bad))
+
+    notes: list[str] = []
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", RiskvetWarning)
+        disc = ordinal_discrimination(yy, prob, confidence=confidence, transform="logit")
+        cal = ordinal_calibration(yy, prob, confidence=confidence)
+        overall = overall_accuracy(yy, prob)
+        tables = {}
+        curves = []
+        for j in range(K - 1):
+            y_cut, p_cut = dichotomise(yy, prob, cut=j)
+            if j in thresholds:
+                tables[j] = threshold_table(y_cut, p_cut, thresholds=list(thresholds[j]), confidence=confidence)
+            curve = net_benefit(y_cut, p_cut, thresholds=decision_grid(thresholds.get(j, ())))
+            curves.append(dataclasses.replace(curve, cut=j))
+    notes += [str(w.message) for w in caught if issubclass(w.category, RiskvetWarning)]
+
+    # subgroups
+    masks: dict[tuple[str, str], np.ndarray] = {}
+    size_rows = []
+    for spec in subgroups:
+        groups, n_missing = subgroup_masks(frame, spec)
+        for name, mask in groups:
+            n_g = int(mask.sum())
+            masks[(spec.column, name)] = mask
+            size_rows.append({"column": spec.column, "group": name, "n": n_g, "n_top": int((yy[mask] == K - 1).sum()), "small": n_g < min_subgroup_size})
+        if n_missing:
+            size_rows.append({"column": spec.column, "group": "(missing)", "n": n_missing, "n_top": -1, "small": True})
+    sizes = pd.DataFrame(size_rows, columns=["column", "group", "n", "n_top", "small"])
+
+    apparent = performance_summary(yy, prob)
+    reps = run_replicates(_Replicate(yy, prob, masks), n_boot=n_boot, seed=seed, n_jobs=n_jobs, scheduler=scheduler) if n_boot else []
+    keys = summary_keys(K)
+    whole = [r[("", "")] for r in reps]
+    n_failed = sum(r is None for r in whole)
+    if n_failed:
+        notes.append(f"bootstrap: {n_failed} of {n_boot} resamples lacked an outcome level and were left out")
+    performance = pd.DataFrame(_order_rows(_interval_rows(apparent, whole, keys, confidence, levels)))
+    performance["cut"] = performance["cut"].astype("Int64")
+
+    sub_rows = []
+    for (column, name), mask in masks.items():
+        n_g = int(mask.sum())
+        app = _summary_or_none(yy[mask], prob[mask], K) if n_g else None
+        info = {"column": column, "group": name, "n": n_g, "n_top": int((yy[mask] == K - 1).sum()), "small": n_g < min_subgroup_size}
+        if app is None and n_g:
+            notes.append(f"subgroup {column} = {name}: not every outcome level occurs (n = {n_g}); measures not computed")
+        for row in _order_rows(_interval_rows(app, [r[(column, name)] for r in reps], keys, confidence, levels)):
+            sub_rows.append({**info, **row})
+    sub_cols = ["column", "group", "n", "n_top", "small", "measure", "label", "cut", "outcome", "estimate", "se", "lower", "upper", "n_boot_used"]
+    sub_table = pd.DataFrame(sub_rows, columns=sub_cols)
+    sub_table["cut"] = sub_table["cut"].astype("Int64")
+    for note in notes:
+        warnings.warn(note, RiskvetWarning, stacklevel=2)
+    return CohortValidation(
+        label=str(label),
+        levels=levels,
+        n=int(yy.size),
+        level_counts={lv: int(c) for lv, c in zip(levels, counts)},
+        discrimination=disc,
+        calibration=cal,
+        overall=overall,
+        threshold_tables=tables,
+        decision_curves=tuple(curves),
+        performance=performance,
+        subgroups=sub_table,
+        subgroup_sizes=sizes,
+        n_boot=n_boot,
+        seed=seed,
+        n_failed=n_failed,
+        confidence=confidence,
+        min_subgroup_size=int(min_subgroup_size),
+        warnings=tuple(dict.fromkeys(notes)),
+    )
