@@ -71,8 +71,13 @@ def imports_of(module: str) -> set[str]:
             names = [a.name for a in node.names]
         elif isinstance(node, ast.ImportFrom):
             if node.level:
-                base = package.split(".")[: len(package.split(".")) - node.level + 1]
+                parts = package.split(".")
+                assert node.level <= len(parts), f"{module}: line {node.lineno} imports beyond the top of the package"
+                base = parts[: len(parts) - node.level + 1]
                 target = ".".join(base + ([node.module] if node.module else []))
+                assert any(target == m or target.startswith(m + ".") for m in MODULES) or target in MODULES, (
+                    f"{module}: line {node.lineno} imports {target}, which is no module of the package"
+                )
             else:
                 target = node.module or ""
             names = [target] + [f"{target}.{a.name}" for a in node.names]

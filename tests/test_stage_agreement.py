@@ -21,7 +21,7 @@ from riskvet.reporting.figures.agreement import plot_item_agreement, plot_risk_a
 from riskvet.chain.scaffold import new_study_folder
 from riskvet.chain.stagekit import stage_context
 from riskvet.chain.stages import agreement as stage
-from riskvet.reporting.disclosure import SUPPRESSED, PublishedTable, publish_cross_table
+from riskvet.reporting.disclosure import SUPPRESSED, publish_cross_table
 from riskvet.intake.study import load_study, study_from_dict
 
 

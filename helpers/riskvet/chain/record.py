@@ -25,7 +25,7 @@ import pandas as pd
 
 from .._jsonable import to_jsonable
 from ..errors import RecordError, RiskvetError, problem
-from ..reporting.headlines import flatten, headline_results, key_results
+from ..reporting.headlines import flatten, key_results
 
 __all__ = [
     "MANIFEST",
@@ -505,8 +505,6 @@ def _levels(manifest: Mapping[str, Any]) -> tuple[str, ...]:
 
 
 def _side_by_side(ra: Mapping[str, Any], rb: Mapping[str, Any], *, levels: tuple[str, ...], rtol: float) -> pd.DataFrame:
-    from .stages.summary import key_results
-
     from ..intake.study import STAGES
 
     columns = ["stage", "measure", "key"]

@@ -19,6 +19,7 @@ import pandas as pd
 
 from ..errors import RiskvetError, problem
 from ..intake.outcome import cut_name
+from ..validation.external import measure_label
 
 __all__ = ["flatten", "headline_results", "key_results"]
 
@@ -203,8 +204,6 @@ def _measure_label(key: str, levels: tuple[str, ...]) -> str:
     """``auc_cut1`` -> ``AUC, Y >= <level 2>``."""
     match = re.fullmatch(r"(.+)_cut(\d+)", key)
     base = match.group(1) if match else key
-    from ...validation.external import measure_label
-
     if len(levels) == 2:
         return measure_label(base, 2)  # a binary outcome has one cut: its event
     words = _MEASURE_WORDS.get(base, base.replace("_", " "))

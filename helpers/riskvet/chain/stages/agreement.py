@@ -29,7 +29,6 @@ and agreement counts the record states.
 from __future__ import annotations
 
 import dataclasses
-import math
 import re
 import warnings
 from dataclasses import dataclass, field
@@ -41,28 +40,26 @@ import pandas as pd
 from ..._jsonable import to_jsonable
 from ...measures.agreement import BlandAltmanResult, DecisionAgreement, ICCTable, KappaResult, bland_altman, decision_agreement, icc_table, kappa
 from ...intake.data import Cohorts, load_cohorts, read_table
-from ...reporting.disclosure import SUPPRESSED, PublishedTable, publish_cross_table
+from ...reporting.disclosure import PublishedTable, publish_cross_table
 from ...errors import DataError, ModelFileError, RiskvetWarning, StudyError, problem
 from ...modelling.modelfile import PredictionModel, load_model
 from ...intake.study import RatedItem, Study
-from .planning import cut_label
+from ...reporting.labels import cut_label
+from ...reporting.sentences.agreement import (
+    DEVICE_NOTE,
+    NO_MODEL_NOTE,
+    agreement_summary,
+    continuous_sentence,
+    items_sentence,
+    kappa_sentence,
+    risk_sentence,
+)
 
 __all__ = ["ItemAgreement", "CutRiskAgreement", "RiskAgreement",
            "AgreementOutput", "assess", "run"]
 
 #: The ICC forms reported for two fixed raters: absolute agreement and consistency.
 PRIMARY_ICC_FORMS = ("2,1", "3,1")
-
-_DEVICE = (
-    "These risks are a sensitivity device, not estimates for the people rated: predictors the ratings file does not hold "
-    "are fixed at the derivation cohort's median (numbers) or most frequent category, so the comparison shows how far the "
-    "raters' differences alone move the predicted risk and the decision."
-)
-
-
-def _fmt(x: float, digits: int = 2) -> str:
-    return "undefined" if x is None or not math.isfinite(x) else f"{x:.{digits}f}".replace("-", "−")
-
 
 # --------------------------------------------------------------------------
 # results
@@ -370,45 +367,6 @@ def _level_order(values: pd.Series, item: RatedItem, study: Study, cohorts: Coho
     return seen, "sorted as text"
 
 
-def _rate(total: int | str, n: int) -> str:
-    if total == SUPPRESSED:
-        return "a share not shown (small counts)"
-    return f"{total / n:.0%}"
-
-
-def _kappa_sentence(item: RatedItem, k: KappaResult, wk: KappaResult | None, levels: list[str], published: PublishedTable) -> str:
-    share = k.observed_agreement
-    if item.scale == "binary" and not published.margins_shown:
-        rates = (f"How often each rater recorded {levels[-1]!r} is not shown: with the number of people on whom they agree, "
-                 f"it would let a reader work out a count below {published.min_cell_count}. ")
-    elif item.scale == "binary":
-        pa, pb = _rate(published.row_totals[-1], k.n), _rate(published.column_totals[-1], k.n)
-        rates = f"{item.rater_a} recorded {levels[-1]!r} for {pa} and {item.rater_b} for {pb}. "
-    else:
-        rates = ""
-    if not math.isfinite(k.value):
-        return (f"{item.name}: the raters recorded the same value for {share:.0%} of {k.n} people. {rates}"
-                "Kappa is undefined because both raters used a single category.")
-    text = (f"{item.name}: the raters recorded the same value for {share:.0%} of {k.n} people. {rates}"
-            f"Cohen's kappa, the agreement beyond what the raters' own rates would give by chance, is {_fmt(k.value)} "
-            f"({k.confidence:.0%} CI {_fmt(k.lower)} to {_fmt(k.upper)}).")
-    if wk is not None and math.isfinite(wk.value):
-        text += f" With quadratic weights, which count near misses between ordered categories as part agreement, it is {_fmt(wk.value)} ({_fmt(wk.lower)} to {_fmt(wk.upper)})."
-    return text
-
-
-def _continuous_sentence(item: RatedItem, table: ICCTable, ba: BlandAltmanResult) -> str:
-    a, c = table["2,1"], table["3,1"]
-    return (
-        f"{item.name}: for {ba.n} people, ICC(2,1) (absolute agreement of single readings) is {_fmt(a.value)} "
-        f"({a.confidence:.0%} CI {_fmt(a.lower)} to {_fmt(a.upper)}) and ICC(3,1) (consistency, ignoring a fixed offset) {_fmt(c.value)}. "
-        f"On average {item.rater_a} reads {_fmt(abs(ba.bias), 3)} {'higher' if ba.bias >= 0 else 'lower'} than {item.rater_b} "
-        f"({ba.confidence:.0%} CI of the bias {_fmt(ba.bias_interval[0], 3)} to {_fmt(ba.bias_interval[1], 3)}); "
-        f"for 95% of people the difference is expected between {_fmt(ba.lower, 3)} and {_fmt(ba.upper, 3)} in the item's units. "
-        "Whether differences this large matter is a clinical judgement."
-    )
-
-
 def _item_agreement(item: RatedItem, ratings: pd.DataFrame, study: Study, cohorts: Cohorts) -> ItemAgreement:
     a, b = ratings[item.rater_a], ratings[item.rater_b]
     both = (a.notna() & b.notna()).to_numpy()
@@ -424,7 +382,7 @@ def _item_agreement(item: RatedItem, ratings: pd.DataFrame, study: Study, cohort
         if item.scale == "continuous":
             table = icc_table(pd.DataFrame({"a": a, "b": b}))
             ba = bland_altman(a, b)
-            text = _continuous_sentence(item, table, ba)
+            text = continuous_sentence(item, table, ba)
         else:
             levels, order = _level_order(pd.concat([a, b]), item, study, cohorts)
             k = kappa(a, b, levels=levels)
@@ -434,7 +392,7 @@ def _item_agreement(item: RatedItem, ratings: pd.DataFrame, study: Study, cohort
                     notes.append(f"The order of the categories of {item.name} is not known (not numbers, no study levels); they were sorted as text, which the weighted kappa depends on.")
             notes.extend(k.warnings)
             published = publish_cross_table(k.table, min_cell_count=study.output.min_cell_count, bands=wk is not None)
-            text = _kappa_sentence(item, k, wk, levels, published)
+            text = kappa_sentence(item, k, wk, levels, published)
     except DataError as exc:
         notes.append(f"Not computed: {exc}")
         text = f"{item.name}: agreement could not be computed ({exc})."
@@ -469,24 +427,6 @@ def _fixed_value(cohorts: Cohorts, name: str) -> Any:
         order = list(d.category_levels.get(name, sorted(counts.index)))
         return max(order, key=lambda lv: (int(counts.get(lv, 0)), -order.index(lv)))
     return float(np.median(column.to_numpy(dtype=float)))
-
-
-def _risk_sentence(c: CutRiskAgreement) -> str:
-    ba = c.risks
-    text = (
-        f"Risk of '{c.label}': the rater_a readings give risks {_fmt(abs(ba.bias) * 100, 1)} percentage points "
-        f"{'higher' if ba.bias >= 0 else 'lower'} than the rater_b readings on average; for 95% of people the two risks differ by between "
-        f"{_fmt(ba.lower * 100, 1)} and {_fmt(ba.upper * 100, 1)} percentage points."
-    )
-    for d in c.decisions:
-        text += f" At the threshold {d.threshold:g}, the raters' readings lead to different decisions for {d.discordant} of {d.n} people"
-        if math.isfinite(d.decisions.value):
-            text += f" (kappa on the decisions {_fmt(d.decisions.value)})."
-        else:
-            text += "; everyone falls on the same side of the threshold with both raters' readings, so kappa on the decisions is undefined."
-    if not c.decisions:
-        text += " The study gives no threshold for this cut, so decisions were not compared."
-    return text
 
 
 def _risk_agreement(study: Study, cohorts: Cohorts, model: PredictionModel, ratings: pd.DataFrame) -> tuple[RiskAgreement | None, str]:
@@ -532,8 +472,8 @@ def _risk_agreement(study: Study, cohorts: Cohorts, model: PredictionModel, rati
         decisions = tuple(decision_agreement(risk_a, risk_b, threshold=t) for t in study.thresholds_for_cut(j))
         draft = CutRiskAgreement(cut=j, label=cut_label(levels, j, binary=binary), risks=bland_altman(risk_a, risk_b), decisions=decisions,
                                  min_cell_count=study.output.min_cell_count, text="")
-        cuts.append(dataclasses.replace(draft, text=_risk_sentence(draft)))
-    note = _DEVICE
+        cuts.append(dataclasses.replace(draft, text=risk_sentence(draft)))
+    note = DEVICE_NOTE
     if from_file:
         note = note.replace("predictors the ratings file does not hold are fixed", f"predictors read from the ratings file ({', '.join(from_file)}) are used as recorded; the others are fixed")
     if not fixed:
@@ -613,41 +553,15 @@ def assess(study: Study, *, cohorts: Cohorts | None = None, model: PredictionMod
         raise StudyError(problem("data.ratings", allowed="the paired-ratings file", received=None))
     ratings = ratings.reset_index(drop=True)
     items = tuple(_item_agreement(it, ratings, study, cohorts) for it in study.agreement.items)
-    items_text = (
-        f"Agreement of the two raters was assessed for {len(items)} item(s) in {len(ratings)} people rated by both. "
-        "Kappa and the intraclass correlation are 1 for perfect agreement and 0 for agreement no better than chance; "
-        "the limits of agreement are in the item's own units."
-    )
+    items_text = items_sentence(len(items), len(ratings))
     if model is None:
-        risk, note = None, (
-            "Whether the raters' readings give the same predicted risk and decision needs the frozen model, "
-            "which did not exist when this stage ran; only the predictors' agreement is reported."
-        )
+        risk, note = None, NO_MODEL_NOTE
         risk_text = note
     else:
         risk, note = _risk_agreement(study, cohorts, model, ratings)
         risk_text = note if risk is None else note + " " + " ".join(c.text for c in risk.cuts)
     return AgreementOutput(items=items, risk=risk, risk_note=note,
-                           texts={"summary": _summary(items, risk), "items": items_text, "risk": risk_text})
-
-
-def _summary(items: tuple[ItemAgreement, ...], risk: RiskAgreement | None) -> str:
-    parts = []
-    for it in items:
-        if it.kappa is not None:
-            k = it.weighted_kappa if it.weighted_kappa is not None else it.kappa
-            kind = "quadratic-weighted kappa" if it.weighted_kappa is not None else "kappa"
-            parts.append(f"{it.name} {kind} {_fmt(k.value)} ({_fmt(k.lower)} to {_fmt(k.upper)})")
-        elif it.icc is not None:
-            r = it.icc["2,1"]
-            parts.append(f"{it.name} ICC(2,1) {_fmt(r.value)} ({_fmt(r.lower)} to {_fmt(r.upper)}), "
-                         f"limits of agreement {_fmt(it.bland_altman.lower, 3)} to {_fmt(it.bland_altman.upper, 3)}")
-    text = "Rater agreement: " + "; ".join(parts) + "." if parts else "Rater agreement could not be computed for any item."
-    if risk is None:
-        return text + " Agreement of predicted risk was not assessed."
-    limits = "; ".join(f"'{c.label}' {_fmt(c.risks.lower * 100, 1)} to {_fmt(c.risks.upper * 100, 1)}" for c in risk.cuts)
-    fixed = ", other predictors fixed" if risk.fixed else ""
-    return text + f" Limits of agreement of the predicted risk from each rater's readings (percentage points{fixed}): {limits}."
+                           texts={"summary": agreement_summary(items, risk), "items": items_text, "risk": risk_text})
 
 
 def _figure_name(prefix: str, name: str) -> str:

@@ -37,6 +37,7 @@ from ...validation.bootstrap import InternalValidation, validate_internally, wri
 from ...validation.crossval import CrossValidation, cross_validate
 from ...intake.data import load_cohorts
 from ...modelling.modelfile import load_model
+from ...reporting.sentences.internal_validation import internal_validation_texts
 
 __all__ = ["InternalValidationOutput", "crossval_seed", "run"]
 
@@ -144,45 +145,6 @@ def _model_check(ctx, validation: InternalValidation) -> str:
     )
 
 
-def _texts(validation: InternalValidation, crossval: CrossValidation | None, shrunk: str | None, notes: list[str],
-           model_check: str) -> dict[str, str]:
-    texts = {
-        "summary": validation.summary_sentence,
-        "table": (
-            "Optimism is the average amount by which a model derived by this procedure looks better on the "
-            "data it was derived from than on the original data; subtracting it from the apparent value "
-            "estimates how the model will perform in new patients from the same population. For the Brier "
-            "score and the ICI lower is better, so their optimism is negative."
-        ),
-        "optimism_figure": (
-            "Each row joins the apparent value (circle) to the optimism-corrected value (square); the longer the "
-            "line, the more the apparent figure overstates performance. The triangle is the .632+ estimate, "
-            "a second bootstrap estimate that weighs apparent and out-of-bag performance."
-        ),
-        "shrinkage": validation.shrinkage.summary_sentence,
-        "stability": validation.stability.summary_sentence,
-        "failures": validation.failure_sentence,
-    }
-    if crossval is not None:
-        texts["crossval"] = crossval.summary_sentence + (
-            " Cross-validation and the bootstrap estimate the same thing by different routes; close agreement "
-            "makes either figure more credible."
-        )
-    else:
-        texts["crossval"] = "Cross-validation was not requested (internal_validation.cv_repeats is 0)."
-    if shrunk is not None:
-        texts["shrunken_model"] = (
-            f"A uniformly shrunken model was written to {shrunk}: its coefficients are the frozen model's times "
-            f"{validation.shrinkage.bootstrap:.3f}, and its thresholds were re-fitted on the derivation data with "
-            "the shrunken linear predictor held fixed, so that the overall level of risk stays anchored to the data. "
-            "Use it instead of the original only by a documented decision."
-        )
-    else:
-        texts["shrunken_model"] = "No shrunken model was written" + (f": {notes[-1]}." if notes else ".")
-    texts["shrunken_model"] += f" Model check: {model_check}."
-    return texts
-
-
 def _on_terminal() -> bool:
     """Whether standard error is an interactive terminal (False in a notebook kernel, a pipe or a log file)."""
     return bool(getattr(sys.stderr, "isatty", lambda: False)())
@@ -261,7 +223,7 @@ def run(ctx) -> InternalValidationOutput:
         model_check=check,
         notes=tuple(notes),
         figures=figures,
-        texts=_texts(validation, crossval, shrunk, notes, check),
+        texts=internal_validation_texts(validation, crossval, shrunk, notes, check),
     )
     ctx.write_results(out.to_dict())
     return out

@@ -37,6 +37,8 @@ from ...planning.samplesize import (
     validation_size,
 )
 from ...intake.study import Study
+from ...reporting.labels import cut_label
+from ...reporting.sentences.planning import checks_sentence, development_sentence, validation_sentence
 
 __all__ = ["CutValidationSize", "CohortCheck", "PlanningOutput", "plan", "plan_text", "run"]
 
@@ -216,13 +218,6 @@ class PlanningOutput:
 # helpers
 # --------------------------------------------------------------------------
 
-def cut_label(levels: Sequence[str], cut: int, *, binary: bool) -> str:
-    """The event of cut ``cut`` in words: the event level, or "<level> or higher"."""
-    if binary or cut == len(levels) - 2:
-        return str(levels[cut + 1])
-    return f"{levels[cut + 1]} or higher"
-
-
 def _cohort_proportions(study: Study, cohorts: Cohorts) -> tuple[tuple[float, ...], str]:
     d = cohorts.derivation
     levels = study.outcome.ordered_levels
@@ -318,51 +313,6 @@ def _checks(study: Study, cohorts: Cohorts, development, validation) -> tuple[Co
                 )
             )
     return tuple(out)
-
-
-def _development_sentence(dev, levels: Sequence[str], binary: bool) -> str:
-    if isinstance(dev, OrdinalDevelopmentSize):
-        cut = dev.cuts[dev.binding_cut]
-        return (
-            f"Developing the model needs at least {dev.n:,} people. The requirement is largest at the cut "
-            f"'{cut_label(levels, dev.binding_cut, binary=binary)}' (outcome proportion {cut.prevalence:.3f}), "
-            f"where the {cut.binding} criterion binds; that is about {cut.events:.0f} events, "
-            f"{cut.events_per_parameter:.1f} per candidate parameter."
-        )
-    return (
-        f"Developing the model needs at least {dev.n:,} people ({dev.binding} criterion), about {dev.events:.0f} events "
-        f"at an outcome proportion of {dev.prevalence:.3f}, or {dev.events_per_parameter:.1f} events per candidate parameter."
-    )
-
-
-def _validation_sentence(validation: Sequence[CutValidationSize]) -> str:
-    if not validation:
-        return "No validation sample size was computed (it needs planning.anticipated_c)."
-    top = max(validation, key=lambda v: (v.size.n, -v.cut))
-    parts = [f"'{v.label}' {v.size.n:,} ({v.size.binding})" for v in validation]
-    return (
-        f"Validating the model needs at least {top.size.n:,} people, set by the event '{top.label}' "
-        f"(about {top.size.events:.0f} events). By event: " + "; ".join(parts) + "."
-    )
-
-
-def _checks_sentence(checks: Sequence[CohortCheck]) -> str:
-    if not checks:
-        return "No cohort was read, so the plan was not compared with the data."
-    short = [c for c in checks if not c.n_met]
-    few_events = [c for c in checks if c.n_met and not c.events_met]
-    if not short:
-        text = "Every cohort is at least as large as planned."
-    else:
-        text = "Smaller than planned: " + "; ".join(
-            f"{c.cohort} for {c.purpose}{'' if c.purpose == 'development' else f' (event {c.label!r})'}, {c.n_available:,} of {c.n_required:,}"
-            for c in short
-        ) + ". Estimates from a cohort below its planned size are less precise than the plan intended; say so when reporting them."
-    if few_events:
-        text += " Large enough but with fewer events than planned (a lower event proportion): " + "; ".join(
-            f"{c.cohort} ({c.label!r}), {c.events_available} events of {c.events_planned:.0f}" for c in few_events
-        ) + "."
-    return text
 
 
 # --------------------------------------------------------------------------
@@ -466,9 +416,9 @@ def plan(study: Study, *, cohorts: Cohorts | None = None, proportions: Sequence[
             + "): "
             + ", ".join(f"{lv} {v:.3f}" for lv, v in zip(levels, props))
             + ".",
-            "development": _development_sentence(development, levels, binary),
-            "validation": _validation_sentence(validation),
-            "checks": _checks_sentence(checks),
+            "development": development_sentence(development, levels, binary),
+            "validation": validation_sentence(validation),
+            "checks": checks_sentence(checks),
         },
     )
 

@@ -15,30 +15,20 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from typing import Any, Callable, Mapping
+from typing import Any, Mapping
 
 import pandas as pd
 
 from ..._jsonable import to_jsonable
 from ...reporting.headlines import key_results
 from ...intake.study import STAGES
+from ...reporting.sentences.common import CAUTION
+from ...reporting.sentences.summary import summary_texts
 from ...reporting.tripod import TripodTable, tripod_table
 
 __all__ = ["CAUTION", "SummaryOutput", "stage_status", "findings", "run"]
 
-CAUTION = (
-    "Statistical evaluation is not clearance for clinical use: local validation, governance and "
-    "licensed clinical judgement decide whether a model is used."
-)
 
-_STAGE_TITLES = {
-    "planning": "sample-size planning",
-    "agreement": "rater agreement",
-    "derivation": "derivation",
-    "internal_validation": "internal validation",
-    "external_validation": "external validation",
-    "updating": "updating",
-}
 
 
 #: The texts of a stage's ``texts`` that best summarise it, when it has no ``texts.summary``.
@@ -186,45 +176,6 @@ def _model_summary(ctx, results: Mapping[str, Any]) -> dict[str, Any] | None:
     }
 
 
-def _texts(study: Mapping[str, Any], stages: pd.DataFrame, model: Mapping[str, Any] | None) -> dict[str, str]:
-    ran = stages.loc[stages["status"] == "ran", "stage"].map(_STAGE_TITLES).tolist()
-    not_run = stages.loc[stages["status"] == "enabled, not run in this record", "stage"].map(_STAGE_TITLES).tolist()
-    off = stages.loc[stages["status"] == "not enabled in the study file", "stage"].map(_STAGE_TITLES).tolist()
-    parts = [f"This record holds the results of {_join(ran) if ran else 'no earlier stage'}."]
-    if not_run:
-        parts.append(f"Enabled in the study but not run in this record: {_join(not_run)} (a partial run; see the manifest).")
-    if off:
-        parts.append(f"Not enabled in the study file: {_join(off)}.")
-    if model is None:
-        model_text = "The record holds no frozen model."
-    else:
-        model_text = (
-            f"The frozen model was {model['source']}; its content SHA-256 is {model['sha256'][:12]}… "
-            f"({model['n_columns']} design columns, {model['link']} link, "
-            f"{'proportional' if model['proportional'] else 'non-proportional'} cumulative model "
-            f"over {len(model['outcome_levels'])} levels)."
-        )
-    levels = ", ".join(study["outcome_labels"].get(lv, lv) for lv in study["outcome_levels"])
-    return {
-        "caution": CAUTION,
-        "study": f"Study {study['name']!r}: {study['outcome_type']} outcome {study['outcome_column']!r} with levels {levels}.",
-        "stages": " ".join(parts),
-        "model": model_text,
-        "key_results": (
-            "The numbers below are copied from each stage's results file (the key column says where), with the "
-            "interval that stage reports, if any (its notebook says which kind); the stage notebooks interpret them."
-        ),
-        "tripod": (
-            "For each TRIPOD item the analysis covers, where this record answers it: the executed notebook and "
-            "section, and the results key. Items about the writing itself are left to the authors' report."
-        ),
-    }
-
-
-def _join(words: list[str]) -> str:
-    return words[0] if len(words) == 1 else ", ".join(words[:-1]) + " and " + words[-1]
-
-
 def run(ctx) -> SummaryOutput:
     """Run the summary stage: gather, tabulate and write ``results/summary.json``.
 
@@ -264,7 +215,7 @@ def run(ctx) -> SummaryOutput:
         key_results=key_results(results, levels=tuple(study.outcome.ordered_levels)),
         findings=findings(results),
         tripod=tripod_table(ctx.record_dir, results=results, enabled=study.enabled_stages),
-        texts=_texts(about, stages, model),
+        texts=summary_texts(about, stages, model),
     )
     ctx.write_results(out.to_dict())
     return out
