@@ -1323,8 +1323,6 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
     .. [6] Cox DR. Two further applications of a model for binary
        regression. Biometrika 1958;45(3-4):562-565.
     """
-    from ..modelling.derive import derive
-
     func = "validate_internally"
     study = _check_study(study, func)
     frame, y = _as_data(study, data, func)
@@ -1336,23 +1334,94 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
     link = study.model.link
     n = len(frame)
 
-    # The apparent model: the derivation procedure on all data, as the derivation stage runs it.
-    with warnings.catch_warnings(record=True) as seen:
-        warnings.simplefilter("always")
-        apparent_derivation = derive(study, frame, y)
-        fit = apparent_derivation.fit
-        prob, lp = _predict(apparent_derivation, frame)
-    apparent_warnings = tuple(dict.fromkeys(f"{w.category.__name__}: {w.message}" for w in seen if issubclass(w.category, RiskvetWarning)))
-    for w in seen:  # statistical trouble of the model on all data is shown as well as recorded
-        if issubclass(w.category, RiskvetWarning):
-            warnings.warn(str(w.message), w.category, stacklevel=2)
+    apparent_derivation, prob, lp, trouble = _derive_on_all_data(study, frame, y)
+    apparent_warnings = tuple(dict.fromkeys(f"{w.category.__name__}: {w.message}" for w in trouble))
+    for w in trouble:  # statistical trouble of the model on all data is shown as well as recorded
+        warnings.warn(str(w.message), w.category, stacklevel=2)
     apparent, _ = _measures(y, prob, lp if lp.ndim == 1 else None, K=K, link=link)
 
-    payload = _Payload(study=study, frame=frame, y=y, K=K, link=link)
-    items = list(enumerate(np.random.SeedSequence(seed).spawn(n_boot)))
     specs = _measure_specs(levels)
     keys = [k for k, _, _ in specs]
+    tally = _run_replicates(
+        _Payload(study=study, frame=frame, y=y, K=K, link=link), seed=seed, n_boot=n_boot, keys=keys,
+        n_jobs=n_jobs, scheduler=study.compute.scheduler, progress=progress,
+    )
+    max_failed = study.internal_validation.max_failed_share
+    _check_failures(tally, n_boot=n_boot, max_failed=max_failed, func=func)
 
+    arrays = {s: {k: np.asarray(v, dtype=float) for k, v in d.items()} for s, d in tally.values.items()}
+    estimates = _measure_estimates(specs, arrays, tally, apparent, y, prob, K=K)
+    shrinkage = _shrinkage(arrays["original"], study, apparent_derivation, proportional_lp=lp.ndim == 1, K=K, link=link)
+    stability = _selection_stability(study, apparent_derivation, tally.terms)
+
+    return InternalValidation(
+        estimates=tuple(estimates),
+        shrinkage=shrinkage,
+        stability=stability,
+        failures=tuple(tally.failures),
+        n_boot=n_boot,
+        n_succeeded=len(tally.ok_ids),
+        seed=seed,
+        n=n,
+        n_levels=K,
+        levels=levels,
+        max_failed_share=float(max_failed),
+        replicate_warnings=dict(sorted(tally.replicate_warnings.items())),
+        apparent_warnings=apparent_warnings,
+        replicate_values=_replicate_table(arrays, tally.ok_ids, keys),
+        selection_seeds=tuple(tally.seeds),
+    )
+
+
+# ---------------------------------------------------------------------------
+# Steps of validate_internally
+# ---------------------------------------------------------------------------
+
+
+def _derive_on_all_data(study, frame: pd.DataFrame, y: np.ndarray) -> tuple[Any, np.ndarray, np.ndarray, list[warnings.WarningMessage]]:
+    """The derivation procedure on all data, as the derivation stage runs it.
+
+    Returns the derivation, its probabilities and linear predictor on the
+    same data, and the statistical warnings met, which the caller issues
+    again so that they point at its own caller.
+    """
+    from ..modelling.derive import derive
+
+    with warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always")
+        derivation = derive(study, frame, y)
+        prob, lp = _predict(derivation, frame)
+    return derivation, prob, lp, [w for w in seen if issubclass(w.category, RiskvetWarning)]
+
+
+@dataclass(frozen=True)
+class _Tally:
+    """What the replicates returned, gathered in replicate order.
+
+    ``failures`` and ``seeds`` cover every replicate, ``terms``,
+    ``replicate_warnings`` and ``ok_ids`` the successful ones; ``values``
+    maps sample (``bootstrap``, ``original``, ``out_of_bag``) to measure key
+    to the successful replicates' values; ``brier_sum``,
+    ``logp_sum`` and ``oob_count`` are per original row, summed over the
+    replicates that left the row out.
+    """
+
+    failures: tuple[ReplicateFailure, ...]
+    seeds: tuple[int, ...]
+    terms: tuple[tuple[str, ...], ...]
+    replicate_warnings: dict[str, int]
+    values: dict[str, dict[str, list[float]]]
+    ok_ids: tuple[int, ...]
+    brier_sum: np.ndarray
+    logp_sum: np.ndarray
+    oob_count: np.ndarray
+
+
+def _run_replicates(payload: _Payload, *, seed: int, n_boot: int, keys: Sequence[str], n_jobs: int,
+                    scheduler: str | None, progress: bool) -> _Tally:
+    """Run every replicate, each on its own spawned stream, and gather the results in replicate order."""
+    n = len(payload.frame)
+    items = list(enumerate(np.random.SeedSequence(seed).spawn(n_boot)))
     failures: list[ReplicateFailure] = []
     seeds: list[int] = []
     terms_list: list[tuple[str, ...]] = []
@@ -1362,7 +1431,7 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
     brier_sum = np.zeros(n)
     logp_sum = np.zeros(n)
     oob_count = np.zeros(n, dtype=np.int64)
-    for rec in _execute(_replicate, payload, items, n_jobs=n_jobs, scheduler=study.compute.scheduler,
+    for rec in _execute(_replicate, payload, items, n_jobs=n_jobs, scheduler=scheduler,
                         desc="bootstrap", progress=progress):
         seeds.append(rec["selection_seed"])
         if rec["status"] != "ok":
@@ -1378,9 +1447,16 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
         brier_sum[rows] += rec["brier_oob"]
         logp_sum[rows] += rec["logp_oob"]
         oob_count[rows] += 1
+    return _Tally(
+        failures=tuple(failures), seeds=tuple(seeds), terms=tuple(terms_list), replicate_warnings=dict(warn_counts),
+        values=values, ok_ids=tuple(ok_ids), brier_sum=brier_sum, logp_sum=logp_sum, oob_count=oob_count,
+    )
 
-    max_failed = study.internal_validation.max_failed_share
-    if len(failures) > max_failed * n_boot or not ok_ids:
+
+def _check_failures(tally: _Tally, *, n_boot: int, max_failed: float, func: str) -> None:
+    """Stop when more replicates failed than the study allows, or none succeeded."""
+    failures = tally.failures
+    if len(failures) > max_failed * n_boot or not tally.ok_ids:
         counts = dict(sorted(Counter(f.reason for f in failures).items()))
         raise RiskvetError(
             problem(
@@ -1390,14 +1466,18 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
             )
         )
 
-    arrays = {s: {k: np.asarray(v, dtype=float) for k, v in d.items()} for s, d in values.items()}
-    seen = oob_count > 0
+
+def _measure_estimates(specs: Sequence[tuple[str, str, str]], arrays: dict[str, dict[str, np.ndarray]], tally: _Tally,
+                       apparent: dict[str, float], y: np.ndarray, prob: np.ndarray, *, K: int) -> list[MeasureEstimate]:
+    """Optimism-corrected, .632 and .632+ estimates and the replicate spread of every measure."""
+    n = y.shape[0]
+    seen = tally.oob_count > 0
     props = np.bincount(y, minlength=K) / n
     present = props > 0
     ll0 = float(n * np.sum(props[present] * np.log(props[present])))
     null_brier = float(props[0] * props[1]) if K == 2 else float(1.0 - np.sum(props**2))
-    err1_brier = float(np.mean(brier_sum[seen] / oob_count[seen])) if seen.any() else float("nan")
-    err1_ll = float(n * np.mean(logp_sum[seen] / oob_count[seen])) if seen.any() else float("nan")
+    err1_brier = float(np.mean(tally.brier_sum[seen] / tally.oob_count[seen])) if seen.any() else float("nan")
+    err1_ll = float(n * np.mean(tally.logp_sum[seen] / tally.oob_count[seen])) if seen.any() else float("nan")
 
     estimates = []
     for key, label, kind in specs:
@@ -1407,6 +1487,7 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
         both = np.isfinite(boot) & np.isfinite(test)
         diff = boot[both] - test[both]
         optimism = float(np.mean(diff)) if diff.size else float("nan")
+        # Brier and log-likelihood are sums over patients, so their Err(1) pools rows out of bag
         if kind == "brier":
             err1, n_oob = err1_brier, int(seen.sum())
         elif kind == "scaled_brier":
@@ -1434,14 +1515,22 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
                 n_replicates=int(both.sum()), n_oob=n_oob,
             )
         )
+    return estimates
 
-    # Shrinkage
-    if lp.ndim == 1:
-        slopes = arrays["original"]["calibration_slope"]
+
+def _shrinkage(original: dict[str, np.ndarray], study, apparent_derivation, *, proportional_lp: bool, K: int,
+               link: str) -> ShrinkageEstimate:
+    """Bootstrap and heuristic uniform shrinkage factors.
+
+    ``original`` holds the replicate models' measures on the original data;
+    ``proportional_lp`` says whether the linear predictor is one column.
+    """
+    if proportional_lp:
+        slopes = original["calibration_slope"]
         source = f"slope of the replicate models' linear predictor in a cumulative {link} model on the original data"
     else:
         cut_keys = [f"calibration_slope_cut{j}" for j in range(K - 1)]
-        slopes = np.nanmean(np.vstack([arrays["original"][k] for k in cut_keys]), axis=0)
+        slopes = np.nanmean(np.vstack([original[k] for k in cut_keys]), axis=0)
         source = "mean of the per-cut logistic calibration slopes on the original data (non-proportional model)"
     s_sd, s_lo, s_hi = _spread(slopes)
     # Heuristic shrinkage (van Houwelingen & le Cessie 1990), (chi2 - df) / chi2.
@@ -1454,17 +1543,20 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
     # df would overstate the factor (Steyerberg, Clinical Prediction Models, 2019,
     # recalled from memory).  The final-model df is shown for comparison; without
     # selection the two are equal.
+    fit = apparent_derivation.fit
     chi2 = float(fit.lr_test.statistic)
     df_final = int(fit.lr_test.df)
     per_column = 1 if study.model.proportional else K - 1
     df_candidates = int(len(apparent_derivation.candidate_design.columns) * per_column)
-    shrinkage = ShrinkageEstimate(
+    return ShrinkageEstimate(
         bootstrap=_mean(slopes), bootstrap_sd=s_sd, bootstrap_lower=s_lo, bootstrap_upper=s_hi, source=source,
         heuristic=heuristic_shrinkage(chi2, df_final), heuristic_candidates=heuristic_shrinkage(chi2, df_candidates),
         model_chi2=chi2, df_final=df_final, df_candidates=df_candidates, n_replicates=int(np.isfinite(slopes).sum()),
     )
 
-    # Selection stability
+
+def _selection_stability(study, apparent_derivation, terms_list: Sequence[tuple[str, ...]]) -> SelectionStability:
+    """How often each candidate term, and each selected set, was chosen across the successful replicates."""
     candidates = tuple(t.name for t in apparent_derivation.candidate_design.terms)
     chosen = Counter(t for terms in terms_list for t in terms)
     set_counts: Counter[tuple[str, ...]] = Counter()
@@ -1474,7 +1566,7 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
         set_counts[key_set] += 1
         first_seen.setdefault(key_set, pos)
     top = sorted(set_counts.items(), key=lambda kv: (-kv[1], first_seen[kv[0]]))[:10]
-    stability = SelectionStability(
+    return SelectionStability(
         candidate_terms=candidates,
         forced_terms=tuple(t for t in study.predictors.forced if t in candidates),
         apparent_terms=apparent_derivation.terms,
@@ -1485,6 +1577,9 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
         method=study.selection.method,
     )
 
+
+def _replicate_table(arrays: dict[str, dict[str, np.ndarray]], ok_ids: Sequence[int], keys: Sequence[str]) -> pd.DataFrame:
+    """Long table of every successful replicate's measures: replicate, measure, sample, value."""
     long_rows = {
         "replicate": np.repeat(np.asarray(ok_ids, dtype=np.int64), 3 * len(keys)),
         "measure": np.tile(np.repeat(np.asarray(keys, dtype=object), 3), len(ok_ids)),
@@ -1497,24 +1592,12 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
     replicate_values = pd.DataFrame(long_rows)
     replicate_values["measure"] = replicate_values["measure"].astype(str)
     replicate_values["sample"] = replicate_values["sample"].astype(str)
+    return replicate_values
 
-    return InternalValidation(
-        estimates=tuple(estimates),
-        shrinkage=shrinkage,
-        stability=stability,
-        failures=tuple(failures),
-        n_boot=n_boot,
-        n_succeeded=len(ok_ids),
-        seed=seed,
-        n=n,
-        n_levels=K,
-        levels=levels,
-        max_failed_share=float(max_failed),
-        replicate_warnings=dict(sorted(warn_counts.items())),
-        apparent_warnings=apparent_warnings,
-        replicate_values=replicate_values,
-        selection_seeds=tuple(seeds),
-    )
+
+# ---------------------------------------------------------------------------
+# Wording of the summary sentences
+# ---------------------------------------------------------------------------
 
 
 def _method_words(method: str) -> str:

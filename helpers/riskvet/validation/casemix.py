@@ -292,42 +292,15 @@ def case_mix(
     approach. Biometrics 1988;44(3):837-845.
     """
     func = "case_mix"
-    if not isinstance(model, PredictionModel):
-        raise RiskvetError(problem(f"{func}(model=)", allowed="a PredictionModel", received=type(model).__name__))
-    for name, cohort in (("derivation", derivation), ("validation", validation)):
-        if not isinstance(cohort, PreparedCohort):
-            raise DataError(problem(f"{func}({name}=)", allowed="a PreparedCohort from riskvet.data.load_cohorts", received=type(cohort).__name__))
-    if derivation.outcome_levels != validation.outcome_levels:
-        raise DataError(problem(f"{func}(validation=)", allowed=f"outcome levels {list(derivation.outcome_levels)}", received=list(validation.outcome_levels)))
-    if isinstance(n_permutations, bool) or not isinstance(n_permutations, (int, np.integer)) or n_permutations < 0:
-        raise RiskvetError(problem(f"{func}(n_permutations=)", allowed="a whole number >= 0", received=n_permutations))
+    _check_inputs(model, derivation, validation, n_permutations=n_permutations, func=func)
     labels = dict(outcome_labels or {})
-    notes: list[str] = []
 
-    # predictors the model reads, side by side (standardised: validation minus derivation)
-    sd = standardised_differences(derivation, validation).to_frame()
-    sd = sd[sd["predictor"].isin(model.design.sources)]
-    rows = []
-    for r in sd.itertuples(index=False):
-        row = {
-            "variable": r.predictor,
-            "level": r.level,
-            "statistic": r.statistic,
-            "derivation": float(r.a),
-            "derivation_sd": float("nan"),
-            "validation": float(r.b),
-            "validation_sd": float("nan"),
-            "standardised_difference": -float(r.difference) if r.difference == r.difference else float("nan"),
-        }
-        if r.statistic == "mean":
-            row["derivation_sd"] = float(derivation.frame[r.predictor].dropna().std(ddof=1))
-            row["validation_sd"] = float(validation.frame[r.predictor].dropna().std(ddof=1))
-        rows.append(row)
+    rows = _predictor_rows(model, derivation, validation)
     rows += _outcome_rows(derivation, validation, labels)
-
     lp_d, m_d, s_d = linear_predictor_summary(model, derivation.frame)
     lp_v, m_v, s_v = linear_predictor_summary(model, validation.frame)
     pooled = math.sqrt((s_d**2 + s_v**2) / 2)
+    lp_difference = (m_v - m_d) / pooled if pooled > 0 else float("nan")
     rows.append(
         {
             "variable": "linear predictor",
@@ -337,31 +310,14 @@ def case_mix(
             "derivation_sd": s_d,
             "validation": m_v,
             "validation_sd": s_v,
-            "standardised_difference": (m_v - m_d) / pooled if pooled > 0 else float("nan"),
+            "standardised_difference": lp_difference,
         }
     )
     table = pd.DataFrame(rows)
     lo, hi = float(min(lp_d.min(), lp_v.min())), float(max(lp_d.max(), lp_v.max()))
     edges = np.linspace(lo, hi if hi > lo else lo + 1.0, _N_HIST_BINS + 1)
 
-    # membership model
-    X = _membership_matrix(model, derivation, validation)
-    member = np.r_[np.zeros(len(derivation.y), dtype=np.int64), np.ones(len(validation.y), dtype=np.int64)]
-    c = c_lo = c_hi = c_null = float("nan")
-    coefficients = pd.DataFrame(columns=["term", "estimate", "se", "z", "p"])
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", RiskvetWarning)
-        try:
-            c, c_lo, c_hi, fit = _membership_c(X, member)
-            frame = fit.to_frame()
-            coefficients = frame.loc[frame["kind"] == "coefficient", ["term", "estimate", "se", "z", "p"]].reset_index(drop=True)
-            if n_permutations:
-                rng = np.random.default_rng(np.random.SeedSequence(int(seed)))
-                null = [_membership_c(X, rng.permutation(member))[0] for _ in range(int(n_permutations))]
-                c_null = float(np.mean(null))
-        except FitError as exc:
-            notes.append(f"membership model: could not be fitted ({exc})")
-    notes += [f"membership model: {w.message}" for w in caught if issubclass(w.category, RiskvetWarning)]
+    c, c_lo, c_hi, c_null, coefficients, notes = _membership(model, derivation, validation, n_permutations=n_permutations, seed=seed)
     for note in notes:
         warnings.warn(note, RiskvetWarning, stacklevel=2)
 
@@ -374,7 +330,7 @@ def case_mix(
         "lp_sd_derivation": s_d,
         "lp_mean_validation": m_v,
         "lp_sd_validation": s_v,
-        "lp_standardised_difference": (m_v - m_d) / pooled if pooled > 0 else float("nan"),
+        "lp_standardised_difference": lp_difference,
     }
     return CaseMix(
         derivation_label=derivation.label,
@@ -399,3 +355,68 @@ def case_mix(
         interpretation=_interpret(values),
         warnings=tuple(notes),
     )
+
+
+def _check_inputs(model: Any, derivation: Any, validation: Any, *, n_permutations: Any, func: str) -> None:
+    """Refuse anything but a model, two cohorts with the same outcome levels and a count of permutations."""
+    if not isinstance(model, PredictionModel):
+        raise RiskvetError(problem(f"{func}(model=)", allowed="a PredictionModel", received=type(model).__name__))
+    for name, cohort in (("derivation", derivation), ("validation", validation)):
+        if not isinstance(cohort, PreparedCohort):
+            raise DataError(problem(f"{func}({name}=)", allowed="a PreparedCohort from riskvet.data.load_cohorts", received=type(cohort).__name__))
+    if derivation.outcome_levels != validation.outcome_levels:
+        raise DataError(problem(f"{func}(validation=)", allowed=f"outcome levels {list(derivation.outcome_levels)}", received=list(validation.outcome_levels)))
+    if isinstance(n_permutations, bool) or not isinstance(n_permutations, (int, np.integer)) or n_permutations < 0:
+        raise RiskvetError(problem(f"{func}(n_permutations=)", allowed="a whole number >= 0", received=n_permutations))
+
+
+def _predictor_rows(model: PredictionModel, der: PreparedCohort, val: PreparedCohort) -> list[dict[str, Any]]:
+    """The predictors the model reads, side by side, standardised as validation minus derivation."""
+    sd = standardised_differences(der, val).to_frame()
+    sd = sd[sd["predictor"].isin(model.design.sources)]
+    rows = []
+    for r in sd.itertuples(index=False):
+        row = {
+            "variable": r.predictor,
+            "level": r.level,
+            "statistic": r.statistic,
+            "derivation": float(r.a),
+            "derivation_sd": float("nan"),
+            "validation": float(r.b),
+            "validation_sd": float("nan"),
+            # the shared helper reports derivation minus validation
+            "standardised_difference": -float(r.difference) if r.difference == r.difference else float("nan"),
+        }
+        if r.statistic == "mean":
+            row["derivation_sd"] = float(der.frame[r.predictor].dropna().std(ddof=1))
+            row["validation_sd"] = float(val.frame[r.predictor].dropna().std(ddof=1))
+        rows.append(row)
+    return rows
+
+
+def _membership(model: PredictionModel, der: PreparedCohort, val: PreparedCohort, *, n_permutations: int,
+                seed: int) -> tuple[float, float, float, float, pd.DataFrame, list[str]]:
+    """The membership model: its C with interval, the C chance alone gives, its coefficients and the trouble met.
+
+    A membership model that cannot be fitted leaves every C NaN and is noted,
+    not raised: the rest of the case-mix comparison still stands.
+    """
+    X = _membership_matrix(model, der, val)
+    member = np.r_[np.zeros(len(der.y), dtype=np.int64), np.ones(len(val.y), dtype=np.int64)]
+    c = c_lo = c_hi = c_null = float("nan")
+    coefficients = pd.DataFrame(columns=["term", "estimate", "se", "z", "p"])
+    notes: list[str] = []
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", RiskvetWarning)
+        try:
+            c, c_lo, c_hi, fit = _membership_c(X, member)
+            frame = fit.to_frame()
+            coefficients = frame.loc[frame["kind"] == "coefficient", ["term", "estimate", "se", "z", "p"]].reset_index(drop=True)
+            if n_permutations:
+                rng = np.random.default_rng(np.random.SeedSequence(int(seed)))
+                null = [_membership_c(X, rng.permutation(member))[0] for _ in range(int(n_permutations))]
+                c_null = float(np.mean(null))
+        except FitError as exc:
+            notes.append(f"membership model: could not be fitted ({exc})")
+    notes += [f"membership model: {w.message}" for w in caught if issubclass(w.category, RiskvetWarning)]
+    return c, c_lo, c_hi, c_null, coefficients, notes

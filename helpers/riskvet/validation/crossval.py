@@ -31,7 +31,7 @@ import math
 import warnings
 from collections import Counter
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, Sequence
 
 import numpy as np
 import pandas as pd
@@ -45,17 +45,17 @@ from .bootstrap import (
     _check_n_jobs,
     _check_seed,
     _check_study,
+    _derive_on_all_data,
     _execute,
     _fit_and_predict,
     _lower_first,
     _mean,
     _measure_specs,
     _measures,
-    _predict,
     _ReplicateFailed,
     _spread,
 )
-from ..errors import RiskvetError, RiskvetWarning, problem
+from ..errors import RiskvetError, problem
 
 __all__ = ["CrossValidationEstimate", "CrossValidation", "cross_validate", "stratified_folds"]
 
@@ -273,8 +273,6 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
        of some procedures for logistic regression analysis. Journal of
        Clinical Epidemiology 2001;54(8):774-781.
     """
-    from ..modelling.derive import derive
-
     func = "cross_validate"
     study = _check_study(study, func)
     frame, y = _as_data(study, data, func)
@@ -289,34 +287,79 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
     K = len(levels)
     link = study.model.link
 
-    folds = np.empty((n_repeats, n), dtype=np.int64)
+    folds, items = _draw_folds(y, n_folds=n_folds, n_repeats=n_repeats, seed=seed)
+
+    _, prob_all, lp_all, trouble = _derive_on_all_data(study, frame, y)
+    apparent_warnings = tuple(dict.fromkeys(f"{w.category.__name__}: {w.message}" for w in trouble))
+    for w in trouble:
+        warnings.warn(str(w.message), w.category, stacklevel=2)
+    apparent, _ = _measures(y, prob_all, lp_all if lp_all.ndim == 1 else None, K=K, link=link)
+
+    specs = _measure_specs(levels)
+    keys = [k for k, _, _ in specs]
+    tally = _run_folds(
+        _CVPayload(study=study, frame=frame, y=y, K=K, link=link, folds=folds), items, keys=keys, n_folds=n_folds,
+        n_repeats=n_repeats, pool_lp=lp_all.ndim == 1, n_jobs=n_jobs, scheduler=study.compute.scheduler, progress=progress,
+    )
+    _check_fold_failures(tally.failures, total=n_folds * n_repeats, max_failed=study.internal_validation.max_failed_share, func=func)
+    pooled = _pooled_values(tally, y, keys=keys, K=K, link=link)
+
+    return CrossValidation(
+        estimates=tuple(_cv_estimates(specs, apparent, tally.per_fold, pooled, n_repeats=n_repeats)),
+        n_folds=n_folds,
+        n_repeats=n_repeats,
+        seed=seed,
+        failures=tally.failures,
+        n=n,
+        n_levels=K,
+        levels=levels,
+        fold_warnings=dict(sorted(tally.fold_warnings.items())),
+        apparent_warnings=apparent_warnings,
+        fold_values=pd.DataFrame(tally.fold_rows, columns=["repeat", "fold", "measure", "value"]),
+    )
+
+
+def _draw_folds(y: np.ndarray, *, n_folds: int, n_repeats: int, seed: int) -> tuple[np.ndarray, list[tuple[int, int, int]]]:
+    """Every repeat's folds and the (repeat, fold, selection seed) of every fold, from the repeat's own stream."""
+    folds = np.empty((n_repeats, y.shape[0]), dtype=np.int64)
     items = []
     for r, child in enumerate(np.random.SeedSequence(seed).spawn(n_repeats)):
         rng = np.random.default_rng(child)
         folds[r] = stratified_folds(y, n_folds=n_folds, rng=rng)
         seeds = rng.integers(0, _SEED_CEILING, size=n_folds)
         items += [(r, f, int(seeds[f])) for f in range(n_folds)]
+    return folds, items
 
-    with warnings.catch_warnings(record=True) as seen:
-        warnings.simplefilter("always")
-        apparent_derivation = derive(study, frame, y)
-        prob_all, lp_all = _predict(apparent_derivation, frame)
-    apparent_warnings = tuple(dict.fromkeys(f"{w.category.__name__}: {w.message}" for w in seen if issubclass(w.category, RiskvetWarning)))
-    for w in seen:
-        if issubclass(w.category, RiskvetWarning):
-            warnings.warn(str(w.message), w.category, stacklevel=2)
-    apparent, _ = _measures(y, prob_all, lp_all if lp_all.ndim == 1 else None, K=K, link=link)
 
-    payload = _CVPayload(study=study, frame=frame, y=y, K=K, link=link, folds=folds)
-    specs = _measure_specs(levels)
-    keys = [k for k, _, _ in specs]
+@dataclass(frozen=True)
+class _FoldTally:
+    """What the folds returned, gathered in fold order.
+
+    ``per_fold`` maps measure key to the successful folds' values;
+    ``pooled_prob`` (n_repeats x n x K) and ``pooled_lp`` (n_repeats x n, or
+    None for a non-proportional model) hold every row's held-out prediction,
+    NaN where its fold failed.
+    """
+
+    failures: tuple[ReplicateFailure, ...]
+    fold_warnings: dict[str, int]
+    per_fold: dict[str, list[float]]
+    fold_rows: list[dict[str, Any]]
+    pooled_prob: np.ndarray
+    pooled_lp: np.ndarray | None
+
+
+def _run_folds(payload: _CVPayload, items: list[tuple[int, int, int]], *, keys: list[str], n_folds: int, n_repeats: int,
+               pool_lp: bool, n_jobs: int, scheduler: str | None, progress: bool) -> _FoldTally:
+    """Derive on every fold's training rows, predict its held-out rows, and gather the results in fold order."""
+    n, K = payload.y.shape[0], payload.K
     failures: list[ReplicateFailure] = []
     warn_counts: Counter[str] = Counter()
     per_fold: dict[str, list[float]] = {k: [] for k in keys}
     fold_rows: list[dict[str, Any]] = []
     pooled_prob = np.full((n_repeats, n, K), np.nan)
-    pooled_lp: np.ndarray | None = np.full((n_repeats, n), np.nan) if lp_all.ndim == 1 else None
-    for rec in _execute(_fold, payload, items, n_jobs=n_jobs, scheduler=study.compute.scheduler,
+    pooled_lp: np.ndarray | None = np.full((n_repeats, n), np.nan) if pool_lp else None
+    for rec in _execute(_fold, payload, items, n_jobs=n_jobs, scheduler=scheduler,
                         desc="cross-validation", progress=progress):
         r, f = rec["repeat"], rec["fold"]
         if rec["status"] != "ok":
@@ -329,9 +372,14 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
         pooled_prob[r, rec["rows"]] = rec["prob"]
         if pooled_lp is not None:
             pooled_lp[r, rec["rows"]] = rec["lp"]
+    return _FoldTally(
+        failures=tuple(failures), fold_warnings=dict(warn_counts), per_fold=per_fold, fold_rows=fold_rows,
+        pooled_prob=pooled_prob, pooled_lp=pooled_lp,
+    )
 
-    max_failed = study.internal_validation.max_failed_share
-    total = n_folds * n_repeats
+
+def _check_fold_failures(failures: Sequence[ReplicateFailure], *, total: int, max_failed: float, func: str) -> None:
+    """Stop when more folds failed than the study allows, or all of them."""
     if len(failures) > max_failed * total or len(failures) == total:
         counts = dict(sorted(Counter(x.reason for x in failures).items()))
         raise RiskvetError(
@@ -342,14 +390,22 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
             )
         )
 
+
+def _pooled_values(tally: _FoldTally, y: np.ndarray, *, keys: list[str], K: int, link: str) -> dict[str, list[float]]:
+    """Each repeat's measures on its pooled held-out predictions (rows of failed folds left out)."""
     pooled: dict[str, list[float]] = {k: [] for k in keys}
-    for r in range(n_repeats):
-        have = np.all(np.isfinite(pooled_prob[r]), axis=1)
-        lp_r = pooled_lp[r, have] if pooled_lp is not None else None
-        values, _ = _measures(y[have], pooled_prob[r, have], lp_r, K=K, link=link)
+    for r in range(tally.pooled_prob.shape[0]):
+        have = np.all(np.isfinite(tally.pooled_prob[r]), axis=1)
+        lp_r = tally.pooled_lp[r, have] if tally.pooled_lp is not None else None
+        values, _ = _measures(y[have], tally.pooled_prob[r, have], lp_r, K=K, link=link)
         for k in keys:
             pooled[k].append(values[k])
+    return pooled
 
+
+def _cv_estimates(specs: list[tuple[str, str, str]], apparent: dict[str, float], per_fold: dict[str, list[float]],
+                  pooled: dict[str, list[float]], *, n_repeats: int) -> list[CrossValidationEstimate]:
+    """The averaged and pooled summary of every measure."""
     estimates = []
     for key, label, kind in specs:
         fv = np.asarray(per_fold[key], dtype=float)
@@ -362,16 +418,4 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
                 n_folds_used=int(np.isfinite(fv).sum()),
             )
         )
-    return CrossValidation(
-        estimates=tuple(estimates),
-        n_folds=n_folds,
-        n_repeats=n_repeats,
-        seed=seed,
-        failures=tuple(failures),
-        n=n,
-        n_levels=K,
-        levels=levels,
-        fold_warnings=dict(sorted(warn_counts.items())),
-        apparent_warnings=apparent_warnings,
-        fold_values=pd.DataFrame(fold_rows, columns=["repeat", "fold", "measure", "value"]),
-    )
+    return estimates

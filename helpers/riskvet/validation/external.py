@@ -608,46 +608,14 @@ def validate_cohort(
     prob = apply_model(model, frame, label=label)
     levels = tuple(model.levels)
     K = len(levels)
-    yy = np.asarray(y)
-    if yy.ndim != 1 or yy.shape[0] != len(frame):
-        raise DataError(problem(f"{func}(y=)", allowed=f"one outcome code per row of frame ({len(frame)})", received=f"shape {yy.shape}"))
-    yy = yy.astype(np.int64)
-    counts = np.bincount(yy, minlength=K)
-    if counts.size != K or np.any(counts == 0):
-        raise DataError(problem(f"{func}(y=) in cohort {label!r}", allowed=f"every outcome level of {list(levels)} present", received=f"level counts {counts.tolist()}"))
+    yy, counts = _check_outcome(y, n_rows=len(frame), levels=levels, label=label, func=func)
     thresholds = {int(k): tuple(v) for k, v in (thresholds or {}).items() if len(v)}
     bad = [k for k in thresholds if not 0 <= k < K - 1]
     if bad:
         raise RiskvetError(problem(f"{func}(thresholds=)", allowed=f"cuts 0..{K - 2}", received=bad))
 
-    notes: list[str] = []
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", RiskvetWarning)
-        disc = ordinal_discrimination(yy, prob, confidence=confidence, transform="logit")
-        cal = ordinal_calibration(yy, prob, confidence=confidence)
-        overall = overall_accuracy(yy, prob)
-        tables = {}
-        curves = []
-        for j in range(K - 1):
-            y_cut, p_cut = dichotomise(yy, prob, cut=j)
-            if j in thresholds:
-                tables[j] = threshold_table(y_cut, p_cut, thresholds=list(thresholds[j]), confidence=confidence)
-            curve = net_benefit(y_cut, p_cut, thresholds=decision_grid(thresholds.get(j, ())))
-            curves.append(dataclasses.replace(curve, cut=j))
-    notes += [str(w.message) for w in caught if issubclass(w.category, RiskvetWarning)]
-
-    # subgroups
-    masks: dict[tuple[str, str], np.ndarray] = {}
-    size_rows = []
-    for spec in subgroups:
-        groups, n_missing = subgroup_masks(frame, spec)
-        for name, mask in groups:
-            n_g = int(mask.sum())
-            masks[(spec.column, name)] = mask
-            size_rows.append({"column": spec.column, "group": name, "n": n_g, "n_top": int((yy[mask] == K - 1).sum()), "small": n_g < min_subgroup_size})
-        if n_missing:
-            size_rows.append({"column": spec.column, "group": "(missing)", "n": n_missing, "n_top": -1, "small": True})
-    sizes = pd.DataFrame(size_rows, columns=["column", "group", "n", "n_top", "small"])
+    disc, cal, overall, tables, curves, notes = _whole_cohort_measures(yy, prob, thresholds, confidence=confidence)
+    masks, sizes = _subgroup_groups(frame, yy, subgroups, K=K, min_subgroup_size=min_subgroup_size)
 
     apparent = performance_summary(yy, prob)
     reps = run_replicates(_Replicate(yy, prob, masks), n_boot=n_boot, seed=seed, n_jobs=n_jobs, scheduler=scheduler) if n_boot else []
@@ -658,19 +626,9 @@ def validate_cohort(
         notes.append(f"bootstrap: {n_failed} of {n_boot} resamples lacked an outcome level and were left out")
     performance = pd.DataFrame(_order_rows(_interval_rows(apparent, whole, keys, confidence, levels)))
     performance["cut"] = performance["cut"].astype("Int64")
-
-    sub_rows = []
-    for (column, name), mask in masks.items():
-        n_g = int(mask.sum())
-        app = _summary_or_none(yy[mask], prob[mask], K) if n_g else None
-        info = {"column": column, "group": name, "n": n_g, "n_top": int((yy[mask] == K - 1).sum()), "small": n_g < min_subgroup_size}
-        if app is None and n_g:
-            notes.append(f"subgroup {column} = {name}: not every outcome level occurs (n = {n_g}); measures not computed")
-        for row in _order_rows(_interval_rows(app, [r[(column, name)] for r in reps], keys, confidence, levels)):
-            sub_rows.append({**info, **row})
-    sub_cols = ["column", "group", "n", "n_top", "small", "measure", "label", "cut", "outcome", "estimate", "se", "lower", "upper", "n_boot_used"]
-    sub_table = pd.DataFrame(sub_rows, columns=sub_cols)
-    sub_table["cut"] = sub_table["cut"].astype("Int64")
+    sub_table, sub_notes = _subgroup_table(masks, yy, prob, reps, keys=keys, confidence=confidence, levels=levels,
+                                           min_subgroup_size=min_subgroup_size)
+    notes += sub_notes
     for note in notes:
         warnings.warn(note, RiskvetWarning, stacklevel=2)
     return CohortValidation(
@@ -693,3 +651,81 @@ def validate_cohort(
         min_subgroup_size=int(min_subgroup_size),
         warnings=tuple(dict.fromkeys(notes)),
     )
+
+
+def _check_outcome(y: Any, *, n_rows: int, levels: Sequence[str], label: str, func: str) -> tuple[np.ndarray, np.ndarray]:
+    """Outcome codes of every row and the count at each level, every level present."""
+    K = len(levels)
+    yy = np.asarray(y)
+    if yy.ndim != 1 or yy.shape[0] != n_rows:
+        raise DataError(problem(f"{func}(y=)", allowed=f"one outcome code per row of frame ({n_rows})", received=f"shape {yy.shape}"))
+    yy = yy.astype(np.int64)
+    counts = np.bincount(yy, minlength=K)
+    if counts.size != K or np.any(counts == 0):
+        raise DataError(problem(f"{func}(y=) in cohort {label!r}", allowed=f"every outcome level of {list(levels)} present", received=f"level counts {counts.tolist()}"))
+    return yy, counts
+
+
+def _whole_cohort_measures(yy: np.ndarray, prob: np.ndarray, thresholds: Mapping[int, tuple[float, ...]], *,
+                           confidence: float):
+    """Discrimination, calibration, overall accuracy, threshold tables and decision curves of the whole cohort.
+
+    Returns them with the statistical warnings met, as text; they are
+    issued once, with the rest, by the caller.
+    """
+    K = prob.shape[1]
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", RiskvetWarning)
+        disc = ordinal_discrimination(yy, prob, confidence=confidence, transform="logit")
+        cal = ordinal_calibration(yy, prob, confidence=confidence)
+        overall = overall_accuracy(yy, prob)
+        tables = {}
+        curves = []
+        for j in range(K - 1):
+            y_cut, p_cut = dichotomise(yy, prob, cut=j)
+            if j in thresholds:
+                tables[j] = threshold_table(y_cut, p_cut, thresholds=list(thresholds[j]), confidence=confidence)
+            curve = net_benefit(y_cut, p_cut, thresholds=decision_grid(thresholds.get(j, ())))
+            curves.append(dataclasses.replace(curve, cut=j))
+    notes = [str(w.message) for w in caught if issubclass(w.category, RiskvetWarning)]
+    return disc, cal, overall, tables, curves, notes
+
+
+def _subgroup_groups(frame: pd.DataFrame, yy: np.ndarray, subgroups: Sequence[Any], *, K: int,
+                     min_subgroup_size: int) -> tuple[dict[tuple[str, str], np.ndarray], pd.DataFrame]:
+    """Row masks of every subgroup, keyed by (column, group), and the table of their sizes."""
+    masks: dict[tuple[str, str], np.ndarray] = {}
+    size_rows = []
+    for spec in subgroups:
+        groups, n_missing = subgroup_masks(frame, spec)
+        for name, mask in groups:
+            n_g = int(mask.sum())
+            masks[(spec.column, name)] = mask
+            size_rows.append({"column": spec.column, "group": name, "n": n_g, "n_top": int((yy[mask] == K - 1).sum()), "small": n_g < min_subgroup_size})
+        if n_missing:
+            size_rows.append({"column": spec.column, "group": "(missing)", "n": n_missing, "n_top": -1, "small": True})
+    return masks, pd.DataFrame(size_rows, columns=["column", "group", "n", "n_top", "small"])
+
+
+def _subgroup_table(masks: Mapping[tuple[str, str], np.ndarray], yy: np.ndarray, prob: np.ndarray,
+                    reps: list[dict[tuple[str, str], dict[str, float] | None]], *, keys: Sequence[str], confidence: float,
+                    levels: Sequence[str], min_subgroup_size: int) -> tuple[pd.DataFrame, list[str]]:
+    """Every subgroup's measures with intervals from the same replicates as the whole cohort.
+
+    Also returns a note for each subgroup that lacks an outcome level and so has no measures.
+    """
+    K = len(levels)
+    sub_rows = []
+    notes: list[str] = []
+    for (column, name), mask in masks.items():
+        n_g = int(mask.sum())
+        app = _summary_or_none(yy[mask], prob[mask], K) if n_g else None
+        info = {"column": column, "group": name, "n": n_g, "n_top": int((yy[mask] == K - 1).sum()), "small": n_g < min_subgroup_size}
+        if app is None and n_g:
+            notes.append(f"subgroup {column} = {name}: not every outcome level occurs (n = {n_g}); measures not computed")
+        for row in _order_rows(_interval_rows(app, [r[(column, name)] for r in reps], keys, confidence, levels)):
+            sub_rows.append({**info, **row})
+    sub_cols = ["column", "group", "n", "n_top", "small", "measure", "label", "cut", "outcome", "estimate", "se", "lower", "upper", "n_boot_used"]
+    sub_table = pd.DataFrame(sub_rows, columns=sub_cols)
+    sub_table["cut"] = sub_table["cut"].astype("Int64")
+    return sub_table, notes

@@ -29,7 +29,7 @@ from ..measures.decision import NetBenefitResult, net_benefit, rule_net_benefit
 from ..measures.discrimination import ConcordanceComparison, compare_concordance, concordance, dichotomise
 from ..errors import DataError, RiskvetError, RiskvetWarning, problem
 from ..intake.outcome import cut_name
-from .external import decision_grid, run_replicates
+from .external import _check_boot, decision_grid, run_replicates
 
 __all__ = ["RuleComparison", "rule_score", "rule_positive", "compare_with_rule"]
 
@@ -320,21 +320,8 @@ def compare_with_rule(
     BMJ 2016;352:i6.
     """
     func = "compare_with_rule"
-    if isinstance(n_boot, bool) or not isinstance(n_boot, (int, np.integer)) or n_boot < 0:
-        raise RiskvetError(problem(f"{func}(n_boot=)", allowed="a whole number >= 0", received=n_boot))
-    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        raise RiskvetError(problem(f"{func}(seed=)", allowed="a non-negative integer", received=seed))
-    if isinstance(confidence, bool) or not isinstance(confidence, (int, float)) or not 0 < float(confidence) < 1:
-        raise RiskvetError(problem(f"{func}(confidence=)", allowed="a number strictly between 0 and 1", received=confidence))
-    prob = np.asarray(prob, dtype=float)
-    yy = np.asarray(y)
-    if prob.ndim != 2 or yy.ndim != 1 or prob.shape[0] != yy.shape[0]:
-        raise DataError(problem(f"{func}(y=, prob=)", allowed="n outcome codes and an n x K probability matrix", received=f"shapes {yy.shape} and {prob.shape}"))
-    score_all = rule_score(rule_values, kind=kind, levels=levels)
-    if score_all.shape[0] != yy.shape[0]:
-        raise DataError(problem(f"{func}(rule_values=)", allowed=f"one value per patient ({yy.shape[0]})", received=score_all.shape[0]))
-    if positive_from is not None and kind != "categories":
-        raise RiskvetError(problem(f"{func}(positive_from=)", allowed="None for a rule of kind 'score'", received=positive_from))
+    yy, prob, score_all = _check_inputs(y, prob, rule_values, kind=kind, levels=levels, positive_from=positive_from,
+                                        n_boot=n_boot, seed=seed, confidence=confidence, func=func)
     K = prob.shape[1]
     names = tuple(outcome_levels) if outcome_levels is not None else tuple(str(k) for k in range(K))
     keep = np.isfinite(score_all)
@@ -347,45 +334,9 @@ def compare_with_rule(
     positive = rule_positive(score, levels=levels, positive_from=positive_from) if positive_from is not None else None
     notes: list[str] = []
 
-    comparisons, c_rows, nb_rows = [], [], []
-    model_curves, rule_curves = [], []
-    for j in range(K - 1):
-        y_cut, p_cut = dichotomise(yy, prob, cut=j)
-        if positive is not None:
-            grid = decision_grid(thresholds.get(j, ()))
-            model_curves.append(dataclasses.replace(net_benefit(y_cut, p_cut, thresholds=grid), cut=j))
-            rule_curves.append(dataclasses.replace(rule_net_benefit(y_cut, positive, thresholds=grid), cut=j))
-        comp = compare_concordance(y_cut, p_cut, score, confidence=confidence)
-        comparisons.append(comp)
-        c_rows.append(
-            {
-                "cut": j,
-                "outcome": cut_name(names, j),
-                "c_model": comp.estimate_a,
-                "c_rule": comp.estimate_b,
-                "difference": comp.difference,
-                "se": comp.se,
-                "lower": comp.lower,
-                "upper": comp.upper,
-                "pvalue": comp.pvalue,
-            }
-        )
-        if positive is not None and j in thresholds:
-            t = list(thresholds[j])
-            nb_m = net_benefit(y_cut, p_cut, thresholds=t)
-            nb_r = rule_net_benefit(y_cut, positive, thresholds=t)
-            for i, pt in enumerate(t):
-                nb_rows.append(
-                    {
-                        "cut": j,
-                        "outcome": cut_name(names, j),
-                        "threshold": float(pt),
-                        "nb_model": float(nb_m.net_benefit[i]),
-                        "nb_rule": float(nb_r.net_benefit[i]),
-                        "nb_treat_all": float(nb_m.treat_all[i]),
-                        "difference": float(nb_m.net_benefit[i] - nb_r.net_benefit[i]),
-                    }
-                )
+    comparisons, c_rows, nb_rows, model_curves, rule_curves = _compare_by_cut(
+        yy, prob, score, positive, thresholds, names=names, confidence=confidence
+    )
 
     reps = run_replicates(_RuleReplicate(yy, prob, score, positive, thresholds), n_boot=int(n_boot), seed=int(seed), n_jobs=n_jobs, scheduler=scheduler) if n_boot else []
     ok = [r for r in reps if r is not None]
@@ -394,24 +345,9 @@ def compare_with_rule(
         notes.append(f"bootstrap: {n_failed} of {n_boot} resamples lacked an outcome level and were left out")
     tail = 100 * (1 - float(confidence)) / 2
     boot_c = np.array([r[0] for r in ok], dtype=float).reshape(len(ok), K - 1)
-    c_table = pd.DataFrame(c_rows)
-    if len(ok) >= 2:
-        lo, hi = np.percentile(boot_c, [tail, 100 - tail], axis=0)
-    else:
-        lo = hi = np.full(K - 1, np.nan)
-    c_table["boot_lower"], c_table["boot_upper"] = lo, hi
+    c_table = _concordance_table(c_rows, boot_c, tail=tail)
     boot_nb = {j: np.array([r[1][j] for r in ok], dtype=float).reshape(len(ok), len(thresholds[j])) for j in thresholds if positive is not None}
-    nb_table = pd.DataFrame(nb_rows, columns=["cut", "outcome", "threshold", "nb_model", "nb_rule", "nb_treat_all", "difference"])
-    nb_lo, nb_hi = [], []
-    for r in nb_table.itertuples():
-        draws = boot_nb[r.cut][:, list(thresholds[r.cut]).index(r.threshold)]
-        if draws.size >= 2:
-            a, b = np.percentile(draws, [tail, 100 - tail])
-        else:
-            a = b = float("nan")
-        nb_lo.append(a)
-        nb_hi.append(b)
-    nb_table["boot_lower"], nb_table["boot_upper"] = nb_lo, nb_hi
+    nb_table = _net_benefit_table(nb_rows, boot_nb, thresholds, tail=tail)
     for note in notes:
         warnings.warn(note, RiskvetWarning, stacklevel=2)
     return RuleComparison(
@@ -436,3 +372,103 @@ def compare_with_rule(
         confidence=float(confidence),
         warnings=tuple(notes),
     )
+
+
+def _check_inputs(y: Any, prob: Any, rule_values: Any, *, kind: str, levels: Sequence[str] | None, positive_from: str | None,
+                  n_boot: Any, seed: Any, confidence: Any, func: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Outcome codes, probabilities and the rule's score of every patient, after checking the inputs."""
+    _check_boot(n_boot, seed, confidence, func)
+    prob = np.asarray(prob, dtype=float)
+    yy = np.asarray(y)
+    if prob.ndim != 2 or yy.ndim != 1 or prob.shape[0] != yy.shape[0]:
+        raise DataError(problem(f"{func}(y=, prob=)", allowed="n outcome codes and an n x K probability matrix", received=f"shapes {yy.shape} and {prob.shape}"))
+    score_all = rule_score(rule_values, kind=kind, levels=levels)
+    if score_all.shape[0] != yy.shape[0]:
+        raise DataError(problem(f"{func}(rule_values=)", allowed=f"one value per patient ({yy.shape[0]})", received=score_all.shape[0]))
+    if positive_from is not None and kind != "categories":
+        raise RiskvetError(problem(f"{func}(positive_from=)", allowed="None for a rule of kind 'score'", received=positive_from))
+    return yy, prob, score_all
+
+
+def _compare_by_cut(yy: np.ndarray, prob: np.ndarray, score: np.ndarray, positive: np.ndarray | None,
+                    thresholds: Mapping[int, tuple[float, ...]], *, names: Sequence[str], confidence: float):
+    """Per cut: the paired DeLong comparison, net benefit at the study's thresholds and both decision curves.
+
+    Returns the comparisons, the concordance rows, the net benefit rows and
+    the model's and the rule's decision curves (none without ``positive``).
+    """
+    comparisons, c_rows, nb_rows = [], [], []
+    model_curves, rule_curves = [], []
+    for j in range(prob.shape[1] - 1):
+        y_cut, p_cut = dichotomise(yy, prob, cut=j)
+        if positive is not None:
+            grid = decision_grid(thresholds.get(j, ()))
+            model_curves.append(dataclasses.replace(net_benefit(y_cut, p_cut, thresholds=grid), cut=j))
+            rule_curves.append(dataclasses.replace(rule_net_benefit(y_cut, positive, thresholds=grid), cut=j))
+        comp = compare_concordance(y_cut, p_cut, score, confidence=confidence)
+        comparisons.append(comp)
+        c_rows.append(
+            {
+                "cut": j,
+                "outcome": cut_name(names, j),
+                "c_model": comp.estimate_a,
+                "c_rule": comp.estimate_b,
+                "difference": comp.difference,
+                "se": comp.se,
+                "lower": comp.lower,
+                "upper": comp.upper,
+                "pvalue": comp.pvalue,
+            }
+        )
+        if positive is not None and j in thresholds:
+            nb_rows += _net_benefit_rows(y_cut, p_cut, positive, list(thresholds[j]), cut=j, outcome=cut_name(names, j))
+    return comparisons, c_rows, nb_rows, model_curves, rule_curves
+
+
+def _net_benefit_rows(y_cut: np.ndarray, p_cut: np.ndarray, positive: np.ndarray, cut_thresholds: list[float], *, cut: int,
+                      outcome: str) -> list[dict[str, Any]]:
+    """Net benefit of the model, of the rule and of treating all at each of one cut's thresholds."""
+    nb_m = net_benefit(y_cut, p_cut, thresholds=cut_thresholds)
+    nb_r = rule_net_benefit(y_cut, positive, thresholds=cut_thresholds)
+    rows = []
+    for i, pt in enumerate(cut_thresholds):
+        rows.append(
+            {
+                "cut": cut,
+                "outcome": outcome,
+                "threshold": float(pt),
+                "nb_model": float(nb_m.net_benefit[i]),
+                "nb_rule": float(nb_r.net_benefit[i]),
+                "nb_treat_all": float(nb_m.treat_all[i]),
+                "difference": float(nb_m.net_benefit[i] - nb_r.net_benefit[i]),
+            }
+        )
+    return rows
+
+
+def _concordance_table(c_rows: list[dict[str, Any]], boot_c: np.ndarray, *, tail: float) -> pd.DataFrame:
+    """The concordance rows with the bootstrap percentile interval of each cut's difference."""
+    c_table = pd.DataFrame(c_rows)
+    if boot_c.shape[0] >= 2:
+        lo, hi = np.percentile(boot_c, [tail, 100 - tail], axis=0)
+    else:
+        lo = hi = np.full(boot_c.shape[1], np.nan)
+    c_table["boot_lower"], c_table["boot_upper"] = lo, hi
+    return c_table
+
+
+def _net_benefit_table(nb_rows: list[dict[str, Any]], boot_nb: Mapping[int, np.ndarray],
+                       thresholds: Mapping[int, tuple[float, ...]], *, tail: float) -> pd.DataFrame:
+    """The net benefit rows with the bootstrap percentile interval of each difference."""
+    nb_table = pd.DataFrame(nb_rows, columns=["cut", "outcome", "threshold", "nb_model", "nb_rule", "nb_treat_all", "difference"])
+    nb_lo, nb_hi = [], []
+    for r in nb_table.itertuples():
+        draws = boot_nb[r.cut][:, list(thresholds[r.cut]).index(r.threshold)]
+        if draws.size >= 2:
+            a, b = np.percentile(draws, [tail, 100 - tail])
+        else:
+            a = b = float("nan")
+        nb_lo.append(a)
+        nb_hi.append(b)
+    nb_table["boot_lower"], nb_table["boot_upper"] = nb_lo, nb_hi
+    return nb_table
