@@ -21,8 +21,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .._jsonable import to_jsonable
 from ..errors import DataError, RiskvetWarning, StudyError, problem
+from ._checks import _fields_dict, _frozen
 
 __all__ = [
     "ICC_FORMS",
@@ -102,18 +102,12 @@ def _numeric(where: str, name: str, s: pd.Series) -> np.ndarray:
     return x
 
 
-def _frozen_array(x: np.ndarray) -> np.ndarray:
-    x = np.array(x, dtype=float, copy=True)
-    x.setflags(write=False)
-    return x
-
-
 class _Result:
     """``to_dict`` shared by the result classes below."""
 
     def to_dict(self) -> dict[str, Any]:
         """Return the fields as JSON-ready plain values."""
-        return {f.name: to_jsonable(getattr(self, f.name)) for f in dataclasses.fields(self)}  # type: ignore[arg-type]
+        return _fields_dict(self)
 
 
 # --------------------------------------------------------------------------
@@ -829,8 +823,8 @@ def bland_altman(
         slope_ci = (math.nan, math.nan)
     return BlandAltmanResult(
         n=n,
-        means=_frozen_array(mean),
-        differences=_frozen_array(diff),
+        means=_frozen(mean),
+        differences=_frozen(diff),
         bias=bias,
         sd=sd,
         lower=float(lo),

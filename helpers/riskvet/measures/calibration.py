@@ -61,8 +61,7 @@ import numpy as np
 import pandas as pd
 from scipy import special, stats
 
-from .decision import _proportion_interval
-from .discrimination import (
+from ._checks import (
     _as_binary,
     _as_outcome,
     _as_prob_matrix,
@@ -74,6 +73,7 @@ from .discrimination import (
     _require_two_classes,
     _z,
 )
+from .decision import _proportion_interval
 from ..errors import RiskvetError, RiskvetWarning, problem
 
 __all__ = ["CalibrationResult", "OrdinalCalibration", "calibration", "ordinal_calibration"]
@@ -546,40 +546,42 @@ def _logit(p: np.ndarray) -> tuple[np.ndarray, int]:
     return special.logit(clipped), int(np.count_nonzero(clipped != p))
 
 
-def _calibration_one(
-    y: np.ndarray,
-    p: np.ndarray,
-    *,
-    development: bool,
-    n_groups: int,
-    conf: float,
-    frac: float,
-    degree: int,
-    cut: int | None,
-) -> CalibrationResult:
-    notes: list[str] = []
-    n = int(y.shape[0])
-    yf = y.astype(float)
-    lp, n_clipped = _logit(p)
-    if n_clipped:
-        notes.append(f"{n_clipped} predictions of exactly 0 or 1 were moved to {_EPS:g} from the boundary before taking logits")
-    rec = _recalibrate(y, lp)
-    z = _z(conf)
-
-    events = float(yf.sum())
-    expected = float(p.sum())
+def _oe_ratio(events: float, expected: float, n: int, z: float) -> tuple[float, float, float]:
+    """Observed/expected ratio with its interval from the log scale."""
     oe = events / expected if expected > 0 else float("inf")
     se_log_oe = float(np.sqrt((1.0 - events / n) / events))
-    oe_lower, oe_upper = oe * np.exp(-z * se_log_oe), oe * np.exp(z * se_log_oe)
+    return oe, oe * np.exp(-z * se_log_oe), oe * np.exp(z * se_log_oe)
 
-    order = np.argsort(p, kind="stable")
-    p_sorted, y_sorted = p[order], yf[order]
+
+def _curve_with_band(y_sorted: np.ndarray, p_sorted: np.ndarray, frac: float, degree: int, z: float) -> tuple[_Smooth, np.ndarray, np.ndarray, np.ndarray]:
+    """Smoothed curve of data sorted by prob, per-patient absolute errors, and the pointwise band."""
     sm = _smooth(y_sorted, p_sorted, frac, with_se=True, degree=degree)
     abs_err = np.abs(sm.per_patient - p_sorted)
     se = sm.se if sm.se is not None else np.full_like(sm.fitted, np.nan)
     band_lower = np.clip(sm.fitted - z * se, 0.0, 1.0)
     band_upper = np.clip(sm.fitted + z * se, 0.0, 1.0)
+    return sm, abs_err, band_lower, band_upper
 
+
+@dataclass(frozen=True)
+class _GroupTable:
+    """Observed and expected events by quantile group of prob, with the Hosmer–Lemeshow test."""
+
+    n: np.ndarray
+    events: np.ndarray
+    expected: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    min_predicted: np.ndarray
+    max_predicted: np.ndarray
+    hosmer_lemeshow: float
+    df: float
+    pvalue: float
+    n_groups: int
+
+
+def _group_table(yf: np.ndarray, p: np.ndarray, n_groups: int, development: bool, z: float, conf: float) -> _GroupTable:
+    """Group prob by quantiles, count events against predictions in each group and test the difference."""
     group, g = _quantile_groups(p, n_groups)
     g_n = np.bincount(group, minlength=g).astype(float)
     g_events = np.bincount(group, weights=yf, minlength=g)
@@ -594,14 +596,51 @@ def _calibration_one(
     hl = float(np.sum(hl_terms)) if np.all(np.isfinite(hl_terms)) else float("nan")
     df = float(g - 2 if development else g)
     hl_p = float(stats.chi2.sf(hl, df)) if df > 0 and np.isfinite(hl) else float("nan")
-    if g < n_groups:
-        notes.append(f"tied predictions left {g} non-empty groups of the {n_groups} asked for")
+    return _GroupTable(g_n, g_events, g_expected, g_lower, g_upper, g_min, g_max, hl, df, hl_p, g)
 
-    lo, hi = float(p_sorted[0]), float(p_sorted[-1])
+
+def _histograms(y: np.ndarray, p: np.ndarray, lo: float, hi: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Bin edges over [lo, hi] and the counts of events and of non-events in each bin."""
     edges = np.linspace(lo, hi if hi > lo else lo + 1e-9, _N_HIST_BINS + 1)
-    hist_events = np.histogram(p[y == 1], bins=edges)[0]
-    hist_non = np.histogram(p[y == 0], bins=edges)[0]
+    return edges, np.histogram(p[y == 1], bins=edges)[0], np.histogram(p[y == 0], bins=edges)[0]
 
+
+def _calibration_one(
+    y: np.ndarray,
+    p: np.ndarray,
+    *,
+    development: bool,
+    n_groups: int,
+    conf: float,
+    frac: float,
+    degree: int,
+    cut: int | None,
+) -> CalibrationResult:
+    """Calibration of checked event probabilities ``p`` of a 0/1 outcome ``y``."""
+    notes: list[str] = []
+    n = int(y.shape[0])
+    yf = y.astype(float)
+    lp, n_clipped = _logit(p)
+    if n_clipped:
+        notes.append(f"{n_clipped} predictions of exactly 0 or 1 were moved to {_EPS:g} from the boundary before taking logits")
+    rec = _recalibrate(y, lp)
+    z = _z(conf)
+
+    events = float(yf.sum())
+    expected = float(p.sum())
+    oe, oe_lower, oe_upper = _oe_ratio(events, expected, n, z)
+
+    order = np.argsort(p, kind="stable")
+    p_sorted, y_sorted = p[order], yf[order]
+    sm, abs_err, band_lower, band_upper = _curve_with_band(y_sorted, p_sorted, frac, degree, z)
+
+    groups = _group_table(yf, p, n_groups, development, z, conf)
+    if groups.n_groups < n_groups:
+        notes.append(f"tied predictions left {groups.n_groups} non-empty groups of the {n_groups} asked for")
+
+    edges, hist_events, hist_non = _histograms(y, p, float(p_sorted[0]), float(p_sorted[-1]))
+
+    # warned here rather than in the steps, so that stacklevel points at the caller of the public function
     for note in notes:
         warnings.warn(note, RiskvetWarning, stacklevel=3)
     notes.extend(rec.notes)  # already warned by the fitter
@@ -632,18 +671,18 @@ def _calibration_one(
         curve_upper=_frozen(band_upper),
         frac=float(frac),
         degree=int(degree),
-        group_n=_frozen(g_n),
-        group_events=_frozen(g_events),
-        group_observed=_frozen(g_events / g_n),
-        group_observed_lower=_frozen(g_lower),
-        group_observed_upper=_frozen(g_upper),
-        group_mean_predicted=_frozen(g_expected / g_n),
-        group_min_predicted=_frozen(g_min),
-        group_max_predicted=_frozen(g_max),
-        hosmer_lemeshow=hl,
-        hosmer_lemeshow_df=df,
-        hosmer_lemeshow_pvalue=hl_p,
-        n_groups=g,
+        group_n=_frozen(groups.n),
+        group_events=_frozen(groups.events),
+        group_observed=_frozen(groups.events / groups.n),
+        group_observed_lower=_frozen(groups.lower),
+        group_observed_upper=_frozen(groups.upper),
+        group_mean_predicted=_frozen(groups.expected / groups.n),
+        group_min_predicted=_frozen(groups.min_predicted),
+        group_max_predicted=_frozen(groups.max_predicted),
+        hosmer_lemeshow=groups.hosmer_lemeshow,
+        hosmer_lemeshow_df=groups.df,
+        hosmer_lemeshow_pvalue=groups.pvalue,
+        n_groups=groups.n_groups,
         histogram_edges=_frozen(edges),
         histogram_events=_frozen(hist_events, dtype=np.int64),
         histogram_nonevents=_frozen(hist_non, dtype=np.int64),

@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .discrimination import (
+from ._checks import (
     _as_binary,
     _as_outcome,
     _as_prob_matrix,

@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .discrimination import _as_outcome, _as_prob_matrix, _cut_probs, _fields_dict, _frozen
+from ._checks import _as_outcome, _as_prob_matrix, _cut_probs, _fields_dict, _frozen
 from ..errors import DataError, RiskvetWarning, problem
 
 __all__ = ["BrierResult", "OverallAccuracy", "brier", "overall_accuracy"]

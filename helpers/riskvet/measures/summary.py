@@ -17,6 +17,7 @@ from typing import Any
 
 import numpy as np
 
+from ._checks import _as_outcome, _as_prob_matrix, _cut_probs
 from .calibration import (
     DEFAULT_FRAC,
     CalibrationResult,
@@ -42,10 +43,7 @@ from .discrimination import (
     ConcordanceResult,
     OrdinalDiscrimination,
     RocCurveResult,
-    _as_outcome,
-    _as_prob_matrix,
     _auc_only,
-    _cut_probs,
     _pairwise_c,
     compare_concordance,
     concordance,

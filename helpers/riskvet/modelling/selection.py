@@ -30,6 +30,7 @@ from .._jsonable import to_jsonable
 from ..errors import ConvergenceWarning, DesignError, FitError, RiskvetWarning, SeparationWarning, problem
 from .fitter import (
     CumulativeFit,
+    _RawFit,
     _as_matrix,
     _as_outcome,
     _as_vector,
@@ -483,6 +484,152 @@ def select_terms(
         )
 
 
+def _warn(msgs: list[str], msg: str, category: type[Warning], stacklevel: int) -> None:
+    """Issue a warning and record it for the result's ``warnings``.
+
+    ``stacklevel`` counts from the function calling this one, as in
+    :func:`warnings.warn`; each step passes the depth that points the warning
+    at the caller of :func:`select_terms`.
+    """
+    msgs.append(msg)
+    warnings.warn(msg, category, stacklevel=stacklevel + 1)
+
+
+def _check_options(method: str, link: str, proportional) -> None:
+    """Refuse an unknown method or link, or a model form that is not a bool."""
+    if method not in METHODS:
+        raise DesignError(problem("method", allowed=f"one of {list(METHODS)}", received=method))
+    if link not in LINKS:
+        raise FitError(problem("link", allowed=f"one of {list(LINKS)}", received=link))
+    if not isinstance(proportional, (bool, np.bool_)):
+        raise FitError(problem("proportional", allowed="True or False", received=proportional))
+
+
+def _fold_source(n_folds, seed) -> tuple[np.random.Generator, int | None]:
+    """Check the forward method's cross-validation options; the fold generator and the seed to report."""
+    if isinstance(n_folds, bool) or not isinstance(n_folds, (int, np.integer)) or n_folds < 2:
+        raise DesignError(problem("n_folds", allowed="an integer >= 2", received=n_folds))
+    if isinstance(seed, np.random.Generator):
+        return seed, None
+    if isinstance(seed, (int, np.integer)) and not isinstance(seed, bool) and seed >= 0:
+        return np.random.default_rng(int(seed)), int(seed)
+    raise DesignError(problem("seed", allowed="a non-negative integer or a numpy Generator", received=seed))
+
+
+@dataclasses.dataclass(frozen=True)
+class _Selected:
+    """The model one selection method arrived at, and the record of how."""
+
+    terms: list[int]
+    cols: list[int]
+    raw: _RawFit  # the array-level fit of ``cols``, the final fit's start
+    path: pd.DataFrame
+    cv: pd.DataFrame | None = None
+    cv_by_fold: pd.DataFrame | None = None
+    size: int | None = None
+
+
+def _sorted_folds(prob: _Problem, codes: np.ndarray, keep: np.ndarray, order: np.ndarray, n_folds: int, rng: np.random.Generator, levels) -> np.ndarray:
+    """Fold of each sorted row, for the cross-validation of the forward path."""
+    counts = np.bincount(prob.y, minlength=prob.K)
+    if np.min(counts) < 2:
+        raise DesignError(problem("y", allowed="at least 2 rows in every level for cross-validation", received=dict(zip(levels, counts.tolist()))))
+    # Folds are drawn over the input row order, then carried to the sorted rows.
+    fold_in = np.full(codes.shape[0], -1, dtype=np.int64)
+    fold_in[keep] = _folds(codes[keep], n_folds, rng)
+    return fold_in[order]
+
+
+def _cross_validated_path(prob: _Problem, fold: np.ndarray, n_folds: int, forced: list[int], free: list[int], msgs: list[str]) -> np.ndarray:
+    """Held-out test log-likelihood per observation, fold by model size, of forward paths run on the other folds."""
+    max_size = len(free)
+    table = np.full((n_folds, max_size + 1), np.nan)
+    trouble = np.zeros(2, dtype=np.int64)
+    # stacklevel 5: here, _forward_selection, _select_terms, select_terms, its caller
+    for f in range(n_folds):
+        train = np.flatnonzero(fold != f)
+        test = np.flatnonzero(fold == f)
+        try:
+            _, _, _, _, tests, tr, stop = _forward(prob, train, forced, free, max_size, test_rows=test)
+        except FitError as exc:
+            _warn(msgs, f"fold {f + 1}: the starting model could not be fitted ({exc})", RiskvetWarning, 5)
+            continue
+        table[f, : len(tests)] = tests
+        trouble += tr
+        if stop:
+            _warn(msgs, f"fold {f + 1}: path stopped after {len(tests) - 1} terms: {stop}", RiskvetWarning, 5)
+    if trouble[0]:
+        _warn(msgs, f"cross-validation: {trouble[0]} fold fit(s) did not converge", ConvergenceWarning, 5)
+    if trouble[1]:
+        _warn(msgs, f"cross-validation: {trouble[1]} fold fit(s) met separation", SeparationWarning, 5)
+    return table
+
+
+def _choose_size(table: np.ndarray, n_folds: int) -> tuple[int, pd.DataFrame, pd.DataFrame]:
+    """The size with the best mean test log-likelihood over the folds that all reached it, and the tables behind it."""
+    max_size = table.shape[1] - 1
+    reached = np.sum(~np.isnan(table), axis=0)
+    with np.errstate(invalid="ignore"):
+        mean = np.where(reached == n_folds, np.mean(table, axis=0), np.nan)
+        se = np.where(reached == n_folds, np.std(table, axis=0, ddof=1) / math.sqrt(n_folds), np.nan)
+    eligible = np.flatnonzero(~np.isnan(mean))
+    if eligible.size == 0:
+        raise FitError(problem("select_terms", allowed="a forward path that every fold can follow", received="no model size reached in all folds"))
+    best_val = np.max(mean[eligible])
+    size = int(eligible[np.flatnonzero(mean[eligible] == best_val)[0]])
+    cv = pd.DataFrame({"size": np.arange(max_size + 1), "mean_test_loglik": mean, "se": se, "n_folds_reached": reached})
+    f_idx, s_idx = np.meshgrid(np.arange(n_folds), np.arange(max_size + 1), indexing="ij")
+    cv_by_fold = pd.DataFrame({"fold": f_idx.ravel() + 1, "size": s_idx.ravel(), "test_loglik": table.ravel()})
+    return size, cv, cv_by_fold
+
+
+def _forward_selection(prob: _Problem, fold: np.ndarray, n_folds: int, forced: list[int], free: list[int], msgs: list[str]) -> _Selected:
+    """Size the forward path by cross-validation, then run it on all data up to that size."""
+    table = _cross_validated_path(prob, fold, n_folds, forced, free, msgs)
+    size, cv, cv_by_fold = _choose_size(table, n_folds)
+    terms, cols, raw, steps, _, _, stop = _forward(prob, None, forced, free, size)
+    if stop:
+        # stacklevel 4: here, _select_terms, select_terms, its caller
+        _warn(msgs, f"all data: path stopped early: {stop}", RiskvetWarning, 4)
+    return _Selected(terms, cols, raw, _path_frame(prob, steps, "score"), cv, cv_by_fold, size)
+
+
+def _backward_elimination(prob: _Problem, forced: list[int], free: list[int]) -> _Selected:
+    """From every term, drop the non-forced term whose removal gives the lowest AIC, while that lowers it."""
+    term_cols = prob.term_cols
+    terms = list(forced) + free
+    cols = [c for t in terms for c in term_cols[t]]
+    raw = prob.fit(None, cols)
+    steps = [("start", None, math.nan, 0, math.nan, raw)]
+    while True:
+        candidates = [t for t in terms if t not in forced]
+        best = None
+        for t in candidates:
+            keep_terms = [u for u in terms if u != t]
+            keep_cols = [c for u in keep_terms for c in term_cols[u]]
+            start = _drop_params(raw.params, cols, term_cols[t], prob)
+            sub = prob.fit(None, keep_cols, start=start)
+            aic = _aic(sub)
+            if best is None or aic < best[1]:
+                best = (t, aic, sub, keep_terms, keep_cols)
+        if best is None or not best[1] < _aic(raw):
+            break
+        t, aic, sub, keep_terms, keep_cols = best
+        df = raw.params.shape[0] - sub.params.shape[0]
+        lr = max(0.0, 2.0 * (raw.loglik - sub.loglik))
+        steps.append(("remove", t, aic, df, float(special.chdtrc(df, lr)), sub))
+        raw, terms, cols = sub, keep_terms, keep_cols
+    return _Selected(terms, cols, raw, _path_frame(prob, steps, "aic"))
+
+
+def _full_model(prob: _Problem, forced: list[int], free: list[int]) -> _Selected:
+    """The pre-specified model with every term."""
+    terms = list(forced) + free
+    cols = [c for t in terms for c in prob.term_cols[t]]
+    raw = prob.fit(None, cols)
+    return _Selected(terms, cols, raw, _path_frame(prob, [("start", None, math.nan, 0, math.nan, raw)], ""))
+
+
 def _select_terms(
     X,
     y,
@@ -496,12 +643,8 @@ def _select_terms(
     proportional: bool = True,
     weights=None,
 ) -> SelectionResult:
-    if method not in METHODS:
-        raise DesignError(problem("method", allowed=f"one of {list(METHODS)}", received=method))
-    if link not in LINKS:
-        raise FitError(problem("link", allowed=f"one of {list(LINKS)}", received=link))
-    if not isinstance(proportional, (bool, np.bool_)):
-        raise FitError(problem("proportional", allowed="True or False", received=proportional))
+    """:func:`select_terms` itself, run by it with one BLAS thread."""
+    _check_options(method, link, proportional)
     codes, K, levels = _as_outcome(y, None)
     n = codes.shape[0]
     Xa, columns = _as_matrix(X, n)
@@ -514,15 +657,7 @@ def _select_terms(
     rng = None
     seed_used = None
     if method == "forward":
-        if isinstance(n_folds, bool) or not isinstance(n_folds, (int, np.integer)) or n_folds < 2:
-            raise DesignError(problem("n_folds", allowed="an integer >= 2", received=n_folds))
-        if isinstance(seed, np.random.Generator):
-            rng = seed
-        elif isinstance(seed, (int, np.integer)) and not isinstance(seed, bool) and seed >= 0:
-            rng = np.random.default_rng(int(seed))
-            seed_used = int(seed)
-        else:
-            raise DesignError(problem("seed", allowed="a non-negative integer or a numpy Generator", received=seed))
+        rng, seed_used = _fold_source(n_folds, seed)
     # Keep rows with positive weight and sort them by level once: every
     # design below is then already sorted and its rows line up with X.
     keep = np.flatnonzero(w > 0)
@@ -533,107 +668,31 @@ def _select_terms(
     prob = _Problem(Xs, ys, K, ws, unit, link, bool(proportional), term_cols, list(columns), names)
     free = [i for i in range(len(names)) if i not in forced_idx]
     msgs: list[str] = []
-    cv = cv_by_fold = None
-    size = None
 
     if method == "forward":
-        if np.min(np.bincount(ys, minlength=K)) < 2:
-            raise DesignError(problem("y", allowed="at least 2 rows in every level for cross-validation", received=dict(zip(levels, np.bincount(ys, minlength=K).tolist()))))
-        # Folds are drawn over the input row order, then carried to the sorted rows.
-        fold_in = np.full(n, -1, dtype=np.int64)
-        fold_in[keep] = _folds(codes[keep], int(n_folds), rng)
-        fold = fold_in[order]
-        max_size = len(free)
-        table = np.full((int(n_folds), max_size + 1), np.nan)
-        trouble = np.zeros(2, dtype=np.int64)
-        for f in range(int(n_folds)):
-            train = np.flatnonzero(fold != f)
-            test = np.flatnonzero(fold == f)
-            try:
-                _, _, _, _, tests, tr, stop = _forward(prob, train, forced_idx, free, max_size, test_rows=test)
-            except FitError as exc:
-                msg = f"fold {f + 1}: the starting model could not be fitted ({exc})"
-                msgs.append(msg)
-                warnings.warn(msg, RiskvetWarning, stacklevel=3)
-                continue
-            table[f, : len(tests)] = tests
-            trouble += tr
-            if stop:
-                msg = f"fold {f + 1}: path stopped after {len(tests) - 1} terms: {stop}"
-                msgs.append(msg)
-                warnings.warn(msg, RiskvetWarning, stacklevel=3)
-        if trouble[0]:
-            msg = f"cross-validation: {trouble[0]} fold fit(s) did not converge"
-            msgs.append(msg)
-            warnings.warn(msg, ConvergenceWarning, stacklevel=3)
-        if trouble[1]:
-            msg = f"cross-validation: {trouble[1]} fold fit(s) met separation"
-            msgs.append(msg)
-            warnings.warn(msg, SeparationWarning, stacklevel=3)
-        reached = np.sum(~np.isnan(table), axis=0)
-        with np.errstate(invalid="ignore"):
-            mean = np.where(reached == n_folds, np.mean(table, axis=0), np.nan)
-            se = np.where(reached == n_folds, np.std(table, axis=0, ddof=1) / math.sqrt(n_folds), np.nan)
-        eligible = np.flatnonzero(~np.isnan(mean))
-        if eligible.size == 0:
-            raise FitError(problem("select_terms", allowed="a forward path that every fold can follow", received="no model size reached in all folds"))
-        best_val = np.max(mean[eligible])
-        size = int(eligible[np.flatnonzero(mean[eligible] == best_val)[0]])
-        cv = pd.DataFrame({"size": np.arange(max_size + 1), "mean_test_loglik": mean, "se": se, "n_folds_reached": reached})
-        f_idx, s_idx = np.meshgrid(np.arange(int(n_folds)), np.arange(max_size + 1), indexing="ij")
-        cv_by_fold = pd.DataFrame({"fold": f_idx.ravel() + 1, "size": s_idx.ravel(), "test_loglik": table.ravel()})
-        terms, cols, raw, steps, _, tr, stop = _forward(prob, None, forced_idx, free, size)
-        if stop:
-            msg = f"all data: path stopped early: {stop}"
-            msgs.append(msg)
-            warnings.warn(msg, RiskvetWarning, stacklevel=3)
-        path = _path_frame(prob, steps, "score")
+        fold = _sorted_folds(prob, codes, keep, order, int(n_folds), rng, levels)
+        chosen = _forward_selection(prob, fold, int(n_folds), forced_idx, free, msgs)
     elif method == "backward":
-        terms = list(forced_idx) + free
-        cols = [c for t in terms for c in term_cols[t]]
-        raw = prob.fit(None, cols)
-        steps = [("start", None, math.nan, 0, math.nan, raw)]
-        while True:
-            candidates = [t for t in terms if t not in forced_idx]
-            best = None
-            for t in candidates:
-                keep_terms = [u for u in terms if u != t]
-                keep_cols = [c for u in keep_terms for c in term_cols[u]]
-                start = _drop_params(raw.params, cols, term_cols[t], prob)
-                sub = prob.fit(None, keep_cols, start=start)
-                aic = _aic(sub)
-                if best is None or aic < best[1]:
-                    best = (t, aic, sub, keep_terms, keep_cols)
-            if best is None or not best[1] < _aic(raw):
-                break
-            t, aic, sub, keep_terms, keep_cols = best
-            df = raw.params.shape[0] - sub.params.shape[0]
-            lr = max(0.0, 2.0 * (raw.loglik - sub.loglik))
-            steps.append(("remove", t, aic, df, float(special.chdtrc(df, lr)), sub))
-            raw, terms, cols = sub, keep_terms, keep_cols
-        path = _path_frame(prob, steps, "aic")
+        chosen = _backward_elimination(prob, forced_idx, free)
     else:
-        terms = list(forced_idx) + free
-        cols = [c for t in terms for c in term_cols[t]]
-        raw = prob.fit(None, cols)
-        path = _path_frame(prob, [("start", None, math.nan, 0, math.nan, raw)], "")
+        chosen = _full_model(prob, forced_idx, free)
 
     # The chosen model through the public fitter: full table, warnings, checks.
-    chosen_cols = [columns[c] for c in cols]
-    frame = pd.DataFrame(Xs[:, cols], columns=chosen_cols)
+    chosen_cols = [columns[c] for c in chosen.cols]
+    frame = pd.DataFrame(Xs[:, chosen.cols], columns=chosen_cols)
     y_cat = pd.Categorical.from_codes(ys, categories=list(levels), ordered=True)
     # Its warnings are issued by the fitter and recorded on it and here.
-    final = fit_cumulative(frame, y_cat, link=link, proportional=bool(proportional), weights=None if unit else ws, start=raw.params)
+    final = fit_cumulative(frame, y_cat, link=link, proportional=bool(proportional), weights=None if unit else ws, start=chosen.raw.params)
     msgs.extend(f"final model: {m}" for m in final.warnings)
     return SelectionResult(
         method=method,
-        terms=tuple(names[t] for t in terms),
+        terms=tuple(names[t] for t in chosen.terms),
         forced=tuple(names[t] for t in forced_idx),
         columns=tuple(chosen_cols),
-        path=path,
-        cv=cv,
-        cv_by_fold=cv_by_fold,
-        size=size,
+        path=chosen.path,
+        cv=chosen.cv,
+        cv_by_fold=chosen.cv_by_fold,
+        size=chosen.size,
         fit=final,
         seed=seed_used,
         n_folds=int(n_folds) if method == "forward" else None,

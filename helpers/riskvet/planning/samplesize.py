@@ -691,6 +691,103 @@ def _width(where: str, value: Any, allowed: str = "a positive interval width, or
     return _number(where, value, low=0, allowed=allowed)
 
 
+def _validation_widths(where: str, oe_ci_width: Any, slope_ci_width: Any, c_ci_width: Any) -> dict[str, float | None]:
+    """Target interval widths of the O/E, slope and C criteria (None skips one)."""
+    widths = {
+        "O/E": _width(f"{where}(oe_ci_width)", oe_ci_width),
+        "calibration slope": _width(f"{where}(slope_ci_width)", slope_ci_width),
+        "C statistic": _width(f"{where}(c_ci_width)", c_ci_width),
+    }
+    if widths["C statistic"] is not None and widths["C statistic"] >= 1:
+        raise StudyError(problem(f"{where}(c_ci_width)", allowed="a width below 1", received=c_ci_width))
+    return widths
+
+
+def _net_benefit_target(where: str, net_benefit_threshold: Any, nb_ci_width: Any, sensitivity: Any, specificity: Any) -> tuple[float | None, float | None]:
+    """Threshold and target width of the net-benefit criterion, both None when it is not asked for."""
+    if net_benefit_threshold is None:
+        if nb_ci_width is not None or sensitivity is not None or specificity is not None:
+            raise StudyError(problem(f"{where}(net_benefit_threshold)", allowed="a threshold when nb_ci_width, sensitivity or specificity is given", received=None))
+        return None, None
+    thr = _number(f"{where}(net_benefit_threshold)", net_benefit_threshold, low=0, high=1, allowed="a risk threshold strictly between 0 and 1")
+    width = _width(f"{where}(nb_ci_width)", nb_ci_width, allowed="a positive interval width for standardised net benefit")
+    if width is None:
+        raise StudyError(problem(f"{where}(nb_ci_width)", allowed="a positive interval width when net_benefit_threshold is given", received=None))
+    return thr, width
+
+
+def _linear_predictor(where: str, phi: float, c: float, oe_v: float, b: float, oe: Any, lp_mean: Any, lp_sd: Any) -> tuple[float, float, float, str]:
+    """Mean and SD of the normal linear predictor LP, intercept a of the true risk expit(a + b·LP), and where LP came from."""
+    if lp_mean is None:
+        m, s = _risk_distribution(phi, c)
+        sd = s / b
+        mu = _match_mean(phi / oe_v, sd) if phi / oe_v < 1 else math.nan
+        if not math.isfinite(mu):
+            raise StudyError(problem(f"{where}(oe)", allowed=f"an O/E ratio above the prevalence {phi:g} (mean predicted risk below 1)", received=oe))
+        return mu, sd, m - b * mu, "matched to prevalence, C, O/E and slope"
+    mu = _number(f"{where}(lp_mean)", lp_mean, allowed="a finite mean of the linear predictor")
+    sd = _number(f"{where}(lp_sd)", lp_sd, low=0, allowed="a positive SD of the linear predictor")
+    return mu, sd, _intercept_for(phi, mu, sd, b), "given"
+
+
+def _criterion(name: str, target: str, n_x: float, phi: float) -> SizeCriterion:
+    """A criterion with its exact n rounded up and the events expected at that n."""
+    return SizeCriterion(name, target, n_x, _ceil(n_x), _ceil(n_x) * phi)
+
+
+def _oe_criterion(phi: float, oe_v: float, width: float, z: float, conf: float) -> SizeCriterion:
+    """n for an O/E interval of the target width."""
+    se = math.asinh(width / (2 * oe_v)) / z
+    n_x = (1 - phi) / (phi * se**2)
+    return _criterion("O/E", f"{conf:.0%} interval for O/E of width {width:g}", n_x, phi)
+
+
+def _slope_criterion(phi: float, lp: np.ndarray, p_true: np.ndarray, width: float, z: float, conf: float) -> SizeCriterion:
+    """n for a calibration-slope interval of the target width, from the Fisher information per person."""
+    w = p_true * (1 - p_true)
+    i_aa = float(np.sum(_Z_WEIGHTS * w))
+    i_ab = float(np.sum(_Z_WEIGHTS * w * lp))
+    i_bb = float(np.sum(_Z_WEIGHTS * w * lp**2))
+    var1 = i_aa / (i_aa * i_bb - i_ab**2)
+    se = width / (2 * z)
+    n_x = var1 / se**2
+    return _criterion("calibration slope", f"{conf:.0%} interval for the calibration slope of width {width:g}", n_x, phi)
+
+
+def _c_criterion(phi: float, c: float, width: float, z: float, conf: float) -> SizeCriterion:
+    """n for a C-statistic interval of the target width, solving the SE of C for n in closed form."""
+    t2 = (width / (2 * z)) ** 2
+    big_a = c * (1 - c) / (phi * (1 - phi))
+    q = (1 - c) / (2 - c) + c / (1 + c)
+    # SE² = A[(1 − q)/n² + q/(2n)] = t²  ⇔  t²n² − (Aq/2)n − A(1 − q) = 0
+    n_x = (big_a * q / 2 + math.sqrt((big_a * q / 2) ** 2 + 4 * t2 * big_a * (1 - q))) / (2 * t2)
+    return _criterion("C statistic", f"{conf:.0%} interval for the C statistic of width {width:g}", n_x, phi)
+
+
+def _threshold_accuracy(where: str, thr: float, sensitivity: Any, specificity: Any, mu: float, sd: float, a: float, b: float, phi: float) -> tuple[float, float]:
+    """Sensitivity and specificity at the threshold, as given or implied by the linear predictor."""
+    cut = special.logit(thr)
+    if sensitivity is None or specificity is None:
+        implied_sens, implied_spec = _sens_spec(mu, sd, a, b, cut, phi)
+    sens = implied_sens if sensitivity is None else _number(f"{where}(sensitivity)", sensitivity, low=0, high=1, low_open=False, high_open=False, allowed="a proportion in [0, 1]")
+    spec = implied_spec if specificity is None else _number(f"{where}(specificity)", specificity, low=0, high=1, low_open=False, high_open=False, allowed="a proportion in [0, 1]")
+    return sens, spec
+
+
+def _net_benefit_criterion(where: str, phi: float, thr: float, sens: float, spec: float, width: float, z: float, conf: float) -> tuple[SizeCriterion, float, float]:
+    """n for a standardised net benefit interval of the target width; also NB and sNB at the threshold."""
+    w_t = thr / (1 - thr)
+    snb = sens - w_t * (1 - spec) * (1 - phi) / phi
+    nb = snb * phi
+    var1 = sens * (1 - sens) / phi + w_t**2 * spec * (1 - spec) * (1 - phi) / phi**2 + w_t**2 * (1 - spec) ** 2 * (1 - phi) / phi**3
+    se = width / (2 * z)
+    if var1 <= 0:
+        raise StudyError(problem(f"{where}(sensitivity, specificity)", allowed="values giving a positive variance of net benefit (not both 0 or 1)", received=(sens, spec)))
+    n_x = var1 / se**2
+    target = f"{conf:.0%} interval for standardised net benefit at threshold {thr:g} of width {width:g}"
+    return _criterion("net benefit", target, n_x, phi), nb, snb
+
+
 def validation_size(
     *,
     prevalence: float,
@@ -799,80 +896,33 @@ def validation_size(
     oe_v = _number(f"{where}(oe)", oe, low=0, allowed="a positive O/E ratio")
     b = _number(f"{where}(slope)", slope, low=0, allowed="a positive calibration slope")
     conf = _number(f"{where}(confidence)", confidence, low=0, high=1, allowed="a confidence level strictly between 0 and 1")
-    widths = {
-        "O/E": _width(f"{where}(oe_ci_width)", oe_ci_width),
-        "calibration slope": _width(f"{where}(slope_ci_width)", slope_ci_width),
-        "C statistic": _width(f"{where}(c_ci_width)", c_ci_width),
-    }
-    if widths["C statistic"] is not None and widths["C statistic"] >= 1:
-        raise StudyError(problem(f"{where}(c_ci_width)", allowed="a width below 1", received=c_ci_width))
+    widths = _validation_widths(where, oe_ci_width, slope_ci_width, c_ci_width)
     if (lp_mean is None) != (lp_sd is None):
         raise StudyError(problem(f"{where}(lp_mean, lp_sd)", allowed="both or neither", received=(lp_mean, lp_sd)))
-    thr = None if net_benefit_threshold is None else _number(f"{where}(net_benefit_threshold)", net_benefit_threshold, low=0, high=1, allowed="a risk threshold strictly between 0 and 1")
+    thr, nb_width = _net_benefit_target(where, net_benefit_threshold, nb_ci_width, sensitivity, specificity)
     if thr is not None:
-        widths["net benefit"] = _width(f"{where}(nb_ci_width)", nb_ci_width, allowed="a positive interval width for standardised net benefit")
-        if widths["net benefit"] is None:
-            raise StudyError(problem(f"{where}(nb_ci_width)", allowed="a positive interval width when net_benefit_threshold is given", received=None))
-    elif nb_ci_width is not None or sensitivity is not None or specificity is not None:
-        raise StudyError(problem(f"{where}(net_benefit_threshold)", allowed="a threshold when nb_ci_width, sensitivity or specificity is given", received=None))
+        widths["net benefit"] = nb_width
     if all(v is None for v in widths.values()):
         raise StudyError(problem(f"{where}(*_ci_width)", allowed="at least one criterion with a target width", received=widths))
     z = float(stats.norm.ppf(0.5 + conf / 2))
 
     # Linear predictor LP ~ N(mu, sd²); true risk expit(a + b·LP).
-    if lp_mean is None:
-        m, s = _risk_distribution(phi, c)
-        sd = s / b
-        mu = _match_mean(phi / oe_v, sd) if phi / oe_v < 1 else math.nan
-        if not math.isfinite(mu):
-            raise StudyError(problem(f"{where}(oe)", allowed=f"an O/E ratio above the prevalence {phi:g} (mean predicted risk below 1)", received=oe))
-        a = m - b * mu
-        lp_source = "matched to prevalence, C, O/E and slope"
-    else:
-        mu = _number(f"{where}(lp_mean)", lp_mean, allowed="a finite mean of the linear predictor")
-        sd = _number(f"{where}(lp_sd)", lp_sd, low=0, allowed="a positive SD of the linear predictor")
-        a = _intercept_for(phi, mu, sd, b)
-        lp_source = "given"
+    mu, sd, a, lp_source = _linear_predictor(where, phi, c, oe_v, b, oe, lp_mean, lp_sd)
     lp = mu + sd * _Z_NODES
     p_true = special.expit(a + b * lp)
 
     crit: list[SizeCriterion] = []
     if widths["O/E"] is not None:
-        se = math.asinh(widths["O/E"] / (2 * oe_v)) / z
-        n_x = (1 - phi) / (phi * se**2)
-        crit.append(SizeCriterion("O/E", f"{conf:.0%} interval for O/E of width {widths['O/E']:g}", n_x, _ceil(n_x), _ceil(n_x) * phi))
+        crit.append(_oe_criterion(phi, oe_v, widths["O/E"], z, conf))
     if widths["calibration slope"] is not None:
-        w = p_true * (1 - p_true)
-        i_aa = float(np.sum(_Z_WEIGHTS * w))
-        i_ab = float(np.sum(_Z_WEIGHTS * w * lp))
-        i_bb = float(np.sum(_Z_WEIGHTS * w * lp**2))
-        var1 = i_aa / (i_aa * i_bb - i_ab**2)
-        se = widths["calibration slope"] / (2 * z)
-        n_x = var1 / se**2
-        crit.append(SizeCriterion("calibration slope", f"{conf:.0%} interval for the calibration slope of width {widths['calibration slope']:g}", n_x, _ceil(n_x), _ceil(n_x) * phi))
+        crit.append(_slope_criterion(phi, lp, p_true, widths["calibration slope"], z, conf))
     if widths["C statistic"] is not None:
-        t2 = (widths["C statistic"] / (2 * z)) ** 2
-        big_a = c * (1 - c) / (phi * (1 - phi))
-        q = (1 - c) / (2 - c) + c / (1 + c)
-        # SE² = A[(1 − q)/n² + q/(2n)] = t²  ⇔  t²n² − (Aq/2)n − A(1 − q) = 0
-        n_x = (big_a * q / 2 + math.sqrt((big_a * q / 2) ** 2 + 4 * t2 * big_a * (1 - q))) / (2 * t2)
-        crit.append(SizeCriterion("C statistic", f"{conf:.0%} interval for the C statistic of width {widths['C statistic']:g}", n_x, _ceil(n_x), _ceil(n_x) * phi))
+        crit.append(_c_criterion(phi, c, widths["C statistic"], z, conf))
     sens = spec = nb = snb = None
     if thr is not None:
-        cut = special.logit(thr)
-        if sensitivity is None or specificity is None:
-            implied_sens, implied_spec = _sens_spec(mu, sd, a, b, cut, phi)
-        sens = implied_sens if sensitivity is None else _number(f"{where}(sensitivity)", sensitivity, low=0, high=1, low_open=False, high_open=False, allowed="a proportion in [0, 1]")
-        spec = implied_spec if specificity is None else _number(f"{where}(specificity)", specificity, low=0, high=1, low_open=False, high_open=False, allowed="a proportion in [0, 1]")
-        w_t = thr / (1 - thr)
-        snb = sens - w_t * (1 - spec) * (1 - phi) / phi
-        nb = snb * phi
-        var1 = sens * (1 - sens) / phi + w_t**2 * spec * (1 - spec) * (1 - phi) / phi**2 + w_t**2 * (1 - spec) ** 2 * (1 - phi) / phi**3
-        se = widths["net benefit"] / (2 * z)
-        if var1 <= 0:
-            raise StudyError(problem(f"{where}(sensitivity, specificity)", allowed="values giving a positive variance of net benefit (not both 0 or 1)", received=(sens, spec)))
-        n_x = var1 / se**2
-        crit.append(SizeCriterion("net benefit", f"{conf:.0%} interval for standardised net benefit at threshold {thr:g} of width {widths['net benefit']:g}", n_x, _ceil(n_x), _ceil(n_x) * phi))
+        sens, spec = _threshold_accuracy(where, thr, sensitivity, specificity, mu, sd, a, b, phi)
+        nb_criterion, nb, snb = _net_benefit_criterion(where, phi, thr, sens, spec, widths["net benefit"], z, conf)
+        crit.append(nb_criterion)
     top = _binding(crit)
     return ValidationSize(
         prevalence=phi,
