@@ -37,7 +37,7 @@ import time
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any, Mapping, Sequence, TextIO
+from typing import Any, Callable, Mapping, Sequence, TextIO
 
 import pandas as pd
 
@@ -655,7 +655,29 @@ def run_study(
     commit = git_commit(study_path.parent, ignore=study.output.records)
     started = _now()
     record = _new_record(Path(study.output.records), study=study, inputs=inputs, started=started)
-    run_id = record.name
+    parameters = _fill_new_record(record, study_path=study_path, study=study, model_input=model_input)
+    manifest = _first_manifest(
+        record, study_path=study_path, study=study, started=started, variables=variables, inputs=inputs,
+        model_input=model_input, parameters=parameters, show_code=show_code, chosen=chosen, commit=commit,
+    )
+    write_manifest(record, manifest)
+
+    _print_start(study, record, model_input, out=out)
+    results, failed, interrupted = _run_stages(
+        record, manifest, chosen=chosen, templates=templates, parameters=parameters, variables=variables,
+        html=study.output.html, show_code=show_code, render_html=render_html, out=out,
+    )
+    status = _finish_manifest(record, manifest, results, failed=failed, interrupted=interrupted)
+    if interrupted is not None:
+        raise interrupted
+    total = sum(r.seconds or 0 for r in results)
+    print(f"record {status}: {record} ({total:.1f} s in stages)", file=out)
+    print(f"check it any time with: riskvet verify {record}", file=out)
+    return RunResult(record_dir=record, run_id=record.name, status=status, stages=tuple(results), manifest=manifest)
+
+
+def _fill_new_record(record: Path, *, study_path: Path, study: Study, model_input: dict[str, Any] | None) -> dict[str, str]:
+    """Write the resolved study (and the earlier model, if any) into the record; return the notebook parameters."""
     (record / "study.json").write_text(study.canonical_json() + "\n", encoding="utf-8")
     model_path = record / "models" / "model.json"
     if model_input is not None:
@@ -667,10 +689,27 @@ def run_study(
         "model_path": model_input["path"] if model_input is not None else str(model_path),
     }
     assert set(parameters) == set(STAGE_PARAMETERS)
+    return parameters
 
+
+def _first_manifest(
+    record: Path,
+    *,
+    study_path: Path,
+    study: Study,
+    started: datetime,
+    variables: Mapping[str, str],
+    inputs: list[dict[str, Any]],
+    model_input: dict[str, Any] | None,
+    parameters: dict[str, str],
+    show_code: bool,
+    chosen: Sequence[str],
+    commit: dict[str, Any] | None,
+) -> dict[str, Any]:
+    """The manifest of a run that has just started: every stage pending, no files yet."""
     manifest: dict[str, Any] = {
         "schema": MANIFEST_SCHEMA,
-        "run_id": run_id,
+        "run_id": record.name,
         "status": "running",
         "started": _iso(started),
         "finished": None,
@@ -692,12 +731,35 @@ def run_study(
     }
     if commit is not None:
         manifest["git"] = commit
-    write_manifest(record, manifest)
+    return manifest
 
+
+def _print_start(study: Study, record: Path, model_input: dict[str, Any] | None, *, out: TextIO) -> None:
+    """The opening progress lines: the study, the record and any earlier model."""
     print(f"riskvet run: study {study.study.name!r} (sha256 {study.digest()[:12]}) -> {record}", file=out)
     if model_input is not None:
         note = "" if model_input["study_sha256"] == study.digest() else " (made with different study settings)"
         print(f"model from {model_input['run_id']}: sha256 {model_input['sha256'][:12]}{note}", file=out)
+
+
+def _run_stages(
+    record: Path,
+    manifest: dict[str, Any],
+    *,
+    chosen: Sequence[str],
+    templates: Mapping[str, Path],
+    parameters: dict[str, str],
+    variables: Mapping[str, str],
+    html: bool,
+    show_code: bool,
+    render_html: Callable[..., Any],
+    out: TextIO,
+) -> tuple[list[StageRun], bool, BaseException | None]:
+    """Run the chosen stages in order, rewriting the manifest after each.
+
+    After a failure the remaining stages are skipped.  Returns the stage runs,
+    whether one failed, and the KeyboardInterrupt that stopped the run (or None).
+    """
     results: list[StageRun] = []
     failed = False
     interrupted: BaseException | None = None
@@ -708,53 +770,92 @@ def run_study(
                 results.append(StageRun(stage=stage, status="skipped"))
                 print(f"{label}: skipped (an earlier stage failed)", file=out)
                 continue
-            manifest["templates"].append({"stage": stage, "path": str(templates[stage]), "sha256": sha256_file(templates[stage])})
-            notebook = record / "notebooks" / f"{stage_stem(stage)}.ipynb"
-            notebook.parent.mkdir(exist_ok=True)
-            print(f"{label}: running", file=out, flush=True)
-            begin, tick = _now(), time.perf_counter()
-            try:
-                error = _execute(
-                    templates[stage], notebook, parameters, cwd=record, log_path=Path(scratch) / f"{stage}.log", variables=variables
-                )
-            except KeyboardInterrupt as exc:
-                error, interrupted = {"kind": "interrupted", "ename": "KeyboardInterrupt", "evalue": "run interrupted"}, exc
-            seconds = round(time.perf_counter() - tick, 2)
-            html = html_error = None
-            if study.output.html and notebook.is_file() and interrupted is None:
-                target = record / "html" / f"{stage_stem(stage)}.html"
-                try:
-                    render_html(notebook, target, show_code=show_code, failure=_failure_sentence(error) if error else None)
-                    html = target.relative_to(record).as_posix()
-                except RiskvetError as exc:
-                    html_error = str(exc)
-            run = StageRun(
-                stage=stage,
-                status="failed" if error else "ok",
-                notebook=notebook.relative_to(record).as_posix() if notebook.is_file() else None,
-                html=html,
-                seconds=seconds,
-                started=_iso(begin),
-                finished=_iso(_now()),
-                error=error,
-                html_error=html_error,
+            run, interrupted = _run_stage(
+                stage, label, record=record, manifest=manifest, template=templates[stage], parameters=parameters,
+                variables=variables, log_path=Path(scratch) / f"{stage}.log", html=html, show_code=show_code,
+                render_html=render_html, out=out,
             )
             results.append(run)
-            if error:
+            if run.error:
                 failed = True
-                where = f" in cell {error['cell_index']} (In [{error.get('execution_count')}])" if "cell_index" in error else ""
-                print(f"{label}: FAILED after {seconds:.1f} s{where}: {error['ename']}: {error['evalue']}", file=out, flush=True)
-            else:
-                print(f"{label}: ok in {seconds:.1f} s", file=out, flush=True)
-            if html_error:
-                print(f"{label}: no HTML rendering: {html_error}", file=out)
+            _print_stage_end(label, run, out=out)
             manifest["stages"] = [r.to_dict() for r in results] + [
                 StageRun(stage=s, status="pending").to_dict() for s in chosen[len(results):]
             ]
             write_manifest(record, manifest, replace=True)
             if interrupted is not None:
                 failed = True
+    return results, failed, interrupted
 
+
+def _run_stage(
+    stage: str,
+    label: str,
+    *,
+    record: Path,
+    manifest: dict[str, Any],
+    template: Path,
+    parameters: dict[str, str],
+    variables: Mapping[str, str],
+    log_path: Path,
+    html: bool,
+    show_code: bool,
+    render_html: Callable[..., Any],
+    out: TextIO,
+) -> tuple[StageRun, BaseException | None]:
+    """Execute one stage notebook and render it as HTML.
+
+    Returns how the stage went, and the KeyboardInterrupt that stopped it (or None).
+    """
+    manifest["templates"].append({"stage": stage, "path": str(template), "sha256": sha256_file(template)})
+    notebook = record / "notebooks" / f"{stage_stem(stage)}.ipynb"
+    notebook.parent.mkdir(exist_ok=True)
+    print(f"{label}: running", file=out, flush=True)
+    interrupted: BaseException | None = None
+    begin, tick = _now(), time.perf_counter()
+    try:
+        error = _execute(template, notebook, parameters, cwd=record, log_path=log_path, variables=variables)
+    except KeyboardInterrupt as exc:
+        error, interrupted = {"kind": "interrupted", "ename": "KeyboardInterrupt", "evalue": "run interrupted"}, exc
+    seconds = round(time.perf_counter() - tick, 2)
+    rendered = html_error = None
+    if html and notebook.is_file() and interrupted is None:
+        target = record / "html" / f"{stage_stem(stage)}.html"
+        try:
+            render_html(notebook, target, show_code=show_code, failure=_failure_sentence(error) if error else None)
+            rendered = target.relative_to(record).as_posix()
+        except RiskvetError as exc:
+            html_error = str(exc)
+    run = StageRun(
+        stage=stage,
+        status="failed" if error else "ok",
+        notebook=notebook.relative_to(record).as_posix() if notebook.is_file() else None,
+        html=rendered,
+        seconds=seconds,
+        started=_iso(begin),
+        finished=_iso(_now()),
+        error=error,
+        html_error=html_error,
+    )
+    return run, interrupted
+
+
+def _print_stage_end(label: str, run: StageRun, *, out: TextIO) -> None:
+    """The progress line(s) for a stage that has run: ok or failed, and any rendering problem."""
+    error = run.error
+    if error:
+        where = f" in cell {error['cell_index']} (In [{error.get('execution_count')}])" if "cell_index" in error else ""
+        print(f"{label}: FAILED after {run.seconds:.1f} s{where}: {error['ename']}: {error['evalue']}", file=out, flush=True)
+    else:
+        print(f"{label}: ok in {run.seconds:.1f} s", file=out, flush=True)
+    if run.html_error:
+        print(f"{label}: no HTML rendering: {run.html_error}", file=out)
+
+
+def _finish_manifest(
+    record: Path, manifest: dict[str, Any], results: list[StageRun], *, failed: bool, interrupted: BaseException | None
+) -> str:
+    """Mark the run finished in the manifest, listing every file; return its status."""
     status = "failed" if failed else "complete"
     manifest.update(
         status="interrupted" if interrupted is not None else status,
@@ -763,9 +864,4 @@ def run_study(
         files=record_files(record),
     )
     write_manifest(record, manifest, replace=True)
-    if interrupted is not None:
-        raise interrupted
-    total = sum(r.seconds or 0 for r in results)
-    print(f"record {status}: {record} ({total:.1f} s in stages)", file=out)
-    print(f"check it any time with: riskvet verify {record}", file=out)
-    return RunResult(record_dir=record, run_id=run_id, status=status, stages=tuple(results), manifest=manifest)
+    return status

@@ -715,6 +715,64 @@ def prepare_cohort(
     issues and guidance for practice. Statistics in Medicine 2011;30(4):377-399.
     """
     study = _check_study(study, "prepare_cohort")
+    _check_prepare_arguments(role=role, missing=missing, frame=frame, reference=reference)
+    label = str(label) if label is not None else role
+    where = str(source) if source is not None else label
+    needs, raw = _needed_frame(study, frame, role=role, label=label, where=where)
+    id_column = study.data.id_column
+    audit = audit_frame(raw, name=where, private_columns=[id_column] if id_column else ())
+    needed = {n.column: n for n in needs}
+
+    specs: dict[str, PredictorSpec] = {name: study.predictors.candidates[name] for name in study.predictors.in_analysis}
+    new_names = tuple(name for name in study.updating.new_predictors if name in needed and role == "validation")
+    specs.update({name: study.updating.new_predictors[name] for name in new_names})
+    rule = study.existing_rule
+    rule_column = rule.column if rule is not None and rule.column in needed else None
+    subgroup_columns = list(dict.fromkeys(s.column for s in study.external_validation.subgroups if s.column in needed))
+
+    # every problem is found before any is reported, so one run lists them all
+    out: dict[str, pd.Series] = {}
+    problems = _check_ids(raw, id_column, out)
+    problems += _check_outcome(study, raw, out)
+    found, mappings = _check_predictors(study, raw, specs, needed, role=role, reference=reference, out=out)
+    problems += found
+    problems += _check_rule(study, raw, needed, out)
+    problems += _check_subgroups(study, raw, needed, out)
+    if problems:
+        _raise(where, problems)
+
+    keep, exclusions = _complete_cases(study, raw, out, where)
+    kept = pd.DataFrame({c: s[keep.to_numpy()] for c, s in out.items()}).reset_index(drop=True)
+    y = outcome_codes(study, kept[study.outcome.column], source=where)
+    category_levels = _category_levels(specs, reference, kept)
+    levels = study.outcome.ordered_levels
+    counts = np.bincount(y, minlength=len(levels))
+    return PreparedCohort(
+        role=role,
+        label=label,
+        source=where,
+        frame=kept,
+        y=y,
+        outcome_levels=tuple(levels),
+        predictors=tuple(study.predictors.in_analysis),
+        new_predictors=new_names,
+        forms={name: spec.form for name, spec in specs.items()},
+        category_levels=category_levels,
+        id_column=id_column,
+        rule_column=rule_column,
+        subgroup_columns=tuple(subgroup_columns),
+        exclusions=exclusions,
+        n_screened=int(len(raw)),
+        n_analysed=int(keep.sum()),
+        outcome_counts={lv: int(n) for lv, n in zip(levels, counts)},
+        category_mappings=tuple(mappings),
+        missing=missing,
+        audit=audit,
+    )
+
+
+def _check_prepare_arguments(*, role: str, missing: str, frame: Any, reference: Any) -> None:
+    """Refuse a role, missing-data method, frame or reference :func:`prepare_cohort` cannot use."""
     if role not in _ROLES:
         raise DataError(problem("prepare_cohort: role", allowed="'derivation' or 'validation'", received=role))
     if missing not in _MISSING_METHODS:
@@ -726,9 +784,13 @@ def prepare_cohort(
             raise DataError(problem("prepare_cohort: reference", allowed="None for role 'derivation' (a reference is the derivation cohort a validation cohort is compared with)", received=type(reference).__name__))
         if not isinstance(reference, PreparedCohort) or reference.role != "derivation":
             raise DataError(problem("prepare_cohort: reference", allowed="the PreparedCohort of the derivation data", received=getattr(reference, "role", type(reference).__name__)))
-    label = str(label) if label is not None else role
-    where = str(source) if source is not None else label
 
+
+def _needed_frame(study: Study, frame: pd.DataFrame, *, role: str, label: str, where: str) -> tuple[list[_Need], pd.DataFrame]:
+    """The columns the study needs from ``frame``, and those columns (names as text, index 0..n-1).
+
+    Refuses a needed column that is absent or appears more than once.
+    """
     columns = [str(c) for c in frame.columns]
     twice = sorted({c for c in columns if columns.count(c) > 1})
     needs = _needs(study, set(columns), role=role, label=label)
@@ -738,17 +800,12 @@ def prepare_cohort(
         lines += [f"column {c!r} appears more than once" for c in twice if c in {n.column for n in needs}]
         _raise(where, lines)
     raw = frame.set_axis(columns, axis=1)[[n.column for n in needs]].reset_index(drop=True)
-    id_column = study.data.id_column
-    audit = audit_frame(raw, name=where, private_columns=[id_column] if id_column else ())
+    return needs, raw
 
-    problems: list[str] = []
-    out: dict[str, pd.Series] = {}
-    mappings: list[CategoryMapping] = []
-    forms: dict[str, str] = {}
-    category_levels: dict[str, tuple[str, ...]] = {}
-    needed = {n.column: n for n in needs}
 
-    # id column: unique, and not quoted
+def _check_ids(raw: pd.DataFrame, id_column: str | None, out: dict[str, pd.Series]) -> list[str]:
+    """Carry the id column into ``out``; a problem if ids repeat (counted, never quoted)."""
+    problems = []
     if id_column is not None:
         ids = raw[id_column]
         duplicated = ids.notna() & ids.duplicated(keep=False)
@@ -759,22 +816,39 @@ def prepare_cohort(
                 f"{int(duplicated.sum())} rows share {n_ids} id value(s) with another row (values not shown)"
             )
         out[id_column] = ids
+    return problems
 
-    # outcome
+
+def _check_outcome(study: Study, raw: pd.DataFrame, out: dict[str, pd.Series]) -> list[str]:
+    """Carry the outcome into ``out`` as level text; a problem for values that are not its levels."""
+    problems = []
     outcome = study.outcome
-    levels = outcome.ordered_levels
     y_text = _as_text(raw[outcome.column])
-    unknown = y_text[y_text.notna() & ~y_text.isin(levels)]
+    unknown = y_text[y_text.notna() & ~y_text.isin(outcome.ordered_levels)]
     if len(unknown):
         problems.append(
             _bad_values(f"column {outcome.column!r} (outcome.column)", allowed=f"one of the levels {list(outcome.levels)} or a missing-value code", bad=unknown, limit=_SHOWN_OUTCOME_VALUES)
         )
     out[outcome.column] = y_text
+    return problems
 
-    # predictors and new predictors
-    specs: dict[str, PredictorSpec] = {name: study.predictors.candidates[name] for name in study.predictors.in_analysis}
-    new_names = tuple(name for name in study.updating.new_predictors if name in needed and role == "validation")
-    specs.update({name: study.updating.new_predictors[name] for name in new_names})
+
+def _check_predictors(
+    study: Study,
+    raw: pd.DataFrame,
+    specs: Mapping[str, PredictorSpec],
+    needed: Mapping[str, _Need],
+    *,
+    role: str,
+    reference: PreparedCohort | None,
+    out: dict[str, pd.Series],
+) -> tuple[list[str], list[CategoryMapping]]:
+    """Carry each predictor into ``out``: numbers, or level text after ``data.category_map``.
+
+    Returns the problems found and the category-map entries applied.
+    """
+    problems = []
+    mappings: list[CategoryMapping] = []
     category_map = study.data.category_map
     if role == "validation":
         for column in category_map:
@@ -782,7 +856,6 @@ def prepare_cohort(
                 cats = sorted(n for n, s in specs.items() if s.form == "categorical")
                 problems.append(problem(f"data.category_map.{column}", allowed=f"a categorical predictor of this cohort, one of {cats}", received=column))
     for name, spec in specs.items():
-        forms[name] = spec.form
         purpose = needed[name].purpose
         if spec.form in ("linear", "spline"):
             numbers, bad = _to_number(raw[name])
@@ -800,27 +873,37 @@ def prepare_cohort(
                 count = int((text == source_level).sum())
                 mappings.append(CategoryMapping(name, source_level, target_level, count))
             text = text.replace(recode)
-        if spec.levels is not None:
-            outside = text[text.notna() & ~text.isin(spec.levels)]
-            if len(outside):
-                problems.append(
-                    _bad_values(f"column {name!r} ({purpose})", allowed=f"one of the levels {list(spec.levels)} or a missing-value code", bad=outside, limit=_SHOWN_VALUES)
-                )
-        if reference is not None and name in reference.category_levels:
-            seen = set(reference.frame[name].dropna().unique())
-            unseen = text[text.notna() & ~text.isin(seen)]
-            if spec.levels is not None:
-                unseen = unseen[unseen.isin(spec.levels)]  # values outside the levels are reported above
-            for level, count in sorted(Counter(unseen.tolist()).items()):
-                problems.append(
-                    f"column {name!r} ({purpose}): level {level!r} ({count} row{'s' if count != 1 else ''}) does not occur in the "
-                    f"derivation data ({reference.source}), whose levels are {sorted(seen)}; recode it onto one of them "
-                    f"with data.category_map.{name}, or correct the file"
-                )
-            category_levels[name] = reference.category_levels[name]
+        problems += _category_problems(text, name, spec, purpose, reference)
         out[name] = text
+    return problems, mappings
 
-    # existing rule
+
+def _category_problems(text: pd.Series, name: str, spec: PredictorSpec, purpose: str, reference: PreparedCohort | None) -> list[str]:
+    """Problems with a categorical predictor's values: outside its ``levels``, or unseen in the derivation data."""
+    problems = []
+    if spec.levels is not None:
+        outside = text[text.notna() & ~text.isin(spec.levels)]
+        if len(outside):
+            problems.append(
+                _bad_values(f"column {name!r} ({purpose})", allowed=f"one of the levels {list(spec.levels)} or a missing-value code", bad=outside, limit=_SHOWN_VALUES)
+            )
+    if reference is not None and name in reference.category_levels:
+        seen = set(reference.frame[name].dropna().unique())
+        unseen = text[text.notna() & ~text.isin(seen)]
+        if spec.levels is not None:
+            unseen = unseen[unseen.isin(spec.levels)]  # values outside the levels are reported above
+        for level, count in sorted(Counter(unseen.tolist()).items()):
+            problems.append(
+                f"column {name!r} ({purpose}): level {level!r} ({count} row{'s' if count != 1 else ''}) does not occur in the "
+                f"derivation data ({reference.source}), whose levels are {sorted(seen)}; recode it onto one of them "
+                f"with data.category_map.{name}, or correct the file"
+            )
+    return problems
+
+
+def _check_rule(study: Study, raw: pd.DataFrame, needed: Mapping[str, _Need], out: dict[str, pd.Series]) -> list[str]:
+    """Carry the existing rule's column into ``out``; problems for values outside its categories or not numbers."""
+    problems = []
     rule = study.existing_rule
     if rule is not None and rule.column in needed:
         purpose = needed[rule.column].purpose
@@ -839,14 +922,15 @@ def prepare_cohort(
                     _bad_values(f"column {rule.column!r} ({purpose})", allowed="finite numbers or a missing-value code", bad=bad, limit=_SHOWN_VALUES)
                 )
             out[rule.column] = numbers
+    return problems
 
-    # subgroups
-    subgroup_columns = []
+
+def _check_subgroups(study: Study, raw: pd.DataFrame, needed: Mapping[str, _Need], out: dict[str, pd.Series]) -> list[str]:
+    """Carry each subgroup column into ``out`` (numbers when banded); problems when bands meet a non-number."""
+    problems = []
     for sub in study.external_validation.subgroups:
         if sub.column not in needed:
             continue
-        if sub.column not in subgroup_columns:
-            subgroup_columns.append(sub.column)
         if sub.column in out:
             if sub.bands is not None and not pd.api.types.is_float_dtype(out[sub.column].dtype):
                 problems.append(f"column {sub.column!r} (external_validation.subgroups): bands need a numeric column, "
@@ -861,51 +945,43 @@ def prepare_cohort(
             out[sub.column] = numbers
         else:
             out[sub.column] = _as_text(raw[sub.column])
+    return problems
 
-    if problems:
-        _raise(where, problems)
 
-    # complete-case exclusions, in a fixed order
+def _complete_cases(study: Study, raw: pd.DataFrame, out: Mapping[str, pd.Series], where: str) -> tuple[pd.Series, pd.DataFrame]:
+    """The rows kept by complete-case exclusion, and the table of exclusion steps.
+
+    Steps run in a fixed order: the outcome, then each predictor in study
+    order.  Refuses a cohort with no row left.
+    """
     keep = pd.Series(True, index=raw.index)
     steps = []
-    for reason, column in [("missing outcome", outcome.column)] + [("missing predictor", p) for p in study.predictors.in_analysis]:
+    for reason, column in [("missing outcome", study.outcome.column)] + [("missing predictor", p) for p in study.predictors.in_analysis]:
         gone = keep & out[column].isna()
         keep &= ~gone
         steps.append({"reason": reason, "column": column, "excluded": int(gone.sum()), "remaining": int(keep.sum())})
     exclusions = pd.DataFrame(steps, columns=["reason", "column", "excluded", "remaining"])
-    n_analysed = int(keep.sum())
-    if n_analysed == 0:
+    if int(keep.sum()) == 0:
         flow = "; ".join(f"{s['reason']} {s['column']!r}: {s['excluded']}" for s in steps if s["excluded"])
         raise DataError(f"{where}: no rows remain after complete-case exclusions ({len(raw)} screened; {flow or 'the file has no rows'})")
+    return keep, exclusions
 
-    kept = pd.DataFrame({c: s[keep.to_numpy()] for c, s in out.items()}).reset_index(drop=True)
-    y = outcome_codes(study, kept[outcome.column], source=where)
+
+def _category_levels(specs: Mapping[str, PredictorSpec], reference: PreparedCohort | None, kept: pd.DataFrame) -> dict[str, tuple[str, ...]]:
+    """Level order of each categorical predictor.
+
+    The derivation cohort's order when it has one, so both cohorts code
+    categories alike; else the study's ``levels``; else the analysed values sorted.
+    """
+    category_levels: dict[str, tuple[str, ...]] = {}
+    if reference is not None:
+        for name, spec in specs.items():
+            if spec.form not in ("linear", "spline") and name in reference.category_levels:
+                category_levels[name] = reference.category_levels[name]
     for name, spec in specs.items():
         if spec.form == "categorical" and name not in category_levels:
             category_levels[name] = tuple(spec.levels) if spec.levels is not None else tuple(sorted(kept[name].dropna().unique()))
-    counts = np.bincount(y, minlength=len(levels))
-    return PreparedCohort(
-        role=role,
-        label=label,
-        source=where,
-        frame=kept,
-        y=y,
-        outcome_levels=tuple(levels),
-        predictors=tuple(study.predictors.in_analysis),
-        new_predictors=new_names,
-        forms=forms,
-        category_levels=category_levels,
-        id_column=id_column,
-        rule_column=rule.column if rule is not None and rule.column in needed else None,
-        subgroup_columns=tuple(subgroup_columns),
-        exclusions=exclusions,
-        n_screened=int(len(raw)),
-        n_analysed=n_analysed,
-        outcome_counts={lv: int(n) for lv, n in zip(levels, counts)},
-        category_mappings=tuple(mappings),
-        missing=missing,
-        audit=audit,
-    )
+    return category_levels
 
 
 def _raise(where: str, lines: list[str]) -> None:
