@@ -33,6 +33,7 @@ from riskvet.validation.bootstrap import (
 )
 from riskvet.intake.data import load_cohorts
 from riskvet.intake.outcome import outcome_codes
+from riskvet.reporting.sentences.internal_validation import failure_sentence, internal_validation_summary, stability_sentence
 from riskvet.modelling.derive import derive
 from riskvet.errors import RiskvetError
 from riskvet.measures.summary import performance_summary
@@ -254,7 +255,7 @@ def test_selection_is_repeated_in_every_replicate(selecting_study):
     assert st.times_selected["core_temp"] >= st.times_selected["cramps"]
     table = st.to_frame()
     assert list(table["term"]) == list(st.candidate_terms)
-    assert "replicates" in st.summary_sentence
+    assert "replicates" in stability_sentence(st)
 
 
 # --------------------------------------------------------------------------
@@ -283,7 +284,7 @@ def test_empty_outcome_level_is_counted_with_its_reason(small_study):
     assert result.n_succeeded == 10 - len(expected)
     assert sorted(result.replicate_values["replicate"].unique().tolist()) == [i for i in range(10) if i not in expected]
     assert list(result.failures_frame()["reason"]) == ["empty outcome level"] * len(expected)
-    assert "produced no model" in result.failure_sentence
+    assert "produced no model" in failure_sentence(result)
 
 
 def test_too_many_failures_raise(small_study):
@@ -371,7 +372,7 @@ def test_estimates_are_internally_consistent(small_result):
     assert frame.shape[0] == 15  # 3 levels: 2 cut AUCs, 3 ordinal C's, 3 overall, 1 + 2 slopes, 2 CITL, 2 ICI
     text = json.dumps(r.to_dict(), allow_nan=False)
     assert "replicate_values" in text
-    assert "optimism" in r.summary_sentence
+    assert "optimism" in internal_validation_summary(r)
 
 
 # --------------------------------------------------------------------------

@@ -13,6 +13,7 @@ import numpy as np
 import pytest
 import yaml
 
+from riskvet.reporting.sentences.internal_validation import crossval_sentence
 from riskvet import demo
 from riskvet.validation.crossval import cross_validate, stratified_folds
 from riskvet.errors import RiskvetError
@@ -106,7 +107,7 @@ def test_repeats_and_workers(folder, sample):
     e = one.estimate("average_cut_auc")
     assert e.pooled < e.apparent and e.averaged < e.apparent
     assert one.estimate("calibration_slope").apparent == pytest.approx(1.0, abs=1e-6)
-    assert "cross-validation" in one.summary_sentence
+    assert "cross-validation" in crossval_sentence(one)
     assert one.to_frame().shape[0] == 15
 
 

@@ -19,6 +19,7 @@ import pandas as pd
 import pytest
 from sklearn.metrics import confusion_matrix, roc_auc_score
 
+from riskvet.reporting.sentences.external_validation import cohort_summary
 from riskvet import demo
 from riskvet.intake.design import build_design
 from riskvet.errors import DataError, DesignError, RecordError, RiskvetError
@@ -76,7 +77,7 @@ def test_calibration_in_the_large_detects_the_known_shift(shifted):
         # fit (0.5 to 2 times: 40 replicates estimate an SE to about +-11%)
         wald = result.calibration.cuts[cut].calibration_in_the_large_se
         assert 0.5 < row["se"] / wald < 2.0
-    assert "over-predicts" in result.summary()
+    assert "over-predicts" in cohort_summary(result)
 
 
 def test_no_shift_in_the_derivation_population(model):
@@ -138,7 +139,7 @@ def test_binary_cohort_is_read_in_words(binary):
     calibration = result.calibration_frame()
     assert set(calibration["outcome"]) == {"transferred"} and not calibration["measure"].str.contains("ordinal|_").any()
     assert list(calibration.columns) == ["cohort", "outcome", "measure", "estimate", "se", "lower", "upper"]
-    text = result.summary()
+    text = cohort_summary(result)
     assert "the C statistic is" in text and "For transferred, calibration-in-the-large" in text and "Y >=" not in text
     assert set(result.threshold_frame()["outcome"]) == {"transferred"}
     # the subgroup figure defaults to the C statistic for a binary outcome
@@ -175,7 +176,7 @@ def test_subgroup_sizes_and_flags(shifted, model):
     small = validate_cohort(model, v, y, subgroups=[SubgroupSpec("age", (30, 50))], min_subgroup_size=200, n_boot=0)
     flagged = small.subgroup_sizes.set_index("group")["small"]
     assert flagged["< 30"] == (bands["< 30"] < 200) and flagged["30 to < 50"] == (bands["30 to < 50"] < 200)
-    assert "flagged" in small.summary()
+    assert "flagged" in cohort_summary(small)
 
 
 def test_subgroup_masks_with_missing_values():

@@ -202,3 +202,45 @@ def test_stable_import_paths_reach_the_same_objects():
     assert riskvet.planning.development_size.__module__ == "riskvet.planning.samplesize"
     for name in ("models", "metrics", "agreement", "bootstrap", "study", "data", "planning"):
         assert getattr(riskvet, name) is sys.modules[f"riskvet.{name}"]
+
+
+#: A function longer than this many lines of code says why at its top, in a
+#: comment starting with ``# kept whole:`` (the first statement of its body).
+MAX_LINES = 80
+
+
+def code_lines(node: ast.FunctionDef, lines: list[str]) -> int:
+    """Lines of a function's body that hold code: no docstring, blank or comment-only lines."""
+    body = node.body
+    start = body[0].lineno
+    if isinstance(body[0], ast.Expr) and isinstance(body[0].value, ast.Constant) and isinstance(body[0].value.value, str):
+        start = body[0].end_lineno + 1
+    return sum(1 for text in lines[start - 1 : node.end_lineno] if text.strip() and not text.strip().startswith("#"))
+
+
+def says_why(node: ast.FunctionDef, lines: list[str]) -> bool:
+    body = node.body
+    after = body[0].end_lineno if isinstance(body[0], ast.Expr) and isinstance(body[0].value, ast.Constant) else node.lineno
+    following = [t.strip() for t in lines[after : after + 3]]
+    return any(t.startswith("# kept whole:") for t in following)
+
+
+def test_no_function_is_too_long_to_read_without_saying_why():
+    long = []
+    for module, path in MODULES.items():
+        lines = path.read_text(encoding="utf-8").splitlines()
+        for node in ast.walk(ast.parse("\n".join(lines))):
+            if isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef)):
+                n = code_lines(node, lines)
+                if n > MAX_LINES and not says_why(node, lines):
+                    long.append(f"{module}.{node.name} (line {node.lineno}): {n} lines of code")
+    assert not long, f"functions over {MAX_LINES} lines of code with no '# kept whole:' reason:\n" + "\n".join(long)
+
+
+def test_length_check_counts_code_not_docstrings_or_comments():
+    source = 'def f():\n    """Doc.\n\n    More doc.\n    """\n    # a comment\n\n    x = 1\n    return x\n'
+    node = ast.parse(source).body[0]
+    assert code_lines(node, source.splitlines()) == 2
+    assert not says_why(node, source.splitlines())
+    reasoned = 'def g():\n    """Doc."""\n    # kept whole: one table, one pass\n    return 1\n'
+    assert says_why(ast.parse(reasoned).body[0], reasoned.splitlines())

@@ -16,6 +16,7 @@ import pandas as pd
 import pytest
 from sklearn.metrics import roc_auc_score
 
+from riskvet.reporting.sentences.external_validation import rule_summary
 from riskvet.measures.discrimination import compare_concordance, dichotomise
 from riskvet.errors import DataError, RiskvetError
 from riskvet.validation.rule import compare_with_rule, rule_positive, rule_score
@@ -87,7 +88,7 @@ def test_rule_net_benefit_by_hand():
     assert out.rule_positive_share == pytest.approx(0.3)
     # without bootstrap intervals no threshold is clearly better or worse; the
     # sentence says so in words rather than "at 0" (which reads as a threshold)
-    text = out.summary()
+    text = rule_summary(out)
     assert "at none of them, and below it, with the interval below 0, at none of them." in text
     assert "at 0." not in text and "2 thresholds" in text
 
@@ -123,7 +124,7 @@ def test_missing_rule_values_are_left_out(data):
     assert out.concordance[0].estimate_a == pytest.approx(roc_auc_score(y_cut, p_cut))
     # without positive_from there is no net-benefit comparison, and the summary says so
     assert len(out.net_benefit_table) == 0 and out.rule_curves == ()
-    assert "positive_from" in out.summary()
+    assert "positive_from" in rule_summary(out)
 
 
 def test_score_rule(data):
@@ -176,6 +177,6 @@ def test_json_and_figures(result):
     json.dumps(result.to_dict(), allow_nan=False)
     fig = plot_rule_comparison(result)
     assert isinstance(fig, Figure) and len(fig.axes) == 3
-    assert "Y >= high" in result.summary()
+    assert "Y >= high" in rule_summary(result)
     with pytest.raises(RiskvetError, match="RuleComparison"):
         plot_rule_comparison("result")

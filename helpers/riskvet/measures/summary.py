@@ -20,39 +20,16 @@ import numpy as np
 from ._checks import _as_outcome, _as_prob_matrix, _cut_probs
 from .calibration import (
     DEFAULT_FRAC,
-    CalibrationResult,
-    OrdinalCalibration,
     _logit,
     _recalibrate,
     _smooth,
-    calibration,
-    ordinal_calibration,
-)
-from .decision import (
-    NetBenefitResult,
-    ThresholdChoice,
-    ThresholdTable,
-    net_benefit,
-    ordinal_net_benefit,
-    rule_net_benefit,
-    threshold_for,
-    threshold_table,
 )
 from .discrimination import (
-    ConcordanceComparison,
-    ConcordanceResult,
-    OrdinalDiscrimination,
-    RocCurveResult,
     _auc_only,
     _pairwise_c,
-    compare_concordance,
-    concordance,
-    dichotomise,
-    ordinal_discrimination,
-    roc_curve,
 )
 from ..errors import DataError, problem
-from .overall import BrierResult, OverallAccuracy, _brier_parts, _log_likelihoods, _r2, _scaled, brier, overall_accuracy
+from .overall import _brier_parts, _log_likelihoods, _r2, _scaled
 
 __all__ = ["performance_summary", "summary_keys"]
 

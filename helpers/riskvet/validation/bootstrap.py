@@ -397,31 +397,6 @@ class SelectionStability:
                 return count / max(self.n_replicates, 1)
         return 0.0
 
-    @property
-    def summary_sentence(self) -> str:
-        """One sentence on selection stability, in the trade's terms."""
-        if self.method == "none":
-            return (
-                f"The model was pre-specified (no variable selection), so every one of the "
-                f"{self.n_replicates} replicates kept all {len(self.candidate_terms)} candidate terms."
-            )
-        share = self.share_selected
-        unstable = [t for t in self.candidate_terms if t not in self.forced_terms and 0.2 <= share[t] <= 0.8]
-        sizes = sorted(self.model_sizes)
-        text = (
-            f"The {self.method} selection chose the same set of terms as on all data in "
-            f"{self.apparent_set_share:.0%} of {self.n_replicates} replicates; model size ranged from "
-            f"{sizes[0] if sizes else 0} to {sizes[-1] if sizes else 0} terms."
-        )
-        if unstable:
-            text += (
-                f" {len(unstable)} term(s) were selected in between 20% and 80% of replicates "
-                f"({', '.join(unstable)}): whether they belong in the model is not settled by these data."
-            )
-        else:
-            text += " Every term was selected either in most replicates or in few."
-        return text
-
     def to_frame(self) -> pd.DataFrame:
         """One row per candidate term: in the apparent model, forced, times and share selected."""
         share = self.share_selected
@@ -516,21 +491,6 @@ class ShrinkageEstimate:
             ]
         )
 
-    @property
-    def summary_sentence(self) -> str:
-        """One sentence on shrinkage, in the trade's terms."""
-        s = self.bootstrap
-        if not np.isfinite(s):
-            return "No bootstrap shrinkage factor could be estimated."
-        direction = "too extreme" if s < 1 else "too cautious"
-        return (
-            f"The bootstrap calibration slope is {s:.2f} (middle 95% of replicates {self.bootstrap_lower:.2f} to "
-            f"{self.bootstrap_upper:.2f}): predictions from a model derived this way are expected to be "
-            f"{direction} in new patients from the same population, and multiplying the coefficients by "
-            f"{s:.2f} is the uniform correction; the heuristic formula gives {self.heuristic_candidates:.2f} "
-            f"counting all {self.df_candidates} candidate degrees of freedom."
-        )
-
 
 @dataclass(frozen=True)
 class InternalValidation:
@@ -619,33 +579,6 @@ class InternalValidation:
     @property
     def headline_measure(self) -> str:
         return "auc" if self.n_levels == 2 else "average_cut_auc"
-
-    @property
-    def summary_sentence(self) -> str:
-        """Two or three sentences summarising the result, in the trade's terms."""
-        head = self.estimate(self.headline_measure)
-        slope = self.estimate("calibration_slope")
-        text = (
-            f"Across {self.n_succeeded} bootstrap replicates that each repeated the whole derivation "
-            f"({_method_words(self.stability.method)}, knot placement and fitting), the apparent "
-            f"{_lower_first(head.label)} of {head.apparent:.3f} falls to {head.corrected:.3f} after correction for "
-            f"optimism ({head.optimism:.3f}); the .632+ estimate is {head.estimate_632plus:.3f}. "
-            f"The optimism-corrected calibration slope is {slope.corrected:.2f}"
-            f"{' (below 1: predictions too extreme for new patients)' if slope.corrected < 1 else ''}."
-        )
-        text += " " + self.failure_sentence
-        return text
-
-    @property
-    def failure_sentence(self) -> str:
-        if not self.failures:
-            return f"All {self.n_boot} replicates produced a model."
-        parts = ", ".join(f"{c} {r}" for r, c in self.failure_counts.items())
-        return (
-            f"{self.n_failed} of {self.n_boot} replicates produced no model ({parts}); they are listed in the "
-            f"results and left out of the averages, which is acceptable up to the study's limit of "
-            f"{self.max_failed_share:.0%}."
-        )
 
     def to_dict(self) -> dict[str, Any]:
         values: dict[str, dict[str, list]] = {}
@@ -1593,20 +1526,3 @@ def _replicate_table(arrays: dict[str, dict[str, np.ndarray]], ok_ids: Sequence[
     replicate_values["measure"] = replicate_values["measure"].astype(str)
     replicate_values["sample"] = replicate_values["sample"].astype(str)
     return replicate_values
-
-
-# ---------------------------------------------------------------------------
-# Wording of the summary sentences
-# ---------------------------------------------------------------------------
-
-
-def _method_words(method: str) -> str:
-    return {"none": "no variable selection", "forward": "forward selection", "backward": "backward elimination"}.get(method, f"{method} selection")
-
-
-def _lower_first(label: str) -> str:
-    """``label`` with its first word in lower case, unless that word is an acronym or a single letter."""
-    first, _, rest = label.partition(" ")
-    if len(first) == 1 or first.isupper():
-        return label
-    return f"{first.lower()} {rest}" if rest else first.lower()

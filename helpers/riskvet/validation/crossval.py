@@ -48,7 +48,6 @@ from .bootstrap import (
     _derive_on_all_data,
     _execute,
     _fit_and_predict,
-    _lower_first,
     _mean,
     _measure_specs,
     _measures,
@@ -144,22 +143,6 @@ class CrossValidation:
     def to_frame(self) -> pd.DataFrame:
         """One row per measure."""
         return pd.DataFrame([dataclasses.asdict(e) for e in self.estimates])  # NaN kept (to_dict makes it None)
-
-    @property
-    def summary_sentence(self) -> str:
-        """One sentence comparing the cross-validated headline measure with the apparent one."""
-        key = "auc" if self.n_levels == 2 else "average_cut_auc"
-        e = self.estimate(key)
-        slope = self.estimate("calibration_slope")
-        reps = f"{self.n_repeats} repeats of " if self.n_repeats > 1 else ""
-        text = (
-            f"In {reps}{self.n_folds}-fold cross-validation the {_lower_first(e.label)} of models derived without the "
-            f"held-out patients is {e.pooled:.3f} on pooled held-out predictions ({e.averaged:.3f} averaged over "
-            f"folds), against {e.apparent:.3f} apparent; the pooled calibration slope is {slope.pooled:.2f}."
-        )
-        if self.failures:
-            text += f" {len(self.failures)} fold(s) produced no model and are listed in the results."
-        return text
 
     def to_dict(self) -> dict[str, Any]:
         return to_jsonable(

@@ -453,49 +453,6 @@ class CohortValidation:
             out[column] = table[column].to_numpy()
         return out
 
-    def summary(self) -> str:
-        """Sentences reading the headline numbers."""
-        perf = {(r["measure"], None if pd.isna(r["cut"]) else int(r["cut"])): r for r in self.performance.to_dict(orient="records")}
-        ci = f"{round(100 * self.confidence)}%"
-        parts = []
-        binary = len(self.levels) == 2
-        avg = perf.get(("auc", 0) if binary else ("average_cut_auc", None))
-        if avg is not None:
-            what = "C statistic" if binary else "average dichotomised C"
-            parts.append(
-                f"In {self.label} (n = {self.n}) the {what} is {avg['estimate']:.3f} "
-                f"({ci} interval {avg['lower']:.3f} to {avg['upper']:.3f})."
-            )
-        for j in range(len(self.levels) - 1):
-            key = ("calibration_intercept", j)
-            if key not in perf:
-                continue
-            row = perf[key]
-            est, lo, hi = row["estimate"], row["lower"], row["upper"]
-            if lo > 0:
-                verdict = "the model under-predicts this outcome on average"
-            elif hi < 0:
-                verdict = "the model over-predicts this outcome on average"
-            else:
-                verdict = "no systematic over- or under-prediction is shown"
-            slope = perf[("calibration_slope", j)]
-            if slope["upper"] < 1:
-                spread = "predictions are too extreme"
-            elif slope["lower"] > 1:
-                spread = "predictions are too moderate"
-            else:
-                spread = "the spread of predictions is compatible with a slope of 1"
-            parts.append(
-                f"For {cut_name(self.levels, j)}, calibration-in-the-large is {est:+.2f} ({lo:+.2f} to {hi:+.2f}): "
-                f"{verdict}; the calibration slope is {slope['estimate']:.2f} ({slope['lower']:.2f} to "
-                f"{slope['upper']:.2f}), so {spread}."
-            )
-        small = self.subgroup_sizes[self.subgroup_sizes["small"]] if len(self.subgroup_sizes) else self.subgroup_sizes
-        if len(small):
-            names = ", ".join(f"{r.column} {r.group} (n = {r.n})" for r in small.itertuples())
-            parts.append(f"Subgroups below {self.min_subgroup_size} patients are flagged and should not be over-read: {names}.")
-        return " ".join(parts)
-
     def to_dict(self) -> dict[str, Any]:
         return to_jsonable(
             {
@@ -517,7 +474,6 @@ class CohortValidation:
                 "confidence": self.confidence,
                 "min_subgroup_size": self.min_subgroup_size,
                 "warnings": list(self.warnings),
-                "summary": self.summary(),
             }
         )
 

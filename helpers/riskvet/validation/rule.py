@@ -157,40 +157,6 @@ class RuleComparison:
         table.insert(0, "cohort", self.label)
         return table
 
-    def summary(self) -> str:
-        """Sentences reading the comparison."""
-        ci = f"{round(100 * self.confidence)}%"
-        parts = [f"In {self.label}, the rule '{self.rule_column}' was recorded for {self.n} patients ({self.n_missing_rule} without it were left out)."]
-        for r in self.concordance_table.itertuples():
-            if r.pvalue < 1 - self.confidence:
-                verdict = "the model ranks patients better" if r.difference > 0 else "the rule ranks patients better"
-            else:
-                verdict = "the difference is not statistically clear"
-            parts.append(
-                f"For {r.outcome}, C is {r.c_model:.3f} for the model and {r.c_rule:.3f} for the rule "
-                f"(difference {r.difference:+.3f}, {ci} interval {r.lower:+.3f} to {r.upper:+.3f}, DeLong p = {r.pvalue:.3g}): {verdict}."
-            )
-        if len(self.net_benefit_table):
-            better = self.net_benefit_table[self.net_benefit_table["boot_lower"] > 0]
-            worse = self.net_benefit_table[self.net_benefit_table["boot_upper"] < 0]
-            total = len(self.net_benefit_table)
-
-            def how_many(k: int) -> str:
-                if k == 0:
-                    return "none of them"
-                if k == total:
-                    return "all of them" if total > 1 else "it"
-                return f"{k} of them"
-
-            noun = "threshold" if total == 1 else f"{total} thresholds"
-            parts.append(
-                f"At the study's {noun}, the model's net benefit is above the rule's, with the bootstrap interval of the "
-                f"difference above 0, at {how_many(len(better))}, and below it, with the interval below 0, at {how_many(len(worse))}."
-            )
-        elif self.positive_from is None:
-            parts.append("Net benefit of the rule needs positive_from (the lowest category that counts as a positive decision).")
-        return " ".join(parts)
-
     def to_dict(self) -> dict[str, Any]:
         return to_jsonable(
             {
@@ -214,7 +180,6 @@ class RuleComparison:
                 "n_failed": self.n_failed,
                 "confidence": self.confidence,
                 "warnings": list(self.warnings),
-                "summary": self.summary(),
             }
         )
 

@@ -37,7 +37,7 @@ from ...validation.bootstrap import InternalValidation, validate_internally, wri
 from ...validation.crossval import CrossValidation, cross_validate
 from ...intake.data import load_cohorts
 from ...modelling.modelfile import load_model
-from ...reporting.sentences.internal_validation import internal_validation_texts
+from ...reporting.sentences.internal_validation import internal_validation_summary, internal_validation_texts
 
 __all__ = ["InternalValidationOutput", "crossval_seed", "run"]
 
@@ -96,7 +96,7 @@ class InternalValidationOutput:
 
     @property
     def summary_sentence(self) -> str:
-        return self.texts.get("summary", self.validation.summary_sentence)
+        return self.texts.get("summary", internal_validation_summary(self.validation))
 
     def to_frame(self) -> pd.DataFrame:
         """Concise estimates table: one row per measure, rounded for reading."""

@@ -4,10 +4,12 @@ from __future__ import annotations
 
 from typing import Any, Mapping
 
+import pandas as pd
+
 from ...intake.outcome import cut_name
 from .common import CAUTION
 
-__all__ = ["external_validation_texts"]
+__all__ = ["external_validation_texts", "cohort_summary", "rule_summary"]
 
 
 
@@ -36,7 +38,7 @@ def external_validation_texts(out: Mapping[str, Any], *, subgroups_named: bool) 
         "caution": CAUTION,
         "flow": " ".join(flow),
         "membership": " ".join(cm.interpretation for cm in out["case_mix"].values()),
-        "performance": " ".join(c.summary() for c in cohorts.values()),
+        "performance": " ".join(cohort_summary(c) for c in cohorts.values()),
     }
     largest, spread = [], []
     for label, cm in out["case_mix"].items():
@@ -93,5 +95,84 @@ def external_validation_texts(out: Mapping[str, Any], *, subgroups_named: bool) 
         )
     else:
         texts["subgroups"] = "The study names no subgroups."
-    texts["rule"] = " ".join(r.summary() for r in out["rule"].values()) if out["rule"] else "The study records no existing rule."
+    texts["rule"] = " ".join(rule_summary(r) for r in out["rule"].values()) if out["rule"] else "The study records no existing rule."
     return texts
+
+
+def cohort_summary(validation: Any) -> str:
+    """Sentences reading one cohort's headline numbers: C, calibration-in-the-large and slope per cut, flagged subgroups."""
+    perf = {(r["measure"], None if pd.isna(r["cut"]) else int(r["cut"])): r for r in validation.performance.to_dict(orient="records")}
+    ci = f"{round(100 * validation.confidence)}%"
+    parts = []
+    binary = len(validation.levels) == 2
+    avg = perf.get(("auc", 0) if binary else ("average_cut_auc", None))
+    if avg is not None:
+        what = "C statistic" if binary else "average dichotomised C"
+        parts.append(
+            f"In {validation.label} (n = {validation.n}) the {what} is {avg['estimate']:.3f} "
+            f"({ci} interval {avg['lower']:.3f} to {avg['upper']:.3f})."
+        )
+    for j in range(len(validation.levels) - 1):
+        key = ("calibration_intercept", j)
+        if key not in perf:
+            continue
+        row = perf[key]
+        est, lo, hi = row["estimate"], row["lower"], row["upper"]
+        if lo > 0:
+            verdict = "the model under-predicts this outcome on average"
+        elif hi < 0:
+            verdict = "the model over-predicts this outcome on average"
+        else:
+            verdict = "no systematic over- or under-prediction is shown"
+        slope = perf[("calibration_slope", j)]
+        if slope["upper"] < 1:
+            spread = "predictions are too extreme"
+        elif slope["lower"] > 1:
+            spread = "predictions are too moderate"
+        else:
+            spread = "the spread of predictions is compatible with a slope of 1"
+        parts.append(
+            f"For {cut_name(validation.levels, j)}, calibration-in-the-large is {est:+.2f} ({lo:+.2f} to {hi:+.2f}): "
+            f"{verdict}; the calibration slope is {slope['estimate']:.2f} ({slope['lower']:.2f} to "
+            f"{slope['upper']:.2f}), so {spread}."
+        )
+    small = validation.subgroup_sizes[validation.subgroup_sizes["small"]] if len(validation.subgroup_sizes) else validation.subgroup_sizes
+    if len(small):
+        names = ", ".join(f"{r.column} {r.group} (n = {r.n})" for r in small.itertuples())
+        parts.append(f"Subgroups below {validation.min_subgroup_size} patients are flagged and should not be over-read: {names}.")
+    return " ".join(parts)
+
+
+def rule_summary(comparison: Any) -> str:
+    """Sentences reading the comparison with the rule: C of each and their difference, and net benefit at the study's thresholds."""
+    ci = f"{round(100 * comparison.confidence)}%"
+    parts = [f"In {comparison.label}, the rule '{comparison.rule_column}' was recorded for {comparison.n} patients ({comparison.n_missing_rule} without it were left out)."]
+    for r in comparison.concordance_table.itertuples():
+        if r.pvalue < 1 - comparison.confidence:
+            verdict = "the model ranks patients better" if r.difference > 0 else "the rule ranks patients better"
+        else:
+            verdict = "the difference is not statistically clear"
+        parts.append(
+            f"For {r.outcome}, C is {r.c_model:.3f} for the model and {r.c_rule:.3f} for the rule "
+            f"(difference {r.difference:+.3f}, {ci} interval {r.lower:+.3f} to {r.upper:+.3f}, DeLong p = {r.pvalue:.3g}): {verdict}."
+        )
+    if len(comparison.net_benefit_table):
+        better = comparison.net_benefit_table[comparison.net_benefit_table["boot_lower"] > 0]
+        worse = comparison.net_benefit_table[comparison.net_benefit_table["boot_upper"] < 0]
+        total = len(comparison.net_benefit_table)
+
+        def how_many(k: int) -> str:
+            if k == 0:
+                return "none of them"
+            if k == total:
+                return "all of them" if total > 1 else "it"
+            return f"{k} of them"
+
+        noun = "threshold" if total == 1 else f"{total} thresholds"
+        parts.append(
+            f"At the study's {noun}, the model's net benefit is above the rule's, with the bootstrap interval of the "
+            f"difference above 0, at {how_many(len(better))}, and below it, with the interval below 0, at {how_many(len(worse))}."
+        )
+    elif comparison.positive_from is None:
+        parts.append("Net benefit of the rule needs positive_from (the lowest category that counts as a positive decision).")
+    return " ".join(parts)
