@@ -18,6 +18,7 @@ import yaml
 from sklearn.linear_model import LogisticRegression
 from sklearn.metrics import roc_auc_score
 
+from riskvet.reporting.sentences.external_validation import case_mix_sentence
 from riskvet import demo
 from riskvet.validation.casemix import CaseMix, case_mix
 from riskvet.intake.data import prepare_cohort
@@ -73,7 +74,7 @@ def test_membership_c_near_chance_for_one_population(same):
     assert same.membership_c < 0.6
     assert abs(same.membership_c - same.membership_c_null) < 0.03
     assert 0.5 < same.membership_c_null < 0.6
-    assert "hard to tell apart" in same.interpretation
+    assert "hard to tell apart" in case_mix_sentence(same)
 
 
 def test_membership_c_high_for_the_two_seasons(shifted):
@@ -81,7 +82,7 @@ def test_membership_c_high_for_the_two_seasons(shifted):
     # d SD gives C = Phi(d / sqrt(2)) ~ 0.86 (common practice: binormal AUC).
     assert shifted.membership_c > 0.8
     assert shifted.membership_c_lower > 0.78
-    assert "transportability" in shifted.interpretation
+    assert "transportability" in case_mix_sentence(shifted)
     # wbgt is the column that tells the seasons apart most
     coefs = shifted.membership_coefficients
     assert coefs.loc[coefs["z"].abs().idxmax(), "term"] == "wbgt"

@@ -18,6 +18,7 @@ import statsmodels.api as sm
 from scipy import optimize, stats
 from statsmodels.miscmodels.ordinal_model import OrderedModel
 
+from riskvet.reporting.sentences.updating import update_summary
 from riskvet import demo
 from riskvet.intake.design import build_design
 from riskvet.errors import DataError, ModelFileError, RecordError, RiskvetError
@@ -116,7 +117,7 @@ def test_updates_are_named_in_words(model, binary_model):
     vb = demo.draw(600, season="validation", seed=22)
     binary = update_model(binary_model, vb, (codes(vb) == 2).astype(np.int64))
     for result in (ordinal, binary):
-        words = result.summary() + " " + result.closed_test.reason + " " + " ".join(f.label for f in result.fits.values())
+        words = update_summary(result) + " " + result.closed_test.reason + " " + " ".join(f.label for f in result.fits.values())
         assert not any(k in words for k in keys)
         assert " LP" not in words and "(lp" not in words.lower()
     # a binary model has one threshold: its recalibrations re-estimate "the intercept"
@@ -125,7 +126,7 @@ def test_updates_are_named_in_words(model, binary_model):
     assert method_name("in_the_large", binary=True) == "recalibration in the large"
     assert set(METHOD_NAMES) == set(METHODS)
     # the optimism warning can be left to the notebook
-    assert "optimistic" not in ordinal.summary(caution=False)
+    assert "optimistic" not in update_summary(ordinal, caution=False)
 
 
 def test_binary_recalibration_matches_statsmodels_logit(binary_model):

@@ -78,8 +78,6 @@ class CaseMix:
     membership_coefficients : DataFrame
         The membership model's coefficients (``term``, ``estimate``, ``se``,
         ``z``, ``p``): the columns that tell the cohorts apart most.
-    interpretation : str
-        Sentences reading the comparison.
     warnings : tuple of str
         Trouble met (for example separation in the membership model).
     """
@@ -103,7 +101,6 @@ class CaseMix:
     membership_c_null: float
     n_permutations: int
     membership_coefficients: pd.DataFrame = field(repr=False)
-    interpretation: str
     warnings: tuple[str, ...]
 
     def to_frame(self) -> pd.DataFrame:
@@ -184,50 +181,6 @@ def _membership_c(X: pd.DataFrame, member: np.ndarray) -> tuple[float, float, fl
     lp = fit.linear_predictor(X)
     c = concordance(member, lp)
     return c.estimate, c.lower, c.upper, fit
-
-
-def _interpret(result: dict[str, Any]) -> str:
-    der, val = result["derivation_label"], result["validation_label"]
-    c, c0 = result["membership_c"], result["membership_c_null"]
-    parts = []
-    if math.isfinite(c):
-        excess = c - c0 if math.isfinite(c0) else c - 0.5
-        chance = f" ({c0:.2f} is what chance alone gives with these sizes and predictors)" if math.isfinite(c0) else ""
-        if excess < 0.05:
-            reading = (
-                "The two cohorts are hard to tell apart, so this validation mainly tests reproducibility: "
-                "performance close to that at derivation is expected."
-            )
-        elif c < 0.75:
-            reading = (
-                "The cohorts differ moderately in case-mix, so this validation tests the model partly beyond "
-                "its derivation population."
-            )
-        else:
-            reading = (
-                "The cohorts differ clearly in case-mix, so this validation tests transportability: a change in "
-                "performance may reflect who the patients are as much as how good the model is."
-            )
-        parts.append(f"A model of cohort membership tells {val} from {der} with C = {c:.2f}{chance}. {reading}")
-    m0, m1 = result["lp_mean_derivation"], result["lp_mean_validation"]
-    s0, s1 = result["lp_sd_derivation"], result["lp_sd_validation"]
-    smd = result["lp_standardised_difference"]
-    if math.isfinite(smd) and abs(smd) >= 0.1:
-        direction = "higher" if m1 > m0 else "lower"
-        severity = f"{direction} predicted risk on average, by the model's own reckoning"
-    else:
-        severity = "about the same average predicted risk"
-    parts.append(f"The mean linear predictor is {m1:.2f} in {val} against {m0:.2f} in {der} ({severity}).")
-    ratio = s1 / s0 if s0 > 0 else float("nan")
-    if math.isfinite(ratio):
-        if ratio > 1.1:
-            spread = "wider, so somewhat better discrimination is expected from case-mix alone"
-        elif ratio < 0.9:
-            spread = "narrower, so somewhat poorer discrimination is expected from case-mix alone"
-        else:
-            spread = "about the same, so case-mix alone does not predict a change in discrimination"
-        parts.append(f"Its spread (SD {s1:.2f} against {s0:.2f}) is {spread}.")
-    return " ".join(parts)
 
 
 def case_mix(
@@ -321,17 +274,6 @@ def case_mix(
     for note in notes:
         warnings.warn(note, RiskvetWarning, stacklevel=2)
 
-    values = {
-        "derivation_label": derivation.label,
-        "validation_label": validation.label,
-        "membership_c": c,
-        "membership_c_null": c_null,
-        "lp_mean_derivation": m_d,
-        "lp_sd_derivation": s_d,
-        "lp_mean_validation": m_v,
-        "lp_sd_validation": s_v,
-        "lp_standardised_difference": lp_difference,
-    }
     return CaseMix(
         derivation_label=derivation.label,
         validation_label=validation.label,
@@ -352,7 +294,6 @@ def case_mix(
         membership_c_null=c_null,
         n_permutations=int(n_permutations),
         membership_coefficients=coefficients,
-        interpretation=_interpret(values),
         warnings=tuple(notes),
     )
 

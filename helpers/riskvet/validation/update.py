@@ -371,35 +371,6 @@ class UpdateResult:
         ]
         return pd.DataFrame(rows)
 
-    def summary(self, *, caution: bool = True) -> str:
-        """A sentence naming the chosen update and what it changed.
-
-        Parameters
-        ----------
-        caution : bool, keyword-only
-            End with the warning that performance on the updating data is
-            optimistic (when an update was chosen); a notebook that states it
-            elsewhere passes False.
-        """
-        chosen = self.chosen
-        first = self.closed_test.tests[0]
-        text = (
-            f"On {self.cohort} (n = {self.n}) the closed test at alpha = {self.closed_test.alpha:g} chose "
-            f"{chosen.label}. {self.closed_test.reason}"
-        )
-        if chosen.method == "in_the_large":
-            d = chosen.parameters["shift"]
-            what = "The threshold moves" if len(chosen.model.levels) == 2 else "The thresholds move"
-            text += (
-                f" {what} by {d:+.3f} on the link scale "
-                f"({'lower' if d > 0 else 'higher'} predicted risks at the same predictor values)."
-            )
-        elif chosen.method == "recalibration":
-            text += f" The calibration slope on the linear predictor is {chosen.parameters['slope']:.3f}."
-        if caution and first.reached and chosen.method != "original":
-            text += " " + _OPTIMISM_NOTE
-        return text
-
 
 # ---------------------------------------------------------------------------
 # Inputs

@@ -31,7 +31,7 @@ from ...validation.external import CohortValidation, apply_model, validate_cohor
 from ...modelling.modelfile import PredictionModel, load_model
 from ...validation.rule import RuleComparison, compare_with_rule
 from ...intake.study import Study
-from ...reporting.sentences.external_validation import cohort_summary, external_validation_texts, rule_summary
+from ...reporting.sentences.external_validation import case_mix_sentence, cohort_summary, external_validation_texts, rule_summary
 
 __all__ = ["ExternalValidationOutput", "validate_external", "run", "figure_name", "label_slug"]
 
@@ -159,7 +159,7 @@ class ExternalValidationOutput:
                 "model_sha256": self.model_sha256,
                 "data": {k: dict(v) for k, v in self.data.items()},
                 "cohorts": {k: {**v.to_dict(), "summary": cohort_summary(v)} for k, v in self.cohorts.items()},
-                "case_mix": {k: v.to_dict() for k, v in self.case_mix.items()},
+                "case_mix": {k: {**v.to_dict(), "interpretation": case_mix_sentence(v)} for k, v in self.case_mix.items()},
                 "rule": {k: {**v.to_dict(), "summary": rule_summary(v)} for k, v in self.rule.items()},
                 "figures": dict(self.figures),
                 "texts": dict(self.texts),

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from typing import Any, Mapping
 
 import pandas as pd
@@ -9,7 +10,7 @@ import pandas as pd
 from ...intake.outcome import cut_name
 from .common import CAUTION
 
-__all__ = ["external_validation_texts", "cohort_summary", "rule_summary"]
+__all__ = ["external_validation_texts", "case_mix_sentence", "cohort_summary", "rule_summary"]
 
 
 
@@ -37,7 +38,7 @@ def external_validation_texts(out: Mapping[str, Any], *, subgroups_named: bool) 
         ),
         "caution": CAUTION,
         "flow": " ".join(flow),
-        "membership": " ".join(cm.interpretation for cm in out["case_mix"].values()),
+        "membership": " ".join(case_mix_sentence(cm) for cm in out["case_mix"].values()),
         "performance": " ".join(cohort_summary(c) for c in cohorts.values()),
     }
     largest, spread = [], []
@@ -175,4 +176,65 @@ def rule_summary(comparison: Any) -> str:
         )
     elif comparison.positive_from is None:
         parts.append("Net benefit of the rule needs positive_from (the lowest category that counts as a positive decision).")
+    return " ".join(parts)
+
+
+def case_mix_sentence(case_mix: Any) -> str:
+    """Sentences reading a case-mix comparison: how well membership is told apart, the linear predictor's mean and spread.
+
+    ``case_mix`` is a :class:`~riskvet.validation.casemix.CaseMix`; the
+    standardised difference of the linear predictor is read from its table.
+    """
+    lp_row = case_mix.table[case_mix.table["variable"] == "linear predictor"]
+    result = {
+        "derivation_label": case_mix.derivation_label,
+        "validation_label": case_mix.validation_label,
+        "membership_c": case_mix.membership_c,
+        "membership_c_null": case_mix.membership_c_null,
+        "lp_mean_derivation": case_mix.lp_mean_derivation,
+        "lp_sd_derivation": case_mix.lp_sd_derivation,
+        "lp_mean_validation": case_mix.lp_mean_validation,
+        "lp_sd_validation": case_mix.lp_sd_validation,
+        "lp_standardised_difference": float(lp_row["standardised_difference"].iloc[0]) if len(lp_row) else float("nan"),
+    }
+    der, val = result["derivation_label"], result["validation_label"]
+    c, c0 = result["membership_c"], result["membership_c_null"]
+    parts = []
+    if math.isfinite(c):
+        excess = c - c0 if math.isfinite(c0) else c - 0.5
+        chance = f" ({c0:.2f} is what chance alone gives with these sizes and predictors)" if math.isfinite(c0) else ""
+        if excess < 0.05:
+            reading = (
+                "The two cohorts are hard to tell apart, so this validation mainly tests reproducibility: "
+                "performance close to that at derivation is expected."
+            )
+        elif c < 0.75:
+            reading = (
+                "The cohorts differ moderately in case-mix, so this validation tests the model partly beyond "
+                "its derivation population."
+            )
+        else:
+            reading = (
+                "The cohorts differ clearly in case-mix, so this validation tests transportability: a change in "
+                "performance may reflect who the patients are as much as how good the model is."
+            )
+        parts.append(f"A model of cohort membership tells {val} from {der} with C = {c:.2f}{chance}. {reading}")
+    m0, m1 = result["lp_mean_derivation"], result["lp_mean_validation"]
+    s0, s1 = result["lp_sd_derivation"], result["lp_sd_validation"]
+    smd = result["lp_standardised_difference"]
+    if math.isfinite(smd) and abs(smd) >= 0.1:
+        direction = "higher" if m1 > m0 else "lower"
+        severity = f"{direction} predicted risk on average, by the model's own reckoning"
+    else:
+        severity = "about the same average predicted risk"
+    parts.append(f"The mean linear predictor is {m1:.2f} in {val} against {m0:.2f} in {der} ({severity}).")
+    ratio = s1 / s0 if s0 > 0 else float("nan")
+    if math.isfinite(ratio):
+        if ratio > 1.1:
+            spread = "wider, so somewhat better discrimination is expected from case-mix alone"
+        elif ratio < 0.9:
+            spread = "narrower, so somewhat poorer discrimination is expected from case-mix alone"
+        else:
+            spread = "about the same, so case-mix alone does not predict a change in discrimination"
+        parts.append(f"Its spread (SD {s1:.2f} against {s0:.2f}) is {spread}.")
     return " ".join(parts)

@@ -8,7 +8,7 @@ from ...intake.outcome import cut_name
 from ...validation.update import method_label, method_name
 from .common import CAUTION
 
-__all__ = ["updating_texts"]
+__all__ = ["updating_texts", "update_summary"]
 
 
 def _capital(text: str) -> str:
@@ -27,7 +27,7 @@ def updating_texts(result: Any, files: Mapping[str, Mapping[str, str]]) -> dict[
     binary = len(levels) == 2
     most = method_name(ct.most_extensive, binary=binary)
     # The notebook states the optimism warning once, beside the performance table.
-    texts = {"caution": CAUTION, "choice": result.summary(caution=False)}
+    texts = {"caution": CAUTION, "choice": update_summary(result, caution=False)}
     texts["calibration"] = (
         "Smoothed observed proportion against predicted risk on the updating data, for the original model and "
         + ("the original model again (no update was chosen)." if chosen.method == "original" else
@@ -95,3 +95,33 @@ def updating_texts(result: Any, files: Mapping[str, Mapping[str, str]]) -> dict[
         "A recalibration keeps every coefficient's ratio to the others; a revision or extension re-estimates each one."
     )
     return texts
+
+
+def update_summary(result: Any, *, caution: bool = True) -> str:
+    """A sentence naming the chosen update and what it changed.
+
+    Parameters
+    ----------
+    caution : bool, keyword-only
+        End with the warning that performance on the updating data is
+        optimistic (when an update was chosen); a notebook that states it
+        elsewhere passes False.
+    """
+    chosen = result.chosen
+    first = result.closed_test.tests[0]
+    text = (
+        f"On {result.cohort} (n = {result.n}) the closed test at alpha = {result.closed_test.alpha:g} chose "
+        f"{chosen.label}. {result.closed_test.reason}"
+    )
+    if chosen.method == "in_the_large":
+        d = chosen.parameters["shift"]
+        what = "The threshold moves" if len(chosen.model.levels) == 2 else "The thresholds move"
+        text += (
+            f" {what} by {d:+.3f} on the link scale "
+            f"({'lower' if d > 0 else 'higher'} predicted risks at the same predictor values)."
+        )
+    elif chosen.method == "recalibration":
+        text += f" The calibration slope on the linear predictor is {chosen.parameters['slope']:.3f}."
+    if caution and first.reached and chosen.method != "original":
+        text += " " + result.performance.note  # the optimism warning the update stores
+    return text
