@@ -351,7 +351,7 @@ def test_bad_input_and_serialisation():
 
 @pytest.mark.parametrize("k", [2, 3, 4])
 def test_performance_summary_equals_the_full_results(k):
-    from riskvet.measures import summary as metrics
+    from riskvet import metrics
 
     x, y = ordinal_data(n=400, seed=20 + k, k=k)
     prob = po_probs(fit_cumulative(x, y), x)
@@ -376,7 +376,7 @@ def test_performance_summary_equals_the_full_results(k):
 
 
 def test_performance_summary_refuses_a_missing_level():
-    from riskvet.measures import summary as metrics
+    from riskvet import metrics
 
     with pytest.raises(DataError, match=r"performance_summary\(y=\).*every level"):
         metrics.performance_summary([0, 0, 2, 2], np.full((4, 3), 1 / 3))

@@ -52,7 +52,7 @@ def make_record(folder: Path, *, inputs: list[dict] | None = None) -> Path:
     (folder / "results").mkdir(parents=True)
     (folder / "results" / "derivation.json").write_text('{"auc": 0.8, "n": 400}\n')
     (folder / "notebooks").mkdir()
-    (folder / "notebooks" / "03_derivation.ipynb").write_text("{}\n")
+    (folder / "notebooks" / "02_derivation.ipynb").write_text("{}\n")
     manifest = {"run_id": folder.name, "status": "complete", "files": record_files(folder), "inputs": inputs or [], "templates": []}
     write_manifest(folder, manifest)
     return folder
@@ -63,7 +63,7 @@ def test_manifest_carries_its_own_hash(tmp_path):
     manifest = read_manifest(record)
     assert manifest["manifest_sha256"] == manifest_digest(manifest)
     assert len(manifest["manifest_sha256"]) == 64
-    assert set(manifest["files"]) == {"results/derivation.json", "notebooks/03_derivation.ipynb"}
+    assert set(manifest["files"]) == {"results/derivation.json", "notebooks/02_derivation.ipynb"}
     with pytest.raises(RecordError, match="written once"):
         write_manifest(record, manifest)
 
@@ -80,15 +80,16 @@ def test_verify_passes_then_detects_each_kind_of_change(tmp_path):
 
     removed = tmp_path / "removed"
     shutil.copytree(record, removed)
-    (removed / "notebooks" / "03_derivation.ipynb").unlink()
+    (removed / "notebooks" / "02_derivation.ipynb").unlink()
     v = verify_record(removed)
-    assert [(c.path, c.status) for c in v.problems] == [("notebooks/03_derivation.ipynb", "missing")]
+    assert [(c.path, c.status) for c in v.problems] == [("notebooks/02_derivation.ipynb", "missing")]
 
     added = tmp_path / "added"
     shutil.copytree(record, added)
     (added / "results" / "extra.json").write_text("{}\n")
     v = verify_record(added)
-    assert [(c.path, c.status) for c in v.problems] == [("results/extra.json", "extra")]
+    # an unlisted file, and one whose name is no stage of the chain
+    assert [(c.path, c.status) for c in v.problems] == [("results/extra.json", "extra"), ("results/extra.json", "misplaced")]
 
 
 def test_an_edited_manifest_is_detected_but_reformatting_is_not(tmp_path):

@@ -288,7 +288,11 @@ def test_failing_stage_marks_the_record_failed(study, tmp_path, first, first_has
     assert [s["status"] for s in manifest["stages"]] == ["failed", "skipped", "skipped"]
     assert manifest["stages"][0]["error"]["ename"] == "ValueError"
     page = (result.record_dir / "html" / f"{stage_stem('derivation')}.html").read_text()  # the partial notebook, rendered
-    assert "THIS STAGE FAILED" in page and "cell 3 with ValueError: deliberate failure" in page
+    # one numbering on the page and on the command line: code cells of the executed notebook, from 1
+    # (parameters, injected parameters, open_stage, then the failing cell)
+    assert error["code_cell"] == 4
+    assert "THIS STAGE FAILED" in page and "in code cell 4 with ValueError: deliberate failure" in page
+    assert "FAILED after" in out.getvalue() and "in code cell 4: ValueError: deliberate failure" in out.getvalue()
     assert not (result.record_dir / "results").exists()
     assert verify_record(result.record_dir).ok  # a failed record is still a complete, hashed record
     assert "FAILED" in out.getvalue() and "skipped" in out.getvalue()

@@ -50,7 +50,7 @@ def main() -> None:
     import statsmodels.api as sm
     from statsmodels.nonparametric.smoothers_lowess import lowess
 
-    from riskvet.measures import summary as metrics
+    from riskvet import metrics
 
     y, prob = _data()
     n, k = prob.shape

@@ -8,6 +8,7 @@ when ``verify`` finds a record altered, and 2 on a usage error.
 from __future__ import annotations
 
 import argparse
+import logging
 import sys
 from pathlib import Path
 from typing import Sequence
@@ -15,6 +16,7 @@ from typing import Sequence
 import pandas as pd
 
 from ..errors import RiskvetError
+from .runner import RunInterrupted
 
 __all__ = ["main"]
 
@@ -48,6 +50,10 @@ def check_report(study_path: str | Path, *, out=None) -> int:
     study = load_study(study_path)
     print(f"study {study.study.name!r}: file valid (sha256 {study.digest()[:12]})", file=out)
     print(f"stages: {', '.join(study.enabled_stages)}", file=out)
+    from .runner import check_records_folder
+
+    records = check_records_folder(study)
+    print(f"records go to {records}", file=out)
     cohorts = load_cohorts(study)
     for cohort in [cohorts.derivation, *cohorts.validation.values()]:
         print(f"\n== {cohort.label} ({cohort.source}) ==", file=out)
@@ -134,13 +140,17 @@ def _cmd_verify(args: argparse.Namespace) -> int:
         shown = shown[shown["status"] != "ok"]
     if len(shown):
         _print_frame(shown)
-    if verification.run_status == "running":
-        print("note: the run never finished (its manifest still says running), so the files it wrote were never listed")
-    if verification.ok:
-        print("intact: every listed file has its recorded SHA-256 and nothing was added")
-        return 0
-    print(f"ALTERED: {len(verification.problems)} problem(s)", file=sys.stderr)
-    return 1
+    if not verification.ok:
+        print(f"ALTERED: {len(verification.problems)} problem(s)", file=sys.stderr)
+        return 1
+    if not verification.finished:
+        print(
+            f"NOT COMPLETE: the files are as listed, but the run never finished (its manifest says "
+            f"{verification.run_status!r}), so this is not a complete record", file=sys.stderr,
+        )
+        return 1
+    print("intact: every listed file has its recorded SHA-256, nothing was added and every file is where the runner writes it")
+    return 0
 
 
 def _cmd_compare(args: argparse.Namespace) -> int:
@@ -233,15 +243,30 @@ def _parser() -> argparse.ArgumentParser:
     return parser
 
 
+class _NotUnretrievedTasks(logging.Filter):
+    def filter(self, record: logging.LogRecord) -> bool:
+        return not record.getMessage().startswith("Task exception was never retrieved")
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``riskvet`` console script."""
     parser = _parser()
     args = parser.parse_args(argv)
+    # A stage interrupted mid-cell leaves nbclient's cell task with a dead
+    # kernel; asyncio would print its traceback when the task is collected.
+    # The run reports the interruption itself, in one line.
+    logging.getLogger("asyncio").addFilter(_NotUnretrievedTasks())
     try:
         return int(args.func(args) or 0)
     except RiskvetError as exc:
         print(f"riskvet {args.command}: {exc}", file=sys.stderr)
         return 1
+    except RunInterrupted as exc:
+        if exc.record is None:
+            print(f"riskvet {args.command}: interrupted ({exc.signal_name}) before anything was written; no record was kept", file=sys.stderr)
+        else:
+            print(f"riskvet {args.command}: interrupted ({exc.signal_name}); the record {exc.record} is marked interrupted and is not a complete record", file=sys.stderr)
+        return exc.exit_status
     except KeyboardInterrupt:
         print(f"riskvet {args.command}: interrupted", file=sys.stderr)
         return 130

@@ -17,6 +17,7 @@ from __future__ import annotations
 import hashlib
 import json
 import math
+import re
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Mapping
@@ -25,6 +26,7 @@ import pandas as pd
 
 from .._jsonable import to_jsonable
 from ..errors import RecordError, RiskvetError, problem
+from ..intake.study import STAGES, stage_stem
 from ..reporting.headlines import flatten, key_results
 
 __all__ = [
@@ -35,6 +37,9 @@ __all__ = [
     "write_manifest",
     "read_manifest",
     "record_files",
+    "layout_problem",
+    "enclosing_record",
+    "FINISHED",
     "FileCheck",
     "Verification",
     "verify_record",
@@ -132,6 +137,63 @@ def record_files(record_dir: str | Path) -> dict[str, dict[str, Any]]:
     return out
 
 
+# -- layout ---------------------------------------------------------------------------------
+
+#: Run statuses of a record whose run ended (with or without a failed stage).
+FINISHED = ("complete", "failed")
+
+_NAME = r"[A-Za-z0-9][A-Za-z0-9._-]*"
+_LAYOUT = (
+    re.compile(r"study\.json"),
+    re.compile(rf"notebooks/(?P<nb>{_NAME})\.ipynb"),
+    re.compile(rf"html/(?P<html>{_NAME})\.html"),
+    re.compile(rf"results/(?P<results>{_NAME})\.json"),
+    re.compile(rf"figures/(?P<figures>{_NAME})/{_NAME}\.(png|svg)"),
+    re.compile(rf"models/{_NAME}\.json"),
+)
+
+
+def layout_problem(rel: str) -> str | None:
+    """Why a file at ``rel`` (relative POSIX path) is not where the runner writes one, or None.
+
+    The runner writes ``study.json``, ``notebooks/NN_<stage>.ipynb``,
+    ``html/NN_<stage>.html``, ``results/<stage>.json``,
+    ``figures/<stage>/<name>.png|svg`` and ``models/<name>.json``, and
+    nothing else besides the manifest.
+    """
+    stems = {stage_stem(stage) for stage in STAGES}
+    for pattern in _LAYOUT:
+        match = pattern.fullmatch(rel)
+        if match is None:
+            continue
+        found = {k: v for k, v in match.groupdict().items() if v is not None}
+        if "nb" in found and found["nb"] not in stems or "html" in found and found["html"] not in stems:
+            return "not the page of a stage (names are NN_<stage>)"
+        if ("results" in found and found["results"] not in STAGES) or ("figures" in found and found["figures"] not in STAGES):
+            return "not a stage of the chain"
+        return None
+    return "outside the layout the runner writes (study.json, notebooks/, html/, results/, figures/<stage>/, models/)"
+
+
+def enclosing_record(path: str | Path) -> Path | None:
+    """The record folder that ``path`` is, or lies inside, if any.
+
+    A record is a folder holding ``manifest.json`` with the record schema;
+    a folder of records is not a record.
+    """
+    here = Path(path).expanduser().resolve()
+    for folder in (here, *here.parents):
+        candidate = folder / MANIFEST
+        if candidate.is_file():
+            try:
+                schema = json.loads(candidate.read_text(encoding="utf-8")).get("schema")
+            except (OSError, ValueError, AttributeError):
+                schema = None
+            if schema == MANIFEST_SCHEMA:
+                return folder
+    return None
+
+
 # -- verification ---------------------------------------------------------------------------
 
 
@@ -141,13 +203,15 @@ class FileCheck:
 
     Attributes
     ----------
-    kind : {"manifest", "record", "input", "template"}
-        ``record``: a file inside the record; ``input`` / ``template``: a file
-        outside it that the record was made from.
+    kind : {"manifest", "record", "layout", "input", "template"}
+        ``record``: a file inside the record; ``layout``: a file where the
+        runner never writes one (see :func:`layout_problem`); ``input`` /
+        ``template``: a file outside it that the record was made from.
     path : str
         Relative to the record for ``record`` files, else as listed.
-    status : {"ok", "changed", "missing", "extra", "unreachable"}
-        ``extra``: present in the record but not listed; ``unreachable``: an
+    status : {"ok", "changed", "missing", "extra", "misplaced", "unreachable"}
+        ``extra``: present in the record but not listed; ``misplaced``: not
+        where the runner writes files (listed or not); ``unreachable``: an
         input or template not found where it was (the record may have been
         moved to another machine), reported but not counted as a problem.
     expected, actual : str or None
@@ -162,7 +226,7 @@ class FileCheck:
 
     @property
     def problem(self) -> bool:
-        return self.status in ("changed", "missing", "extra")
+        return self.status in ("changed", "missing", "extra", "misplaced")
 
     def to_dict(self) -> dict[str, Any]:
         return {"kind": self.kind, "path": self.path, "status": self.status, "expected": self.expected, "actual": self.actual}
@@ -195,8 +259,18 @@ class Verification:
 
     @property
     def ok(self) -> bool:
-        """True when nothing is missing, changed or extra."""
+        """True when nothing is missing, changed, extra or misplaced."""
         return not self.problems
+
+    @property
+    def finished(self) -> bool:
+        """True when the manifest says the run ended (complete, or with a failed stage)."""
+        return self.run_status in FINISHED
+
+    @property
+    def complete(self) -> bool:
+        """True for an intact record of a run that ended: the only kind ``riskvet verify`` passes."""
+        return self.ok and self.finished
 
     def counts(self) -> dict[str, int]:
         out: dict[str, int] = {}
@@ -210,6 +284,7 @@ class Verification:
             "run_id": self.run_id,
             "run_status": self.run_status,
             "ok": self.ok,
+            "finished": self.finished,
             "counts": self.counts(),
             "checks": [c.to_dict() for c in self.checks],
         }
@@ -224,7 +299,7 @@ class Verification:
         return pd.DataFrame(rows, columns=["kind", "path", "status", "expected", "actual"])
 
 
-_ORDER = {"changed": 0, "missing": 1, "extra": 2, "unreachable": 3, "ok": 4}
+_ORDER = {"changed": 0, "missing": 1, "extra": 2, "misplaced": 3, "unreachable": 4, "ok": 5}
 
 
 def verify_record(record_dir: str | Path, *, check_inputs: bool = True) -> Verification:
@@ -244,7 +319,9 @@ def verify_record(record_dir: str | Path, *, check_inputs: bool = True) -> Verif
     -------
     Verification
         ``ok`` is False when the manifest was edited, or when any file is
-        missing, changed or extra.
+        missing, changed, extra, or where the runner never writes one;
+        ``complete`` is also False when the run never ended (its manifest
+        says ``running`` or ``interrupted``).
 
     Raises
     ------
@@ -271,6 +348,10 @@ def verify_record(record_dir: str | Path, *, check_inputs: bool = True) -> Verif
             checks.append(FileCheck("record", rel, "ok" if found == expected else "changed", expected, found))
     for rel in sorted(set(present) - set(listed)):
         checks.append(FileCheck("record", rel, "extra", None, present[rel]["sha256"]))
+    for rel in sorted(set(present) | set(listed)):
+        if layout_problem(rel) is not None:
+            found = present.get(rel, {}).get("sha256")
+            checks.append(FileCheck("layout", rel, "misplaced", None, found))
     if check_inputs:
         for kind, key in (("input", "inputs"), ("template", "templates")):
             for entry in manifest.get(key) or []:

@@ -32,7 +32,9 @@ import re
 import shutil
 import subprocess
 import sys
+import signal
 import tempfile
+import threading
 import time
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
@@ -42,7 +44,7 @@ from typing import Any, Callable, Mapping, Sequence, TextIO
 import pandas as pd
 
 from ..errors import RecordError, RiskvetError, StudyError, problem
-from .record import MANIFEST_SCHEMA, read_manifest, record_files, sha256_file, write_manifest
+from .record import FINISHED, MANIFEST_SCHEMA, enclosing_record, read_manifest, record_files, sha256_file, write_manifest
 from .stagekit import STAGE_PARAMETERS
 from ..intake.study import STAGES, Study, load_study, stage_stem
 
@@ -200,6 +202,75 @@ def git_commit(folder: str | Path, *, ignore: str | Path | None = None) -> dict[
     return {"commit": head.stdout.strip(), "dirty": bool(status.stdout.strip()) if status.returncode == 0 else None}
 
 
+# -- interruption ---------------------------------------------------------------------------------
+
+
+class RunInterrupted(KeyboardInterrupt):
+    """A run stopped by Ctrl-C, SIGTERM or SIGHUP after its record was created.
+
+    Attributes
+    ----------
+    record : Path or None
+        The record, marked ``interrupted`` in its manifest (None when the
+        signal came before anything was written and the empty folder was
+        removed).
+    signal_name : str
+        ``SIGINT``, ``SIGTERM`` or ``SIGHUP``.
+    """
+
+    def __init__(self, record: Path | None, signal_name: str):
+        super().__init__(signal_name)
+        self.record = record
+        self.signal_name = signal_name
+
+    @property
+    def exit_status(self) -> int:
+        """The shell's convention: 128 + the signal number."""
+        return 128 + int(getattr(signal, self.signal_name, signal.SIGINT))
+
+
+_STOP_SIGNALS = tuple(getattr(signal, name) for name in ("SIGINT", "SIGTERM", "SIGHUP") if hasattr(signal, name))
+
+
+@contextlib.contextmanager
+def _signals_interrupt():
+    """Turn SIGTERM and SIGHUP, like SIGINT, into KeyboardInterrupt; yield what was received.
+
+    A closed terminal or a scheduler's kill then stops the run the way
+    Ctrl-C does: the record is marked interrupted and the kernel and its
+    scratch folder are cleaned up.  Outside the main thread (where Python
+    cannot set handlers) nothing changes.
+    """
+    received = {"name": "SIGINT"}
+    if threading.current_thread() is not threading.main_thread():
+        yield received
+        return
+
+    def stop(signum, frame):
+        received["name"] = signal.Signals(signum).name
+        raise KeyboardInterrupt(received["name"])
+
+    previous = {s: signal.signal(s, stop) for s in _STOP_SIGNALS}
+    try:
+        yield received
+    finally:
+        for s, handler in previous.items():
+            signal.signal(s, handler)
+
+
+@contextlib.contextmanager
+def _signals_held():
+    """Hold further stop signals while a record is being marked, so the mark is written whole."""
+    if threading.current_thread() is not threading.main_thread() or not hasattr(signal, "pthread_sigmask"):
+        yield
+        return
+    signal.pthread_sigmask(signal.SIG_BLOCK, set(_STOP_SIGNALS))
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_UNBLOCK, set(_STOP_SIGNALS))
+
+
 # -- results ------------------------------------------------------------------------------------
 
 
@@ -210,8 +281,9 @@ class StageRun:
     Attributes
     ----------
     stage : str
-    status : {"ok", "failed", "skipped"}
-        ``skipped``: not run because an earlier stage failed.
+    status : {"ok", "failed", "interrupted", "skipped", "not run"}
+        ``skipped``: not run because an earlier stage failed; ``not run``:
+        the run was interrupted before it.
     notebook, html : str or None
         Executed notebook and its rendering, relative to the record.
     seconds : float or None
@@ -412,6 +484,7 @@ def _failing_cell(notebook_path: Path, *, dead: bool = False) -> dict[str, Any]:
     )
     cell = notebook.cells[found]
     return {
+        "code_cell": sum(1 for c in notebook.cells[: found + 1] if c.cell_type == "code"),
         "cell_index": found,
         "template_cell_index": template_index,
         "execution_count": cell.get("execution_count"),
@@ -526,6 +599,11 @@ def _earlier_model(from_record: Path, study=None) -> dict[str, Any]:
     from ..modelling.modelfile import load_model
 
     manifest = read_manifest(from_record)
+    if manifest.get("status") not in FINISHED:
+        raise RecordError(
+            f"--from {from_record}: that run never finished (its manifest says {manifest.get('status')!r}), so its model "
+            "was never listed and cannot be trusted; use a complete record"
+        )
     model = from_record / "models" / "model.json"
     if not model.is_file():
         raise RecordError(f"{from_record}: has no models/model.json to take the model from")
@@ -550,10 +628,20 @@ def _earlier_model(from_record: Path, study=None) -> dict[str, Any]:
     }
 
 
+def failure_place(error: Mapping[str, Any]) -> str:
+    """Where a stage stopped, numbered one way everywhere: `` in code cell N`` of the executed notebook, or ``""``.
+
+    N counts the code cells of the executed notebook from 1, as JupyterLab
+    shows them; the command line, the manifest's reader and the HTML
+    banner all use this.
+    """
+    where = error.get("code_cell")
+    return f" in code cell {where}" if where is not None else ""
+
+
 def _failure_sentence(error: dict[str, Any]) -> str:
     """One line for the failure banner of a stage's HTML page."""
-    where = error.get("template_cell_index")
-    cell = f" in cell {where}" if where is not None else ""
+    cell = failure_place(error)
     name, value = error.get("ename") or error.get("kind") or "error", str(error.get("evalue") or "").splitlines()
     detail = f": {value[0][:300]}" if value else ""
     return f"It stopped{cell} with {name}{detail}."
@@ -568,6 +656,7 @@ def _iso(moment: datetime) -> str:
 
 
 def _new_record(records: Path, *, study: Study, inputs: list[dict[str, Any]], started: datetime) -> Path:
+    records = records.resolve()  # the kernels run inside the record: every path they get is absolute
     stamp = started.strftime("%Y%m%dT%H%M%SZ")
     try:
         records.mkdir(parents=True, exist_ok=True)
@@ -582,6 +671,45 @@ def _new_record(records: Path, *, study: Study, inputs: list[dict[str, Any]], st
     except OSError as exc:
         raise RecordError(f"output.records: cannot create a record folder in {records} ({exc.strerror or exc})") from None
     raise RecordError(f"{records}: could not create a new record folder for {stamp}")  # pragma: no cover
+
+
+def check_records_folder(study: Study) -> Path:
+    """The study's records folder, after checking that a new record may go there.
+
+    Raises
+    ------
+    RecordError
+        ``output.records`` is a record, or lies inside one: a new run would
+        write into an earlier record.
+    """
+    records = Path(study.output.records).resolve()
+    inside = enclosing_record(records)
+    if inside is not None:
+        where = "is the record" if inside == records else "lies inside the record"
+        raise RecordError(
+            f"output.records: {records} {where} {inside}; a new run would write into an earlier record, which is never "
+            "changed. Name a folder of records (for example the study folder's records/), not a record"
+        )
+    return records
+
+
+def _mark_interrupted(record: Path, manifest: dict[str, Any] | None) -> Path | None:
+    """Mark an interrupted run's record; remove it when nothing but its own set-up was written.
+
+    Returns the record, or None when it was removed.
+    """
+    if manifest is None:
+        shutil.rmtree(record, ignore_errors=True)  # no manifest yet: nothing of the run exists
+        return None
+    stages = manifest.get("stages") or []
+    manifest.update(
+        status="interrupted",
+        finished=_iso(_now()),
+        stages=[{**s, "status": "not run"} if s.get("status") in ("pending", "running") else s for s in stages],
+        files=record_files(record),
+    )
+    write_manifest(record, manifest, replace=True)
+    return record
 
 
 # -- the run --------------------------------------------------------------------------------------
@@ -629,8 +757,10 @@ def run_study(
         Before anything runs and before any record folder is created: an
         invalid study or data file, a stage selection the study does not
         allow, a missing template, an unusable earlier record.
-    KeyboardInterrupt
-        Re-raised after the record's manifest has marked the run interrupted.
+    RunInterrupted
+        On Ctrl-C, SIGTERM or SIGHUP (a closed terminal, a scheduler's kill),
+        after the record's manifest has marked the run interrupted, the
+        kernel has been shut down and its scratch folder removed.
     """
     from ..intake.data import load_cohorts
     from ..reporting.html import render_html
@@ -651,25 +781,33 @@ def run_study(
     if model_input is not None:
         inputs.append(model_input)
 
+    records = check_records_folder(study)
     variables = kernel_environment(inputs)
     commit = git_commit(study_path.parent, ignore=study.output.records)
-    started = _now()
-    record = _new_record(Path(study.output.records), study=study, inputs=inputs, started=started)
-    parameters = _fill_new_record(record, study_path=study_path, study=study, model_input=model_input)
-    manifest = _first_manifest(
-        record, study_path=study_path, study=study, started=started, variables=variables, inputs=inputs,
-        model_input=model_input, parameters=parameters, show_code=show_code, chosen=chosen, commit=commit,
-    )
-    write_manifest(record, manifest)
-
-    _print_start(study, record, model_input, out=out)
-    results, failed, interrupted = _run_stages(
-        record, manifest, chosen=chosen, templates=templates, parameters=parameters, variables=variables,
-        html=study.output.html, show_code=show_code, render_html=render_html, out=out,
-    )
-    status = _finish_manifest(record, manifest, results, failed=failed, interrupted=interrupted)
-    if interrupted is not None:
-        raise interrupted
+    with _signals_interrupt() as received:
+        started = _now()
+        record = _new_record(records, study=study, inputs=inputs, started=started)
+        manifest: dict[str, Any] | None = None
+        try:
+            parameters = _fill_new_record(record, study_path=study_path, study=study, model_input=model_input)
+            manifest = _first_manifest(
+                record, study_path=study_path, study=study, started=started, variables=variables, inputs=inputs,
+                model_input=model_input, parameters=parameters, show_code=show_code, chosen=chosen, commit=commit,
+            )
+            write_manifest(record, manifest)
+            _print_start(study, record, model_input, out=out)
+            results, failed, interrupted = _run_stages(
+                record, manifest, chosen=chosen, templates=templates, parameters=parameters, variables=variables,
+                html=study.output.html, show_code=show_code, render_html=render_html, out=out,
+            )
+            with _signals_held():
+                status = _finish_manifest(record, manifest, results, failed=failed, interrupted=interrupted)
+        except KeyboardInterrupt:
+            with _signals_held():
+                kept = _mark_interrupted(record, manifest)
+            raise RunInterrupted(kept, received["name"]) from None
+        if interrupted is not None:
+            raise RunInterrupted(record, received["name"])
     total = sum(r.seconds or 0 for r in results)
     print(f"record {status}: {record} ({total:.1f} s in stages)", file=out)
     print(f"check it any time with: riskvet verify {record}", file=out)
@@ -776,6 +914,10 @@ def _run_stages(
                 render_html=render_html, out=out,
             )
             results.append(run)
+            if interrupted is not None:
+                results.extend(StageRun(stage=s, status="not run") for s in chosen[len(results):])
+                print(f"{label}: interrupted after {run.seconds:.1f} s", file=out, flush=True)
+                return results, True, interrupted
             if run.error:
                 failed = True
             _print_stage_end(label, run, out=out)
@@ -783,8 +925,6 @@ def _run_stages(
                 StageRun(stage=s, status="pending").to_dict() for s in chosen[len(results):]
             ]
             write_manifest(record, manifest, replace=True)
-            if interrupted is not None:
-                failed = True
     return results, failed, interrupted
 
 
@@ -828,7 +968,7 @@ def _run_stage(
             html_error = str(exc)
     run = StageRun(
         stage=stage,
-        status="failed" if error else "ok",
+        status="interrupted" if interrupted is not None else ("failed" if error else "ok"),
         notebook=notebook.relative_to(record).as_posix() if notebook.is_file() else None,
         html=rendered,
         seconds=seconds,
@@ -844,8 +984,7 @@ def _print_stage_end(label: str, run: StageRun, *, out: TextIO) -> None:
     """The progress line(s) for a stage that has run: ok or failed, and any rendering problem."""
     error = run.error
     if error:
-        where = f" in cell {error['cell_index']} (In [{error.get('execution_count')}])" if "cell_index" in error else ""
-        print(f"{label}: FAILED after {run.seconds:.1f} s{where}: {error['ename']}: {error['evalue']}", file=out, flush=True)
+        print(f"{label}: FAILED after {run.seconds:.1f} s{failure_place(error)}: {error['ename']}: {error['evalue']}", file=out, flush=True)
     else:
         print(f"{label}: ok in {run.seconds:.1f} s", file=out, flush=True)
     if run.html_error:

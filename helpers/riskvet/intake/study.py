@@ -428,7 +428,10 @@ class PlanningSection(_Section):
 class OutputSection(_Section):
     """Where records go and what they may show."""
 
-    records: Path = Path("records")
+    records: Path = Field(
+        default=Path("records"), validate_default=True,
+        description="Folder of the records, relative to the study file's folder unless absolute.",
+    )
     min_cell_count: int = Field(default=5, ge=0, description="Counts below this are suppressed in descriptive tables; 0 shows all.")
     html: bool = True
 
@@ -470,6 +473,15 @@ class Study(_Section):
     planning: PlanningSection | None = None
     output: OutputSection = OutputSection()
     compute: ComputeSection = ComputeSection()
+
+    @model_validator(mode="before")
+    @classmethod
+    def _every_path_from_the_study_folder(cls, data: Any) -> Any:
+        # A missing output section still holds the records folder, which is
+        # resolved against the study file's folder like every other path.
+        if isinstance(data, dict) and data.get("output") is None:
+            return {**data, "output": {}}
+        return data
 
     @model_validator(mode="after")
     def _cross_checks(self) -> "Study":
