@@ -111,6 +111,8 @@ def _cmd_run(args: argparse.Namespace) -> int:
     if failed is not None:
         print(f"stage {failed.stage!r} failed; see {result.record_dir / (failed.notebook or 'manifest.json')}", file=sys.stderr)
         return 1
+    if (result.record_dir / "html").is_dir():
+        print(f"open the reviewer pages in {result.record_dir / 'html'}")
     print(CAUTION)
     return 0
 
@@ -197,16 +199,16 @@ def _parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     p = sub.add_parser("new", help="write a ready-to-run study folder with the demo data")
-    p.add_argument("folder", type=Path)
+    p.add_argument("folder", help="the new study folder (created; must not already hold a study)")
     p.add_argument("--seed", type=int, default=2024, help="seed of the demo data (default 2024)")
     p.set_defaults(func=_cmd_new)
 
     p = sub.add_parser("check", help="validate a study file and its data; print the audit")
-    p.add_argument("study", type=Path)
+    p.add_argument("study", type=Path, help="the study file (study.yaml)")
     p.set_defaults(func=_cmd_check)
 
     p = sub.add_parser("run", help="run the study's stage notebooks into a new record")
-    p.add_argument("study", type=Path)
+    p.add_argument("study", type=Path, help="the study file (study.yaml)")
     p.add_argument("--stages", type=_stage_list, default=None, metavar="A,B",
                    help="run only these enabled stages (comma-separated), in chain order")
     p.add_argument("--from", dest="from_record", type=Path, default=None, metavar="RECORD",
@@ -216,19 +218,19 @@ def _parser() -> argparse.ArgumentParser:
     p.set_defaults(func=_cmd_run)
 
     p = sub.add_parser("plan", help="print the sample-size justification for a study's planning section")
-    p.add_argument("study", type=Path)
+    p.add_argument("study", type=Path, help="the study file (study.yaml)")
     p.add_argument("--proportions", metavar="P0,P1,...", help="anticipated outcome proportions, lowest level first (default: the derivation data)")
     p.set_defaults(func=_cmd_plan)
 
     p = sub.add_parser("verify", help="re-hash a record against its manifest")
-    p.add_argument("record", type=Path)
+    p.add_argument("record", type=Path, help="a record folder (records/<id>)")
     p.add_argument("--no-inputs", action="store_true", help="check only the record's own files")
     p.add_argument("--all", action="store_true", help="list every file, not only problems")
     p.set_defaults(func=_cmd_verify)
 
     p = sub.add_parser("compare", help="show what differs between two records")
-    p.add_argument("record_a", type=Path)
-    p.add_argument("record_b", type=Path)
+    p.add_argument("record_a", type=Path, help="the first record folder")
+    p.add_argument("record_b", type=Path, help="the second record folder")
     p.add_argument("--limit", type=int, default=25, help="rows shown per section (default 25)")
     p.add_argument("--rtol", type=float, default=0.0,
                    help="numbers within this relative difference count as equal (default 0: identical)")
@@ -236,7 +238,7 @@ def _parser() -> argparse.ArgumentParser:
     p.set_defaults(func=_cmd_compare)
 
     p = sub.add_parser("demo", help="write the invented demo study and run the whole chain on it")
-    p.add_argument("folder", type=Path, nargs="?", default=Path("riskvet-demo"))
+    p.add_argument("folder", nargs="?", default="riskvet-demo", help="the demo study folder (default riskvet-demo)")
     p.add_argument("--seed", type=int, default=2024, help="seed of the demo data (default 2024)")
     p.add_argument("--templates", type=Path, default=None, metavar="DIR", help=argparse.SUPPRESS)
     p.set_defaults(func=_cmd_demo)

@@ -59,8 +59,9 @@ def new_study_folder(
     Parameters
     ----------
     folder : path
-        Created if absent; must not already hold a ``study.yaml`` or ``data/``
-        (nothing is overwritten).
+        Created if absent; must not already hold a ``study.yaml``, ``data/``,
+        ``README.md`` or ``.gitignore`` (nothing is overwritten).  The
+        ``.gitignore`` keeps ``records/`` out of version control.
     seed, n_derivation, n_validation, n_ratings
         Passed to :func:`riskvet.demo.write_demo_data`.
     n_boot : int, optional
@@ -72,13 +73,22 @@ def new_study_folder(
     Path
         The study file.
     """
+    if not str(folder).strip():
+        raise RiskvetError("the folder name is empty; name a new or empty folder for the study")
     folder = Path(folder)
-    for name in ("study.yaml", "data", "README.md"):
+    if folder.exists() and not folder.is_dir():
+        raise RiskvetError(f"{folder}: is a file; riskvet new writes a study folder (name a new or empty folder)")
+    for name in ("study.yaml", "data", "README.md", ".gitignore"):
         if (folder / name).exists():
             raise RiskvetError(f"{folder / name}: already exists; riskvet new never overwrites (choose an empty folder)")
-    folder.mkdir(parents=True, exist_ok=True)
-    demo.write_demo_data(folder / "data", seed=seed, n_derivation=n_derivation, n_validation=n_validation, n_ratings=n_ratings)
-    study = folder / "study.yaml"
-    study.write_text(demo_study_text(n_boot=n_boot), encoding="utf-8")
-    (folder / "README.md").write_text(_FOLDER_README.format(name=folder.name, seed=seed), encoding="utf-8")
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        demo.write_demo_data(folder / "data", seed=seed, n_derivation=n_derivation, n_validation=n_validation, n_ratings=n_ratings)
+        study = folder / "study.yaml"
+        study.write_text(demo_study_text(n_boot=n_boot), encoding="utf-8")
+        (folder / "README.md").write_text(_FOLDER_README.format(name=folder.name, seed=seed), encoding="utf-8")
+        # records are written once and kept; whether they go into version control is a deliberate choice
+        (folder / ".gitignore").write_text("records/\n", encoding="utf-8")
+    except OSError as exc:
+        raise RiskvetError(f"{folder}: cannot write the study folder there ({exc.strerror or exc}); choose a folder you can write to") from None
     return study

@@ -657,13 +657,28 @@ def load_study(path: str | Path) -> Study:
     Raises
     ------
     StudyError
-        If the file is missing, is not valid YAML, or does not validate.
+        If the path is a folder, the file is missing, is not UTF-8, is not
+        valid YAML, or does not validate; the message names the file.
     """
     path = Path(path)
+    if path.is_dir():
+        inside = path / "study.yaml"
+        hint = f"; did you mean {inside}?" if inside.is_file() else "; name the study's YAML file"
+        raise StudyError(f"{path}: is a folder, not a study file{hint}")
     if not path.is_file():
         raise StudyError(f"{path}: study file not found")
     try:
-        raw = yaml.load(path.read_text(encoding="utf-8"), Loader=_StudyLoader)
+        text = path.read_text(encoding="utf-8")
+    except UnicodeDecodeError as exc:
+        raise StudyError(
+            f"{path}: not UTF-8 text (byte 0x{exc.object[exc.start]:02x} at position {exc.start}); "
+            "save the study file as UTF-8"
+        ) from None
+    except OSError as exc:
+        raise StudyError(f"{path}: cannot be read ({exc.strerror or exc})") from None
+    try:
+        raw = yaml.load(text, Loader=_StudyLoader)
     except yaml.YAMLError as exc:
-        raise StudyError(f"{path}: not valid YAML: {exc}") from None
+        detail = str(exc).replace('"<unicode string>"', f'"{path}"')
+        raise StudyError(f"{path}: not valid YAML: {detail}") from None
     return study_from_dict(raw, base_dir=path.resolve().parent, source=str(path))
