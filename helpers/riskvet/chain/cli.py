@@ -50,11 +50,14 @@ def check_report(study_path: str | Path, *, out=None) -> int:
     study = load_study(study_path)
     print(f"study {study.study.name!r}: file valid (sha256 {study.digest()[:12]})", file=out)
     print(f"stages: {', '.join(study.enabled_stages)}", file=out)
+    from ..modelling.derive import check_before_fitting
     from .runner import check_records_folder
 
     records = check_records_folder(study)
     print(f"records go to {records}", file=out)
     cohorts = load_cohorts(study)
+    notes = check_before_fitting(study, cohorts.derivation, study_file=study_path)
+    print("design: every candidate term can be built on the derivation data", file=out)
     for cohort in [cohorts.derivation, *cohorts.validation.values()]:
         print(f"\n== {cohort.label} ({cohort.source}) ==", file=out)
         print(f"rows screened {cohort.n_screened}, analysed {cohort.n_analysed}", file=out)
@@ -70,6 +73,8 @@ def check_report(study_path: str | Path, *, out=None) -> int:
             print(f"mapped {m.count} value(s) of {m.column!r}: {m.source_level!r} -> {m.target_level!r}", file=out)
     if cohorts.ratings is not None:
         print(f"\n== ratings ({study.data.ratings}) ==\nrows {len(cohorts.ratings)}", file=out)
+    for note in notes:
+        print(f"warning: {note}", file=out)
     print(f"\nusable. {CAUTION}", file=out)
     return 0
 

@@ -763,14 +763,17 @@ def run_study(
         kernel has been shut down and its scratch folder removed.
     """
     from ..intake.data import load_cohorts
+    from ..modelling.derive import check_before_fitting
     from ..reporting.html import render_html
 
     out = out if out is not None else sys.stdout
     study_path = Path(study_path).resolve()
     study = load_study(study_path)
-    load_cohorts(study)  # every data problem surfaces before a record exists
+    cohorts = load_cohorts(study)  # every data problem surfaces before a record exists
     earlier = Path(from_record).resolve() if from_record is not None else None
     chosen = _select_stages(study, stages, earlier)
+    if "derivation" in chosen:
+        check_before_fitting(study, cohorts.derivation, study_file=study_path)  # and every design problem
     templates = {s: template_path(s, templates_dir=templates_dir).resolve() for s in chosen}
     for stage, path in templates.items():
         _check_template(stage, path)

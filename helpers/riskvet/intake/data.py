@@ -207,6 +207,8 @@ def read_table(path: str | Path, *, missing_values: Sequence[str] = MISSING_VALU
     if not path.is_file():
         raise DataError(f"{path}: data file not found" + (" (it is a folder)" if path.is_dir() else ""))
     missing_values = tuple(str(v) for v in missing_values)
+    if suffix in (".csv", ".tsv"):
+        _check_separator(path, "," if suffix == ".csv" else "\t")
     try:
         if suffix in (".csv", ".tsv"):
             return pd.read_csv(
@@ -237,6 +239,34 @@ def read_table(path: str | Path, *, missing_values: Sequence[str] = MISSING_VALU
     except (ValueError, OSError, ImportError) as exc:
         raise DataError(f"{path}: cannot be read as {SUFFIXES[suffix]}: {exc}") from None
     return _blank_missing(frame, missing_values)
+
+
+_SEPARATOR_NAMES = {",": "commas", "\t": "tabs", ";": "semicolons", "|": "vertical bars"}
+
+
+def _check_separator(path: Path, expected: str) -> None:
+    """Refuse a delimited file whose header line is split by another character than its suffix says.
+
+    A semicolon-separated ``.csv`` (common where the comma is the decimal
+    mark) would otherwise read as one column, and every study column would be
+    reported missing.
+    """
+    try:
+        with open(path, encoding="utf-8", errors="replace", newline="") as handle:
+            header = handle.readline()
+    except OSError:
+        return  # the reader reports it
+    if expected in header:
+        return
+    seen = {sep: header.count(sep) for sep in _SEPARATOR_NAMES if sep != expected and header.count(sep)}
+    if not seen:
+        return  # one column: the study's column checks say what is missing
+    sep, n = max(seen.items(), key=lambda kv: kv[1])
+    raise DataError(
+        f"{path}: the header line holds no {_SEPARATOR_NAMES[expected]} but {n} {_SEPARATOR_NAMES[sep]}: the file looks "
+        f"separated by {_SEPARATOR_NAMES[sep]}; save it as a comma-separated .csv (with a point as the decimal mark) "
+        "or as a tab-separated .tsv"
+    )
 
 
 # -- auditing ---------------------------------------------------------------------------
@@ -823,7 +853,7 @@ def _check_outcome(study: Study, raw: pd.DataFrame, out: dict[str, pd.Series]) -
     """Carry the outcome into ``out`` as level text; a problem for values that are not its levels."""
     problems = []
     outcome = study.outcome
-    y_text = _as_text(raw[outcome.column])
+    y_text = _numerically_equal_levels(_as_text(raw[outcome.column]), outcome.ordered_levels)
     unknown = y_text[y_text.notna() & ~y_text.isin(outcome.ordered_levels)]
     if len(unknown):
         problems.append(
@@ -831,6 +861,24 @@ def _check_outcome(study: Study, raw: pd.DataFrame, out: dict[str, pd.Series]) -
         )
     out[outcome.column] = y_text
     return problems
+
+
+def _numerically_equal_levels(values: pd.Series, levels: Sequence[str]) -> pd.Series:
+    """Values written as another form of a numeric level (``4.0``, ``04`` for ``4``) as that level.
+
+    Only when every level is a number; text levels are compared exactly.
+    """
+    numbers = pd.to_numeric(pd.Series(list(levels), dtype=object), errors="coerce")
+    if numbers.isna().any():
+        return values
+    by_number = dict(zip(numbers.tolist(), levels))
+    odd = values.dropna()
+    odd = odd[~odd.isin(levels)].unique()
+    if not len(odd):
+        return values
+    as_numbers = pd.to_numeric(pd.Series(odd, dtype=object), errors="coerce")
+    recode = {v: by_number[x] for v, x in zip(odd, as_numbers.tolist()) if x in by_number}
+    return values.replace(recode) if recode else values
 
 
 def _check_predictors(

@@ -10,6 +10,7 @@ replicate, so every modelling decision is repeated there.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -17,11 +18,11 @@ import pandas as pd
 
 from .._jsonable import to_jsonable
 from ..intake.design import DesignSpec, build_design
-from ..errors import DataError
+from ..errors import DataError, DesignError, StudyError, problem
 from .selection import SelectionResult, select_terms
 from ..intake.study import Study
 
-__all__ = ["Derivation", "candidate_design", "derive"]
+__all__ = ["Derivation", "candidate_design", "check_before_fitting", "derive"]
 
 
 @dataclass(frozen=True)
@@ -92,6 +93,82 @@ def candidate_design(study: Study, frame: pd.DataFrame) -> DesignSpec:
         interactions=[(a, b) for a, b in spec.interactions],
         levels=levels or None,
     )
+
+
+#: Events per candidate parameter below which the page and ``riskvet check`` warn (common practice: 10).
+LOW_EVENTS_PER_PARAMETER = 10
+
+
+def check_before_fitting(study: Study, cohort: Any, *, study_file: str | Path | None = None) -> list[str]:
+    """Build everything the derivation builds before it fits, so a study fails here and not in a record.
+
+    The design specification is learned from the derivation cohort (category
+    references and levels, spline knots), the cross-validation folds are
+    compared with the outcome's level counts, and events per candidate
+    parameter are counted.  Nothing is fitted.
+
+    Parameters
+    ----------
+    study : Study
+    cohort : PreparedCohort
+        The derivation cohort (:func:`riskvet.intake.data.load_cohorts`).
+    study_file : path, optional
+        The study file, named at the start of every message.
+
+    Returns
+    -------
+    list of str
+        Notes the analyst should read: low events per candidate parameter,
+        more cross-validation folds than rows in an outcome level.
+
+    Raises
+    ------
+    StudyError
+        Naming the study key whose value the data cannot support: a
+        categorical reference that is not a level of the data (with the level
+        it matches when only the case differs), knots a predictor's distinct
+        values cannot place.
+    """
+    try:
+        return _check_before_fitting(study, cohort)
+    except StudyError as exc:
+        if study_file is None:
+            raise
+        raise StudyError(f"{study_file}: {exc}") from None
+
+
+def _check_before_fitting(study: Study, cohort: Any) -> list[str]:
+    spec = study.predictors
+    for name in spec.in_analysis:
+        p = spec.candidates[name]
+        if p.form != "categorical" or p.reference is None:
+            continue
+        seen = list(p.levels) if p.levels is not None else sorted(cohort.frame[name].dropna().unique().tolist())
+        if p.reference not in seen:
+            same = [lv for lv in seen if str(lv).casefold() == str(p.reference).casefold()]
+            hint = f" (the data write it {same[0]!r}; levels are compared exactly, case included)" if same else ""
+            raise StudyError(problem(f"predictors.candidates.{name}.reference", allowed=f"one of the levels in the data {seen}", received=p.reference) + hint)
+    try:
+        design = candidate_design(study, cohort.frame)
+    except DesignError as exc:
+        raise StudyError(f"predictors: the design cannot be built on the derivation data ({cohort.source}): {exc}") from None
+    counts = {lv: int(n) for lv, n in cohort.outcome_counts.items()}
+    notes = []
+    if study.selection.method == "forward":
+        small = {lv: n for lv, n in counts.items() if n < study.selection.folds}
+        if small:
+            notes.append(
+                f"selection.folds is {study.selection.folds}, more than the rows of outcome level(s) {small}: some "
+                "cross-validation folds will hold none of them; consider fewer folds"
+            )
+    n_parameters = len(design.columns) + len(counts) - 1
+    fewest = min(counts.values()) if counts else 0
+    if n_parameters and fewest / n_parameters < LOW_EVENTS_PER_PARAMETER:
+        notes.append(
+            f"low events per candidate parameter: {fewest} people in the smallest outcome level for {n_parameters} candidate "
+            f"parameters ({fewest / n_parameters:.1f} per parameter, below {LOW_EVENTS_PER_PARAMETER}); expect optimism and unstable selection"
+        )
+    return notes
 
 
 def derive(
