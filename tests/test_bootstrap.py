@@ -285,6 +285,10 @@ def test_empty_outcome_level_is_counted_with_its_reason(small_study):
     assert sorted(result.replicate_values["replicate"].unique().tolist()) == [i for i in range(10) if i not in expected]
     assert list(result.failures_frame()["reason"]) == ["empty outcome level"] * len(expected)
     assert "produced no model" in failure_sentence(result)
+    top = study.outcome.ordered_levels[2]
+    for f in result.failures:  # the level as the study names it, never its internal code
+        assert f.message.startswith(f"no one in outcome level(s) ['{top}'] of the resample; people by level {{")
+        assert "[2]" not in f.message
 
 
 def test_too_many_failures_raise(small_study):

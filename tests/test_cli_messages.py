@@ -74,3 +74,16 @@ def test_positional_arguments_have_help(command, capsys):
     positional = text.split("positional arguments:")[1].split("options:")[0]
     for line in [ln for ln in positional.splitlines() if ln.startswith("  ") and not ln.startswith("   ")]:
         assert len(line.split()) > 1, f"riskvet {command}: positional argument without help: {line.strip()}"
+
+
+def test_check_audit_reads_in_words(capsys, tmp_path):
+    study = new_study_folder(tmp_path / "s", n_derivation=80, n_validation=50, n_ratings=20)
+    assert cli.main(["check", str(study)]) == 0
+    out = capsys.readouterr().out
+    audit = out.split("columns as received:")[1].split("\n\n")[0]
+    header = audit.strip().splitlines()[0].split()
+    assert header[:3] == ["column", "reads", "as"] and "dtype" not in header
+    assert "NaN" not in audit and "None" not in audit
+    words = {line.split()[1] for line in audit.strip().splitlines()[1:]}
+    assert words <= {"number", "category", "text"} and "number" in words and "category" in words
+    assert "\u2014" in audit  # empty cells as a dash

@@ -32,6 +32,21 @@ def _print_frame(frame: pd.DataFrame, *, out=None) -> None:
         print(frame.to_string(index=False), file=out)
 
 
+_KIND_WORDS = {"numeric": "number", "categorical": "category", "text": "text"}
+
+
+def _readable_audit(frame: pd.DataFrame) -> pd.DataFrame:
+    """The column audit for a terminal: types in words, empty cells as a dash, no storage dtype."""
+    shown = frame.drop(columns=[c for c in ("dtype",) if c in frame.columns]).copy()
+    if "kind" in shown.columns:
+        shown["kind"] = [_KIND_WORDS.get(k, k) for k in shown["kind"]]
+        shown = shown.rename(columns={"kind": "reads as"})
+    for column in shown.columns:
+        shown[column] = ["\u2014" if v is None or (isinstance(v, float) and v != v) or v == "" else (f"{v:g}" if isinstance(v, float) else v)
+                         for v in shown[column]]
+    return shown
+
+
 def _cmd_new(args: argparse.Namespace) -> int:
     from .scaffold import new_study_folder
 
@@ -66,7 +81,7 @@ def check_report(study_path: str | Path, *, out=None) -> int:
         print("\noutcome:", file=out)
         _print_frame(pd.DataFrame({"level": list(cohort.outcome_counts), "n": list(cohort.outcome_counts.values())}), out=out)
         print("\ncolumns as received:", file=out)
-        _print_frame(cohort.audit.to_frame(), out=out)
+        _print_frame(_readable_audit(cohort.audit.to_frame()), out=out)
         for note in suspect_codes(cohort):
             print(f"warning: {note}", file=out)
         for m in cohort.category_mappings:

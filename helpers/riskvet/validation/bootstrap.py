@@ -1023,7 +1023,10 @@ def _fit_and_predict(study, frame_fit: pd.DataFrame, y_fit: np.ndarray, frame_ne
 
     counts = np.bincount(y_fit, weights=weights, minlength=K)
     if np.any(counts == 0):
-        raise _ReplicateFailed("empty outcome level", f"outcome level(s) {np.flatnonzero(counts == 0).tolist()} absent; counts by level {counts.tolist()}")
+        levels = list(study.outcome.ordered_levels) if len(study.outcome.ordered_levels) == K else list(range(K))
+        empty = [levels[j] for j in np.flatnonzero(counts == 0)]
+        tally = {lv: int(round(c)) for lv, c in zip(levels, counts.tolist())}
+        raise _ReplicateFailed("empty outcome level", f"no one in outcome level(s) {empty} of the resample; people by level {tally}")
     caught: Counter[str] = Counter()
     with warnings.catch_warnings(record=True) as seen:
         warnings.simplefilter("always")
@@ -1035,7 +1038,11 @@ def _fit_and_predict(study, frame_fit: pd.DataFrame, y_fit: np.ndarray, frame_ne
         caught[w.category.__name__] += 1
     fit = derivation.fit
     if not fit.converged:
-        raise _ReplicateFailed("non-convergence", f"final fit stopped after {fit.iterations} iterations")
+        why = next((w.split(": ", 1)[1] for w in fit.warnings if w.startswith("convergence: ")), None)
+        if why is None:
+            why = ("the likelihood could not be improved from its starting values" if fit.iterations == 0
+                   else f"no convergence after {fit.iterations} Newton iterations")
+        raise _ReplicateFailed("non-convergence", f"the model derived on this resample did not converge: {why}")
     if fit.separation:
         raise _ReplicateFailed("separation", f"separated by {list(fit.separation)}")
     try:
