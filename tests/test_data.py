@@ -295,7 +295,7 @@ def test_unparseable_numeric_values_listed_with_counts():
         prepare_cohort(make_study(), frame, source="d.csv")
     message = str(info.value)
     assert "column 'age' (predictor, form 'linear')" in message and "finite numbers" in message
-    assert "4 rows with other values: '>90' (2 rows), 'inf' (1 row), 'unknown' (1 row)" in message
+    assert "4 rows with other values: '>90' (2 rows), 'inf' (1 row), 'unknown' (1 row) (lines 3, 5, 6, 10 of the file)" in message
     assert "' 72 '" not in message  # surrounding spaces are not an error
 
 
@@ -323,6 +323,15 @@ def test_duplicate_ids_counted_without_values():
     message = str(info.value)
     assert "6 rows share 2 id value(s)" in message
     assert "p01" not in message and "p09" not in message
+    # where they are in the file, so the user can find them (the header is line 1 of a .csv)
+    with pytest.raises(DataError) as info:
+        prepare_cohort(make_study(), frame, source="cohort.csv")
+    duplicated = frame["pid"].duplicated(keep=False).to_numpy().nonzero()[0].tolist()
+    assert duplicated == [0, 1, 4, 7, 8, 9]  # data rows 0.. ; in a .csv, data row i is line i + 2
+    assert "at lines 2, 3, 6, 9, 10 and 1 more of the file (values not shown)" in str(info.value)
+    with pytest.raises(DataError) as info:
+        prepare_cohort(make_study(), frame, source="cohort.parquet")
+    assert "at rows 1, 2, 5, 8, 9 and 1 more of the file" in str(info.value)  # other formats count data rows from 1
 
 
 def test_categorical_values_outside_levels():

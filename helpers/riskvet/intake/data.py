@@ -110,10 +110,30 @@ def _count_text(values: pd.Series, limit: int) -> str:
     return ", ".join(parts)
 
 
-def _bad_values(where: str, *, allowed: str, bad: pd.Series, limit: int) -> str:
-    """The package message template for offending values, quoted with their counts."""
+_SHOWN_LINES = 5
+_HEADED_SUFFIXES = (".csv", ".tsv", ".xlsx", ".xls")
+
+
+def _file_lines(positions: Iterable[int], source: str | None) -> str:
+    """Where rows are in their file, for the user to find them: ``lines 4, 9 and 2 more`` (no values).
+
+    ``positions`` are 0-based data rows.  In a delimited or spreadsheet file
+    the header is line 1, so data row i is line i + 2; other formats count
+    data rows from 1.
+    """
+    headed = source is not None and str(source).lower().endswith(_HEADED_SUFFIXES)
+    numbers = sorted(int(p) + (2 if headed else 1) for p in positions)
+    word = "line" if headed else "row"
+    shown = ", ".join(str(n) for n in numbers[:_SHOWN_LINES])
+    more = f" and {len(numbers) - _SHOWN_LINES} more" if len(numbers) > _SHOWN_LINES else ""
+    return f"{word}{'s' if len(numbers) != 1 else ''} {shown}{more} of the file"
+
+
+def _bad_values(where: str, *, allowed: str, bad: pd.Series, limit: int, source: str | None = None) -> str:
+    """The package message template for offending values, quoted with their counts, and where they are."""
     n = len(bad)
-    return f"{where}: expected {allowed}; received {n} row{'s' if n != 1 else ''} with other values: {_count_text(bad, limit)}"
+    return (f"{where}: expected {allowed}; received {n} row{'s' if n != 1 else ''} with other values: {_count_text(bad, limit)} "
+            f"({_file_lines(bad.index, source)})")
 
 
 def _to_number(series: pd.Series) -> tuple[pd.Series, pd.Series]:
@@ -762,12 +782,12 @@ def prepare_cohort(
 
     # every problem is found before any is reported, so one run lists them all
     out: dict[str, pd.Series] = {}
-    problems = _check_ids(raw, id_column, out)
-    problems += _check_outcome(study, raw, out)
-    found, mappings = _check_predictors(study, raw, specs, needed, role=role, reference=reference, out=out)
+    problems = _check_ids(raw, id_column, out, source=where)
+    problems += _check_outcome(study, raw, out, source=where)
+    found, mappings = _check_predictors(study, raw, specs, needed, role=role, reference=reference, out=out, source=where)
     problems += found
-    problems += _check_rule(study, raw, needed, out)
-    problems += _check_subgroups(study, raw, needed, out)
+    problems += _check_rule(study, raw, needed, out, source=where)
+    problems += _check_subgroups(study, raw, needed, out, source=where)
     if problems:
         _raise(where, problems)
 
@@ -833,7 +853,7 @@ def _needed_frame(study: Study, frame: pd.DataFrame, *, role: str, label: str, w
     return needs, raw
 
 
-def _check_ids(raw: pd.DataFrame, id_column: str | None, out: dict[str, pd.Series]) -> list[str]:
+def _check_ids(raw: pd.DataFrame, id_column: str | None, out: dict[str, pd.Series], *, source: str | None = None) -> list[str]:
     """Carry the id column into ``out``; a problem if ids repeat (counted, never quoted)."""
     problems = []
     if id_column is not None:
@@ -843,13 +863,14 @@ def _check_ids(raw: pd.DataFrame, id_column: str | None, out: dict[str, pd.Serie
             n_ids = int(ids[duplicated].nunique())
             problems.append(
                 f"column {id_column!r} (data.id_column): expected one row per id; "
-                f"{int(duplicated.sum())} rows share {n_ids} id value(s) with another row (values not shown)"
+                f"{int(duplicated.sum())} rows share {n_ids} id value(s) with another row, at "
+                f"{_file_lines(np.flatnonzero(duplicated.to_numpy()), source)} (values not shown)"
             )
         out[id_column] = ids
     return problems
 
 
-def _check_outcome(study: Study, raw: pd.DataFrame, out: dict[str, pd.Series]) -> list[str]:
+def _check_outcome(study: Study, raw: pd.DataFrame, out: dict[str, pd.Series], *, source: str | None = None) -> list[str]:
     """Carry the outcome into ``out`` as level text; a problem for values that are not its levels."""
     problems = []
     outcome = study.outcome
@@ -857,7 +878,7 @@ def _check_outcome(study: Study, raw: pd.DataFrame, out: dict[str, pd.Series]) -
     unknown = y_text[y_text.notna() & ~y_text.isin(outcome.ordered_levels)]
     if len(unknown):
         problems.append(
-            _bad_values(f"column {outcome.column!r} (outcome.column)", allowed=f"one of the levels {list(outcome.levels)} or a missing-value code", bad=unknown, limit=_SHOWN_OUTCOME_VALUES)
+            _bad_values(f"column {outcome.column!r} (outcome.column)", allowed=f"one of the levels {list(outcome.levels)} or a missing-value code", bad=unknown, limit=_SHOWN_OUTCOME_VALUES, source=source)
         )
     out[outcome.column] = y_text
     return problems
@@ -890,6 +911,7 @@ def _check_predictors(
     role: str,
     reference: PreparedCohort | None,
     out: dict[str, pd.Series],
+    source: str | None = None,
 ) -> tuple[list[str], list[CategoryMapping]]:
     """Carry each predictor into ``out``: numbers, or level text after ``data.category_map``.
 
@@ -910,7 +932,7 @@ def _check_predictors(
             if len(bad):
                 hint = " (the column has value labels; the study reads it as a number)" if isinstance(raw[name].dtype, pd.CategoricalDtype) else ""
                 problems.append(
-                    _bad_values(f"column {name!r} ({purpose})", allowed="finite numbers or a missing-value code", bad=bad, limit=_SHOWN_VALUES) + hint
+                    _bad_values(f"column {name!r} ({purpose})", allowed="finite numbers or a missing-value code", bad=bad, limit=_SHOWN_VALUES, source=source) + hint
                 )
             out[name] = numbers
             continue
@@ -921,19 +943,19 @@ def _check_predictors(
                 count = int((text == source_level).sum())
                 mappings.append(CategoryMapping(name, source_level, target_level, count))
             text = text.replace(recode)
-        problems += _category_problems(text, name, spec, purpose, reference)
+        problems += _category_problems(text, name, spec, purpose, reference, source=source)
         out[name] = text
     return problems, mappings
 
 
-def _category_problems(text: pd.Series, name: str, spec: PredictorSpec, purpose: str, reference: PreparedCohort | None) -> list[str]:
+def _category_problems(text: pd.Series, name: str, spec: PredictorSpec, purpose: str, reference: PreparedCohort | None, *, source: str | None = None) -> list[str]:
     """Problems with a categorical predictor's values: outside its ``levels``, or unseen in the derivation data."""
     problems = []
     if spec.levels is not None:
         outside = text[text.notna() & ~text.isin(spec.levels)]
         if len(outside):
             problems.append(
-                _bad_values(f"column {name!r} ({purpose})", allowed=f"one of the levels {list(spec.levels)} or a missing-value code", bad=outside, limit=_SHOWN_VALUES)
+                _bad_values(f"column {name!r} ({purpose})", allowed=f"one of the levels {list(spec.levels)} or a missing-value code", bad=outside, limit=_SHOWN_VALUES, source=source)
             )
     if reference is not None and name in reference.category_levels:
         seen = set(reference.frame[name].dropna().unique())
@@ -949,7 +971,7 @@ def _category_problems(text: pd.Series, name: str, spec: PredictorSpec, purpose:
     return problems
 
 
-def _check_rule(study: Study, raw: pd.DataFrame, needed: Mapping[str, _Need], out: dict[str, pd.Series]) -> list[str]:
+def _check_rule(study: Study, raw: pd.DataFrame, needed: Mapping[str, _Need], out: dict[str, pd.Series], *, source: str | None = None) -> list[str]:
     """Carry the existing rule's column into ``out``; problems for values outside its categories or not numbers."""
     problems = []
     rule = study.existing_rule
@@ -960,20 +982,20 @@ def _check_rule(study: Study, raw: pd.DataFrame, needed: Mapping[str, _Need], ou
             outside = text[text.notna() & ~text.isin(rule.levels)]
             if len(outside):
                 problems.append(
-                    _bad_values(f"column {rule.column!r} ({purpose})", allowed=f"one of the categories {list(rule.levels)} or a missing-value code", bad=outside, limit=_SHOWN_VALUES)
+                    _bad_values(f"column {rule.column!r} ({purpose})", allowed=f"one of the categories {list(rule.levels)} or a missing-value code", bad=outside, limit=_SHOWN_VALUES, source=source)
                 )
             out.setdefault(rule.column, text)
         elif rule.column not in out:
             numbers, bad = _to_number(raw[rule.column])
             if len(bad):
                 problems.append(
-                    _bad_values(f"column {rule.column!r} ({purpose})", allowed="finite numbers or a missing-value code", bad=bad, limit=_SHOWN_VALUES)
+                    _bad_values(f"column {rule.column!r} ({purpose})", allowed="finite numbers or a missing-value code", bad=bad, limit=_SHOWN_VALUES, source=source)
                 )
             out[rule.column] = numbers
     return problems
 
 
-def _check_subgroups(study: Study, raw: pd.DataFrame, needed: Mapping[str, _Need], out: dict[str, pd.Series]) -> list[str]:
+def _check_subgroups(study: Study, raw: pd.DataFrame, needed: Mapping[str, _Need], out: dict[str, pd.Series], *, source: str | None = None) -> list[str]:
     """Carry each subgroup column into ``out`` (numbers when banded); problems when bands meet a non-number."""
     problems = []
     for sub in study.external_validation.subgroups:
@@ -988,7 +1010,7 @@ def _check_subgroups(study: Study, raw: pd.DataFrame, needed: Mapping[str, _Need
             numbers, bad = _to_number(raw[sub.column])
             if len(bad):
                 problems.append(
-                    _bad_values(f"column {sub.column!r} (external_validation.subgroups, bands)", allowed="finite numbers or a missing-value code", bad=bad, limit=_SHOWN_VALUES)
+                    _bad_values(f"column {sub.column!r} (external_validation.subgroups, bands)", allowed="finite numbers or a missing-value code", bad=bad, limit=_SHOWN_VALUES, source=source)
                 )
             out[sub.column] = numbers
         else:
@@ -1103,7 +1125,7 @@ def _prepare_ratings(study: Study, frame: pd.DataFrame, where: str) -> pd.DataFr
                 numbers, bad = _to_number(frame[column])
                 if len(bad):
                     problems.append(
-                        _bad_values(f"column {column!r} (agreement item {item.name!r}, scale 'continuous')", allowed="finite numbers or a missing-value code", bad=bad, limit=_SHOWN_VALUES)
+                        _bad_values(f"column {column!r} (agreement item {item.name!r}, scale 'continuous')", allowed="finite numbers or a missing-value code", bad=bad, limit=_SHOWN_VALUES, source=where)
                     )
                 out[column] = numbers
             else:
