@@ -236,7 +236,27 @@ def test_compare_identical_and_changed_records(run_record, tmp_path, capsys):
 
     assert cli.main(["compare", str(run_record), str(other)]) == 0
     printed = capsys.readouterr().out
-    assert "selection.seed" in printed and "derivation.mean_age" in printed and "package versions: 1 difference" in printed
+    assert "selection.seed" in printed and "package versions: 1 difference" in printed
+    # settings first, then key results, then a count per results file; the values themselves only with --all
+    assert printed.index("study settings") < printed.index("key results that differ") < printed.index("other differences")
+    assert "results/derivation.json: 1 value(s) differ" in printed and "derivation.mean_age" not in printed
+    assert cli.main(["compare", str(run_record), str(other), "--all"]) == 0
+    assert "derivation.mean_age" in capsys.readouterr().out
+
+    assert cli.main(["compare", str(run_record), str(run_record)]) == 0
+    lines = capsys.readouterr().out.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("identical: ")
+
+
+def test_compare_sorts_keys_naturally_and_fits_the_terminal(monkeypatch):
+    from riskvet.chain.cli import _fit_width, _natural_key
+
+    keys = ["cuts[10].auc", "cuts[2].auc", "cuts[1].auc"]
+    assert sorted(keys, key=_natural_key) == ["cuts[1].auc", "cuts[2].auc", "cuts[10].auc"]
+    frame = pd.DataFrame({"key": ["k" * 30], "a": ["x" * 200], "b": ["y" * 200]})
+    fitted = _fit_width(frame, 80)
+    assert len(fitted.to_string(index=False).splitlines()[1]) <= 80
+    assert fitted["a"].iloc[0].endswith("\u2026")
 
 
 def test_compare_tolerance_absent_stages_and_nulls(run_record, tmp_path):

@@ -9,9 +9,11 @@ from __future__ import annotations
 
 import argparse
 import logging
+import re
+import shutil
 import sys
 from pathlib import Path
-from typing import Sequence
+from typing import Any, Sequence
 
 import pandas as pd
 
@@ -175,36 +177,76 @@ def _cmd_verify(args: argparse.Namespace) -> int:
     return 0
 
 
+_SETTINGS = {
+    "study": "study settings", "inputs": "input files (SHA-256)", "templates": "templates (SHA-256)",
+    "packages": "package versions", "record": "run",
+}
+
+
+def _natural_key(key: str) -> list[Any]:
+    """``a[2].b`` before ``a[10].b``: numbers in a key compare as numbers."""
+    return [int(part) if part.isdigit() else part for part in re.split(r"(\d+)", str(key))]
+
+
+def _fit_width(frame: pd.DataFrame, width: int) -> pd.DataFrame:
+    """Cells shortened (with an ellipsis) so that no printed row is wider than ``width``."""
+    if frame.empty:
+        return frame
+    texts = frame.astype(str)
+    widest = {c: max(len(c), texts[c].str.len().max()) for c in texts.columns}
+    budget = max(width - (len(texts.columns) - 1) * 2, 20 * len(texts.columns))
+    while sum(widest.values()) > budget and max(widest.values()) > 12:
+        column = max(widest, key=widest.get)
+        widest[column] -= 1
+    return texts.apply(lambda col: [v if len(v) <= widest[col.name] else v[: widest[col.name] - 1] + "\u2026" for v in col])
+
+
 def _cmd_compare(args: argparse.Namespace) -> int:
     from .record import compare_records
 
     comparison = compare_records(args.record_a, args.record_b, rtol=args.rtol)
-    print(f"A: {comparison.run_a}  ({comparison.record_a})\nB: {comparison.run_b}  ({comparison.record_b})")
+    width = shutil.get_terminal_size((120, 40)).columns
     frame = comparison.to_frame()
-    titles = {
-        "record": "run", "study": "study settings", "inputs": "input files (SHA-256)",
-        "templates": "templates (SHA-256)", "packages": "package versions", "results": "results",
-    }
-    for section, title in titles.items():
-        part = frame[frame["section"] == section].drop(columns="section")
+    frame = frame.iloc[sorted(range(len(frame)), key=lambda i: (list(_SETTINGS).index(frame["section"].iloc[i]) if frame["section"].iloc[i] in _SETTINGS else 99, _natural_key(frame["key"].iloc[i])))]
+    settings = frame[frame["section"] != "results"]
+    results = frame[frame["section"] == "results"]
+    tolerance = f" beyond rtol {args.rtol:g}" if args.rtol else ""
+    names = f"A {comparison.run_a} and B {comparison.run_b}"
+    if settings[settings["section"] != "record"].empty and results.empty:
+        run_notes = settings["key"].tolist()
+        extra = f" (run details differ: {', '.join(run_notes)})" if run_notes else ""
+        print(f"identical: {names} have the same study, inputs, templates, package versions and results{tolerance}{extra}")
+        return 0
+    print(f"A: {comparison.run_a}  ({comparison.record_a})\nB: {comparison.run_b}  ({comparison.record_b})")
+    for section, title in _SETTINGS.items():
+        part = settings[settings["section"] == section].drop(columns="section")
+        if part.empty:
+            continue
         if section in ("inputs", "templates"):
             part = part.assign(a=part["a"].str[:12], b=part["b"].str[:12])
-        print(f"\n== {title}: {'no differences' if part.empty else f'{len(part)} difference(s)'} ==")
-        if not part.empty:
-            _print_frame(part if args.all else part.head(args.limit))
-            if not args.all and len(part) > args.limit:
-                print(f"... {len(part) - args.limit} more (--all shows every one)")
+        print(f"\n== {title}: {len(part)} difference(s) ==")
+        _print_frame(_fit_width(part if args.all else part.head(args.limit), width))
+        if not args.all and len(part) > args.limit:
+            print(f"... {len(part) - args.limit} more (--all shows every one)")
     headline = comparison.headline
-    if not headline.empty:
-        shown = headline.assign(
-            a=[f"{v:.6g}" if isinstance(v, float) else ("(absent)" if v is None else str(v)) for v in headline["a"]],
-            b=[f"{v:.6g}" if isinstance(v, float) else ("(absent)" if v is None else str(v)) for v in headline["b"]],
-            same=["" if same else "differs" for same in headline["same"]],
-        ).drop(columns="key")
-        print(f"\n== key results side by side: {int((~headline['same']).sum())} of {len(headline)} differ ==")
-        _print_frame(shown if args.all else shown.head(args.limit * 4))
-        if not args.all and len(shown) > args.limit * 4:
-            print(f"... {len(shown) - args.limit * 4} more (--all shows every one)")
+    differing = headline[~headline["same"]] if not headline.empty else headline
+    print(f"\n== key results that differ{tolerance}: {len(differing)} of {len(headline)} ==")
+    if len(differing):
+        shown = differing.assign(
+            a=[f"{v:.6g}" if isinstance(v, float) else ("(absent)" if v is None else str(v)) for v in differing["a"]],
+            b=[f"{v:.6g}" if isinstance(v, float) else ("(absent)" if v is None else str(v)) for v in differing["b"]],
+        )[["stage", "measure", "a", "b"]]
+        _print_frame(_fit_width(shown if args.all else shown.head(args.limit), width))
+    stages = results["key"].map(lambda k: str(k).split(".", 1)[0].split("[", 1)[0]) if len(results) else results["key"]
+    print(f"\n== other differences in the results files{tolerance}: {len(results)} ==")
+    if len(results):
+        counts = stages.value_counts()
+        for stage in sorted(counts.index, key=_natural_key):
+            print(f"results/{stage}.json: {counts[stage]} value(s) differ")
+        if args.all:
+            _print_frame(_fit_width(results.drop(columns="section"), width))
+        else:
+            print("(--all lists every one, curve points included)")
     return 0
 
 
