@@ -47,6 +47,7 @@ from ..errors import RecordError, RiskvetError, StudyError, problem
 from .record import FINISHED, MANIFEST_SCHEMA, enclosing_record, read_manifest, record_files, sha256_file, write_manifest
 from .stagekit import STAGE_PARAMETERS
 from ..intake.study import STAGES, Study, load_study, stage_stem
+from ..validation.bootstrap import PROGRESS_ENV
 
 __all__ = [
     "KEY_PACKAGES",
@@ -956,10 +957,16 @@ def _run_stage(
     print(f"{label}: running", file=out, flush=True)
     interrupted: BaseException | None = None
     begin, tick = _now(), time.perf_counter()
+    progress = log_path.with_suffix(".progress")
+    watcher = _ProgressWatcher(progress, label, out) if _is_terminal(out) else None
     try:
-        error = _execute(template, notebook, parameters, cwd=record, log_path=log_path, variables=variables)
+        error = _execute(template, notebook, parameters, cwd=record, log_path=log_path,
+                         variables={**variables, PROGRESS_ENV: str(progress)})
     except KeyboardInterrupt as exc:
         error, interrupted = {"kind": "interrupted", "ename": "KeyboardInterrupt", "evalue": "run interrupted"}, exc
+    finally:
+        if watcher is not None:
+            watcher.stop()
     seconds = round(time.perf_counter() - tick, 2)
     rendered = html_error = None
     if html and notebook.is_file() and interrupted is None:
@@ -981,6 +988,56 @@ def _run_stage(
         html_error=html_error,
     )
     return run, interrupted
+
+
+def _is_terminal(out: TextIO) -> bool:
+    return bool(getattr(out, "isatty", lambda: False)())
+
+
+class _ProgressWatcher:
+    """Show a stage's progress file on the terminal, one line redrawn in place, until stopped.
+
+    The stage kernel writes ``done total seconds what`` lines (see
+    :data:`riskvet.validation.bootstrap.PROGRESS_ENV`); this thread reads the
+    last one twice a second.  Nothing of it reaches the notebook or the record.
+    """
+
+    def __init__(self, path: Path, label: str, out: TextIO, *, every: float = 0.5):
+        self.path, self.label, self.out, self.every = path, label, out, every
+        self._done = threading.Event()
+        self._width = 0
+        self._thread = threading.Thread(target=self._watch, name="riskvet-progress", daemon=True)
+        self._thread.start()
+
+    def _watch(self) -> None:
+        while not self._done.wait(self.every):
+            line = progress_line(self.path)
+            if line:
+                text = f"{self.label}: {line}"
+                self.out.write("\r" + text.ljust(self._width))
+                self.out.flush()
+                self._width = max(self._width, len(text))
+
+    def stop(self) -> None:
+        self._done.set()
+        self._thread.join(timeout=2)
+        if self._width:
+            self.out.write("\r" + " " * self._width + "\r")
+            self.out.flush()
+
+
+def progress_line(path: Path) -> str | None:
+    """The last progress line of a stage in words: ``bootstrap 57/200, 3.1 per s, about 46 s left``."""
+    try:
+        last = path.read_text(encoding="utf-8").strip().splitlines()[-1]
+        done, total, seconds, what = last.split(" ", 3)
+        done, total, seconds = int(done), int(total), float(seconds)
+    except (OSError, IndexError, ValueError):
+        return None
+    rate = done / seconds if seconds > 0 and done else 0.0
+    left = f", about {(total - done) / rate:.0f} s left" if rate and done < total else ""
+    speed = f", {rate:.1f} per s" if rate else ""
+    return f"{what} {done}/{total}{speed}{left}"
 
 
 def _print_stage_end(label: str, run: StageRun, *, out: TextIO) -> None:

@@ -907,11 +907,49 @@ def _in_notebook() -> bool:
     return ip is not None and getattr(ip, "kernel", None) is not None
 
 
+#: Environment variable naming a file the runner reads to show a stage's progress on its terminal.
+PROGRESS_ENV = "RISKVET_PROGRESS"
+
+
+class _FileProgress:
+    """Progress written to the file the runner watches: one line per update, ``done total seconds desc``.
+
+    Inside ``riskvet run`` the stage kernel's own output goes to the notebook,
+    which must not hold progress; the runner shows these lines on its
+    terminal instead.
+    """
+
+    def __init__(self, total: int, desc: str, path: str):
+        import time
+
+        self._clock = time.monotonic
+        self.total, self.desc, self.path, self.n = total, desc, path, 0
+        self.start = self._clock()
+        self._write()
+
+    def _write(self) -> None:
+        try:
+            with open(self.path, "a", encoding="utf-8") as handle:
+                handle.write(f"{self.n} {self.total} {self._clock() - self.start:.3f} {self.desc}\n")
+        except OSError:
+            pass  # progress is a courtesy; it never stops the work
+
+    def update(self, k: int) -> None:
+        self.n += k
+        self._write()
+
+    def close(self) -> None:
+        pass
+
+
 def _progress_bar(total: int, desc: str, enabled: bool):
-    """Progress: a tqdm bar with ETA on a terminal; one line updated in place in a notebook;
-    about ten redraws of one line elsewhere (logs)."""
+    """Progress: to the runner's file inside ``riskvet run``; a tqdm bar with ETA on a terminal;
+    one line updated in place in a notebook; about ten redraws of one line elsewhere (logs)."""
     from tqdm import tqdm
 
+    watched = os.environ.get(PROGRESS_ENV)
+    if watched:
+        return _FileProgress(total, desc, watched)
     if not enabled:
         return tqdm(total=total, disable=True)
     stream = sys.stderr
