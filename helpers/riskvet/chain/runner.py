@@ -15,7 +15,7 @@ notebook, and the later stages are skipped.
 The kernel that runs each notebook is always the interpreter running riskvet
 (``sys.executable``), whatever kernel specifications are installed elsewhere.
 It runs with a fixed string-hash seed, single-threaded numerical libraries
-and a fixed ``SOURCE_DATE_EPOCH`` (:func:`kernel_environment`), so that two
+and no time or path in what stages write (:func:`kernel_environment`), so that two
 runs of the same study on the same data write the same results and model files.
 """
 
@@ -384,26 +384,20 @@ class RunResult:
 THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
 
 
-def kernel_environment(inputs: Sequence[Mapping[str, Any]]) -> dict[str, str]:
+def kernel_environment() -> dict[str, str]:
     """Environment variables the runner sets in every stage kernel.
 
-    ``PYTHONHASHSEED=0``; each of :data:`THREAD_VARIABLES` as ``1`` unless
-    already set; and ``SOURCE_DATE_EPOCH`` (the reproducible-builds
-    convention, which stages use for creation dates inside model files),
-    unless already set, as the latest modification time of the study and
-    data files, so that two runs on unchanged inputs write identical files
-    (with or without an earlier record's model).  The run's own times are in
-    the manifest.
+    ``PYTHONHASHSEED=0`` and each of :data:`THREAD_VARIABLES` as ``1``
+    unless already set.  Nothing depends on the folder, the files'
+    modification times or the clock: a model file carries a creation time
+    only when the user sets ``SOURCE_DATE_EPOCH`` (passed through as it is);
+    the run's own times are in the manifest.
     """
     env = {"PYTHONHASHSEED": "0"}
     for name in THREAD_VARIABLES:
         env[name] = os.environ.get(name, "1")
-    epoch = os.environ.get("SOURCE_DATE_EPOCH")
-    if epoch is None:
-        study_and_data = [e for e in inputs if e["role"] == "study" or e["role"].startswith("data.")]
-        times = [int(Path(e["path"]).stat().st_mtime) for e in study_and_data if Path(e["path"]).is_file()]
-        epoch = str(max(times)) if times else "0"
-    env["SOURCE_DATE_EPOCH"] = epoch
+    if os.environ.get("SOURCE_DATE_EPOCH"):
+        env["SOURCE_DATE_EPOCH"] = os.environ["SOURCE_DATE_EPOCH"]
     return env
 
 
@@ -786,7 +780,7 @@ def run_study(
         inputs.append(model_input)
 
     records = check_records_folder(study)
-    variables = kernel_environment(inputs)
+    variables = kernel_environment()
     commit = git_commit(study_path.parent, ignore=study.output.records)
     with _signals_interrupt() as received:
         started = _now()

@@ -26,6 +26,7 @@ from pydantic import (
     BaseModel,
     ConfigDict,
     Field,
+    PrivateAttr,
     ValidationError,
     ValidationInfo,
     field_validator,
@@ -474,6 +475,9 @@ class Study(_Section):
     output: OutputSection = OutputSection()
     compute: ComputeSection = ComputeSection()
 
+    #: The study file's folder (absolute), which relative paths were resolved against; None when not known.
+    _base_dir: str | None = PrivateAttr(default=None)
+
     @model_validator(mode="before")
     @classmethod
     def _every_path_from_the_study_folder(cls, data: Any) -> Any:
@@ -544,12 +548,37 @@ class Study(_Section):
         return self.model_dump(mode="json")
 
     def canonical_json(self) -> str:
-        """Canonical JSON of the resolved study: sorted keys, no spaces."""
+        """Canonical JSON of the resolved study: sorted keys, no spaces (absolute paths, as analysed)."""
         return json.dumps(self.to_dict(), sort_keys=True, separators=(",", ":"), ensure_ascii=False)
 
+    def portable_dict(self) -> dict[str, Any]:
+        """The resolved study with every path inside the study folder relative to it, and no records folder.
+
+        This is what the study says, whatever folder, clone or machine holds
+        it: its digest is the same for a copy of the study folder anywhere.
+        Paths outside the study folder stay absolute.
+        """
+        content = self.to_dict()
+        content.get("output", {}).pop("records", None)  # where records go changes no result
+        base = self._base_dir
+        if base is None:
+            return content
+
+        def portable(value: Any) -> Any:
+            if isinstance(value, dict):
+                return {k: portable(v) for k, v in value.items()}
+            if isinstance(value, list):
+                return [portable(v) for v in value]
+            if isinstance(value, str) and value.startswith(base + "/"):
+                return Path(value).relative_to(base).as_posix()
+            return value
+
+        return portable(content)
+
     def digest(self) -> str:
-        """SHA-256 of :meth:`canonical_json`."""
-        return hashlib.sha256(self.canonical_json().encode("utf-8")).hexdigest()
+        """SHA-256 of the canonical JSON of :meth:`portable_dict`: the same for the same study anywhere."""
+        text = json.dumps(self.portable_dict(), sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+        return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
 # -- loading and error reporting ---------------------------------------------------------
@@ -635,7 +664,9 @@ def study_from_dict(raw: Any, *, base_dir: str | Path | None = None, source: str
     if not isinstance(raw, dict):
         raise StudyError(f"{source}: expected a mapping of sections (study, data, outcome, ...); received {type(raw).__name__}")
     try:
-        return Study.model_validate(raw, context={"base_dir": str(base_dir) if base_dir is not None else None})
+        study = Study.model_validate(raw, context={"base_dir": str(base_dir) if base_dir is not None else None})
+        study._base_dir = str(Path(base_dir).resolve()) if base_dir is not None else None
+        return study
     except ValidationError as exc:
         lines = [_describe(e) for e in exc.errors()]
         raise StudyError(f"{source}: {len(lines)} problem(s)\n  - " + "\n  - ".join(lines)) from None

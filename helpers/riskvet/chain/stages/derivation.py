@@ -50,18 +50,19 @@ def file_sha256(path: str | Path) -> str:
     return digest.hexdigest()
 
 
-def creation_time() -> str:
-    """UTC creation time for a model file.
+def creation_time() -> str | None:
+    """The creation time a model file carries: ``SOURCE_DATE_EPOCH`` when the user sets it, else none.
 
-    ``SOURCE_DATE_EPOCH`` (the reproducible-builds convention), when set,
-    fixes it, so that two runs write byte-identical model files.  The runner
-    sets it to the latest modification time of the study and data files
-    unless the user has set it, so inside a record ``created`` is the time
-    the inputs were last changed; the manifest holds the run's own times.
+    A model file holds only what follows from the study, the data and the
+    package, so the same study run in any folder, clone or machine writes
+    the same bytes; the run's own times are in the record's manifest.
+    ``SOURCE_DATE_EPOCH`` (the reproducible-builds convention) is the one
+    way to stamp a time into the file, and it is the user's choice.
     """
     epoch = os.environ.get("SOURCE_DATE_EPOCH")
-    moment = datetime.fromtimestamp(int(epoch), tz=timezone.utc) if epoch else datetime.now(timezone.utc)
-    return moment.replace(microsecond=0).isoformat()
+    if not epoch:
+        return None
+    return datetime.fromtimestamp(int(epoch), tz=timezone.utc).replace(microsecond=0).isoformat()
 
 
 @dataclass(frozen=True)
