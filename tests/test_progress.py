@@ -5,7 +5,6 @@ from __future__ import annotations
 import io
 import json
 
-import pytest
 
 from riskvet.chain.runner import progress_line, run_study
 from riskvet.chain.scaffold import new_study_folder

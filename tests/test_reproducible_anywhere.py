@@ -68,3 +68,12 @@ def test_model_files_carry_no_time_or_path(original):
         assert str(study.parent) not in text, name
         if name.startswith("models/"):
             assert '"created": "' not in text, name  # no creation time unless the user sets SOURCE_DATE_EPOCH
+
+
+def test_reproduce_with_the_real_templates_is_identical(original):
+    from riskvet.chain.reproduce import reproduce
+
+    study, record = original
+    result = reproduce(record, out=io.StringIO())
+    assert result.verdict == "identical" and result.exit_status == 0
+    assert _bytes(result.rerun) == _bytes(record)

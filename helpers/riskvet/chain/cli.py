@@ -250,6 +250,21 @@ def _cmd_compare(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_reproduce(args: argparse.Namespace) -> int:
+    from .reproduce import reproduce
+
+    result = reproduce(args.record, data=args.data, rtol=args.rtol)
+    if result.verdict == "identical":
+        print(f"identical: the rerun {result.rerun} gives the same results and model files as {result.original}")
+    elif result.verdict == "within tolerance":
+        key, size = result.largest or ("", 0.0)
+        print(f"equal within rtol {args.rtol:g}: the largest relative difference is {size:.3g}, at {key} (rerun {result.rerun})")
+    else:
+        print(f"different: {len(result.differences)} result value(s) differ beyond rtol {args.rtol:g} (rerun {result.rerun})")
+        _cmd_compare(argparse.Namespace(record_a=result.original, record_b=result.rerun, rtol=args.rtol, all=False, limit=25))
+    return result.exit_status
+
+
 def _parser() -> argparse.ArgumentParser:
     from .. import __version__
 
@@ -298,6 +313,12 @@ def _parser() -> argparse.ArgumentParser:
                    help="numbers within this relative difference count as equal (default 0: identical)")
     p.add_argument("--all", action="store_true", help="show every difference")
     p.set_defaults(func=_cmd_compare)
+
+    p = sub.add_parser("reproduce", help="rerun a record from what it holds, beside it, and say whether the results are the same")
+    p.add_argument("record", type=Path, help="a record folder (records/<id>) of a run that ended")
+    p.add_argument("--data", type=Path, default=None, metavar="DIR", help="folder holding the data files (default: where the record found them)")
+    p.add_argument("--rtol", type=float, default=0.0, help="relative tolerance for results (exit 2 when equal only within it)")
+    p.set_defaults(func=_cmd_reproduce)
 
     p = sub.add_parser("demo", help="write the invented demo study and run the whole chain on it")
     p.add_argument("folder", nargs="?", default="riskvet-demo", help="the demo study folder (default riskvet-demo)")
