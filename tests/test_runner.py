@@ -172,6 +172,9 @@ def test_manifest_lists_hashes_versions_and_seeds(first, study, templates):
     assert manifest["study"]["sha256"] == json.loads(json.dumps(manifest["study"]["sha256"]))
     assert set(manifest["packages"]) >= {"numpy", "scipy", "pandas", "statsmodels", "matplotlib", "papermill", "nbconvert", "joblib", "pydantic"}
     assert manifest["packages"]["numpy"] == environment()["packages"]["numpy"]
+    # the BLAS numpy runs on, by kind and version (threadpoolctl), without file paths
+    assert manifest["numerical_libraries"] and all(set(lib) == {"user_api", "internal_api", "version", "architecture"} for lib in manifest["numerical_libraries"])
+    assert "/" not in json.dumps(manifest["numerical_libraries"])
     assert re.fullmatch(r"[0-9a-f]{64}", manifest["riskvet_source"]["sha256"]) and manifest["riskvet_source"]["files"] > 20
     assert manifest["seeds"] == {"selection": 2024, "internal_validation": 11, "external_validation": 12}  # demo study file values
     assert [s["status"] for s in manifest["stages"]] == ["ok"] * len(STAGES_RUN)

@@ -548,6 +548,7 @@ def compare_records(record_a: str | Path, record_b: str | Path, *, rtol: float =
             "riskvet_source_sha256": (m.get("riskvet_source") or {}).get("sha256"),
             "python": m.get("python"),
             "platform": m.get("platform"),
+            "numerical_libraries": m.get("numerical_libraries"),
             "seeds": m.get("seeds"),
             "git_commit": (m.get("git") or {}).get("commit"),
             "study_sha256": (m.get("study") or {}).get("sha256"),

@@ -165,7 +165,25 @@ def environment() -> dict[str, Any]:
         "platform": platform.platform(),
         "machine": platform.machine(),
         "packages": {name: _version(name) for name in KEY_PACKAGES},
+        "numerical_libraries": numerical_libraries(),
     }
+
+
+def numerical_libraries() -> list[dict[str, Any]]:
+    """The BLAS and OpenMP libraries numpy and scipy run on: kind, name, version, CPU architecture (no paths).
+
+    Results can differ in their last digits between builds of these
+    libraries; ``riskvet compare`` and ``riskvet reproduce`` take ``--rtol``
+    for that.
+    """
+    try:
+        import numpy  # noqa: F401  (loads the BLAS threadpoolctl reports)
+        from threadpoolctl import threadpool_info
+    except ImportError:  # pragma: no cover - both are dependencies
+        return []
+    keep = ("user_api", "internal_api", "version", "architecture")
+    rows = [{k: info.get(k) for k in keep} for info in threadpool_info()]
+    return sorted({tuple(r.items()): r for r in rows}.values(), key=lambda r: tuple(str(v) for v in r.values()))
 
 
 def git_commit(folder: str | Path, *, ignore: str | Path | None = None) -> dict[str, Any] | None:
