@@ -84,7 +84,8 @@ def test_an_outcome_written_as_4_0_matches_the_level_4(study):
 
 def test_low_events_per_parameter_is_a_warning_of_check(study, capsys):
     notes = check_before_fitting(load_study(study), load_cohorts(load_study(study)).derivation)
-    assert all(isinstance(n, str) for n in notes)
+    # the small demo has about 44 people in its smallest level for 18 candidate parameters
+    assert any(n.startswith("low events per candidate parameter: ") and "below 10" in n for n in notes)
     assert cli.main(["check", str(study)]) == 0
     out = capsys.readouterr().out
     assert "design: every candidate term can be built on the derivation data" in out

@@ -22,7 +22,7 @@ import yaml
 
 from ..errors import RecordError
 from ..intake.study import _StudyLoader, load_study, study_from_dict
-from .record import compare_records, flatten, read_manifest, sha256_file
+from .record import compare_records, read_manifest, sha256_file
 from .runner import default_templates_dir, environment, run_study
 
 __all__ = ["Reproduction", "reproduce", "VERDICTS"]
@@ -179,19 +179,10 @@ def _relative_difference(a: Any, b: Any) -> float:
     return abs(a - b) / scale if scale else math.inf
 
 
-def _largest_difference(original: Path, rerun: Path) -> tuple[str, float] | None:
-    import json
-
-    worst: tuple[str, float] | None = None
-    for path in sorted((original / "results").glob("*.json")):
-        other = rerun / "results" / path.name
-        a = dict(flatten(json.loads(path.read_text(encoding="utf-8"))))
-        b = dict(flatten(json.loads(other.read_text(encoding="utf-8")))) if other.is_file() else {}
-        for key in sorted(set(a) | set(b)):
-            d = _relative_difference(a.get(key), b.get(key)) if key in a and key in b else math.inf
-            if d > 0 and (worst is None or d > worst[1]):
-                worst = (f"{path.stem}.{key}", d)
-    return worst
+def _largest_difference(differences: Any) -> tuple[str, float] | None:
+    """The results key with the largest relative difference among a comparison's differences."""
+    sizes = [(d.key, _relative_difference(d.a, d.b) if d.in_a and d.in_b else math.inf) for d in differences if d.section == "results"]
+    return max(sizes, key=lambda kv: kv[1]) if sizes else None
 
 
 def reproduce(record_dir: str | Path, *, data: str | Path | None = None, rtol: float = 0.0, out: TextIO | None = None) -> Reproduction:
@@ -253,6 +244,6 @@ def reproduce(record_dir: str | Path, *, data: str | Path | None = None, rtol: f
         verdict = "within tolerance" if rtol > 0 and not beyond else "different"
     return Reproduction(
         original=record, rerun=result.record_dir, verdict=verdict,
-        largest=None if verdict == "identical" else _largest_difference(record, result.record_dir),
+        largest=None if verdict == "identical" else _largest_difference(exact.differences),
         differences=tuple(beyond), package_changes=changes,
     )
