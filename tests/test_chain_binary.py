@@ -2,45 +2,15 @@
 
 from __future__ import annotations
 
-import io
-import json
 
 import numpy as np
-import pandas as pd
 import pytest
 import statsmodels.api as sm
 
 from riskvet.intake.data import load_cohorts
 from riskvet.modelling.modelfile import load_model
 from riskvet.chain.record import verify_record
-from riskvet.chain.runner import run_study
-from riskvet.chain.scaffold import new_study_folder
 from riskvet.intake.study import load_study
-
-
-def _binary_study(folder):
-    study = new_study_folder(folder, n_derivation=500, n_validation=400, n_ratings=40, n_boot=4)
-    for name in ("derivation.csv", "validation.csv"):
-        path = folder / "data" / name
-        frame = pd.read_csv(path, dtype=str, keep_default_na=False)
-        frame["disposition"] = frame["disposition"].replace({"observed": "released"})
-        frame.to_csv(path, index=False)
-    text = study.read_text()
-    text = text.replace("  type: ordinal", "  type: binary\n  event: transferred")
-    text = text.replace("levels: [released, observed, transferred]", "levels: [released, transferred]")
-    text = text.replace("    observed: Treated and observed on site\n", "")
-    text = text.replace("  observed: [0.2, 0.4]\n", "")
-    study.write_text(text)
-    return study
-
-
-@pytest.fixture(scope="module")
-def binary_chain(tmp_path_factory):
-    study = _binary_study(tmp_path_factory.mktemp("binary") / "demo")
-    result = run_study(study, out=io.StringIO())
-    if not result.ok:
-        pytest.fail(f"stage {result.failed_stage.stage} failed: {json.dumps(result.failed_stage.error, indent=1)[:3000]}")
-    return study, result
 
 
 def test_every_stage_runs_for_a_binary_outcome(binary_chain):

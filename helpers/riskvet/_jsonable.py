@@ -4,11 +4,12 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import re
 from typing import Any
 
 import numpy as np
 
-__all__ = ["to_jsonable"]
+__all__ = ["to_jsonable", "positional_numbers"]
 
 
 def to_jsonable(value: Any) -> Any:
@@ -49,3 +50,23 @@ def to_jsonable(value: Any) -> Any:
     if hasattr(value, "isoformat"):
         return value.isoformat()
     raise TypeError(f"to_jsonable: cannot convert a {type(value).__name__} to JSON")
+
+
+_JSON_TOKEN = re.compile(r'"(?:[^"\\]|\\.)*"|(-?\d+(?:\.\d+)?[eE][-+]?\d+)')
+
+
+def positional_numbers(text: str) -> str:
+    """A JSON text with every number in scientific notation written positionally.
+
+    ``1.8e-07`` becomes ``0.00000018`` (the same float, read back exactly:
+    numpy's shortest positional representation); strings are left alone.
+    Records publish their results files this way, so no reader meets
+    scientific notation there either.
+    """
+    def rewrite(match: re.Match) -> str:
+        number = match.group(1)
+        if number is None:
+            return match.group(0)
+        return np.format_float_positional(float(number), trim="0")
+
+    return _JSON_TOKEN.sub(rewrite, text)

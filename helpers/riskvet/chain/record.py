@@ -157,7 +157,7 @@ def layout_problem(rel: str) -> str | None:
     """Why a file at ``rel`` (relative POSIX path) is not where the runner writes one, or None.
 
     The runner writes ``study.json``, ``notebooks/NN_<stage>.ipynb``,
-    ``html/NN_<stage>.html``, ``results/<stage>.json``,
+    ``html/NN_<stage>.html`` and ``html/index.html``, ``results/<stage>.json``,
     ``figures/<stage>/<name>.png|svg`` and ``models/<name>.json``, and
     nothing else besides the manifest.
     """
@@ -167,6 +167,8 @@ def layout_problem(rel: str) -> str | None:
         if match is None:
             continue
         found = {k: v for k, v in match.groupdict().items() if v is not None}
+        if "html" in found and found["html"] == "index":
+            return None
         if "nb" in found and found["nb"] not in stems or "html" in found and found["html"] not in stems:
             return "not the page of a stage (names are NN_<stage>)"
         if ("results" in found and found["results"] not in STAGES) or ("figures" in found and found["figures"] not in STAGES):

@@ -22,9 +22,12 @@ runs of the same study on the same data write the same results and model files.
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import hashlib
+import html
 import importlib.metadata
 import importlib.util
+import json
 import logging
 import os
 import platform
@@ -652,12 +655,76 @@ def failure_place(error: Mapping[str, Any]) -> str:
     return f" in code cell {where}" if where is not None else ""
 
 
-def _failure_sentence(error: dict[str, Any]) -> str:
-    """One line for the failure banner of a stage's HTML page."""
+def _failure_sentence(error: Mapping[str, Any]) -> str:
+    """One line for the failure banner of a stage's HTML page (the message, not the class name)."""
     cell = failure_place(error)
-    name, value = error.get("ename") or error.get("kind") or "error", str(error.get("evalue") or "").splitlines()
-    detail = f": {value[0][:300]}" if value else ""
-    return f"It stopped{cell} with {name}{detail}."
+    value = str(error.get("evalue") or "").splitlines()
+    detail = f": {value[0][:300]}" if value else f" ({str(error.get('kind') or 'an error').replace('_', ' ')})"
+    return f"It stopped{cell}{detail}."
+
+
+def _render_pages(
+    record: Path, study: Study, results: list[StageRun], *, status: str, show_code: bool,
+    render_html: Callable[..., Any], out: TextIO,
+) -> list[StageRun]:
+    """Render every stage's page, then the record's index page; return the runs with their pages.
+
+    Pages are rendered once every stage has run, so each page's header knows
+    the status of the record and of every stage it links to.
+    """
+    from ..reporting.html import PageHeader
+
+    def header(stage: str | None) -> PageHeader:
+        return PageHeader(study_name=study.study.name, record_id=record.name, record_status=status, stage=stage, pages=pages)
+
+    pages = tuple((r.stage, f"{stage_stem(r.stage)}.html" if r.notebook else "", r.status) for r in results)
+    rendered = []
+    for run in results:
+        if not run.notebook:
+            rendered.append(run)
+            continue
+        target = record / "html" / f"{stage_stem(run.stage)}.html"
+        failure = _failure_sentence(run.error) if run.error else None
+        try:
+            render_html(record / run.notebook, target, show_code=show_code, failure=failure, page=header(run.stage))
+            rendered.append(dataclasses.replace(run, html=target.relative_to(record).as_posix()))
+        except RiskvetError as exc:
+            rendered.append(dataclasses.replace(run, html_error=str(exc)))
+            print(f"{run.stage}: no HTML rendering: {exc}", file=out)
+    pages = tuple((r.stage, Path(r.html).name if r.html else "", r.status) for r in rendered)
+    _write_index(record, study, header(None))
+    return rendered
+
+
+def _write_index(record: Path, study: Study, header: Any) -> None:
+    """The record's ``html/index.html``: the list of pages and the key results of every stage."""
+    from ..reporting import publish
+    from ..reporting.headlines import key_results
+    from ..reporting.html import STAGE_TITLES, write_index
+    from ..reporting.sentences.common import CAUTION
+
+    results = {}
+    for stage in STAGES:
+        path = record / "results" / f"{stage}.json"
+        if path.is_file():
+            results[stage] = json.loads(path.read_text(encoding="utf-8"))
+    rows = [
+        {"page": STAGE_TITLES.get(stage, stage), "status": _PAGE_STATUS.get(run_status, run_status)}
+        for stage, href, run_status in header.pages
+    ]
+    key = key_results(results, levels=tuple(study.outcome.levels))
+    key = key.assign(stage=key["stage"].map(lambda s: STAGE_TITLES.get(s, s))).rename(
+        columns={"stage": "page", "measure": "measure", "value": "value", "lower": "lower limit", "upper": "upper limit"}
+    )[["page", "measure", "value", "lower limit", "upper limit"]]
+    sections = [
+        ("Caution", f"<p>{html.escape(CAUTION.replace('**', ''))}</p>"),
+        ("Pages of this record", publish.table(pd.DataFrame(rows), caption="Each stage of the run and how it went; the links are in the header above.")._repr_html_()),
+        ("Key results", publish.table(key, caption="The headline numbers of each page; each page explains them and states the kind of every interval.")._repr_html_()),
+    ]
+    write_index(record / "html" / "index.html", header, sections=sections)
+
+
+_PAGE_STATUS = {"ok": "done", "failed": "failed", "skipped": "not run (an earlier stage failed)", "not run": "not run", "interrupted": "interrupted"}
 
 
 def _now() -> datetime:
@@ -817,6 +884,11 @@ def run_study(
                 html=study.output.html, show_code=show_code, render_html=render_html, out=out,
             )
             with _signals_held():
+                if study.output.html and interrupted is None:
+                    results = _render_pages(
+                        record, study, results, status="failed" if failed else "complete", show_code=show_code,
+                        render_html=render_html, out=out,
+                    )
                 status = _finish_manifest(record, manifest, results, failed=failed, interrupted=interrupted)
         except KeyboardInterrupt:
             with _signals_held():
@@ -980,24 +1052,14 @@ def _run_stage(
         if watcher is not None:
             watcher.stop()
     seconds = round(time.perf_counter() - tick, 2)
-    rendered = html_error = None
-    if html and notebook.is_file() and interrupted is None:
-        target = record / "html" / f"{stage_stem(stage)}.html"
-        try:
-            render_html(notebook, target, show_code=show_code, failure=_failure_sentence(error) if error else None)
-            rendered = target.relative_to(record).as_posix()
-        except RiskvetError as exc:
-            html_error = str(exc)
     run = StageRun(
         stage=stage,
         status="interrupted" if interrupted is not None else ("failed" if error else "ok"),
         notebook=notebook.relative_to(record).as_posix() if notebook.is_file() else None,
-        html=rendered,
         seconds=seconds,
         started=_iso(begin),
         finished=_iso(_now()),
         error=error,
-        html_error=html_error,
     )
     return run, interrupted
 

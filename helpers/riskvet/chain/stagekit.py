@@ -22,11 +22,11 @@ from __future__ import annotations
 
 import json
 import types
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping
 
-from .._jsonable import to_jsonable
+from .._jsonable import positional_numbers, to_jsonable
 from ..errors import RecordError, RiskvetError, problem
 from ..intake.study import STAGES, Study, load_study
 
@@ -60,6 +60,12 @@ class StageContext:
         The frozen model file this stage uses (or, for the derivation stage,
         writes): ``record_dir/models/model.json`` unless the runner points at
         an earlier record's model.
+    warnings : list of str
+        The messages of warnings raised while the stage ran (each once, in
+        the order met), collected by :func:`open_stage` instead of printed,
+        so the page's notes can show them in words
+        (:func:`riskvet.reporting.publish.notes`) and no warning line with a
+        file path or class name reaches a page.
     """
 
     stage: str
@@ -67,6 +73,18 @@ class StageContext:
     study_path: Path
     record_dir: Path
     model_path: Path
+    warnings: list[str] = field(default_factory=list, compare=False, repr=False)
+
+    def collect_warnings(self) -> None:
+        """Collect warnings into :attr:`warnings` from now on, instead of printing them."""
+        import warnings as _warnings
+
+        def keep(message, category, filename, lineno, file=None, line=None):  # the signature warnings expects
+            words = str(message).strip()
+            if words and words not in self.warnings:
+                self.warnings.append(words)
+
+        _warnings.showwarning = keep
 
     @property
     def results_path(self) -> Path:
@@ -88,9 +106,10 @@ class StageContext:
         return path
 
     def write_results(self, results: Mapping[str, Any]) -> Path:
-        """Write this stage's results JSON (sorted keys; no NaN; no times or ids)."""
+        """Write this stage's results JSON (sorted keys; no NaN; no times or ids; no scientific notation)."""
         path = self.new_path(self.results_path)
         text = json.dumps(to_jsonable(dict(results)), indent=1, sort_keys=True, allow_nan=False, ensure_ascii=False)
+        text = positional_numbers(text)
         path.write_text(text + "\n", encoding="utf-8")
         return path
 
@@ -175,4 +194,6 @@ def open_stage(stage: str, namespace: Mapping[str, Any]) -> StageContext:
     for k, v in values.items():
         if not isinstance(v, str):
             raise RiskvetError(problem(f"{stage} notebook parameter {k}", allowed="a path as a string", received=v))
-    return stage_context(stage, **values)
+    context = stage_context(stage, **values)
+    context.collect_warnings()
+    return context
