@@ -697,7 +697,7 @@ def _render_pages(
 
 
 def _write_index(record: Path, study: Study, header: Any) -> None:
-    """The record's ``html/index.html``: the list of pages and the key results of every stage."""
+    """The record's ``html/index.html``: the pages with their status, then each page's key results."""
     from ..reporting import publish
     from ..reporting.headlines import key_results
     from ..reporting.html import STAGE_TITLES, write_index
@@ -708,19 +708,22 @@ def _write_index(record: Path, study: Study, header: Any) -> None:
         path = record / "results" / f"{stage}.json"
         if path.is_file():
             results[stage] = json.loads(path.read_text(encoding="utf-8"))
-    rows = [
-        {"page": STAGE_TITLES.get(stage, stage), "status": _PAGE_STATUS.get(run_status, run_status)}
-        for stage, href, run_status in header.pages
-    ]
-    key = key_results(results, levels=tuple(study.outcome.levels))
-    key = key.assign(stage=key["stage"].map(lambda s: STAGE_TITLES.get(s, s))).rename(
-        columns={"stage": "page", "measure": "measure", "value": "value", "lower": "lower limit", "upper": "upper limit"}
-    )[["page", "measure", "value", "lower limit", "upper limit"]]
+    rows = [{"page": STAGE_TITLES.get(stage, stage), "status": _PAGE_STATUS.get(state, state)} for stage, _, state in header.pages]
     sections = [
         ("Caution", f"<p>{html.escape(CAUTION.replace('**', ''))}</p>"),
-        ("Pages of this record", publish.table(pd.DataFrame(rows), caption="Each stage of the run and how it went; the links are in the header above.")._repr_html_()),
-        ("Key results", publish.table(key, caption="The headline numbers of each page; each page explains them and states the kind of every interval.")._repr_html_()),
+        ("Pages of this record", publish.table(pd.DataFrame(rows), caption="Each stage of the run and how it went.")._repr_html_()),
     ]
+    key = key_results(results, levels=tuple(study.outcome.levels))
+    for stage, href, _ in header.pages:
+        part = key[key["stage"] == stage]
+        if part.empty or not href:
+            continue
+        shown = part.rename(columns={"lower": "lower limit", "upper": "upper limit"})[["measure", "value", "lower limit", "upper limit"]]
+        if shown[["lower limit", "upper limit"]].isna().all().all():
+            shown = shown[["measure", "value"]]
+        link = f'<p><a href="{html.escape(href, quote=True)}">Open the page: {html.escape(STAGE_TITLES.get(stage, stage))}</a></p>'
+        caption = "Key numbers of this page; the page explains each and states the kind of every interval."
+        sections.append((STAGE_TITLES.get(stage, stage), link + publish.table(shown, caption=caption)._repr_html_()))
     write_index(record / "html" / "index.html", header, sections=sections)
 
 

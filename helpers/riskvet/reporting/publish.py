@@ -32,6 +32,7 @@ from numbers import Integral, Real
 from pathlib import Path
 from typing import Any, Iterable, Mapping, Sequence
 
+import numpy as np
 import pandas as pd
 
 from ..errors import RiskvetError, problem
@@ -107,7 +108,7 @@ def format_value(value: Any, kind: str = "auto", *, decimals: int = 3) -> str:
         raise RiskvetError(problem("format_value(kind)", allowed=f"one of {list(KINDS)}", received=kind))
     if _is_missing(value):
         return DASH
-    if isinstance(value, bool) or kind == "flag":
+    if isinstance(value, (bool, np.bool_)) or kind == "flag":
         if isinstance(value, str):
             return scrub(value)
         return "yes" if bool(value) else "no"
