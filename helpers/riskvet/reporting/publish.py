@@ -245,7 +245,7 @@ class Table:
 
 
 #: More columns than this are shown as several tables (see :meth:`Table.parts`).
-MAX_COLUMNS = 8
+MAX_COLUMNS = 7
 
 
 def _align(numeric: bool) -> str:
