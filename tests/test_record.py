@@ -29,7 +29,7 @@ from riskvet.chain.stagekit import stage_context
 from riskvet.chain.stages import summary as summary_stage
 from riskvet.intake.study import stage_stem
 from riskvet.reporting.headlines import flatten, headline_results, key_results
-from riskvet.reporting.tripod import LEFT_TO_THE_REPORT, TRIPOD_ITEMS, notebook_headings, tripod_table
+from riskvet.reporting.tripod import load_checklist, notebook_headings, tripod_table
 
 from test_runner import SMALL, write_fake_templates
 
@@ -292,8 +292,10 @@ def test_summary_of_a_partial_record(run_record):
     assert "Enabled in the study but not run in this record" in summary["texts"]["stages"]
     assert "not clearance for clinical use" in summary["texts"]["caution"]
     items = {row["item"]: row for row in summary["tripod"]["items"]}
-    assert items["15a"]["status"] == "answered" and items["15a"]["notebook"] == f"notebooks/{stage_stem('derivation')}.ipynb"
-    assert items["17"]["status"] == "stage not run in this record"
+    # the test derivation notebook has none of the real page's sections, so nothing is claimed from it
+    assert items["15a"]["status"] == "for the authors to write"
+    assert "the derivation page lacks the section \u201cFinal model\u201d" in items["15a"]["missing"]
+    assert items["17"]["status"] == "for the authors to write" and items["17"]["missing"] == "updating did not run in this record"
     assert str(run_record) not in json.dumps(summary)  # nothing depends on where the record is
 
 
@@ -328,7 +330,8 @@ def test_summary_stage_run_directly(tmp_path):
     assert out.model is None and out.texts["model"] == "The record holds no frozen model."
     tripod = out.tripod_frame()
     assert tripod.loc[tripod["item"] == "8", "status"].item() == "answered"
-    assert tripod.loc[tripod["item"] == "10e", "status"].item() == "stage not enabled in the study"
+    assert tripod.loc[tripod["item"] == "10e", "status"].item() == "for the authors to write"
+    assert tripod.loc[tripod["item"] == "10e", "what is missing"].item() == "updating is not enabled in the study"
     assert (record / "results" / "summary.json").is_file()
     with pytest.raises(RecordError, match="never overwritten"):
         summary_stage.run(ctx)
@@ -362,9 +365,9 @@ def test_tripod_table_locates_sections(tmp_path):
     assert notebook_headings(tmp_path / "notebooks" / f"{stage_stem('planning')}.ipynb") == ["Sample-size planning", "Developing the model"]
     table = tripod_table(tmp_path, results={"planning": {"n_development": 877}}, enabled=("planning", "derivation", "summary"))
     row = {r["item"]: r for r in table.rows}["8"]
-    assert row["section"] == "Developing the model" and row["results_key"] == "results/planning.json: n_development"
-    assert {r["item"] for r in table.rows} == {i.item for i in TRIPOD_ITEMS}
-    assert not set(LEFT_TO_THE_REPORT) & {i.item for i in TRIPOD_ITEMS}
+    assert row["status"] == "answered"
+    assert [p["link"] for p in row["places"]] == [f"{stage_stem('planning')}.html#Developing-the-model"]
+    assert [r["item"] for r in table.rows] == [i.item for i in load_checklist("TRIPOD 2015").items]
     assert isinstance(table.to_frame(), pd.DataFrame)
     with pytest.raises(RiskvetError, match="stages among"):
         tripod_table(tmp_path, results={}, enabled=("validation",))
