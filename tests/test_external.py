@@ -168,15 +168,39 @@ def test_subgroup_sizes_and_flags(shifted, model):
     for label, n in bands.items():
         assert sizes.loc[("age", label), "n"] == n
     for label, n in v["sex"].value_counts().items():
+        in_group = (v["sex"] == label).to_numpy()
+        top, bottom = int((y[in_group] == 2).sum()), int((y[in_group] == 0).sum())
         assert sizes.loc[("sex", label), "n"] == n
-        assert sizes.loc[("sex", label), "small"] == (n < 100)
+        assert (sizes.loc[("sex", label), "n_top"], sizes.loc[("sex", label), "n_bottom"]) == (top, bottom)
+        # too small when fewer than 100 patients, or fewer than 100 events or non-events at some cut:
+        # the scarcest are the top level (events of the top cut) and the bottom level (non-events of the lowest)
+        assert sizes.loc[("sex", label), "few_events"] == (min(top, bottom) < 100)
+        assert sizes.loc[("sex", label), "small"] == (n < 100 or min(top, bottom) < 100)
     assert sizes.loc[("age", "< 30"), "n_top"] == int(((v["age"] < 30) & (y == 2)).sum())
     # every subgroup has every measure; small ones are flagged on every row
     assert set(result.subgroups.groupby(["column", "group"]).size()) == {len(result.performance)}
-    small = validate_cohort(model, v, y, subgroups=[SubgroupSpec("age", (30, 50))], min_subgroup_size=200, n_boot=0)
+    small = validate_cohort(model, v, y, subgroups=[SubgroupSpec("age", (30, 50))], min_subgroup_size=200, min_subgroup_events=1, n_boot=0)
     flagged = small.subgroup_sizes.set_index("group")["small"]
     assert flagged["< 30"] == (bands["< 30"] < 200) and flagged["30 to < 50"] == (bands["30 to < 50"] < 200)
     assert "flagged" in cohort_summary(small)
+
+
+def test_a_subgroup_with_many_patients_but_few_events_is_flagged(model):
+    # 600 patients of whom about 5% reach the top level: enough people, too few events to read calibration
+    v = demo.draw(3000, season="validation", seed=35)
+    y = codes(v)
+    loose = validate_cohort(model, v, y, subgroups=[SubgroupSpec("sex")], min_subgroup_size=10, min_subgroup_events=10, n_boot=0)
+    strict = validate_cohort(model, v, y, subgroups=[SubgroupSpec("sex")], min_subgroup_size=10, n_boot=0)
+    tops = strict.subgroup_sizes["n_top"]
+    assert (strict.subgroup_sizes["n"] >= 10).all() and (tops < 100).any()
+    assert strict.subgroup_sizes["few_events"].tolist() == (np.minimum(tops, strict.subgroup_sizes["n_bottom"]) < 100).tolist()
+    assert not loose.subgroup_sizes["small"].any()
+    from riskvet.reporting.sentences.external_validation import subgroup_sentence
+
+    text = subgroup_sentence(strict)
+    assert "at least 100 events and 100 non-events" in text and f"fewer than 100 with {demo.LEVELS[-1]}" in text
+    with pytest.raises(RiskvetError, match="min_subgroup_events"):
+        validate_cohort(model, v, y, min_subgroup_events=0, n_boot=0)
 
 
 def test_subgroup_masks_with_missing_values():
@@ -294,7 +318,7 @@ def test_external_validation_stage(record):
     ctx = stage_context("external_validation", study_path=study_path, record_dir=record_dir)
     out = external_validation.run(ctx)
     assert list(out.cohorts) == ["season-2026"]
-    assert set(out.texts) >= {"summary", "flow", "case_mix", "membership", "linear_predictor", "performance", "calibration", "thresholds", "decision", "subgroups", "rule", "caution"}
+    assert set(out.texts) >= {"summary", "flow", "case_mix", "membership", "linear_predictor", "performance", "calibration", "thresholds", "decision", "subgroups", "rule", "caution", "intervals"}
     assert "season-2026" in out.rule and out.rule["season-2026"].positive_from == "red"
     for path in out.figures.values():
         assert (record_dir / path).is_file() and (record_dir / path).with_suffix(".svg").is_file()
@@ -304,8 +328,9 @@ def test_external_validation_stage(record):
     assert saved["data"]["season-2026"]["n_analysed"] == out.cohorts["season-2026"].n
     assert str(record_dir.parent.parent) not in ctx.results_path.read_text()  # no file paths
     for frame in (out.flow_frame(), out.case_mix_frame(), out.membership_frame(), out.performance_frame(), out.calibration_frame(),
-                  out.threshold_frame(), out.subgroup_frame(), out.rule_frame(), out.rule_net_benefit_frame()):
-        assert isinstance(frame, pd.DataFrame) and len(frame) > 0
+                  out.threshold_frame(), out.subgroup_frame(), out.subgroup_sizes_frame(), out.rule_frame(), out.rule_net_benefit_frame(),
+                  out.guide, out.calibration_statistics("season-2026")):
+        assert isinstance(frame, pd.DataFrame) and len(frame) > 0 and isinstance(frame.index, pd.RangeIndex)
         # for reading: measures by name, outcomes in words, no cut numbers or missing-value markers
         assert "cut" not in frame.columns
         if "measure" in frame.columns:
@@ -334,7 +359,7 @@ def test_external_validation_notebook_template():
             assert cell["outputs"] == [] and cell["execution_count"] is None
     # every text a cell shows is one the stage writes
     keys = {k for c in cells for k in re.findall(r'out\.texts\["(\w+)"\]', c["source"])}
-    assert keys <= {"summary", "flow", "case_mix", "membership", "linear_predictor", "performance", "calibration", "thresholds", "decision", "subgroups", "rule", "caution"}
+    assert keys <= {"summary", "flow", "case_mix", "membership", "linear_predictor", "performance", "calibration", "thresholds", "decision", "subgroups", "rule", "caution", "intervals"}
     # each text is shown once, and the caution only in the first cell's markdown
     shown = [k for c in cells if c["cell_type"] == "code" for k in re.findall(r'out\.texts\["(\w+)"\]', c["source"])]
     assert len(shown) == len(set(shown)) and "caution" not in shown

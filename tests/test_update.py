@@ -452,13 +452,14 @@ def test_updating_stage_writes_new_model_files_and_refuses_a_second_run(record):
     assert "optimistic" in saved["texts"]["optimism"]
     assert all((record_dir / p).is_file() for p in out.figures.values())
     # tables for the notebook: updates, measures and outcomes in words, no missing-value markers
-    assert list(out.tests_frame().columns[:3]) == ["step", "simpler", "extensive"]
+    assert list(out.tests_frame().columns[:3]) == ["step", "simpler model", "tested against"]
     perf = out.performance_frame()
-    assert "original" in perf.columns and "original" in out.coefficients_frame().columns
+    assert "original, on the updating data" in perf.columns and "original model" in out.coefficients_frame().columns
+    assert not out.coefficients_frame()["parameter"].str.contains("|", regex=False).any()
     assert list(perf.columns[:2]) == ["measure", "outcome"] and not perf[["measure", "outcome"]].isna().any().any()
     assert not perf["measure"].str.contains("_").any() and "cut" not in perf.columns
     keys = [m for m in out.result.fits if "_" in m]
-    shown = " ".join([*out.texts.values(), *map(str, out.tests_frame()[["simpler", "extensive"]].to_numpy().ravel()),
+    shown = " ".join([*out.texts.values(), *map(str, out.tests_frame()[["simpler model", "tested against"]].to_numpy().ravel()),
                       *map(str, out.fits_frame()["update"]), *map(str, perf.columns), *map(str, out.coefficients_frame().columns)])
     assert not any(k in shown for k in keys)
     from riskvet.reporting.figures.external_validation import plot_update_calibration

@@ -259,6 +259,7 @@ def table(
     kinds: Mapping[str, str] | None = None,
     decimals: int | Mapping[str, int] = 3,
     empty: str = "There is nothing to show in this table for this study.",
+    interval: str | None = None,
 ) -> Table:
     """A DataFrame as a page shows it.
 
@@ -279,6 +280,11 @@ def table(
         Decimals of estimates, for all columns or per column name.
     empty : str
         The sentence shown when the table has no rows.
+    interval : str, optional
+        The kind of the intervals the table holds ("95% bootstrap percentile
+        interval"): columns of lower and upper limits (``X_lower`` and
+        ``X_upper``, ``lower`` and ``upper``) are joined into one column
+        ``X, <interval>`` showing "lower to upper".
 
     Returns
     -------
@@ -292,18 +298,68 @@ def table(
         return Table(columns=(), rows=(), numeric=(), caption=caption, empty=empty)
     if not isinstance(frame, pd.DataFrame):
         raise RiskvetError(problem("table(frame)", allowed="a pandas DataFrame or None", received=type(frame).__name__))
-    shown = _flatten(frame)
+    shown, pairs = _intervals(_flatten(frame), interval)
     columns, cells, numeric = [], [], []
     for position, name in enumerate(shown.columns):
         values = shown.iloc[:, position]
-        kind = _column_kind(str(name), values, kinds)
         places = decimals.get(str(name), 3) if isinstance(decimals, Mapping) else decimals
+        if name in pairs:
+            lower, upper = pairs[name]
+            columns.append(scrub(str(name)))
+            cells.append([_interval_cell(lo, hi, places) for lo, hi in zip(lower, upper)])
+            numeric.append(True)
+            continue
+        kind = _column_kind(str(name), values, kinds)
         columns.append(scrub(header_words(str(name))))
         cells.append([format_value(v, kind, decimals=places) for v in values])
         numeric.append(kind not in ("text", "flag") and bool(len(values)) and values.map(
             lambda v: _is_missing(v) or (isinstance(v, Real) and not isinstance(v, bool))).all())
     rows = tuple(zip(*cells)) if cells else ()
     return Table(columns=tuple(columns), rows=tuple(tuple(r) for r in rows), numeric=tuple(numeric), caption=caption, empty=empty)
+
+
+_LIMIT_NAMES = (("_lower", "_upper"), (" lower", " upper"), (", lower limit", ", upper limit"), (" (lower)", " (upper)"),
+                (" lower limit", " upper limit"))
+
+
+def _intervals(frame: pd.DataFrame, interval: str | None) -> tuple[pd.DataFrame, dict[str, tuple[list, list]]]:
+    """Columns of lower and upper limits joined into one interval column ("0.872 to 0.979") after their estimate.
+
+    ``X_lower``/``X_upper`` (or ``X lower``, ``X, lower limit`` ...) become
+    ``X, <interval>`` right after ``X``; plain ``lower``/``upper`` become one
+    column named ``<interval>``.  ``interval`` names the kind ("95% Wilson
+    interval"); without it the header says "interval".
+    """
+    words = interval or "interval"
+    names = [str(c) for c in frame.columns]
+    out, pairs, used = {}, {}, set()
+    for name in names:
+        if name in used:
+            continue
+        for low_suffix, high_suffix in ((low, high) for low, high in _LIMIT_NAMES):
+            low, high = f"{name}{low_suffix}", f"{name}{high_suffix}"
+            if low in names and high in names:
+                out[name] = frame[name]
+                joined = f"{header_words(name)}, {words}"
+                pairs[joined] = (list(frame[low]), list(frame[high]))
+                out[joined] = frame[name]
+                used.update({low, high})
+                break
+        else:
+            if name.lower() == "lower" and "upper" in [n.lower() for n in names]:
+                high = next(n for n in names if n.lower() == "upper")
+                pairs[words] = (list(frame[name]), list(frame[high]))
+                out[words] = frame[name]
+                used.update({name, high})
+            elif name not in used:
+                out[name] = frame[name]
+    return pd.DataFrame(out).reset_index(drop=True), pairs
+
+
+def _interval_cell(lower: Any, upper: Any, decimals: int) -> str:
+    if _is_missing(lower) or _is_missing(upper):
+        return DASH
+    return f"{format_value(lower, decimals=decimals)} to {format_value(upper, decimals=decimals)}"
 
 
 def _flatten(frame: pd.DataFrame) -> pd.DataFrame:

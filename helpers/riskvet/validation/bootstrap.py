@@ -85,15 +85,27 @@ _KINDS: dict[str, dict[str, Any]] = {
 }
 
 
+def _cut_words(levels: Sequence[str], j: int) -> str:
+    """The event of cut ``j`` of an ordered outcome in words: the top level, or "<level> or higher".
+
+    The same words as :func:`riskvet.reporting.labels.cut_label` (that layer
+    may not be imported here; a test keeps the two equal).
+    """
+    return str(levels[j + 1]) if j == len(levels) - 2 else f"{levels[j + 1]} or higher"
+
+
 def _measure_specs(levels: Sequence[str]) -> list[tuple[str, str, str]]:
-    """(key, label, kind) of every measure, in report order, for outcome ``levels``."""
+    """(key, label, kind) of every measure, in report order, for outcome ``levels``.
+
+    Labels name a cut by its event in words (``C (AUC), transferred``).
+    """
     K = len(levels)
     specs: list[tuple[str, str, str]] = []
     if K == 2:
         specs.append(("auc", "C statistic (AUC)", "concordance"))
     else:
         for j in range(K - 1):
-            specs.append((f"auc_cut{j}", f"AUC, P(>= {levels[j + 1]})", "concordance"))
+            specs.append((f"auc_cut{j}", f"C (AUC), {_cut_words(levels, j)}", "concordance"))
         specs += [
             ("average_cut_auc", "Average dichotomised C", "concordance"),
             ("ordinal_c", "Ordinal c-index", "concordance"),
@@ -102,21 +114,21 @@ def _measure_specs(levels: Sequence[str]) -> list[tuple[str, str, str]]:
     specs += [
         ("brier", "Brier score", "brier"),
         ("scaled_brier", "Scaled Brier score", "scaled_brier"),
-        ("nagelkerke_r2", "Nagelkerke R2", "r2"),
-        ("calibration_slope", "Calibration slope (linear predictor)", "slope"),
+        ("nagelkerke_r2", "Nagelkerke R²", "r2"),
+        ("calibration_slope", "Calibration slope of the linear predictor" + ("" if K == 2 else ", all levels"), "slope"),
     ]
     if K == 2:
         specs += [
             ("calibration_intercept", "Calibration-in-the-large", "intercept"),
-            ("ici", "Integrated calibration index", "ici"),
+            ("ici", "Integrated calibration index (ICI)", "ici"),
         ]
     else:
         for j in range(K - 1):
-            specs.append((f"calibration_slope_cut{j}", f"Calibration slope, P(>= {levels[j + 1]})", "slope"))
+            specs.append((f"calibration_slope_cut{j}", f"Calibration slope, {_cut_words(levels, j)}", "slope"))
         for j in range(K - 1):
-            specs.append((f"calibration_intercept_cut{j}", f"Calibration-in-the-large, P(>= {levels[j + 1]})", "intercept"))
+            specs.append((f"calibration_intercept_cut{j}", f"Calibration-in-the-large, {_cut_words(levels, j)}", "intercept"))
         for j in range(K - 1):
-            specs.append((f"ici_cut{j}", f"ICI, P(>= {levels[j + 1]})", "ici"))
+            specs.append((f"ici_cut{j}", f"ICI, {_cut_words(levels, j)}", "ici"))
     return specs
 
 

@@ -43,6 +43,7 @@ __all__ = [
     "run_replicates",
     "measure_label",
     "calibration_label",
+    "MIN_SUBGROUP_EVENTS",
 ]
 
 #: Measures shown in performance tables, in order (keys of performance_summary without the cut suffix).
@@ -69,9 +70,13 @@ _MEASURE_LABELS = {
     "ici": "integrated calibration index",
     "brier": "Brier score",
     "scaled_brier": "scaled Brier score",
-    "nagelkerke_r2": "Nagelkerke R2",
+    "nagelkerke_r2": "Nagelkerke R²",
 }
 
+
+#: Fewest events, and fewest non-events, at any cut for a subgroup's calibration
+#: to be read (Vergouwe et al. 2005; Collins, Ogundimu & Altman 2016).
+MIN_SUBGROUP_EVENTS = 100
 
 #: Measures of the ordered outcome as a whole that equal the cut's C when there are two levels.
 _ORDINAL_ONLY = ("average_cut_auc", "ordinal_c", "generalised_c")
@@ -381,12 +386,16 @@ class CohortValidation:
         ordered outcome (average dichotomised C, ordinal c-index,
         generalised C) are left out: they equal the C statistic.
     subgroups : DataFrame
-        The same measures per subgroup with ``column``, ``group``, ``n``,
-        ``n_top`` (patients in the highest level), ``small`` (n below
-        ``min_subgroup_size``: flagged, not to be over-read) before them.
+        The same measures per subgroup with the columns of
+        ``subgroup_sizes`` before them.
     subgroup_sizes : DataFrame
-        ``column``, ``group``, ``n``, ``n_top``, ``small``, one row per group,
-        and a row ``group = "(missing)"`` when values are missing.
+        ``column``, ``group``, ``n``, ``n_top`` (patients in the highest
+        level), ``n_bottom`` (patients in the lowest level), ``few_events``
+        (at some cut fewer than ``min_subgroup_events`` events or non-events:
+        min(n_bottom, n_top) below it), ``small`` (``few_events``, or n below
+        ``min_subgroup_size``: flagged, not to be over-read), one row per
+        group, and a row ``group = "(missing)"`` when values are missing
+        (counts by level -1: not measured).
     n_boot, seed : int
         Bootstrap replicates and seed.
     n_failed : int
@@ -395,6 +404,9 @@ class CohortValidation:
     confidence : float
     min_subgroup_size : int
     warnings : tuple of str
+    min_subgroup_events : int
+        Fewest events and non-events at every cut for a subgroup not to be
+        flagged ``few_events``.
     """
 
     label: str
@@ -415,6 +427,7 @@ class CohortValidation:
     confidence: float
     min_subgroup_size: int
     warnings: tuple[str, ...]
+    min_subgroup_events: int = MIN_SUBGROUP_EVENTS
 
     def to_frame(self) -> pd.DataFrame:
         """The headline measures with intervals, with a ``cohort`` column."""
@@ -473,6 +486,7 @@ class CohortValidation:
                 "n_failed": self.n_failed,
                 "confidence": self.confidence,
                 "min_subgroup_size": self.min_subgroup_size,
+                "min_subgroup_events": self.min_subgroup_events,
                 "warnings": list(self.warnings),
             }
         )
@@ -492,6 +506,7 @@ def validate_cohort(
     thresholds: Mapping[int, Sequence[float]] | None = None,
     subgroups: Sequence[Any] = (),
     min_subgroup_size: int = 100,
+    min_subgroup_events: int = MIN_SUBGROUP_EVENTS,
     n_boot: int = 200,
     seed: int = 0,
     confidence: float = 0.95,
@@ -516,6 +531,12 @@ def validate_cohort(
         :class:`SubgroupSpec` (or :class:`riskvet.study.Subgroup`) objects.
     min_subgroup_size : int, keyword-only
         Subgroups with fewer patients are flagged ``small``.
+    min_subgroup_events : int, keyword-only
+        Subgroups with fewer events or fewer non-events than this at some cut
+        are flagged ``few_events`` (and ``small``): their calibration cannot
+        be read.  The default, 100 of each, is the minimum for validating
+        calibration of Vergouwe et al. (2005) and Collins, Ogundimu & Altman
+        (2016).
     n_boot : int, keyword-only
         Bootstrap replicates (0: no intervals).
     seed : int, keyword-only
@@ -556,11 +577,23 @@ def validate_cohort(
 
     Vickers AJ, Elkin EB. Decision curve analysis: a novel method for
     evaluating prediction models. Medical Decision Making 2006;26(6):565-574.
+
+    Vergouwe Y, Steyerberg EW, Eijkemans MJC, Habbema JDF. Substantial
+    effective sample sizes were required for external validation studies of
+    predictive logistic regression models. Journal of Clinical Epidemiology
+    2005;58(5):475-483.
+
+    Collins GS, Ogundimu EO, Altman DG. Sample size considerations for the
+    external validation of a multivariable prognostic model: a resampling
+    study. Statistics in Medicine 2016;35(2):214-226.
     """
     func = "validate_cohort"
     n_boot, seed, confidence = _check_boot(n_boot, seed, confidence, func)
     if isinstance(min_subgroup_size, bool) or not isinstance(min_subgroup_size, (int, np.integer)) or min_subgroup_size < 1:
         raise RiskvetError(problem(f"{func}(min_subgroup_size=)", allowed="a whole number >= 1", received=min_subgroup_size))
+    if isinstance(min_subgroup_events, bool) or not isinstance(min_subgroup_events, (int, np.integer)) or min_subgroup_events < 1:
+        raise RiskvetError(problem(f"{func}(min_subgroup_events=)", allowed="a whole number >= 1", received=min_subgroup_events))
+    limits = (int(min_subgroup_size), int(min_subgroup_events))
     prob = apply_model(model, frame, label=label)
     levels = tuple(model.levels)
     K = len(levels)
@@ -571,7 +604,7 @@ def validate_cohort(
         raise RiskvetError(problem(f"{func}(thresholds=)", allowed=f"cuts 0..{K - 2}", received=bad))
 
     disc, cal, overall, tables, curves, notes = _whole_cohort_measures(yy, prob, thresholds, confidence=confidence)
-    masks, sizes = _subgroup_groups(frame, yy, subgroups, K=K, min_subgroup_size=min_subgroup_size)
+    masks, sizes = _subgroup_groups(frame, yy, subgroups, K=K, limits=limits)
 
     apparent = performance_summary(yy, prob)
     reps = run_replicates(_Replicate(yy, prob, masks), n_boot=n_boot, seed=seed, n_jobs=n_jobs, scheduler=scheduler) if n_boot else []
@@ -582,8 +615,7 @@ def validate_cohort(
         notes.append(f"bootstrap: {n_failed} of {n_boot} resamples lacked an outcome level and were left out")
     performance = pd.DataFrame(_order_rows(_interval_rows(apparent, whole, keys, confidence, levels)))
     performance["cut"] = performance["cut"].astype("Int64")
-    sub_table, sub_notes = _subgroup_table(masks, yy, prob, reps, keys=keys, confidence=confidence, levels=levels,
-                                           min_subgroup_size=min_subgroup_size)
+    sub_table, sub_notes = _subgroup_table(masks, yy, prob, reps, keys=keys, confidence=confidence, levels=levels, limits=limits)
     notes += sub_notes
     for note in notes:
         warnings.warn(note, RiskvetWarning, stacklevel=2)
@@ -606,6 +638,7 @@ def validate_cohort(
         confidence=confidence,
         min_subgroup_size=int(min_subgroup_size),
         warnings=tuple(dict.fromkeys(notes)),
+        min_subgroup_events=int(min_subgroup_events),
     )
 
 
@@ -647,25 +680,41 @@ def _whole_cohort_measures(yy: np.ndarray, prob: np.ndarray, thresholds: Mapping
     return disc, cal, overall, tables, curves, notes
 
 
+#: Columns describing a subgroup's size, before its measures.
+_SIZE_COLUMNS = ["column", "group", "n", "n_top", "n_bottom", "few_events", "small"]
+
+
+def _size_row(column: str, name: str, y_group: np.ndarray, K: int, limits: tuple[int, int]) -> dict[str, Any]:
+    """A subgroup's size and flags: events and non-events at the scarcest cut are min(n_bottom, n_top)."""
+    n_g = int(y_group.size)
+    n_top, n_bottom = int((y_group == K - 1).sum()), int((y_group == 0).sum())
+    few = min(n_top, n_bottom) < limits[1]
+    return {"column": column, "group": name, "n": n_g, "n_top": n_top, "n_bottom": n_bottom,
+            "few_events": bool(few), "small": bool(few or n_g < limits[0])}
+
+
 def _subgroup_groups(frame: pd.DataFrame, yy: np.ndarray, subgroups: Sequence[Any], *, K: int,
-                     min_subgroup_size: int) -> tuple[dict[tuple[str, str], np.ndarray], pd.DataFrame]:
-    """Row masks of every subgroup, keyed by (column, group), and the table of their sizes."""
+                     limits: tuple[int, int]) -> tuple[dict[tuple[str, str], np.ndarray], pd.DataFrame]:
+    """Row masks of every subgroup, keyed by (column, group), and the table of their sizes.
+
+    ``limits`` is (min_subgroup_size, min_subgroup_events).
+    """
     masks: dict[tuple[str, str], np.ndarray] = {}
     size_rows = []
     for spec in subgroups:
         groups, n_missing = subgroup_masks(frame, spec)
         for name, mask in groups:
-            n_g = int(mask.sum())
             masks[(spec.column, name)] = mask
-            size_rows.append({"column": spec.column, "group": name, "n": n_g, "n_top": int((yy[mask] == K - 1).sum()), "small": n_g < min_subgroup_size})
+            size_rows.append(_size_row(spec.column, name, yy[mask], K, limits))
         if n_missing:
-            size_rows.append({"column": spec.column, "group": "(missing)", "n": n_missing, "n_top": -1, "small": True})
-    return masks, pd.DataFrame(size_rows, columns=["column", "group", "n", "n_top", "small"])
+            size_rows.append({"column": spec.column, "group": "(missing)", "n": n_missing, "n_top": -1, "n_bottom": -1,
+                              "few_events": True, "small": True})
+    return masks, pd.DataFrame(size_rows, columns=_SIZE_COLUMNS)
 
 
 def _subgroup_table(masks: Mapping[tuple[str, str], np.ndarray], yy: np.ndarray, prob: np.ndarray,
                     reps: list[dict[tuple[str, str], dict[str, float] | None]], *, keys: Sequence[str], confidence: float,
-                    levels: Sequence[str], min_subgroup_size: int) -> tuple[pd.DataFrame, list[str]]:
+                    levels: Sequence[str], limits: tuple[int, int]) -> tuple[pd.DataFrame, list[str]]:
     """Every subgroup's measures with intervals from the same replicates as the whole cohort.
 
     Also returns a note for each subgroup that lacks an outcome level and so has no measures.
@@ -676,12 +725,12 @@ def _subgroup_table(masks: Mapping[tuple[str, str], np.ndarray], yy: np.ndarray,
     for (column, name), mask in masks.items():
         n_g = int(mask.sum())
         app = _summary_or_none(yy[mask], prob[mask], K) if n_g else None
-        info = {"column": column, "group": name, "n": n_g, "n_top": int((yy[mask] == K - 1).sum()), "small": n_g < min_subgroup_size}
+        info = _size_row(column, name, yy[mask], K, limits)
         if app is None and n_g:
             notes.append(f"subgroup {column} = {name}: not every outcome level occurs (n = {n_g}); measures not computed")
         for row in _order_rows(_interval_rows(app, [r[(column, name)] for r in reps], keys, confidence, levels)):
             sub_rows.append({**info, **row})
-    sub_cols = ["column", "group", "n", "n_top", "small", "measure", "label", "cut", "outcome", "estimate", "se", "lower", "upper", "n_boot_used"]
+    sub_cols = [*_SIZE_COLUMNS, "measure", "label", "cut", "outcome", "estimate", "se", "lower", "upper", "n_boot_used"]
     sub_table = pd.DataFrame(sub_rows, columns=sub_cols)
     sub_table["cut"] = sub_table["cut"].astype("Int64")
     return sub_table, notes

@@ -288,18 +288,25 @@ class UpdatePerformance:
         level was absent) and were left out.
     note : str
         Why the apparent figures are optimistic.
+    replicate_choices : dict of str to int
+        Method -> replicates (of those evaluated) in which the closed test
+        chose it.  The optimism is that of the whole procedure, whichever
+        update each replicate chose, so the corrected figures describe the
+        procedure as much as the update chosen on all the data.
     """
 
     table: pd.DataFrame = field(repr=False)
     n_boot: int
     n_failed: int
     note: str
+    replicate_choices: Mapping[str, int] = field(default_factory=dict)
 
     def to_frame(self) -> pd.DataFrame:
         return self.table.copy()
 
     def to_dict(self) -> dict[str, Any]:
-        return to_jsonable({"n_boot": self.n_boot, "n_failed": self.n_failed, "note": self.note, "rows": self.table})
+        return to_jsonable({"n_boot": self.n_boot, "n_failed": self.n_failed, "note": self.note, "rows": self.table,
+                            "replicate_choices": dict(self.replicate_choices)})
 
 
 @dataclass(frozen=True)
@@ -738,6 +745,11 @@ def extend(
 # ---------------------------------------------------------------------------
 
 
+def _p_text(p: float) -> str:
+    """A p-value for a sentence: ``p < 0.001`` or ``p = 0.070`` (3 decimals, no scientific notation)."""
+    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+
+
 def _compare(simpler: UpdateFit, extensive: UpdateFit, alpha: float, reached: bool) -> LRComparison:
     df = int(extensive.n_params - simpler.n_params)
     stat = max(0.0, 2.0 * (extensive.loglik - simpler.loglik))
@@ -813,7 +825,7 @@ def closed_test(fits: Mapping[str, UpdateFit] | Sequence[UpdateFit], *, alpha: f
         chosen = "original"
         reason = (
             f"The most extensive update ({most_name}) did not fit significantly better than the original model "
-            f"(LR {tests[0].statistic:.2f}, df {tests[0].df}, p = {tests[0].p:.3g}), so the original model is kept."
+            f"(LR {tests[0].statistic:.2f}, df {tests[0].df}, {_p_text(tests[0].p)}), so the original model is kept."
         )
     for simpler in ordered[1:-1]:
         t = _compare(simpler, most, a, chosen is None)
@@ -823,9 +835,9 @@ def closed_test(fits: Mapping[str, UpdateFit] | Sequence[UpdateFit], *, alpha: f
             if t.df > 0:
                 name = _phrase(simpler.method, binary)
                 reason = (
-                    f"The original model fits significantly worse than {most_name} (p = {tests[0].p:.3g}), and "
+                    f"The original model fits significantly worse than {most_name} ({_p_text(tests[0].p)}), and "
                     f"{name} is not significantly worse than {most_name} (LR {t.statistic:.2f}, df {t.df}, "
-                    f"p = {t.p:.3g}), so the simpler update is chosen."
+                    f"{_p_text(t.p)}), so the simpler update is chosen."
                 )
             else:
                 name = _phrase(simpler.method, binary)
@@ -834,7 +846,7 @@ def closed_test(fits: Mapping[str, UpdateFit] | Sequence[UpdateFit], *, alpha: f
         chosen = most.method
         reason = (
             f"The original model and every simpler update fit significantly worse than {most_name} "
-            f"(largest p = {max(t.p for t in tests if t.df > 0):.3g}), so {most_name} is chosen."
+            f"(largest {_p_text(max(t.p for t in tests if t.df > 0))}), so {most_name} is chosen."
         )
     return ClosedTest(alpha=a, most_extensive=most.method, tests=tuple(tests), chosen=chosen, reason=reason)
 
@@ -906,12 +918,13 @@ def _boot_replicate(model, frame, y, new_predictors, alpha, cohort, seed_seq):
         warnings.simplefilter("ignore", RiskvetWarning)
         try:
             fits = _fit_all(model, fb, yb, new_predictors=new_predictors, cohort=cohort)
-            chosen = fits[closed_test(fits, alpha=alpha).chosen].model
+            method = closed_test(fits, alpha=alpha).chosen
+            chosen = fits[method].model
             apparent = _summary(yb, chosen.predict_proba(fb))
             test = _summary(y, chosen.predict_proba(frame))
         except (RiskvetError, np.linalg.LinAlgError):
             return None
-    return {k: apparent[k] - test[k] for k in apparent}
+    return {"chosen": method, "optimism": {k: apparent[k] - test[k] for k in apparent}}
 
 
 def update_model(
@@ -1016,12 +1029,15 @@ def update_model(
     table["optimism"] = np.nan
     table["corrected"] = np.nan
     n_failed = 0
+    choices: dict[str, int] = {}
     if n_boot > 0:
         from .external import run_replicates
 
         reps = run_replicates(_UpdateReplicate(model, frame_used, yy, new_predictors, a, cohort), n_boot=int(n_boot), seed=int(seed), n_jobs=n_jobs, scheduler=scheduler)
-        ok = [r for r in reps if r is not None]
+        ok = [r["optimism"] for r in reps if r is not None]
         n_failed = len(reps) - len(ok)
+        choices = {m: sum(1 for r in reps if r is not None and r["chosen"] == m) for m in fits}
+        choices = {m: c for m, c in choices.items() if c}
         if ok:
             keys = list(ok[0])
             optimism = {k: float(np.nanmean([r[k] for r in ok])) for k in keys}
@@ -1032,7 +1048,7 @@ def update_model(
                 if key in optimism:
                     table.at[i, "optimism"] = optimism[key]
                     table.at[i, "corrected"] = table.at[i, "apparent"] - optimism[key]
-    performance = UpdatePerformance(table=table, n_boot=int(n_boot), n_failed=n_failed, note=_OPTIMISM_NOTE)
+    performance = UpdatePerformance(table=table, n_boot=int(n_boot), n_failed=n_failed, note=_OPTIMISM_NOTE, replicate_choices=choices)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RiskvetWarning)  # recorded on the calibration results
         before = ordinal_calibration(yy, model.predict_proba(frame_used))

@@ -27,11 +27,15 @@ from ..._jsonable import to_jsonable
 from ...validation.casemix import CaseMix, case_mix
 from ...intake.data import Cohorts, load_cohorts
 from ...errors import StudyError, problem
-from ...validation.external import CohortValidation, apply_model, validate_cohort
+from ...validation.external import CohortValidation, apply_model, calibration_label, validate_cohort
 from ...modelling.modelfile import PredictionModel, load_model
 from ...validation.rule import RuleComparison, compare_with_rule
 from ...intake.study import Study
-from ...reporting.sentences.external_validation import case_mix_sentence, cohort_summary, external_validation_texts, rule_summary
+from ...reporting.disclosure import SUPPRESSED, complementary_suppression
+from ...reporting.sentences.common import INTERVAL_KINDS, interval_words, measure_guide
+from ...reporting.sentences.external_validation import (
+    subgroup_shortfall, case_mix_sentence, cohort_summary, external_validation_texts, outcome_words, page_intervals, rule_summary,
+)
 
 __all__ = ["ExternalValidationOutput", "validate_external", "run", "figure_name", "label_slug"]
 
@@ -73,10 +77,14 @@ class ExternalValidationOutput:
     texts : dict of str to str
         One interpreting paragraph per notebook table or figure:
         ``summary``, ``flow``, ``case_mix``, ``membership``, ``linear_predictor``,
-        ``performance``, ``calibration``, ``thresholds``, ``decision``,
-        ``subgroups``, ``rule``, ``caution``.
+        ``performance``, ``calibration``, ``intervals`` (the kind of every
+        interval on the page), ``thresholds``, ``decision``, ``subgroups``,
+        ``rule``, ``caution``.
     notes : tuple of str
         Statistical warnings met, by cohort.
+    min_cell_count : int
+        ``output.min_cell_count``: subgroup counts from 1 to this minus 1 are
+        suppressed on the page and in the results file.
     """
 
     model_sha256: str
@@ -88,6 +96,7 @@ class ExternalValidationOutput:
     figures: Mapping[str, str]
     texts: Mapping[str, str]
     notes: tuple[str, ...]
+    min_cell_count: int = 0
 
     # -- tables for the notebook ------------------------------------------------------
     def flow_frame(self) -> pd.DataFrame:
@@ -107,48 +116,93 @@ class ExternalValidationOutput:
         """Linear predictor and membership-model summary, one row per cohort."""
         return pd.concat([cm.summary_frame() for cm in self.case_mix.values()], ignore_index=True)
 
-    # The frames below are for reading: measures by name, the outcome in
-    # words rather than cut numbers (the results JSON keeps the keys).
+    # The frames below are for reading: measures by name, the outcome in the
+    # user's level labels, headers in words, every interval named by its
+    # kind (one kind per measure, see page_intervals); the results JSON keeps the keys.
 
     def performance_frame(self) -> pd.DataFrame:
-        """Headline measures with bootstrap intervals, every cohort stacked.
+        """Headline measures with their intervals, every cohort stacked.
 
-        Columns ``cohort``, ``measure`` (display name), ``outcome``,
-        ``estimate``, ``se``, ``lower``, ``upper``, ``n_boot_used``.
+        Columns ``cohort``, ``measure``, ``outcome``, ``estimate``, ``lower
+        limit``, ``upper limit``, ``interval`` (its kind in words),
+        ``resamples used``.
         """
-        return pd.concat([_readable(c.to_frame()) for c in self.cohorts.values()], ignore_index=True)
+        return pd.concat([_performance_rows(c) for c in self.cohorts.values()], ignore_index=True)
 
     def calibration_frame(self) -> pd.DataFrame:
-        """Per-cut calibration summaries with model-based intervals, every cohort."""
-        return pd.concat([c.calibration_frame() for c in self.cohorts.values()], ignore_index=True)
+        """Per-outcome calibration summaries, every cohort, with the page's interval for each measure."""
+        return pd.concat([_calibration_rows(c) for c in self.cohorts.values()], ignore_index=True)
+
+    def calibration_statistics(self, label: str) -> pd.DataFrame:
+        """What a calibration figure's caption table states for cohort ``label``: calibration-in-the-large,
+        slope, observed/expected ratio and ICI per outcome, with the same intervals as the tables."""
+        if label not in self.cohorts:
+            raise StudyError(problem("calibration_statistics(label=)", allowed=f"a validation cohort among {list(self.cohorts)}", received=label))
+        rows = _calibration_rows(self.cohorts[label])
+        keep = rows["measure"].isin([calibration_label(m) for m in _CAPTION_MEASURES])
+        return rows[keep].drop(columns="cohort").reset_index(drop=True)
 
     def threshold_frame(self) -> pd.DataFrame:
-        """Classification at the study's thresholds, every cohort."""
-        return pd.concat([c.threshold_frame().drop(columns="cut") for c in self.cohorts.values()], ignore_index=True)
+        """Classification at the study's thresholds, every cohort, headers in words."""
+        parts = []
+        for c in self.cohorts.values():
+            for cut, tab in c.threshold_tables.items():
+                f = tab.to_frame().rename(columns=_THRESHOLD_COLUMNS)
+                f.insert(0, "outcome", outcome_words(c.levels, cut))
+                f.insert(0, "cohort", c.label)
+                f["interval"] = interval_words(tab.interval, tab.confidence) if tab.interval in INTERVAL_KINDS else tab.interval
+                parts.append(f)
+        return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=["cohort", "outcome", "threshold"])
+
+    def subgroup_sizes_frame(self) -> pd.DataFrame:
+        """One row per subgroup: patients and patients at the top level (counts below
+        ``output.min_cell_count`` suppressed, with what would reveal them), and whether it is too small to read, and why."""
+        return pd.concat([_published_sizes(c, self.min_cell_count) for c in self.cohorts.values()], ignore_index=True)
 
     def subgroup_frame(self) -> pd.DataFrame:
-        """Subgroup measures (``small`` flags subgroups too small to read), every cohort.
-
-        ``n_top`` is named after the highest outcome level (``n <level>``).
-        """
-        parts = []
-        for label, c in self.cohorts.items():
-            t = _readable(c.subgroups).rename(columns={"n_top": f"n {c.levels[-1]}"})
-            t.insert(0, "cohort", label)
-            parts.append(t)
+        """Subgroup measures with the page's intervals (counts are in :meth:`subgroup_sizes_frame`), every cohort."""
+        parts = [_subgroup_rows(c) for c in self.cohorts.values() if len(c.subgroups)]
         return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()
 
     def rule_frame(self) -> pd.DataFrame:
-        """Model against rule: C per cut with the DeLong test and bootstrap interval."""
-        if not self.rule:
-            return pd.DataFrame()
-        return pd.concat([r.to_frame().drop(columns="cut") for r in self.rule.values()], ignore_index=True)
+        """Model against rule: C per outcome with the difference, its interval (kind named) and DeLong's test."""
+        parts = []
+        for label, r in self.rule.items():
+            levels = self.cohorts[label].levels
+            boot = r.n_boot > 0
+            for row in r.concordance_table.itertuples():
+                parts.append({
+                    "cohort": label, "outcome": outcome_words(levels, row.cut), "C of the model": row.c_model, "C of the rule": row.c_rule,
+                    "difference": row.difference, "lower limit": row.boot_lower if boot else row.lower,
+                    "upper limit": row.boot_upper if boot else row.upper,
+                    "interval": interval_words("bootstrap" if boot else "delong", r.confidence), "p (DeLong test)": row.pvalue,
+                })
+        return pd.DataFrame(parts)
 
     def rule_net_benefit_frame(self) -> pd.DataFrame:
-        """Model against rule: net benefit at the study's thresholds."""
-        if not self.rule:
-            return pd.DataFrame()
-        return pd.concat([r.net_benefit_frame().drop(columns="cut") for r in self.rule.values()], ignore_index=True)
+        """Model against rule: net benefit at the study's thresholds, with the bootstrap interval of the difference."""
+        parts = []
+        for label, r in self.rule.items():
+            levels = self.cohorts[label].levels
+            for row in r.net_benefit_table.itertuples():
+                parts.append({
+                    "cohort": label, "outcome": outcome_words(levels, row.cut), "threshold": row.threshold,
+                    "net benefit of the model": row.nb_model, "net benefit of the rule": row.nb_rule,
+                    "net benefit of treating everybody": row.nb_treat_all, "difference": row.difference,
+                    "lower limit": row.boot_lower, "upper limit": row.boot_upper,
+                    "interval": interval_words("bootstrap", r.confidence),
+                })
+        return pd.DataFrame(parts)
+
+    @property
+    def guide(self) -> pd.DataFrame:
+        """What good looks like for each measure on the page (:func:`~riskvet.reporting.sentences.common.measure_guide`)."""
+        first = next(iter(self.cohorts.values()))
+        keys = list(dict.fromkeys(first.performance["measure"]))
+        keys += ["oe_ratio", "e50", "e90", "emax", "net_benefit"]
+        if any(c.threshold_tables for c in self.cohorts.values()):
+            keys += ["sensitivity", "specificity", "ppv", "npv"]
+        return measure_guide(keys, n_levels=len(first.levels))
 
     def to_frame(self) -> pd.DataFrame:
         return self.performance_frame()
@@ -158,9 +212,11 @@ class ExternalValidationOutput:
             {
                 "model_sha256": self.model_sha256,
                 "data": {k: dict(v) for k, v in self.data.items()},
-                "cohorts": {k: {**v.to_dict(), "summary": cohort_summary(v)} for k, v in self.cohorts.items()},
+                "cohorts": {k: {**v.to_dict(), **_published_subgroups(v, self.min_cell_count), "summary": cohort_summary(v)}
+                            for k, v in self.cohorts.items()},
+                "min_cell_count": self.min_cell_count,
                 "case_mix": {k: {**v.to_dict(), "interpretation": case_mix_sentence(v)} for k, v in self.case_mix.items()},
-                "rule": {k: {**v.to_dict(), "summary": rule_summary(v)} for k, v in self.rule.items()},
+                "rule": {k: {**v.to_dict(), "summary": rule_summary(v, outcome_levels=self.cohorts[k].levels)} for k, v in self.rule.items()},
                 "figures": dict(self.figures),
                 "texts": dict(self.texts),
                 "notes": list(self.notes),
@@ -168,9 +224,133 @@ class ExternalValidationOutput:
         )
 
 
-def _readable(table: pd.DataFrame) -> pd.DataFrame:
-    """A performance table for reading: the display name as ``measure``, no key or cut number."""
-    return table.drop(columns=["measure", "cut"]).rename(columns={"label": "measure"})
+#: Calibration summaries a figure caption states.
+_CAPTION_MEASURES = ("calibration_in_the_large", "slope", "oe_ratio", "ici")
+
+#: Calibration summaries (``OrdinalCalibration.to_frame`` measures) under the performance key of their interval.
+_CALIBRATION_KEYS = {"calibration_in_the_large": "calibration_intercept", "slope": "calibration_slope", "ici": "ici", "oe_ratio": "oe_ratio"}
+
+_THRESHOLD_COLUMNS = {
+    "threshold": "threshold", "tp": "true positives", "fp": "false positives", "fn": "false negatives", "tn": "true negatives",
+    **{f"{m}{end}": f"{words}{tail}" for m, words in (
+        ("sensitivity", "sensitivity"), ("specificity", "specificity"), ("ppv", "positive predictive value"),
+        ("npv", "negative predictive value"), ("lr_positive", "positive likelihood ratio"), ("lr_negative", "negative likelihood ratio"))
+       for end, tail in (("", ""), ("_lower", ", lower limit"), ("_upper", ", upper limit"))},
+}
+
+_INTERVAL_COLUMNS = ["lower limit", "upper limit", "interval"]
+
+
+def _lookup(intervals: pd.DataFrame, measure: str, cut: Any) -> tuple[float, float, str | None]:
+    rows = intervals[(intervals["measure"] == measure) & (intervals["cut"].isna() if cut is None else intervals["cut"] == cut)]
+    if not len(rows):
+        return float("nan"), float("nan"), None
+    r = rows.iloc[0]
+    return float(r["lower"]), float(r["upper"]), r["kind"]
+
+
+def _words(kind: str | None, confidence: float) -> str | None:
+    return interval_words(kind, confidence) if kind else None
+
+
+def _performance_rows(c: CohortValidation) -> pd.DataFrame:
+    intervals = page_intervals(c)
+    rows = []
+    for r in c.performance.itertuples():
+        cut = None if pd.isna(r.cut) else int(r.cut)
+        lo, hi, kind = _lookup(intervals, r.measure, cut)
+        rows.append({"cohort": c.label, "measure": r.label, "outcome": outcome_words(c.levels, cut), "estimate": r.estimate,
+                     "lower limit": lo, "upper limit": hi, "interval": _words(kind, c.confidence),
+                     "resamples used": r.n_boot_used if kind == "bootstrap" else None})
+    return pd.DataFrame(rows, columns=["cohort", "measure", "outcome", "estimate", *_INTERVAL_COLUMNS, "resamples used"])
+
+
+def _calibration_rows(c: CohortValidation) -> pd.DataFrame:
+    table = c.calibration.to_frame()
+    if len(c.levels) == 2:
+        table = table[~table["measure"].str.startswith("ordinal_")]
+    intervals = page_intervals(c)
+    rows = []
+    for r in table.itertuples():
+        cut = None if pd.isna(r.cut) else int(r.cut)
+        key = _CALIBRATION_KEYS.get(r.measure)
+        lo, hi, kind = _lookup(intervals, key, cut) if key else (float("nan"), float("nan"), None)
+        rows.append({"cohort": c.label, "outcome": outcome_words(c.levels, cut), "measure": calibration_label(r.measure),
+                     "estimate": r.estimate, "lower limit": lo, "upper limit": hi, "interval": _words(kind, c.confidence)})
+    return pd.DataFrame(rows, columns=["cohort", "outcome", "measure", "estimate", *_INTERVAL_COLUMNS])
+
+
+def _subgroup_rows(c: CohortValidation) -> pd.DataFrame:
+    t = c.subgroups
+    kind = _words("bootstrap", c.confidence) if c.n_boot > 0 else None
+    has = t["lower"].notna().to_numpy() & t["upper"].notna().to_numpy()
+    return pd.DataFrame({
+        "cohort": c.label, "subgroup": t["column"].to_numpy(), "group": t["group"].to_numpy(),
+        "too small to read": t["small"].to_numpy(dtype=bool), "measure": t["label"].to_numpy(),
+        "outcome": [outcome_words(c.levels, None if pd.isna(x) else int(x)) for x in t["cut"]],
+        "estimate": t["estimate"].to_numpy(), "lower limit": t["lower"].to_numpy() if kind else float("nan"),
+        "upper limit": t["upper"].to_numpy() if kind else float("nan"),
+        "interval": [kind if ok else None for ok in has],
+    })
+
+
+def _suppressed_counts(c: CohortValidation, m: int) -> dict[tuple[int, int], int | str]:
+    """Subgroup counts as published: (row of subgroup_sizes, 0 = patients / 1 = at the top level) -> count or SUPPRESSED.
+
+    Lines for :func:`~riskvet.reporting.disclosure.complementary_suppression`:
+    each group's patients are its top-level patients plus the rest, and each
+    subgroup definition's groups add up to the cohort (published in the
+    participant flow), so a hidden count cannot be recovered by subtraction.
+    """
+    sizes = c.subgroup_sizes.reset_index(drop=True)
+    counts: dict[tuple[int, int], int] = {}
+    lines: list[list[tuple[int, int]]] = []
+    totals: set[tuple[int, int]] = set()
+    for i, r in sizes.iterrows():
+        counts[(i, 0)] = int(r["n"])
+        if r["n_top"] >= 0:
+            counts[(i, 1)], counts[(i, 2)] = int(r["n_top"]), int(r["n"] - r["n_top"])
+            lines.append([(i, 1), (i, 2), (i, 0)])
+    for d, (_, group) in enumerate(sizes.groupby("column", sort=False)):
+        rows = list(group.index)
+        total = (-1 - d, 0)
+        counts[total] = int(group["n"].sum())
+        totals.add(total)
+        lines.append([(i, 0) for i in rows] + [total])
+        if (group["n_top"] >= 0).all():
+            for col in (1, 2):
+                counts[(-1 - d, col)] = sum(counts[(i, col)] for i in rows)
+                totals.add((-1 - d, col))
+                lines.append([(i, col) for i in rows] + [(-1 - d, col)])
+    hidden = complementary_suppression(counts, lines, m) if m > 1 else set()
+    if hidden & totals:  # a cohort total is published elsewhere: hide the whole definition's counts instead
+        hidden |= {cell for cell in counts if cell[0] >= 0}
+    return {cell: (SUPPRESSED if cell in hidden else n) for cell, n in counts.items() if cell[0] >= 0 and cell[1] < 2}
+
+
+def _published_sizes(c: CohortValidation, m: int) -> pd.DataFrame:
+    sizes = c.subgroup_sizes.reset_index(drop=True)
+    shown = _suppressed_counts(c, m)
+    return pd.DataFrame({
+        "cohort": c.label, "subgroup": sizes["column"], "group": sizes["group"],
+        "patients": [shown[(i, 0)] for i in range(len(sizes))],
+        f"patients with {c.levels[-1]}": [shown.get((i, 1)) for i in range(len(sizes))],
+        "too small to read": sizes["small"].astype(bool),
+        "why": [("not measured" if r.group == "(missing)" else subgroup_shortfall(c, r)) or None for r in sizes.itertuples()],
+    }, dtype=object)
+
+
+def _published_subgroups(c: CohortValidation, m: int) -> dict[str, Any]:
+    """The results file's subgroup tables with the counts suppressed as on the page (and no bottom-level counts)."""
+    shown = _suppressed_counts(c, m)
+    sizes = c.subgroup_sizes.reset_index(drop=True).drop(columns="n_bottom").astype(object)
+    sizes["n"] = [shown[(i, 0)] for i in range(len(sizes))]
+    sizes["n_top"] = [shown.get((i, 1)) for i in range(len(sizes))]
+    by_group = {(r.column, r.group): (r.n, r.n_top) for r in sizes.itertuples()}
+    subgroups = c.subgroups.drop(columns="n_bottom").astype(object)
+    subgroups["n"] = [by_group[(a, b)][0] for a, b in zip(subgroups["column"], subgroups["group"])]
+    subgroups["n_top"] = [by_group[(a, b)][1] for a, b in zip(subgroups["column"], subgroups["group"])]
+    return {"subgroup_sizes": to_jsonable(sizes), "subgroups": to_jsonable(subgroups)}
 
 
 def _thresholds(study: Study) -> dict[int, tuple[float, ...]]:
@@ -264,7 +444,7 @@ def run(ctx) -> ExternalValidationOutput:
 
     save("case_mix", plot_case_mix(list(results["case_mix"].values())))
     for label, c in results["cohorts"].items():
-        save(figure_name("calibration", label), plot_cohort_calibration(c))
+        save(figure_name("calibration", label), plot_cohort_calibration(c, min_cell_count=study.output.min_cell_count))
         save(figure_name("decision", label), plot_cohort_decision_curves(c, results["rule"].get(label)))
         if len(c.subgroups):
             save(figure_name("subgroups", label), plot_subgroups(c))
@@ -287,6 +467,7 @@ def run(ctx) -> ExternalValidationOutput:
         figures=figures,
         texts=external_validation_texts(results, subgroups_named=bool(study.external_validation.subgroups)),
         notes=tuple(notes),
+        min_cell_count=study.output.min_cell_count,
     )
     ctx.write_results(out.to_dict())
     return out

@@ -24,6 +24,7 @@ executed notebook holds none.
 
 from __future__ import annotations
 
+import dataclasses
 import sys
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -37,21 +38,23 @@ from ...validation.bootstrap import InternalValidation, validate_internally, wri
 from ...validation.crossval import CrossValidation, cross_validate
 from ...intake.data import load_cohorts
 from ...modelling.modelfile import load_model
-from ...reporting.sentences.internal_validation import internal_validation_summary, internal_validation_texts
+from ...reporting.sentences.common import judge_change, measure_guide
+from ...reporting.sentences.internal_validation import BASE_KEYS, SHOWN_632PLUS, internal_validation_summary, internal_validation_texts
 
-__all__ = ["InternalValidationOutput", "crossval_seed", "run"]
+__all__ = ["InternalValidationOutput", "ESTIMATE_COLUMNS", "SHOWN_632PLUS", "crossval_seed", "run"]
 
-#: Columns of the concise estimates table shown in the notebook.
-_TABLE_COLUMNS = {
-    "label": "measure",
-    "apparent": "apparent",
-    "optimism": "optimism",
-    "corrected": "optimism-corrected",
-    "estimate_632plus": ".632+",
-    "optimism_lower": "optimism 2.5%",
-    "optimism_upper": "optimism 97.5%",
-    "n_replicates": "replicates",
-}
+#: Headers of the estimates table, in words.
+ESTIMATE_COLUMNS = (
+    "measure",
+    "in the derivation data",
+    "expected in new patients (optimism-corrected)",
+    "change",
+    "expected in new patients compared with the derivation data",
+    "change, 2.5th percentile of replicates",
+    "change, 97.5th percentile of replicates",
+    ".632+ estimate",
+    "replicates used",
+)
 
 
 def crossval_seed(seed: int) -> int:
@@ -83,7 +86,13 @@ class InternalValidationOutput:
     figures : dict of str to str
         Figure name -> PNG path relative to the record folder.
     texts : dict of str to str
-        Interpreting sentences for the notebook.
+        Interpreting sentences for the notebook: ``summary``, ``table``
+        (the direction of each measure's change), ``estimator_632plus``
+        (where the .632+ estimate is shown and why not elsewhere),
+        ``optimism_figure``, ``shrinkage``, ``stability``, ``failures``,
+        ``crossval``, ``shrunken_model``.
+
+    The reading guide for the page's measures is :attr:`guide`.
     """
 
     validation: InternalValidation
@@ -99,23 +108,45 @@ class InternalValidationOutput:
         return self.texts.get("summary", internal_validation_summary(self.validation))
 
     def to_frame(self) -> pd.DataFrame:
-        """Concise estimates table: one row per measure, rounded for reading."""
-        table = self.validation.to_frame()[list(_TABLE_COLUMNS)].rename(columns=_TABLE_COLUMNS)
-        numeric = [c for c in table.columns if c not in ("measure", "replicates")]
-        table[numeric] = table[numeric].round(3)
-        return table
+        """The estimates table, one row per measure, headers in words.
+
+        Columns :data:`ESTIMATE_COLUMNS`: the value in the derivation data
+        (apparent), the value expected in new patients (apparent minus
+        optimism), the change between them, whether that is better or worse
+        for the measure (higher, lower or closer to its ideal, see
+        :func:`riskvet.reporting.sentences.common.judge_change`), the central
+        95% of the per-replicate change (a spread of replicates, not a
+        confidence interval), the .632+ estimate where it is defined
+        (:data:`SHOWN_632PLUS`; missing otherwise) and the replicates averaged.
+        """
+        rows = []
+        for e in self.validation.estimates:
+            rows.append(dict(zip(ESTIMATE_COLUMNS, (
+                e.label, e.apparent, e.corrected, e.corrected - e.apparent,
+                judge_change(BASE_KEYS[e.kind], e.apparent, e.corrected),
+                -e.optimism_upper, -e.optimism_lower,
+                e.estimate_632plus if e.kind in SHOWN_632PLUS else float("nan"),
+                e.n_replicates,
+            ))))
+        return pd.DataFrame(rows, columns=list(ESTIMATE_COLUMNS))
+
+    @property
+    def guide(self) -> pd.DataFrame:
+        """What good looks like for each measure of the page (:func:`~riskvet.reporting.sentences.common.measure_guide`)."""
+        keys = [BASE_KEYS[e.kind] if e.kind != "concordance" else e.measure for e in self.validation.estimates]
+        return measure_guide(keys, n_levels=self.validation.n_levels)
 
     def crossval_frame(self) -> pd.DataFrame | None:
-        """Cross-validated estimates beside the bootstrap-corrected ones, or None."""
+        """Cross-validated estimates beside the bootstrap-corrected ones (headers in words), or None."""
         if self.crossval is None:
             return None
         cv = self.crossval.to_frame()[["measure", "label", "apparent", "pooled", "averaged", "averaged_sd"]]
-        boot = self.validation.to_frame()[["measure", "corrected"]].rename(columns={"corrected": "bootstrap corrected"})
-        table = cv.merge(boot, on="measure", how="left").drop(columns="measure").rename(
-            columns={"label": "measure", "pooled": "CV pooled", "averaged": "CV averaged", "averaged_sd": "CV fold SD"}
-        )
-        numeric = [c for c in table.columns if c != "measure"]
-        table[numeric] = table[numeric].round(3)
+        boot = self.validation.to_frame()[["measure", "corrected"]]
+        table = cv.merge(boot, on="measure", how="left").drop(columns="measure")
+        table.columns = [
+            "measure", "in the derivation data", "cross-validated, pooled held-out predictions",
+            "cross-validated, average over folds", "standard deviation over folds", "bootstrap optimism-corrected",
+        ]
         return table
 
     def to_dict(self) -> dict[str, Any]:
@@ -143,6 +174,16 @@ def _model_check(ctx, validation: InternalValidation) -> str:
         f"the record's frozen model has terms {frozen}, but the procedure selects {list(validation.stability.apparent_terms)} "
         "on these data: the validation describes the procedure, not that model"
     )
+
+
+def _as_shown(validation: InternalValidation) -> InternalValidation:
+    """The validation as the page draws it: a .632+ estimate only for the kinds in ``SHOWN_632PLUS``.
+
+    The results file keeps every estimate; the figure and the table leave out
+    the ones the page explains are not meaningful.
+    """
+    estimates = tuple(e if e.kind in SHOWN_632PLUS else dataclasses.replace(e, estimate_632plus=float("nan")) for e in validation.estimates)
+    return dataclasses.replace(validation, estimates=estimates)
 
 
 def _on_terminal() -> bool:
@@ -211,7 +252,7 @@ def run(ctx) -> InternalValidationOutput:
         ctx.save_figure(fig, name)
         figures[name] = (ctx.figures_dir / f"{name}.png").relative_to(ctx.record_dir).as_posix()
 
-    save("optimism", plot_optimism(validation))
+    save("optimism", plot_optimism(_as_shown(validation)))
     save("calibration_slopes", plot_calibration_slopes(validation))
     save("selection_frequency", plot_selection_frequency(validation.stability))
 

@@ -26,10 +26,11 @@ from ...intake.data import load_cohorts
 from ...errors import StudyError, problem
 from ...modelling.modelfile import load_model, save_model
 from ...intake.study import Study
-from ...intake.outcome import cut_name
 from ...validation.external import measure_label
 from ...validation.update import UpdateResult, method_name, update_model
-from ...reporting.sentences.updating import updating_texts
+from ...reporting.sentences.common import measure_guide
+from ...reporting.sentences.external_validation import outcome_words
+from ...reporting.sentences.updating import CORRECTED_COLUMN, step_decision, updating_texts
 from .external_validation import figure_name, label_slug
 
 __all__ = ["UpdatingOutput", "run", "update_study_model"]
@@ -66,27 +67,40 @@ class UpdatingOutput:
         return method_name(method, binary=len(self._levels) == 2)
 
     def tests_frame(self) -> pd.DataFrame:
-        """Every likelihood-ratio test of the closed procedure, the updates by name."""
-        table = self.result.closed_test.to_frame()
-        for column in ("simpler", "extensive"):
-            table[column] = [self._name(m) for m in table[column]]
-        return table
+        """Every likelihood-ratio test of the closed procedure, in its order, with whether the procedure reached it.
+
+        The procedure stops at the first step that is not significant (or
+        at the first test, when the most extensive update is no better than
+        the original); later tests are computed but marked ``not reached``.
+        """
+        ct = self.result.closed_test
+        rows = []
+        for i, t in enumerate(ct.tests):
+            rows.append({
+                "step": i + 1, "simpler model": self._name(t.simpler), "tested against": self._name(t.extensive),
+                "likelihood-ratio statistic": t.statistic, "degrees of freedom": t.df, "p-value": t.p,
+                "reached by the procedure": "reached" if t.reached else "not reached",
+                "decision": step_decision(ct, i, binary=len(self._levels) == 2),
+            })
+        return pd.DataFrame(rows)
 
     def fits_frame(self) -> pd.DataFrame:
-        """One row per update: name, description, parameters estimated, log-likelihood, chosen, model file."""
+        """One row per update: name, what it re-estimates, parameters estimated, log-likelihood, chosen, model file."""
         table = self.result.to_frame()
-        files = [self.model_files.get(m, {}).get("path", "") for m in table["method"]]
-        table.insert(0, "update", [self._name(m) for m in table["method"]])
-        table = table.drop(columns="method").rename(columns={"label": "description"})
-        table["model_file"] = files
-        return table
+        return pd.DataFrame({
+            "update": [self._name(m) for m in table["method"]], "what it re-estimates": table["label"],
+            "parameters estimated": table["n_params"], "log-likelihood": table["loglik"], "chosen": table["chosen"].astype(bool),
+            "model file": [self.model_files.get(m, {}).get("path") for m in table["method"]],
+        })
 
     def performance_frame(self) -> pd.DataFrame:
-        """Measures on the updating data: one column per model (apparent), and the chosen model's corrected value.
+        """Measures on the updating data: one column per model (apparent), and the bootstrap-corrected value.
 
-        Rows are named in words (``measure``, ``outcome``); for a binary outcome
-        the measures of an ordered outcome, which equal the C statistic, are
-        left out.  Values are rounded to 3 decimals for reading.
+        Rows are named in words (``measure``, ``outcome`` in the user's level
+        labels); for a binary outcome the measures of an ordered outcome,
+        which equal the C statistic, are left out.  The corrected column is
+        the chosen update's apparent value minus the optimism of the whole
+        updating procedure (see :func:`~riskvet.reporting.sentences.updating.optimism_sentence`).
         """
         t = self.result.performance.to_frame()
         levels = self._levels
@@ -94,24 +108,34 @@ class UpdatingOutput:
         chosen = self.result.closed_test.chosen
         base = t[t["method"] == "original"].reset_index(drop=True)
         cuts = [None if pd.isna(c) else int(c) for c in base["cut"]]
-        rows = pd.DataFrame({"measure": [measure_label(m, K) for m in base["measure"]], "outcome": [cut_name(levels, c) for c in cuts]})
+        rows = pd.DataFrame({"measure": [measure_label(m, K) for m in base["measure"]], "outcome": [outcome_words(levels, c) for c in cuts]})
         for method in self.result.fits:
-            rows[self._name(method)] = t.loc[t["method"] == method, "apparent"].to_numpy()
-        rows[f"{self._name(chosen)} (bootstrap-corrected)"] = t.loc[t["method"] == chosen, "corrected"].to_numpy()
+            rows[f"{self._name(method)}, on the updating data"] = t.loc[t["method"] == method, "apparent"].to_numpy()
+        if self.result.performance.n_boot:
+            rows[CORRECTED_COLUMN] = t.loc[t["method"] == chosen, "corrected"].to_numpy()
         if K == 2:
             rows = rows[~base["measure"].isin(("average_cut_auc", "ordinal_c", "generalised_c")).to_numpy()].reset_index(drop=True)
-        numeric = [c for c in rows.columns if c not in ("measure", "outcome")]
-        rows[numeric] = rows[numeric].astype(float).round(3)
         return rows
 
     def coefficients_frame(self) -> pd.DataFrame:
-        """Thresholds and coefficients of the original and the chosen model side by side."""
-        table = self.result.fits["original"].model.coefficient_table().rename(columns={"estimate": "original"})
+        """Thresholds and coefficients of the original and the chosen model side by side, thresholds named by their cut."""
+        table = self.result.fits["original"].model.coefficient_table().rename(columns={"estimate": "original model"})
         chosen_fit = self.result.chosen
         if chosen_fit.method != "original":
             chosen = chosen_fit.model.coefficient_table().rename(columns={"estimate": self._name(chosen_fit.method)})
             table = table.merge(chosen, on="parameter", how="outer", sort=False)
+        names = {f"threshold {a}|{b}": f"threshold of {outcome_words(self._levels, j)}"
+                 for j, (a, b) in enumerate(zip(self._levels, self._levels[1:]))}
+        table["parameter"] = [names.get(p, p) for p in table["parameter"]]
         return table
+
+    @property
+    def guide(self) -> pd.DataFrame:
+        """What good looks like for each measure of the performance table."""
+        keys = list(dict.fromkeys(self.result.performance.table["measure"]))
+        if len(self._levels) == 2:
+            keys = [k for k in keys if k not in ("average_cut_auc", "ordinal_c", "generalised_c")]
+        return measure_guide(keys, n_levels=len(self._levels))
 
     def to_frame(self) -> pd.DataFrame:
         return self.fits_frame()

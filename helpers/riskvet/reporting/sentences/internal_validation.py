@@ -9,7 +9,13 @@ from __future__ import annotations
 import math
 from typing import Any
 
+from .common import judge_change, signed
+
 __all__ = [
+    "BASE_KEYS",
+    "SHOWN_632PLUS",
+    "estimates_sentence",
+    "estimator_632plus_sentence",
     "internal_validation_texts",
     "internal_validation_summary",
     "failure_sentence",
@@ -17,6 +23,81 @@ __all__ = [
     "stability_sentence",
     "crossval_sentence",
 ]
+
+
+#: Each kind of bootstrap measure as a measure key of the reading guide and of
+#: :func:`~riskvet.reporting.sentences.common.judge_change`.
+BASE_KEYS = {
+    "concordance": "auc", "brier": "brier", "scaled_brier": "scaled_brier", "r2": "nagelkerke_r2",
+    "ici": "ici", "slope": "calibration_slope", "intercept": "calibration_intercept",
+}
+
+#: Kinds of measure whose .632+ estimate a page shows: those with a
+#: no-information value in Efron & Tibshirani (1997) -- 0.5 for a C statistic,
+#: predictions paired at random with outcomes for the additive losses (Brier
+#: score, scaled Brier, R²).  Calibration slope and calibration-in-the-large
+#: are not error rates, and the ICI has no such value there.
+SHOWN_632PLUS = ("concordance", "brier", "scaled_brier", "r2")
+
+
+def estimates_sentence(validation: Any) -> str:
+    """What the estimates table shows, which way each measure moves, and where it moves the unexpected way.
+
+    Reads an :class:`~riskvet.validation.bootstrap.InternalValidation`: for
+    each measure, whether the value expected in new patients (apparent minus
+    optimism) is worse or better than in the derivation data, by the
+    measure's own direction (higher, lower, or closer to its ideal value).
+    """
+    text = (
+        f"Each row sets a measure in the derivation data beside the value expected in new patients from the same "
+        f"population: the derivation value minus its optimism, the average amount by which {validation.n_succeeded} "
+        "bootstrap replicates of the whole procedure looked better on their own sample than on the original data. "
+        "Which way is better depends on the measure: for the C statistics, the scaled Brier score and R² higher is "
+        "better, so optimism lowers the expected value; for the Brier score and the ICI lower is better, so optimism "
+        "means the derivation value is lower than the value expected in new patients; for a calibration slope 1 is "
+        "ideal and for calibration-in-the-large 0. A column says in words whether each measure is expected to be "
+        "worse or better in new patients than in the derivation data, and the 2.5th and 97.5th percentiles of the "
+        "replicates' change show how much the change varies between replicates (a spread of replicates, not a "
+        "confidence interval)."
+    )
+    unexpected = []
+    for e in validation.estimates:
+        if judge_change(BASE_KEYS[e.kind], e.apparent, e.corrected) != "better":
+            continue
+        low, high = -e.optimism_upper, -e.optimism_lower
+        across = math.isfinite(low) and math.isfinite(high) and low <= 0 <= high
+        unexpected.append(
+            f"{_lower_first(e.label)} ({signed(e.apparent, 3)} in the derivation data, {signed(e.corrected, 3)} expected; "
+            f"the replicates' change runs from {signed(low, 3)} to {signed(high, 3)}{', across 0' if across else ''})"
+        )
+    if unexpected:
+        text += (
+            " The value expected in new patients comes out better than in the derivation data for "
+            + "; ".join(unexpected) + ". The replicates showed no optimism on "
+            + ("this measure" if len(unexpected) == 1 else "these measures")
+            + ": read the correction as no sign of flattery, not as a gain to expect in new patients."
+        )
+    else:
+        text += " Every measure is expected to be the same or worse in new patients than in the derivation data."
+    return text
+
+
+def estimator_632plus_sentence(validation: Any) -> str:
+    """Where the .632+ estimate is shown, and why it is left out for the other measures."""
+    left_out = sorted({e.kind for e in validation.estimates} - set(SHOWN_632PLUS))
+    words = {"ici": "the ICI", "slope": "calibration slopes", "intercept": "calibration-in-the-large"}
+    text = (
+        "The .632+ estimate (Efron & Tibshirani 1997) weighs the derivation value against the value in patients "
+        "left out of each bootstrap sample, using the value the measure takes when predictions carry no information "
+        "(0.5 for a C statistic; predictions paired at random with outcomes for the Brier score, scaled Brier and R²)."
+    )
+    if left_out:
+        text += (
+            " That paper defines no such value for "
+            + _either(words[k] for k in left_out if k in words)
+            + ", so the .632+ column shows a dash for them."
+        )
+    return text
 
 
 def internal_validation_texts(validation: Any, crossval: Any, shrunk: str | None, notes: list[str], model_check: str) -> dict[str, str]:
@@ -29,16 +110,12 @@ def internal_validation_texts(validation: Any, crossval: Any, shrunk: str | None
     """
     texts = {
         "summary": internal_validation_summary(validation),
-        "table": (
-            "Optimism is the average amount by which a model derived by this procedure looks better on the "
-            "data it was derived from than on the original data; subtracting it from the apparent value "
-            "estimates how the model will perform in new patients from the same population. For the Brier "
-            "score and the ICI lower is better, so their optimism is negative."
-        ),
+        "table": estimates_sentence(validation),
+        "estimator_632plus": estimator_632plus_sentence(validation),
         "optimism_figure": (
-            "Each row joins the apparent value (circle) to the optimism-corrected value (square); the longer the "
-            "line, the more the apparent figure overstates performance. The triangle is the .632+ estimate, "
-            "a second bootstrap estimate that weighs apparent and out-of-bag performance."
+            "Each row joins the value in the derivation data (circle) to the value expected in new patients (square); "
+            "the longer the line, the more the derivation data flatter the model on that measure. The triangle is the "
+            ".632+ estimate, shown only where it is defined (see the table)."
         ),
         "shrinkage": shrinkage_sentence(validation.shrinkage),
         "stability": stability_sentence(validation.stability),
@@ -96,8 +173,8 @@ def shrinkage_sentence(shrinkage: Any) -> str:
         return "No bootstrap shrinkage factor could be estimated."
     direction = "too extreme" if s < 1 else "too cautious"
     return (
-        f"The bootstrap calibration slope is {s:.2f} (middle 95% of replicates {shrinkage.bootstrap_lower:.2f} to "
-        f"{shrinkage.bootstrap_upper:.2f}): predictions from a model derived this way are expected to be "
+        f"The bootstrap calibration slope is {s:.2f} (central 95% of replicates {shrinkage.bootstrap_lower:.2f} to "
+        f"{shrinkage.bootstrap_upper:.2f}, a spread of replicates rather than a confidence interval): predictions from a model derived this way are expected to be "
         f"{direction} in new patients from the same population, and multiplying the coefficients by "
         f"{s:.2f} is the uniform correction; the heuristic formula gives {shrinkage.heuristic_candidates:.2f} "
         f"counting all {shrinkage.df_candidates} candidate degrees of freedom."
@@ -108,13 +185,19 @@ def internal_validation_summary(validation: Any) -> str:
     """Two or three sentences summarising the internal validation: the headline measure, its optimism and the calibration slope."""
     head = validation.estimate(validation.headline_measure)
     slope = validation.estimate("calibration_slope")
+    if slope.corrected < 1:
+        reading = " (below 1: predictions from a model derived this way are expected to be too extreme in new patients)"
+    elif slope.corrected > 1:
+        reading = " (above 1: predictions are expected to be too moderate in new patients)"
+    else:
+        reading = ""
     text = (
         f"Across {validation.n_succeeded} bootstrap replicates that each repeated the whole derivation "
-        f"({_method_words(validation.stability.method)}, knot placement and fitting), the apparent "
-        f"{_lower_first(head.label)} of {head.apparent:.3f} falls to {head.corrected:.3f} after correction for "
-        f"optimism ({head.optimism:.3f}); the .632+ estimate is {head.estimate_632plus:.3f}. "
-        f"The optimism-corrected calibration slope is {slope.corrected:.2f}"
-        f"{' (below 1: predictions too extreme for new patients)' if slope.corrected < 1 else ''}."
+        f"({_method_words(validation.stability.method)}, knot placement and fitting), the "
+        f"{_lower_first(head.label)} is {head.apparent:.3f} in the derivation data and {head.corrected:.3f} "
+        f"expected in new patients from the same population (optimism {head.optimism:.3f}); the .632+ estimate is "
+        f"{head.estimate_632plus:.3f}. The calibration slope of the linear predictor expected in new patients is "
+        f"{slope.corrected:.2f}{reading}."
     )
     text += " " + failure_sentence(validation)
     return text
@@ -146,6 +229,12 @@ def crossval_sentence(crossval: Any) -> str:
     if crossval.failures:
         text += f" {len(crossval.failures)} fold(s) produced no model and are listed in the results."
     return text
+
+
+def _either(items: Any) -> str:
+    """``a``, ``a or b``, ``a, b or c``."""
+    items = list(items)
+    return items[0] if len(items) == 1 else ", ".join(items[:-1]) + " or " + items[-1]
 
 
 def _method_words(method: str) -> str:
