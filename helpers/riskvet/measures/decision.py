@@ -166,7 +166,8 @@ class ThresholdTable:
         columns = [name for name in self.__dataclass_fields__ if name not in ("confidence", "interval", "n_events", "n_nonevents")]
         frame = pd.DataFrame({name: getattr(self, name) for name in columns})
         for name in ("tp", "fp", "fn", "tn"):
-            frame[name] = frame[name].astype("int64")
+            # nullable integers: a count a record suppresses (riskvet.reporting.classification) is missing
+            frame[name] = frame[name].astype("Int64" if frame[name].isna().any() else "int64")
         return frame
 
 

@@ -17,6 +17,8 @@ is never refitted here; updating is the next stage.
 
 from __future__ import annotations
 
+import dataclasses
+
 import re
 from dataclasses import dataclass, field
 from typing import Any, Mapping
@@ -31,6 +33,7 @@ from ...validation.external import CohortValidation, apply_model, calibration_la
 from ...modelling.modelfile import PredictionModel, load_model
 from ...validation.rule import RuleComparison, compare_with_rule
 from ...intake.study import Study
+from ...reporting.classification import publish_thresholds
 from ...reporting.disclosure import SUPPRESSED, complementary_suppression
 from ...reporting.sentences.common import INTERVAL_KINDS, interval_words, measure_guide
 from ...reporting.sentences.external_validation import (
@@ -393,11 +396,14 @@ def validate_external(study: Study, model: PredictionModel, cohorts: Cohorts) ->
         results["data"][label] = {k: summary[k] for k in ("n_screened", "n_analysed", "outcome_counts", "exclusions", "category_mappings", "missing")}
         prob = apply_model(model, cohort.frame, label=label)  # refuse early, naming the cohort
         results["case_mix"][label] = case_mix(model, cohorts.derivation, cohort, outcome_labels=dict(study.outcome.labels), seed=ev.seed)
-        results["cohorts"][label] = validate_cohort(
+        validated = validate_cohort(
             model, cohort.frame, cohort.y, label=label, thresholds=thresholds, subgroups=ev.subgroups,
             min_subgroup_size=ev.min_subgroup_size, n_boot=ev.n_boot, seed=ev.seed,
             n_jobs=study.compute.n_jobs, scheduler=study.compute.scheduler,
         )
+        # Small classification counts (and the measures that give them back) never reach the record.
+        published = {cut: publish_thresholds(t, min_cell_count=study.output.min_cell_count).table for cut, t in validated.threshold_tables.items()}
+        results["cohorts"][label] = dataclasses.replace(validated, threshold_tables=published)
         if rule is not None and cohort.rule_column is not None:
             results["rule"][label] = compare_with_rule(
                 cohort.y, prob, cohort.frame[rule.column], kind=rule.kind, levels=rule.levels,

@@ -152,7 +152,7 @@ def external_validation_texts(out: Mapping[str, Any], *, subgroups_named: bool) 
         parts = []
         for c in cohorts.values():
             for cut, tab in c.threshold_tables.items():
-                items = ", ".join(f"{t:g}: sensitivity {se:.2f}, specificity {sp:.2f}" for t, se, sp in zip(tab.threshold, tab.sensitivity, tab.specificity))
+                items = ", ".join(f"{t:g}: sensitivity {_shown(se)}, specificity {_shown(sp)}" for t, se, sp in zip(tab.threshold, tab.sensitivity, tab.specificity))
                 parts.append(f"In {c.label}, for {outcome_words(c.levels, cut)} at thresholds {items}.")
         texts["thresholds"] = " ".join(parts)
     else:
@@ -369,3 +369,8 @@ def case_mix_sentence(case_mix: Any) -> str:
             spread = "about the same, so case-mix alone does not predict a change in discrimination"
         parts.append(f"Its spread (SD {s1:.2f} against {s0:.2f}) is {spread}.")
     return " ".join(parts)
+
+
+def _shown(value: float) -> str:
+    """A measure at a threshold, or why it is not shown (withheld when it would give back a small count)."""
+    return "withheld (small counts)" if value != value else f"{value:.2f}"
