@@ -82,7 +82,7 @@ def test_equations_reproduce_the_prediction(fitted):
     terms = re.findall(r"([+-]?\s*[0-9.]+(?:e[+-]?\d+)?) x (\S+)", lp_line.removeprefix("LP = "))
     written = {column: float(number.replace(" ", "")) for number, column in terms}
     assert set(written) == set(design.columns)
-    theta = float(re.search(r"P\(transferred or higher\) = 1 - expit\(([-0-9.e]+) - LP\)", text).group(1))
+    theta = float(re.search(r"P\(transferred\) = 1 - expit\(([-0-9.e]+) - LP\)", text).group(1))
     lp = sum(written[c] * X[c].iloc[0] for c in design.columns)
     expected = 1 - 1 / (1 + np.exp(-(theta - lp)))
     assert model.predict_proba(frame.iloc[[0]])[0, 2] == pytest.approx(expected, rel=1e-9)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from riskvet.intake.data import load_cohorts
@@ -59,3 +60,52 @@ def test_results_hold_no_row_level_data(stage_run):
     text = ctx.results_path.read_text()
     ids = load_cohorts(ctx.study).derivation.frame[ctx.study.data.id_column].astype(str)
     assert not any(i in text for i in ids)
+
+
+def _worded(frame):
+    """A frame a page can show: range index, headers without internal names."""
+    return isinstance(frame.index, pd.RangeIndex) and not any("_" in str(c) for c in frame.columns)
+
+
+def test_page_frames_are_in_words_and_spline_columns_have_no_odds_ratio(stage_run):
+    _, out = stage_run
+    for name, frame in out.tables.items():
+        if name not in ("flow", "descriptive"):
+            assert _worded(frame), name
+    model = out.tables["model"]
+    assert not model["parameter"].str.contains("nonlin|\\|").any()
+    spline_rows = model["parameter"].str.contains("(spline", regex=False)
+    assert spline_rows.any() and model.loc[spline_rows, "odds ratio per unit"].isna().all()
+    assert "core_temp (spline)" in set(out.tables["effects"]["term"])
+    assert out.tables["term_tests"].set_index("term").loc["core_temp (spline)", "df"] == 3
+
+
+def test_proportional_odds_per_term_frame_has_no_overall_row(stage_run):
+    _, out = stage_run
+    terms = out.tables["po_terms"]
+    assert "overall" not in set(terms["term"]) and len(terms) == len(out.derivation.terms)
+    brant = out.tables["po_terms"]
+    assert list(brant.columns) == ["term", "chi-square", "df", "p (Brant's test of the term)"]
+    assert "overall chi-squared" in out.texts["po"]
+
+
+def test_cautions_are_on_the_stage_result_and_in_the_results(stage_run):
+    ctx, out = stage_run
+    results = json.loads(ctx.results_path.read_text())
+    assert out.inference_caution == out.texts["inference"] == results["inference_caution"]
+    assert "ignore the selection" in out.inference_caution
+    assert results["low_events_per_parameter"] is out.low_events_per_parameter is (out.events_per_parameter < 10)
+    if out.low_events_per_parameter:
+        assert "This is low" in out.texts["events_per_parameter"]
+    assert "Kramer & Zimmerman" in out.texts["hosmer_lemeshow"]
+    assert "|" not in out.equation and "transferred or higher" not in out.equation
+    assert "C for observed or higher" in out.texts["apparent"] and "cut 0" not in out.texts["apparent"]
+    assert list(out.guide["measure"])[:1] == ["C (AUC) of each cut"]
+
+
+def test_column_labels_cover_the_design(stage_run):
+    _, out = stage_run
+    labels = out.column_labels
+    assert set(labels) == set(out.derivation.design.columns)
+    assert labels["core_temp_nonlin1"] == "core_temp (spline, part 2 of 3)"
+    assert set(out.proportional_odds) == {"brant", "lr"}

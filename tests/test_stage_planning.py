@@ -192,3 +192,27 @@ def test_justification_names_cuts_by_level():
     assert "cut 1" not in text
     with pytest.raises(StudyError, match="justification_text\\(levels\\)"):
         justification_text(r, levels=["a", "b"])
+
+
+def test_planning_page_frames_say_what_each_criterion_protects_against(study):
+    out = stage.plan(study)
+    dev = out.development_frame()
+    assert isinstance(dev.index, pd.RangeIndex) and not any("_" in c for c in dev.columns)
+    assert dev["protects against"].str.contains("overfitting").any()
+    # every criterion's n at every cut is kept, and the row that sets the size is the binding one
+    kept = {int(v) for c in dev.columns if c.startswith("people needed for") for v in dev[c]}
+    assert kept == {c.n for cut in out.development.cuts for c in cut.criteria}
+    binding = out.development.cuts[out.development.binding_cut]
+    sets = dev.loc[dev["sets the required size"] != "no"]
+    names = [c.name for c in binding.criteria]
+    assert len(sets) == 1 and sets.index.item() == names.index(binding.binding)
+    assert sets["sets the required size"].item() == f"yes, for {stage.cut_label(out.levels, out.development.binding_cut, binary=False)}"
+    events = out.development_events_frame().set_index("quantity")
+    assert events.loc["people needed (largest criterion)"].tolist() == [c.n for c in out.development.cuts]
+    assert events.loc["events per candidate parameter"].tolist() == pytest.approx([c.events_per_parameter for c in out.development.cuts])
+    val = out.validation_frame()
+    assert {int(v) for c in val.columns if c.startswith("people needed for") for v in val[c]} == {
+        c.n for v in out.validation for c in v.size.criteria}
+    assert "protects against" in out.texts["development"] and "sets this size" in out.texts["development"]
+    checks = out.checks_frame()
+    assert list(checks.columns)[:3] == ["cohort", "for", "outcome"] and checks["enough people"].dtype == bool

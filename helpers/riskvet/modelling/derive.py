@@ -22,7 +22,7 @@ from ..errors import DataError, DesignError, StudyError, problem
 from .selection import SelectionResult, select_terms
 from ..intake.study import Study
 
-__all__ = ["Derivation", "candidate_design", "check_before_fitting", "derive"]
+__all__ = ["Derivation", "candidate_design", "candidate_parameters", "check_before_fitting", "derive"]
 
 
 @dataclass(frozen=True)
@@ -231,3 +231,12 @@ def derive(
     chosen = set(result.terms)
     final = design.subset([t.name for t in design.terms if t.name in chosen])
     return Derivation(candidate_design=design, design=final, selection=result)
+
+
+def candidate_parameters(design: DesignSpec, n_levels: int) -> int:
+    """Parameters of the model with every candidate term: the design's columns and the K - 1 thresholds.
+
+    The count :func:`check_before_fitting` divides the smallest outcome level
+    by for its events-per-candidate-parameter note.
+    """
+    return len(design.columns) + int(n_levels) - 1

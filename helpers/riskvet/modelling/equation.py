@@ -81,17 +81,22 @@ def plain_equation(model: Any, *, digits: int = 4) -> str:
             lines += _category_notes(model)
             return "\n".join(lines)
         for j in cuts:
-            lines.append(f"P({levels[j + 1]} or higher) = 1 - {fname}({_num(model.thresholds[j], digits)} - LP)")
+            lines.append(f"P({_event(levels, j)}) = 1 - {fname}({_num(model.thresholds[j], digits)} - LP)")
     else:
         for j in cuts:
             parts = [f"{_num(b, digits)} x {c}" for c, b in zip(model.design.columns, model.coef[:, j])]
             lines.append(f"LP{j + 1} = " + (" + ".join(parts) if parts else "0").replace("+ -", "- "))
-            lines.append(f"P({levels[j + 1]} or higher) = 1 - {fname}({_num(model.thresholds[j], digits)} - LP{j + 1})")
-    lines.append(f"P({levels[0]}) = 1 - P({levels[1]} or higher); each other level is the difference of consecutive cumulative probabilities.")
+            lines.append(f"P({_event(levels, j)}) = 1 - {fname}({_num(model.thresholds[j], digits)} - LP{j + 1})")
+    lines.append(f"P({levels[0]}) = 1 - P({_event(levels, 0)}); each other level is the difference of consecutive cumulative probabilities.")
     lines.append(f"Here {fnote}.")
     lines += _spline_notes(model, digits)
     lines += _category_notes(model)
     return "\n".join(lines)
+
+
+def _event(levels: Any, cut: int) -> str:
+    """The event of a cut as pages name it: the level "or higher", or the top level alone."""
+    return str(levels[cut + 1]) if cut == len(levels) - 2 else f"{levels[cut + 1]} or higher"
 
 
 def _tex_name(column: str) -> str:

@@ -18,10 +18,10 @@ from typing import Any, Callable, Iterator, Mapping
 import pandas as pd
 
 from ..errors import RiskvetError, problem
-from ..intake.outcome import cut_name
 from ..validation.external import measure_label
+from .labels import cut_label
 
-__all__ = ["flatten", "headline_results", "key_results"]
+__all__ = ["flatten", "headline_results", "key_results", "headline_measure_keys"]
 
 
 # -- flattening and headline results ---------------------------------------------------------
@@ -142,8 +142,9 @@ Row = tuple[str, Any, Any, Any, str]
 
 
 def _cut_name(cut: Any, levels: tuple[str, ...]) -> str:
-    if len(levels) >= 2:
-        return cut_name(levels, cut if isinstance(cut, int) and 0 <= cut < len(levels) - 1 else None)
+    """The event of a cut as every page names it (:func:`riskvet.reporting.labels.cut_label`); "all levels" without a cut."""
+    if len(levels) >= 2 and isinstance(cut, int) and not isinstance(cut, bool) and 0 <= cut < len(levels) - 1:
+        return cut_label(levels, cut, binary=len(levels) == 2)
     return "all levels"
 
 
@@ -159,7 +160,7 @@ def _planning(results: Mapping[str, Any], levels: tuple[str, ...]) -> list[Row]:
         if isinstance(check, Mapping) and _number(check.get("n_available")) and _number(check.get("n_required")):
             rows.append((
                 f"{check.get('cohort')} ({check.get('purpose')}, {check.get('label')}): available of required",
-                f"{check['n_available']} of {check['n_required']}", None, None, f"checks[{i}]",
+                f"{check['n_available']:,} of {check['n_required']:,}", None, None, f"checks[{i}]",
             ))
     return rows
 
@@ -258,6 +259,14 @@ def _internal_validation(results: Mapping[str, Any], levels: tuple[str, ...]) ->
     return rows
 
 
+def _outcome(row: Mapping[str, Any], levels: tuple[str, ...]) -> str:
+    """The outcome of a results row: its cut named as on every page, else the row's own words."""
+    cut = row.get("cut")
+    if isinstance(cut, int) and not isinstance(cut, bool):
+        return _cut_name(cut, levels)
+    return str(row.get("outcome") or "all levels")
+
+
 def _external_validation(results: Mapping[str, Any], levels: tuple[str, ...]) -> list[Row]:
     rows: list[Row] = []
     for label, cohort in _mapping(results.get("cohorts")).items():
@@ -267,7 +276,7 @@ def _external_validation(results: Mapping[str, Any], levels: tuple[str, ...]) ->
             rows.append((f"{label}: patients analysed", cohort["n"], None, None, f"cohorts.{label}.n"))
         for i, row in enumerate(_list(cohort.get("performance"))):
             if isinstance(row, Mapping) and _headline_measure(str(row.get("measure"))) and _number(row.get("estimate")):
-                rows.append((f"{label}: {row.get('label')}, {row.get('outcome')}", row["estimate"], row.get("lower"), row.get("upper"),
+                rows.append((f"{label}: {row.get('label')}, {_outcome(row, levels)}", row["estimate"], row.get("lower"), row.get("upper"),
                              f"cohorts.{label}.performance[{i}].estimate"))
     for label, mix in _mapping(results.get("case_mix")).items():
         if isinstance(mix, Mapping) and _number(mix.get("membership_c")):
@@ -276,7 +285,7 @@ def _external_validation(results: Mapping[str, Any], levels: tuple[str, ...]) ->
     for label, rule in _mapping(results.get("rule")).items():
         for i, row in enumerate(_list(_mapping(rule).get("concordance_table"))):
             if isinstance(row, Mapping) and _number(row.get("difference")):
-                rows.append((f"{label}: C of the model minus C of the rule, {row.get('outcome')}", row["difference"], row.get("lower"),
+                rows.append((f"{label}: C of the model minus C of the rule, {_outcome(row, levels)}", row["difference"], row.get("lower"),
                              row.get("upper"), f"rule.{label}.concordance_table[{i}].difference"))
     return rows
 
@@ -343,3 +352,26 @@ def key_results(results: Mapping[str, Any], *, levels: tuple[str, ...] = (), gen
                 "lower": lower if _number(lower) else None, "upper": upper if _number(upper) else None, "key": key,
             })
     return pd.DataFrame(rows, columns=["stage", "measure", "value", "lower", "upper", "key"])
+
+
+def headline_measure_keys(results: Mapping[str, Any]) -> tuple[str, ...]:
+    """Keys of the performance measures :func:`key_results` shows, without cut suffixes, in order first met.
+
+    For the guide to what good looks like on the summary page
+    (:func:`riskvet.reporting.sentences.common.measure_guide`).
+    """
+    found: list[str] = []
+
+    def add(key: Any) -> None:
+        key = re.sub(r"_cut\d+$", "", str(key))
+        if _headline_measure(key) and key not in found:
+            found.append(key)
+
+    for key in _mapping(_get(results.get("derivation"), "apparent", "summary")):
+        add(key)
+    for estimate in _list(_get(results.get("internal_validation"), "bootstrap", "estimates")):
+        add(_mapping(estimate).get("measure"))
+    for cohort in _mapping(_get(results.get("external_validation"), "cohorts")).values():
+        for row in _list(_mapping(cohort).get("performance")):
+            add(_mapping(row).get("measure"))
+    return tuple(found)

@@ -23,19 +23,23 @@ import pandas as pd
 from ..._jsonable import to_jsonable
 from ...measures.calibration import calibration, ordinal_calibration
 from ...measures.decision import threshold_table
+from ...reporting.classification import publish_thresholds
 from ...measures.discrimination import dichotomise, ordinal_discrimination, roc_curve
 from ...measures.overall import overall_accuracy
 from ...measures.summary import performance_summary
 from ...intake.data import load_cohorts
 from ...reporting.descriptive import descriptive_table
-from ...modelling.derive import Derivation, derive
+from ...modelling.derive import Derivation, candidate_parameters, derive
+from ...modelling.term_effects import TermEffects, column_label, term_effects, term_label
 from ...errors import RiskvetError, RiskvetWarning
 from ...modelling.modelfile import PredictionModel, model_from_fit, save_model
 from ...reporting.figures.performance import plot_calibration, plot_roc
 from ...reporting.figures.derivation import plot_odds_ratios, plot_selection_curve
 from ...modelling.proportional_odds import brant_test, proportional_odds_lr_test
-from ...reporting.labels import summary_label
-from ...reporting.sentences.derivation import derivation_texts
+from ...reporting.labels import cut_label, summary_label
+from ...reporting.sentences.common import interval_words, measure_guide
+from ...reporting.sentences.derivation import LOW_EVENTS_PER_PARAMETER, derivation_texts
+from ...validation.external import measure_label
 from ..stagekit import StageContext
 
 __all__ = ["DerivationOutput", "run", "file_sha256", "creation_time"]
@@ -76,8 +80,12 @@ class DerivationOutput:
     model : PredictionModel
         The frozen model written to ``models/model.json``.
     tables : dict of str to DataFrame
-        ``flow``, ``descriptive``, ``selection_path``, ``cv_curve``, ``model``,
-        ``po_brant``, ``po_lr``, ``apparent``, ``thresholds`` (missing keys: not applicable).
+        ``flow``, ``descriptive``, ``selection_path``, ``cv_curve``, ``model``
+        (coefficients in words), ``effects`` (each term over a stated
+        contrast), ``term_tests`` (joint Wald test of each term),
+        ``po_terms`` (Brant's test per term, no overall row; ``po_brant`` is
+        the same frame), ``po_lr``, ``apparent``, ``thresholds`` (missing
+        keys: not applicable).  Plain range index, headers in words.
     figures : dict of str to str
         Figure name -> PNG path relative to the record folder.
     texts : dict of str to str
@@ -86,6 +94,20 @@ class DerivationOutput:
         The model equation in plain language.
     equation_latex : str
         The same in LaTeX.
+    effects : TermEffects
+        Term effects over stated contrasts and the joint Wald tests.
+    parameters : DataFrame
+        The fit's own parameter table (internal column names), for figures.
+    inference_caution : str
+        What the Wald statistics mean after variable selection (also ``texts["inference"]``).
+    events_per_parameter : float
+        People in the smallest outcome level per candidate parameter.
+    low_events_per_parameter : bool
+        Whether that is below :data:`LOW_EVENTS_PER_PARAMETER`.
+    guide_measures : tuple of str
+        Keys of the measures of the apparent table, for the guide of what good looks like.
+    proportional_odds : dict
+        ``{"brant": BrantTest, "lr": ProportionalOddsLRTest}``; empty when not checked.
     """
 
     derivation: Derivation
@@ -95,12 +117,31 @@ class DerivationOutput:
     texts: dict[str, str]
     equation: str
     equation_latex: str
+    effects: TermEffects = field(repr=False)
+    parameters: pd.DataFrame = field(repr=False)
+    inference_caution: str
+    events_per_parameter: float
+    low_events_per_parameter: bool
+    guide_measures: tuple[str, ...]
+    proportional_odds: dict[str, Any] = field(repr=False)
 
     def to_dict(self) -> dict[str, Any]:
-        return to_jsonable({"tables": self.tables, "figures": self.figures, "texts": self.texts, "equation": self.equation})
+        return to_jsonable({"tables": self.tables, "figures": self.figures, "texts": self.texts, "equation": self.equation,
+                            "events_per_parameter": self.events_per_parameter, "low_events_per_parameter": self.low_events_per_parameter})
 
     def to_frame(self) -> pd.DataFrame:
         return self.tables["model"]
+
+    @property
+    def guide(self) -> pd.DataFrame:
+        """One line per measure of the apparent-performance table on what good looks like."""
+        return measure_guide(self.guide_measures, n_levels=len(self.model.levels))
+
+    @property
+    def column_labels(self) -> dict[str, str]:
+        """Each design column of the final model in words (``core_temp_nonlin1`` -> ``core_temp (spline, part 2 of 3)``)."""
+        design = self.derivation.design
+        return {c: column_label(design, c) for c in design.columns}
 
 
 #: Summary measures that only mean something for three or more levels.
@@ -123,7 +164,9 @@ def run(ctx: StageContext) -> DerivationOutput:
     descriptive = descriptive_table(cohort, labels={lv: study.outcome.label(lv) for lv in levels}, min_cell_count=study.output.min_cell_count)
 
     derivation = derive(study, frame, y)
-    model_table = _parameter_table(derivation.fit, levels)
+    cut_labels = [cut_label(levels, j, binary=K == 2) for j in range(K - 1)]
+    parameters = _parameter_table(derivation.fit, levels)
+    effects = term_effects(derivation.fit, derivation.design, frame, cut_names=cut_labels)
     po = _proportional_odds_checks(study, derivation, frame, y)
     model = _frozen_model(study, cohort, derivation)
     if ctx.model_path.exists():
@@ -131,15 +174,21 @@ def run(ctx: StageContext) -> DerivationOutput:
     save_model(model, ctx.model_path)
 
     apparent, apparent_table, (rocs, threshold_tables), cal = _apparent(study, y, model.predict_proba(frame))
-    cut_labels = [f"{levels[j + 1]} or higher" for j in range(K - 1)]
-    figures = _figures(ctx, derivation, model_table, rocs, threshold_tables, cal, cut_labels)
-    tables = _tables(flow, descriptive, derivation, model_table, apparent_table, po, threshold_tables, cut_labels)
+    smallest = int(min(np.bincount(y, minlength=K)))
+    n_candidates = candidate_parameters(derivation.candidate_design, K)
+    figures = _figures(ctx, derivation, parameters, rocs, threshold_tables, cal, cut_labels)
+    tables = _tables(flow, descriptive, derivation, _model_frame(parameters, derivation, cut_labels), effects,
+                     apparent_table, po, threshold_tables, cut_labels)
     texts = derivation_texts(
         cohort=cohort, selection=derivation.selection, n_terms=len(derivation.terms), n_params=derivation.fit.n_params,
-        smallest_level=int(min(np.bincount(y, minlength=K))), proportional_odds=po, summary=apparent["summary"],
-        n_levels=K, min_cell_count=study.output.min_cell_count,
+        smallest_level=smallest, proportional_odds=po, summary=apparent["summary"],
+        n_levels=K, min_cell_count=study.output.min_cell_count, levels=levels,
+        n_candidate_parameters=n_candidates, calibration=cal, link=study.model.link,
     )
-    ctx.write_results(_results(ctx, cohort, flow, derivation, model, model_table, po, apparent, descriptive))
+    epp = smallest / max(n_candidates, 1)
+    judged = {"events_per_candidate_parameter": epp, "low_events_per_parameter": epp < LOW_EVENTS_PER_PARAMETER,
+              "inference_caution": texts["inference"]}
+    ctx.write_results(_results(ctx, cohort, flow, derivation, model, parameters, po, apparent, descriptive) | {"term_effects": effects.to_dict(), "texts": texts, **judged})
     return DerivationOutput(
         derivation=derivation,
         model=model,
@@ -148,14 +197,47 @@ def run(ctx: StageContext) -> DerivationOutput:
         texts=texts,
         equation=model.equation_text(),
         equation_latex=model.equation_latex(),
+        effects=effects,
+        parameters=parameters,
+        inference_caution=texts["inference"],
+        events_per_parameter=epp,
+        low_events_per_parameter=epp < LOW_EVENTS_PER_PARAMETER,
+        guide_measures=tuple(apparent_table.attrs.get("keys", ())),
+        proportional_odds=po,
     )
 
 
 def _parameter_table(fit: Any, levels: tuple[str, ...]) -> pd.DataFrame:
-    """The fitted parameters, thresholds named by the two levels they separate."""
+    """The fit's parameter table, thresholds (and the cut of a per-cut coefficient) named by the cut's event."""
     table = fit.to_frame()
-    table.loc[table["kind"] == "threshold", "term"] = [f"threshold {levels[j]} | {levels[j + 1]}" for j in range(len(levels) - 1)]
+    K = len(levels)
+    names = {name: f"threshold for {cut_label(levels, j, binary=K == 2)}" for j, name in enumerate(fit.thresholds.index)}
+    cuts = {name: cut_label(levels, j, binary=K == 2) for j, name in enumerate(fit.thresholds.index)}
+    table.loc[table["kind"] == "threshold", "term"] = [names[t] for t in table.loc[table["kind"] == "threshold", "term"]]
+    table["cut"] = [cuts.get(c, c) for c in table["cut"]]
     return table
+
+
+def _model_frame(parameters: pd.DataFrame, derivation: Derivation, cut_labels: list[str]) -> pd.DataFrame:
+    """The coefficients for reading: parameters in words, Wald intervals, per-unit odds ratios of single-column linear terms only."""
+    design = derivation.design
+    coefficient = parameters["kind"].to_numpy() == "coefficient"
+    words = [column_label(design, t) if c else t for t, c in zip(parameters["term"], coefficient)]
+    wald = interval_words("wald")
+    frame = pd.DataFrame({"parameter": words})
+    if not derivation.fit.proportional:
+        frame["cut"] = parameters["cut"].to_numpy()
+    frame["estimate"] = parameters["estimate"].to_numpy()
+    frame["standard error"] = parameters["se"].to_numpy()
+    frame[f"lower ({wald})"] = parameters["lower"].to_numpy()
+    frame[f"upper ({wald})"] = parameters["upper"].to_numpy()
+    frame["z"] = parameters["z"].to_numpy()
+    frame["p-value"] = parameters["p"].to_numpy()
+    if "odds_ratio" in parameters.columns:
+        linear = {t.columns[0] for t in design.terms if t.kind == "linear"}
+        keep = coefficient & parameters["term"].isin(linear).to_numpy()
+        frame["odds ratio per unit"] = np.where(keep, parameters["odds_ratio"].to_numpy(dtype=float), np.nan)
+    return frame
 
 
 def _proportional_odds_checks(study, derivation: Derivation, frame: pd.DataFrame, y: np.ndarray) -> dict[str, Any]:
@@ -207,20 +289,37 @@ def _apparent(study, y: np.ndarray, prob: np.ndarray) -> tuple[dict[str, Any], p
         cal = ordinal_calibration(y, prob, development=logit_fit)
     acc = overall_accuracy(y, prob)
     summary = performance_summary(y, prob)
-    rows = [{"measure": summary_label(k, study.outcome.ordered_levels), "apparent": v}
-            for k, v in summary.items() if k != "n_fit_warnings" and (K > 2 or k not in _ORDINAL_ONLY)]
+    keys = [k for k in summary if k != "n_fit_warnings" and (K > 2 or k not in _ORDINAL_ONLY)]
+    table = pd.DataFrame({"measure": [_measure_words(k, study.outcome.ordered_levels) for k in keys],
+                          "apparent (derivation data)": [summary[k] for k in keys]})
+    table.attrs["keys"] = tuple(keys)
     rocs, tables = [], []
     for j in range(K - 1):
         yj, pj = dichotomise(y, prob, cut=j)
         rocs.append(roc_curve(yj, pj))
         th = study.thresholds_for_cut(j)
-        tables.append(threshold_table(yj, pj, thresholds=list(th)) if th else None)
+        # small classification counts, and the measures that would give them back, are withheld
+        tables.append(publish_thresholds(threshold_table(yj, pj, thresholds=list(th)), min_cell_count=study.output.min_cell_count).table if th else None)
     results = {"discrimination": disc.to_dict(), "calibration": cal.to_dict(), "overall": acc.to_dict(), "summary": summary}
-    return results, pd.DataFrame(rows), [rocs, tables], cal
+    return results, table, [rocs, tables], cal
 
 
-def _figures(ctx: StageContext, derivation: Derivation, model_table: pd.DataFrame, rocs, threshold_tables, cal, cut_labels) -> dict[str, str]:
-    """Selection curve, odds ratios (logit, proportional), ROC and calibration; name -> PNG path in the record."""
+def _measure_words(key: str, levels: tuple[str, ...]) -> str:
+    """A summary key in words, its cut named as everywhere on the page: ``auc_cut0`` -> ``C (AUC) of the cut, observed or higher``."""
+    head, sep, tail = key.rpartition("_cut")
+    if sep and tail.isdigit() and len(levels) > 2:
+        return f"{measure_label(head, len(levels))}, {cut_label(levels, int(tail), binary=False)}"
+    return summary_label(key, levels)
+
+
+def _figures(ctx: StageContext, derivation: Derivation, parameters: pd.DataFrame, rocs, threshold_tables, cal, cut_labels) -> dict[str, str]:
+    """Selection curve, odds ratios (logit, proportional), ROC and calibration; name -> PNG path in the record.
+
+    The odds-ratio figure shows per-unit odds ratios of single-column linear
+    terms and level-against-reference odds ratios of categories only; a
+    spline's or an interaction's columns have no odds ratio of their own
+    (their effects over stated contrasts are in the stage's ``effects``).
+    """
     study = ctx.study
     figures = {}
 
@@ -231,37 +330,100 @@ def _figures(ctx: StageContext, derivation: Derivation, model_table: pd.DataFram
     if derivation.selection.cv is not None:
         save(plot_selection_curve(derivation.selection), "selection_curve")
     if study.model.link == "logit" and study.model.proportional:
-        spline_columns = {c for t in derivation.design.terms if t.kind == "spline" for c in t.columns}
-        if set(model_table["term"]) - spline_columns - set(model_table.loc[model_table["kind"] == "threshold", "term"]):
-            save(plot_odds_ratios(model_table[~model_table["term"].isin(spline_columns)]), "odds_ratios")
+        single = {c for t in derivation.design.terms if t.kind in ("linear", "categorical") for c in t.columns}
+        shown = parameters[(parameters["kind"] == "coefficient") & parameters["term"].isin(single)].copy()
+        if len(shown):
+            shown["term"] = [column_label(derivation.design, t) for t in shown["term"]]
+            save(plot_odds_ratios(shown), "odds_ratios")
     save(plot_roc(rocs, labels=cut_labels, operating_points=threshold_tables), "roc")
     save(plot_calibration(cal, titles=cut_labels if len(cut_labels) > 1 else None), "calibration")
     return figures
 
 
-def _tables(flow, descriptive, derivation: Derivation, model_table, apparent_table, po, threshold_tables, cut_labels) -> dict[str, pd.DataFrame]:
+#: Threshold-table columns in words: the classification at each threshold, then what it predicts.
+_THRESHOLD_WORDS = {
+    "threshold": "risk threshold", "tp": "true positives", "fp": "false positives", "fn": "false negatives", "tn": "true negatives",
+    "sensitivity": "sensitivity", "sensitivity_lower": "sensitivity, lower", "sensitivity_upper": "sensitivity, upper",
+    "specificity": "specificity", "specificity_lower": "specificity, lower", "specificity_upper": "specificity, upper",
+}
+_PREDICTIVE_WORDS = {
+    "threshold": "risk threshold",
+    "ppv": "positive predictive value", "ppv_lower": "positive predictive value, lower", "ppv_upper": "positive predictive value, upper",
+    "npv": "negative predictive value", "npv_lower": "negative predictive value, lower", "npv_upper": "negative predictive value, upper",
+    "lr_positive": "positive likelihood ratio", "lr_positive_lower": "positive likelihood ratio, lower",
+    "lr_positive_upper": "positive likelihood ratio, upper", "lr_negative": "negative likelihood ratio",
+    "lr_negative_lower": "negative likelihood ratio, lower", "lr_negative_upper": "negative likelihood ratio, upper",
+}
+
+
+def _threshold_frames(threshold_tables, cut_labels) -> dict[str, pd.DataFrame]:
+    """The classification at each study threshold, in two frames narrow enough to read: counts with sensitivity and specificity; predictive values and likelihood ratios."""
+    parts = []
+    for j, tab in enumerate(threshold_tables):
+        if tab is not None:
+            t = tab.to_frame()
+            t.insert(0, "outcome", cut_labels[j])
+            parts.append(t)
+    if not parts:
+        return {}
+    whole = pd.concat(parts, ignore_index=True)
+    return {
+        "thresholds": whole[["outcome", *_THRESHOLD_WORDS]].rename(columns=_THRESHOLD_WORDS),
+        "thresholds_predictive": whole[["outcome", *_PREDICTIVE_WORDS]].rename(columns=_PREDICTIVE_WORDS),
+    }
+
+
+def _selection_frames(derivation: Derivation) -> dict[str, pd.DataFrame]:
+    """The selection path and the cross-validation curve, headers and terms in words."""
+    labels = {t.name: term_label(t) for t in derivation.candidate_design.terms}
+    path = derivation.selection.path.copy()
+    path["term"] = [labels.get(t, t) for t in path["term"]]
+    path = path.rename(columns={"action": "action", "criterion": "entry criterion", "statistic": "test statistic",
+                                "p": "p-value", "loglik": "log-likelihood", "aic": "AIC", "n_params": "parameters"})
+    out = {"selection_path": path.reset_index(drop=True)}
+    if derivation.selection.cv is not None:
+        out["cv_curve"] = derivation.selection.cv.rename(columns={
+            "size": "terms added", "mean_test_loglik": "mean held-out log-likelihood per person",
+            "se": "standard error", "n_folds_reached": "folds that reached this size"}).reset_index(drop=True)
+    return out
+
+
+def _proportional_odds_frames(po, derivation: Derivation) -> dict[str, pd.DataFrame]:
+    """Brant's test per term (no overall row: the overall tests are in a sentence) and the likelihood-ratio test, in words."""
+    if not po:
+        return {}
+    labels = {t.name: term_label(t) for t in derivation.design.terms}
+    terms = po["brant"].terms
+    per_term = pd.DataFrame({
+        "term": [labels.get(t, t) for t in terms["term"]],
+        "chi-square": terms["statistic"].to_numpy(dtype=float),
+        "df": terms["df"].to_numpy(),
+        "p (Brant's test of the term)": terms["p"].to_numpy(dtype=float),
+    })
+    lr = po["lr"]
+    lr_frame = pd.DataFrame([{
+        "chi-square": lr.statistic, "df": lr.df, "p (likelihood-ratio test)": lr.p,
+        "log-likelihood, one slope for all cuts": lr.loglik_proportional,
+        "log-likelihood, one slope per cut": lr.loglik_nonproportional,
+        "rows where the per-cut model's probabilities cross": lr.n_crossing,
+    }])
+    return {"po_terms": per_term, "po_brant": per_term, "po_lr": lr_frame}
+
+
+def _tables(flow, descriptive, derivation: Derivation, model_frame, effects: TermEffects, apparent_table, po, threshold_tables, cut_labels) -> dict[str, pd.DataFrame]:
     """The stage's tables by name (a name is missing where the table does not apply)."""
     tables = {
         "flow": flow,
         "descriptive": descriptive.to_frame(),
-        "selection_path": derivation.selection.path,
-        "model": model_table,
+        **_selection_frames(derivation),
+        "model": model_frame,
+        "effects": effects.effects,
+        "term_tests": effects.tests,
         "apparent": apparent_table,
+        **_proportional_odds_frames(po, derivation),
+        **_threshold_frames(threshold_tables, cut_labels),
     }
-    if derivation.selection.cv is not None:
-        tables["cv_curve"] = derivation.selection.cv
-    if po:
-        tables["po_brant"] = po["brant"].to_frame()
-        tables["po_lr"] = po["lr"].to_frame()
-    th_rows = []
-    for j, tab in enumerate(threshold_tables):
-        if tab is not None:
-            t = tab.to_frame()
-            t.insert(0, "cut", cut_labels[j])
-            th_rows.append(t)
-    if th_rows:
-        tables["thresholds"] = pd.concat(th_rows, ignore_index=True)
-    return tables
+    return {name: frame.reset_index(drop=True) for name, frame in tables.items()}
 
 
 def _results(ctx: StageContext, cohort, flow, derivation: Derivation, model: PredictionModel, model_table, po, apparent, descriptive) -> dict[str, Any]:

@@ -38,7 +38,15 @@ from ...planning.samplesize import (
 )
 from ...intake.study import Study
 from ...reporting.labels import cut_label
-from ...reporting.sentences.planning import checks_sentence, development_sentence, validation_sentence
+from ...reporting.sentences.planning import (
+    checks_sentence,
+    development_asks,
+    development_events_sentence,
+    development_protects,
+    development_sentence,
+    validation_protects,
+    validation_sentence,
+)
 
 __all__ = ["CutValidationSize", "CohortCheck", "PlanningOutput", "plan", "plan_text", "run"]
 
@@ -177,15 +185,15 @@ class PlanningOutput:
             }
         )
 
-    def development_frame(self) -> pd.DataFrame:
-        """Development criteria: one row per criterion (and cut), the binding one flagged."""
+    def _development_long(self) -> pd.DataFrame:
+        """Development criteria, tidy: one row per criterion (and cut), internal names (terminal text, :meth:`to_frame`)."""
         frame = self.development.to_frame()
         if "cut" in frame.columns:
             frame.insert(1, "event", [cut_label(self.levels, int(j), binary=False) for j in frame["cut"]])
         return frame
 
-    def validation_frame(self) -> pd.DataFrame:
-        """Validation criteria: one row per cut and criterion."""
+    def _validation_long(self) -> pd.DataFrame:
+        """Validation criteria, tidy: one row per cut and criterion."""
         parts = []
         for v in self.validation:
             f = v.size.to_frame()
@@ -197,18 +205,98 @@ class PlanningOutput:
             return pd.DataFrame(columns=["cut", "event", "prevalence", "name", "target", "n_exact", "n", "events", "ci_width", "binding"])
         return pd.concat(parts, ignore_index=True)
 
+    def _development_cuts(self) -> list[tuple[str, DevelopmentSize]]:
+        if isinstance(self.development, OrdinalDevelopmentSize):
+            return [(cut_label(self.levels, j, binary=False), c) for j, c in enumerate(self.development.cuts)]
+        return [(cut_label(self.levels, 0, binary=True), self.development)]
+
+    def development_frame(self) -> pd.DataFrame:
+        """What each development criterion protects against, and the people it needs for each outcome.
+
+        One row per criterion, in words (what it protects against, what it
+        asks for); one column of people needed per outcome (each cut of an
+        ordered outcome); the last column says which criterion and outcome
+        set the required size.  Events, R² and the shrinkage the optimism
+        criterion needs are in :meth:`development_events_frame`.
+        """
+        cuts = self._development_cuts()
+        first = cuts[0][1]
+        rows = []
+        for i, name in enumerate(c.name for c in first.criteria):
+            row = {"protects against": development_protects(name), "asks for": development_asks(name, first)}
+            for label, size in cuts:
+                row[f"people needed for {label}"] = size.criteria[i].n
+            binding = [label for label, size in cuts if size.binding == name and size.n == self.development.n]
+            row["sets the required size"] = f"yes, for {binding[0]}" if binding else "no"
+            rows.append(row)
+        return pd.DataFrame(rows)
+
+    def development_events_frame(self) -> pd.DataFrame:
+        """For each outcome (a column each): its proportion, the anticipated R², and the people and events its largest criterion needs.
+
+        Rows are the quantities in words; which criterion needs the people
+        and where the R² comes from are in ``texts["development_events"]``.
+        """
+        cuts = self._development_cuts()
+        quantities = {
+            "outcome proportion": lambda d: d.prevalence,
+            "anticipated Cox–Snell R²": lambda d: d.r2_cs,
+            "largest possible Cox–Snell R²": lambda d: d.max_r2_cs,
+            "anticipated Nagelkerke R²": lambda d: d.r2_nagelkerke,
+            "shrinkage the optimism criterion needs": lambda d: d.shrinkage_for_optimism,
+            "people needed (largest criterion)": lambda d: d.n,
+            "events expected": lambda d: d.events,
+            "events per candidate parameter": lambda d: d.events_per_parameter,
+        }
+        frame = pd.DataFrame({"quantity": list(quantities)})
+        for label, size in cuts:
+            frame[f"for {label}"] = [float(get(size)) for get in quantities.values()]
+        return frame
+
+    def validation_frame(self) -> pd.DataFrame:
+        """What each validation criterion protects against, and the people it needs for each outcome (empty without validation sizes)."""
+        if not self.validation:
+            return pd.DataFrame(columns=["protects against", "asks for"])
+        top = max(self.validation, key=lambda v: (v.size.n, -v.cut))
+        rows = []
+        for i, criterion in enumerate(self.validation[0].size.criteria):
+            row = {"protects against": validation_protects(criterion.name), "asks for": criterion.target}
+            for v in self.validation:
+                row[f"people needed for {v.label}"] = v.size.criteria[i].n
+            row["sets the required size"] = f"yes, for {top.label}" if top.size.binding == criterion.name else "no"
+            rows.append(row)
+        return pd.DataFrame(rows)
+
+    def validation_events_frame(self) -> pd.DataFrame:
+        """For each outcome (a column each): its proportion, the anticipated C, and the people and events its largest criterion needs."""
+        quantities = {
+            "outcome proportion": lambda v: v.size.prevalence,
+            "anticipated C statistic": lambda v: v.size.c_statistic,
+            "people needed (largest criterion)": lambda v: v.size.n,
+            "events expected": lambda v: v.size.events,
+        }
+        frame = pd.DataFrame({"quantity": list(quantities)})
+        for v in self.validation:
+            frame[f"for {v.label}"] = [float(get(v)) for get in quantities.values()]
+        return frame
+
     def checks_frame(self) -> pd.DataFrame:
-        """Planned against available n per cohort."""
-        columns = [f for f in CohortCheck.__dataclass_fields__]
-        return pd.DataFrame([c.to_dict() for c in self.checks], columns=columns)
+        """Planned against available people and events per cohort, in words."""
+        rows = [{
+            "cohort": c.cohort, "for": c.purpose, "outcome": c.label,
+            "people needed": c.n_required, "people available": c.n_available, "enough people": c.n_met,
+            "events planned": c.events_planned, "events available": c.events_available, "enough events": c.events_met,
+        } for c in self.checks]
+        return pd.DataFrame(rows, columns=["cohort", "for", "outcome", "people needed", "people available", "enough people",
+                                           "events planned", "events available", "enough events"])
 
     def to_frame(self) -> pd.DataFrame:
-        """Every criterion, development and validation, stacked."""
-        dev = self.development_frame()
+        """Every criterion, development and validation, stacked (tidy, internal names: for export, not for a page)."""
+        dev = self._development_long()
         if "cut" not in dev.columns:
             dev.insert(0, "cut", 0)
         dev.insert(0, "purpose", "development")
-        val = self.validation_frame()
+        val = self._validation_long()
         val.insert(0, "purpose", "validation")
         keep = ["purpose", "cut", "prevalence", "name", "target", "n", "events", "binding"]
         return pd.concat([dev[keep], val[keep]], ignore_index=True)
@@ -419,6 +507,7 @@ def plan(study: Study, *, cohorts: Cohorts | None = None, proportions: Sequence[
             "development": development_sentence(development, levels, binary),
             "validation": validation_sentence(validation),
             "checks": checks_sentence(checks),
+            "development_events": development_events_sentence(development, levels, binary),
         },
     )
 
@@ -443,7 +532,8 @@ def plan_text(study: Study, *, proportions: Sequence[float] | None = None) -> st
     out = plan(study, proportions=proportions)
     width = 160
     with pd.option_context("display.max_rows", 200, "display.max_columns", 20, "display.width", width):
-        dev = out.development_frame()[[c for c in ("cut", "event", "name", "n", "events", "events_per_parameter", "binding") if c in out.development_frame().columns]]
+        long = out._development_long()
+        dev = long[[c for c in ("cut", "event", "name", "n", "events", "events_per_parameter", "binding") if c in long.columns]]
         blocks = [
             f"Sample-size plan for {study.study.name}",
             out.texts["proportions"],
@@ -455,11 +545,11 @@ def plan_text(study: Study, *, proportions: Sequence[float] | None = None) -> st
             "Validation",
         ]
         if out.validation:
-            val = out.validation_frame()[["cut", "event", "name", "n", "events", "binding"]]
+            val = out._validation_long()[["cut", "event", "name", "n", "events", "binding"]]
             blocks.append(val.to_string(index=False, float_format=lambda x: f"{x:.1f}"))
         blocks += [out.texts["validation"], "", "Cohorts"]
         if out.checks:
-            chk = out.checks_frame()[["cohort", "purpose", "label", "n_required", "n_available", "n_met", "events_planned", "events_available", "events_met"]]
+            chk = pd.DataFrame([c.to_dict() for c in out.checks])[["cohort", "purpose", "label", "n_required", "n_available", "n_met", "events_planned", "events_available", "events_met"]]
             blocks.append(chk.to_string(index=False, float_format=lambda x: f"{x:.0f}"))
         blocks.append(out.texts["checks"])
     if out.notes:

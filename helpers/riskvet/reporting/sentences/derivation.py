@@ -2,11 +2,23 @@
 
 from __future__ import annotations
 
-from typing import Any, Mapping
+from typing import Any, Mapping, Sequence
 
-from .common import decimals
+from ..labels import cut_label
+from .common import decimals, interval_words
 
-__all__ = ["derivation_texts", "selection_sentence", "proportional_odds_sentence"]
+__all__ = [
+    "derivation_texts",
+    "selection_sentence",
+    "proportional_odds_sentence",
+    "post_selection_sentence",
+    "events_per_parameter_sentence",
+    "hosmer_lemeshow_sentence",
+    "effects_sentence",
+]
+
+#: Events per candidate parameter below which the page flags the data as small (common practice: 10).
+LOW_EVENTS_PER_PARAMETER = 10
 
 
 def derivation_texts(
@@ -20,6 +32,10 @@ def derivation_texts(
     summary: Mapping[str, float],
     n_levels: int,
     min_cell_count: int,
+    levels: Sequence[str] | None = None,
+    n_candidate_parameters: int | None = None,
+    calibration: Any = None,
+    link: str = "logit",
 ) -> dict[str, str]:
     """One interpreting sentence per table and figure of the derivation stage.
 
@@ -41,9 +57,20 @@ def derivation_texts(
         Outcome levels.
     min_cell_count : int
         ``output.min_cell_count``.
+    levels : sequence of str, optional
+        The outcome levels, lowest first, to name the cuts (default ``level 0`` ...).
+    n_candidate_parameters : int, optional
+        Parameters of the model with every candidate term (thresholds
+        included); gives the events-per-candidate-parameter sentence.
+    calibration : CalibrationResult or OrdinalCalibration, optional
+        Apparent calibration; gives the Hosmer–Lemeshow sentence.
+    link : str
+        The model's link (odds ratios only for the logit link).
     """
     K = n_levels
-    return {
+    levels = list(levels) if levels is not None else [f"level {k}" for k in range(K)]
+    cuts = [cut_label(levels, j, binary=K == 2) for j in range(K - 1)]
+    texts = {
         "flow": (
             f"{cohort.n_screened} people were screened and {cohort.n_analysed} analysed; "
             f"{cohort.n_screened - cohort.n_analysed} were excluded (complete-case analysis), each counted under the first reason that applied."
@@ -53,18 +80,31 @@ def derivation_texts(
             if min_cell_count > 1 else "Predictors by outcome level."
         ),
         "selection": selection_sentence(selection),
+        "inference": post_selection_sentence(selection),
         "model": (
             f"The final model has {n_terms} terms and {n_params} parameters "
             f"({smallest_level} people in the smallest outcome level, {smallest_level / max(n_params, 1):.1f} per parameter). "
-            "Odds ratios are per unit of each column; a value above 1 shifts risk towards higher levels. "
-            "Spline columns are read together, not one by one, and are left out of the odds-ratio figure."
+            f"Each row is one coefficient with its {interval_words('wald')}; "
+            + ("a single-column term also shows its odds ratio per unit (above 1: risk shifts towards higher levels). "
+               if link == "logit" else "")
+            + "A spline, a categorical predictor or an interaction has several coefficients that are read together, "
+            "not one by one: its effect over stated values and its joint test are in the next two tables."
+        ),
+        "effects": effects_sentence(link),
+        "term_tests": (
+            "Joint Wald test of each term: all its coefficients zero together (chi-square on as many degrees of freedom "
+            "as the term has coefficients). A spline's test asks whether the predictor matters at all, not whether it is curved."
         ),
         "po": proportional_odds_sentence(proportional_odds),
+        "po_terms": (
+            "Brant's test for each term: whether its slope differs between the cuts (the overall test is in the sentence above)."
+            if proportional_odds else "Proportional odds is not checked, so there are no per-term tests."
+        ),
         "apparent": (
-            f"Apparent performance on the derivation data (optimistic by construction): "
-            + ", ".join(f"C of cut {j} {decimals(summary[f'auc_cut{j}'])}" for j in range(K - 1))
+            "Apparent performance on the derivation data (optimistic by construction): "
+            + ", ".join(f"C for {cuts[j]} {decimals(summary[f'auc_cut{j}'])}" for j in range(K - 1))
             + (f", ordinal c-index {decimals(summary['ordinal_c'])}" if K > 2 else "")
-            + f", Brier {decimals(summary['brier'])}, Nagelkerke R² {decimals(summary['nagelkerke_r2'])}. "
+            + f", Brier score {decimals(summary['brier'])}, Nagelkerke R² {decimals(summary['nagelkerke_r2'])}. "
             "Internal validation estimates how much of this is optimism."
         ),
         "calibration": (
@@ -72,8 +112,114 @@ def derivation_texts(
             "(for an ordered outcome each cut is close to, not exactly at, these values); "
             "the curve shows whether the model's form (link, splines) fits across the range of risk."
         ),
-        "roc": "ROC curve per cut, with the operating points of the study's thresholds marked.",
+        "roc": "ROC curve for each outcome, with the operating points of the study's thresholds marked.",
     }
+    summary_parts = [f"{cohort.n_analysed} people analysed; the final model has {n_terms} terms and {n_params} parameters."]
+    if n_candidate_parameters is not None:
+        texts["events_per_parameter"] = events_per_parameter_sentence(smallest_level, n_candidate_parameters)
+        epp = smallest_level / max(n_candidate_parameters, 1)
+        if epp < LOW_EVENTS_PER_PARAMETER:
+            summary_parts.append(f"Events per candidate parameter are low ({epp:.1f}, below {LOW_EVENTS_PER_PARAMETER}).")
+    if getattr(selection, "method", "none") != "none":
+        summary_parts.append("Its p-values and Wald intervals ignore the variable selection and are too optimistic.")
+    texts["summary"] = " ".join(summary_parts)
+    if calibration is not None:
+        texts["hosmer_lemeshow"] = hosmer_lemeshow_sentence(calibration, n_levels=K)
+    return texts
+
+
+def post_selection_sentence(selection: Any) -> str:
+    """What the model's z statistics, p-values and Wald intervals mean after (or without) variable selection.
+
+    References
+    ----------
+    Harrell FE Jr. Regression Modeling Strategies, 2nd ed. Springer, 2015,
+    chapter 4 (section 4.3, variable selection).
+
+    Heinze G, Wallisch C, Dunkler D. Variable selection – a review and
+    recommendations for the practicing statistician. Biometrical Journal
+    2018;60(3):431–449.
+    """
+    if getattr(selection, "method", "none") == "none":
+        return (
+            "No variable selection was done, so the z statistics, p-values and Wald intervals are those of the "
+            "pre-specified model; they still assume its form (link, splines, interactions) is right."
+        )
+    how = {"forward": "forward selection", "backward": "backward elimination"}.get(selection.method, "variable selection")
+    return (
+        f"Caution: the terms were chosen by {how} on these same data. The z statistics, p-values and Wald intervals "
+        "below are those of the selected model as if it had been fixed in advance: they ignore the selection, so the "
+        "intervals are too narrow, the p-values too small, and the coefficients of the selected terms tend to be too far "
+        "from zero (Harrell, Regression Modeling Strategies, 2015, chapter 4; Heinze, Wallisch & Dunkler, Biometrical "
+        "Journal 2018). How often each term would be chosen again is shown by the selection frequencies over the "
+        "bootstrap replicates on the internal-validation page."
+    )
+
+
+def events_per_parameter_sentence(smallest_level: int, n_candidate_parameters: int, *, low: int = LOW_EVENTS_PER_PARAMETER) -> str:
+    """Events per candidate parameter, flagged in words when below ``low``.
+
+    References
+    ----------
+    Riley RD, Ensor J, Snell KIE, et al. Calculating the sample size required
+    for developing a clinical prediction model. BMJ 2020;368:m441.
+    """
+    if n_candidate_parameters < 1:
+        return "The model has no candidate parameters, so events per candidate parameter do not apply."
+    epp = smallest_level / n_candidate_parameters
+    head = (
+        f"Events per candidate parameter: {smallest_level} people in the smallest outcome level for "
+        f"{n_candidate_parameters} candidate parameters (every candidate term's coefficients and the thresholds), "
+        f"{epp:.1f} per parameter."
+    )
+    guide = (
+        " Events per parameter is only a rough guide; the sample-size criteria of Riley et al. (BMJ 2020), "
+        "on the planning page, say what these data can support."
+    )
+    if epp < low:
+        return (
+            head + f" This is low: below {low}, a common rule of thumb, expect a model that is overfitted "
+            "(optimistic apparent performance, predictions too extreme) and a selection that would change with other data."
+            + guide
+        )
+    return head + f" That is at least {low}, a common rule of thumb." + guide
+
+
+def hosmer_lemeshow_sentence(calibration: Any, *, n_levels: int) -> str:
+    """The Hosmer–Lemeshow test and what its p-value means at this sample size.
+
+    References
+    ----------
+    Kramer AA, Zimmerman JE. Assessing the calibration of mortality
+    benchmarks in critical care: the Hosmer-Lemeshow test revisited.
+    Critical Care Medicine 2007;35(9):2052–2056.
+
+    Paul P, Pennell ML, Lemeshow S. Standardizing the power of the
+    Hosmer–Lemeshow goodness of fit test in large data sets. Statistics in
+    Medicine 2013;32(1):67–80.
+    """
+    name = "Hosmer–Lemeshow test" if n_levels == 2 else "ordinal Hosmer–Lemeshow test"
+    stat, df, p = calibration.hosmer_lemeshow, calibration.hosmer_lemeshow_df, calibration.hosmer_lemeshow_pvalue
+    p_text = "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+    return (
+        f"The {name} on {calibration.n_groups} groups of predicted risk gives chi-square {stat:.2f} on {df:g} degrees of freedom, "
+        f"{p_text} ({calibration.n} people). Its p-value says whether miscalibration can be detected, not how large it is: "
+        "with many thousands of people it rejects for miscalibration too small to matter, and with a few hundred it has "
+        "little power to find miscalibration that does matter (Kramer & Zimmerman, Critical Care Medicine 2007; Paul, "
+        "Pennell & Lemeshow, Statistics in Medicine 2013). Read the calibration curve, slope and calibration-in-the-large for the size."
+    )
+
+
+def effects_sentence(link: str) -> str:
+    """How to read the table of term effects over stated contrasts."""
+    effect = "odds ratio of a higher outcome level" if link == "logit" else "change in the linear predictor"
+    return (
+        f"The effect of each term as the {effect} between two stated values of its predictor, with its "
+        f"{interval_words('wald')}: for a numeric predictor the 75th against the 25th percentile of the derivation data "
+        "(the same contrast for every numeric predictor, so their effects can be compared), for a categorical one each "
+        "level against the reference. Predictors that interact with it are held at the stated values; all others do not "
+        "change the effect. Like the coefficients, these intervals ignore the variable selection."
+    )
 
 
 def selection_sentence(selection: Any) -> str:

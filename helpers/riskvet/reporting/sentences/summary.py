@@ -8,7 +8,7 @@ import pandas as pd
 
 from .common import CAUTION
 
-__all__ = ["STAGE_TITLES", "summary_texts"]
+__all__ = ["STAGE_TITLES", "summary_texts", "selection_stability_sentence"]
 
 #: Each stage's name in words.
 STAGE_TITLES = {
@@ -52,15 +52,49 @@ def summary_texts(study: Mapping[str, Any], stages: pd.DataFrame, model: Mapping
         "stages": " ".join(parts),
         "model": model_text,
         "key_results": (
-            "The numbers below are copied from each stage's results file (the key column says where), with the "
-            "interval that stage reports, if any (its notebook says which kind); the stage notebooks interpret them."
+            "The numbers below are copied from each stage's results file (results/summary.json says where each one is), "
+            "with the interval that stage reports, if any; the stage's page names the kind of each interval and interprets the numbers."
         ),
         "tripod": (
-            "For each TRIPOD item the analysis covers, where this record answers it: the executed notebook and "
-            "section, and the results key. Items about the writing itself are left to the authors' report."
+            "For each item of the checklist, whether this record answers it, answers it in part (and what is missing) "
+            "or leaves it to the authors, and the page and section where it is answered; the links below go to those sections."
         ),
     }
 
 
 def _join(words: list[str]) -> str:
     return words[0] if len(words) == 1 else ", ".join(words[:-1]) + " and " + words[-1]
+
+
+def selection_stability_sentence(stability: Mapping[str, Any]) -> str | None:
+    """How often the bootstrap replicates of the whole derivation chose each term again, in words.
+
+    ``stability`` is the ``bootstrap.stability`` entry of the internal
+    validation's results: ``share_selected`` (term -> share of replicates),
+    ``apparent_terms`` (the final model's selected terms), ``forced_terms``
+    and ``n_replicates``.  Returns None when there was no selection to repeat.
+    The page calls a selection unstable when a selected term is chosen again
+    in fewer than 80% of replicates or a left-out term in 20% or more (a
+    reading aid, common practice, not a test).
+    """
+    share = stability.get("share_selected") if isinstance(stability, Mapping) else None
+    if not isinstance(share, Mapping) or not share or stability.get("method") in (None, "none"):
+        return None
+    forced = set(stability.get("forced_terms") or ())
+    chosen = [t for t in (stability.get("apparent_terms") or ()) if t not in forced and t in share]
+    others = sorted(((t, v) for t, v in share.items() if t not in forced and t not in chosen and v > 0), key=lambda tv: (-tv[1], tv[0]))
+    n = stability.get("n_replicates")
+    parts = [f"Selection stability over {n} bootstrap replicates of the whole derivation:"]
+    if chosen:
+        parts.append("the selected terms were chosen again in " + ", ".join(f"{share[t]:.0%} ({t})" for t in chosen) + " of replicates")
+    else:
+        parts.append("the final model selected no term beyond the forced ones")
+    if others:
+        parts[-1] += "; terms left out of the final model were chosen in up to " + ", ".join(f"{v:.0%} ({t})" for t, v in others[:3])
+    unstable = any(share[t] < 0.8 for t in chosen) or any(v >= 0.2 for _, v in others)
+    parts[-1] += "."
+    parts.append(
+        "The selection is unstable: other data of the same size would often give another model, so read single terms' "
+        "effects with caution." if unstable else "The selection is stable: the same terms are chosen in most replicates."
+    )
+    return " ".join(parts)
