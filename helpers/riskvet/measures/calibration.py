@@ -76,7 +76,7 @@ from ._checks import (
 from .decision import _proportion_interval
 from ..errors import RiskvetError, RiskvetWarning, problem
 
-__all__ = ["CalibrationResult", "OrdinalCalibration", "calibration", "ordinal_calibration"]
+__all__ = ["CalibrationResult", "OrdinalCalibration", "MergedGroups", "calibration", "ordinal_calibration", "merge_groups", "merge_bins"]
 
 #: Predictions are clipped to [_EPS, 1 - _EPS] before taking logits.
 _EPS = 1e-10
@@ -898,3 +898,186 @@ def ordinal_calibration(
         development=bool(development),
         n=int(y_arr.shape[0]),
     )
+
+
+# ---------------------------------------------------------------------------
+# Groups and bins for publication: adjacent ones merged until each is large
+# ---------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class MergedGroups:
+    """Adjacent quantile groups of a :class:`CalibrationResult`, merged until each holds enough people.
+
+    Attributes
+    ----------
+    n, events : ndarray
+        Patients and events of each merged group.
+    observed, observed_lower, observed_upper : ndarray
+        Event proportion of each merged group and its Wilson limits at
+        ``confidence``.
+    mean_predicted, min_predicted, max_predicted : ndarray
+        Mean (weighted by the original groups' sizes), smallest and largest
+        prediction of each merged group.
+    members : tuple of tuple of int
+        The original groups (numbered from 0, as in the result) in each
+        merged group.
+    min_count : int
+        Every merged group holds at least this many events and as many
+        non-events.
+    confidence : float
+        Level of the Wilson limits.
+    """
+
+    n: np.ndarray
+    events: np.ndarray
+    observed: np.ndarray
+    observed_lower: np.ndarray
+    observed_upper: np.ndarray
+    mean_predicted: np.ndarray
+    min_predicted: np.ndarray
+    max_predicted: np.ndarray
+    members: tuple[tuple[int, ...], ...]
+    min_count: int
+    confidence: float
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready dict of the fields."""
+        return _fields_dict(self)
+
+
+def _check_min_count(min_count: Any, func: str) -> int:
+    if isinstance(min_count, bool) or not isinstance(min_count, (int, np.integer)) or min_count < 0:
+        raise RiskvetError(problem(f"{func}(min_count=)", allowed="a whole number >= 0", received=min_count))
+    return int(min_count)
+
+
+def _runs(counts: np.ndarray, enough) -> list[list[int]]:
+    """Consecutive runs of indices, each closed as soon as ``enough(sum of its counts)``.
+
+    A last run that is not enough joins the run before it; when no run is
+    ever enough, there is none (the whole cannot be shown at all).
+    """
+    runs: list[list[int]] = []
+    current: list[int] = []
+    total = np.zeros(counts.shape[1:])
+    for i in range(counts.shape[0]):
+        current.append(i)
+        total = total + counts[i]
+        if enough(total):
+            runs.append(current)
+            current, total = [], np.zeros(counts.shape[1:])
+    if current and runs:
+        runs[-1].extend(current)
+    return runs
+
+
+def merge_groups(result: CalibrationResult, *, min_count: int) -> MergedGroups:
+    """Merge adjacent quantile groups until each holds ``min_count`` events and ``min_count`` non-events.
+
+    Parameters
+    ----------
+    result : CalibrationResult
+        From :func:`calibration` (or one cut of :func:`ordinal_calibration`).
+    min_count : int, keyword-only
+        The smallest number of events, and of non-events, a group may hold
+        (a record's ``output.min_cell_count``); 0 or 1 merges nothing, as
+        counts of 0 give nothing away.
+
+    Returns
+    -------
+    MergedGroups
+        With no groups when the data hold fewer than ``min_count`` events or
+        non-events in all.
+
+    Notes
+    -----
+    A group's event proportion, with its size, states its number of events
+    and of non-events, so a group shown with 1 to ``min_count - 1`` of
+    either would publish a small count.  Groups are taken in order of
+    prediction and closed as soon as both counts reach ``min_count``; a
+    remainder that does not joins the last closed group.  The measures of
+    ``result`` (the Hosmer–Lemeshow test included) are untouched: they were
+    computed from the original groups.
+    """
+    func = "merge_groups"
+    if not isinstance(result, CalibrationResult):
+        raise RiskvetError(problem(f"{func}(result=)", allowed="a CalibrationResult", received=type(result).__name__))
+    m = _check_min_count(min_count, func)
+    n = np.asarray(result.group_n, dtype=float)
+    events = np.asarray(result.group_events, dtype=float)
+    counts = np.column_stack([events, n - events])
+    runs = _runs(counts, lambda total: bool(np.all(total >= m))) if m > 1 else [[i] for i in range(n.shape[0])]
+    merged_n = np.array([n[r].sum() for r in runs])
+    merged_events = np.array([events[r].sum() for r in runs])
+    expected = np.array([(np.asarray(result.group_mean_predicted)[r] * n[r]).sum() for r in runs])
+    lower, upper = _proportion_interval(merged_events, merged_n, _z(result.confidence), result.confidence, "wilson")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        observed = merged_events / merged_n
+        mean_predicted = expected / merged_n
+    return MergedGroups(
+        n=_frozen(merged_n, dtype=np.int64),
+        events=_frozen(merged_events, dtype=np.int64),
+        observed=_frozen(observed),
+        observed_lower=_frozen(np.minimum(lower, observed)),
+        observed_upper=_frozen(np.maximum(upper, observed)),
+        mean_predicted=_frozen(mean_predicted),
+        min_predicted=_frozen([np.asarray(result.group_min_predicted)[r].min() for r in runs]),
+        max_predicted=_frozen([np.asarray(result.group_max_predicted)[r].max() for r in runs]),
+        members=tuple(tuple(int(i) for i in r) for r in runs),
+        min_count=m,
+        confidence=float(result.confidence),
+    )
+
+
+def merge_bins(edges: Any, counts: Any, *, min_count: int) -> tuple[np.ndarray, np.ndarray]:
+    """Merge adjacent histogram bins until every bin holds 0 or at least ``min_count`` people.
+
+    Parameters
+    ----------
+    edges : array-like, shape (B + 1,)
+        Bin edges, increasing.
+    counts : array-like of int, shape (B,)
+        People in each bin.
+    min_count : int, keyword-only
+        The smallest count a bin may show (``output.min_cell_count``).
+
+    Returns
+    -------
+    edges, counts : ndarray
+        The merged bins.  Runs of empty bins stay as they are; a bin holding
+        1 to ``min_count - 1`` people is joined with the bins after it (empty
+        ones included) until the run holds ``min_count``, and a small
+        remainder at the top joins the last bin that holds people.  When all
+        the bins together hold 1 to ``min_count - 1`` people, no bin can be
+        shown and both arrays are empty.
+    """
+    func = "merge_bins"
+    m = _check_min_count(min_count, func)
+    e = np.asarray(edges, dtype=float)
+    c = np.asarray(counts)
+    if e.ndim != 1 or c.ndim != 1 or e.shape[0] != c.shape[0] + 1 or np.any(np.diff(e) <= 0):
+        raise RiskvetError(problem(f"{func}(edges=, counts=)", allowed="B + 1 increasing edges and B counts", received=f"{e.shape[0]} edges, {c.shape[0]} counts"))
+    if np.any(c < 0) or np.any(c % 1):
+        raise RiskvetError(problem(f"{func}(counts=)", allowed="whole counts >= 0", received=c.tolist()))
+    c = c.astype(np.int64)
+    if 0 < c.sum() < m:
+        return np.empty(0), np.empty(0, dtype=np.int64)
+    runs: list[list[int]] = []
+    current: list[int] = []
+    for i, k in enumerate(c):
+        if not current and k == 0:
+            runs.append([i])  # an empty bin on its own shows nothing
+            continue
+        current.append(i)
+        if c[current].sum() >= m:
+            runs.append(current)
+            current = []
+    if current:
+        last = max(j for j, r in enumerate(runs) if c[r].sum() > 0) if any(c[r].sum() > 0 for r in runs) else None
+        if last is None:
+            runs.append(current)
+        else:
+            runs[last:] = [[i for r in runs[last:] for i in r] + current]
+    new_edges = np.array([e[r[0]] for r in runs] + [e[runs[-1][-1] + 1]])
+    return new_edges, np.array([c[r].sum() for r in runs], dtype=np.int64)

@@ -33,8 +33,8 @@ from ...modelling.derive import Derivation, candidate_parameters, derive
 from ...modelling.term_effects import TermEffects, column_label, term_effects, term_label
 from ...errors import RiskvetError, RiskvetWarning
 from ...modelling.modelfile import PredictionModel, model_from_fit, save_model
-from ...reporting.figures.performance import plot_calibration, plot_roc
-from ...reporting.figures.derivation import plot_odds_ratios, plot_selection_curve
+from ...reporting.figures.performance import calibration_statistics, plot_calibration, plot_roc, published_calibration
+from ...reporting.figures.derivation import plot_odds_ratios, plot_proportional_odds, plot_selection_curve
 from ...modelling.proportional_odds import brant_test, proportional_odds_lr_test
 from ...reporting.labels import cut_label, summary_label
 from ...reporting.sentences.common import interval_words, measure_guide
@@ -176,9 +176,10 @@ def run(ctx: StageContext) -> DerivationOutput:
     apparent, apparent_table, (rocs, threshold_tables), cal = _apparent(study, y, model.predict_proba(frame))
     smallest = int(min(np.bincount(y, minlength=K)))
     n_candidates = candidate_parameters(derivation.candidate_design, K)
-    figures = _figures(ctx, derivation, parameters, rocs, threshold_tables, cal, cut_labels)
+    figures = _figures(ctx, derivation, parameters, rocs, threshold_tables, cal, cut_labels, po)
     tables = _tables(flow, descriptive, derivation, _model_frame(parameters, derivation, cut_labels), effects,
                      apparent_table, po, threshold_tables, cut_labels)
+    tables["calibration_statistics"] = calibration_statistics(cal, levels=levels)
     texts = derivation_texts(
         cohort=cohort, selection=derivation.selection, n_terms=len(derivation.terms), n_params=derivation.fit.n_params,
         smallest_level=smallest, proportional_odds=po, summary=apparent["summary"],
@@ -300,7 +301,9 @@ def _apparent(study, y: np.ndarray, prob: np.ndarray) -> tuple[dict[str, Any], p
         th = study.thresholds_for_cut(j)
         # small classification counts, and the measures that would give them back, are withheld
         tables.append(publish_thresholds(threshold_table(yj, pj, thresholds=list(th)), min_cell_count=study.output.min_cell_count).table if th else None)
-    results = {"discrimination": disc.to_dict(), "calibration": cal.to_dict(), "overall": acc.to_dict(), "summary": summary}
+    # the calibration groups and prediction bins as the figure draws them: small counts merged or suppressed
+    published = published_calibration(cal, min_cell_count=study.output.min_cell_count)
+    results = {"discrimination": disc.to_dict(), "calibration": published, "overall": acc.to_dict(), "summary": summary}
     return results, table, [rocs, tables], cal
 
 
@@ -312,7 +315,7 @@ def _measure_words(key: str, levels: tuple[str, ...]) -> str:
     return summary_label(key, levels)
 
 
-def _figures(ctx: StageContext, derivation: Derivation, parameters: pd.DataFrame, rocs, threshold_tables, cal, cut_labels) -> dict[str, str]:
+def _figures(ctx: StageContext, derivation: Derivation, parameters: pd.DataFrame, rocs, threshold_tables, cal, cut_labels, po) -> dict[str, str]:
     """Selection curve, odds ratios (logit, proportional), ROC and calibration; name -> PNG path in the record.
 
     The odds-ratio figure shows per-unit odds ratios of single-column linear
@@ -335,8 +338,13 @@ def _figures(ctx: StageContext, derivation: Derivation, parameters: pd.DataFrame
         if len(shown):
             shown["term"] = [column_label(derivation.design, t) for t in shown["term"]]
             save(plot_odds_ratios(shown), "odds_ratios")
-    save(plot_roc(rocs, labels=cut_labels, operating_points=threshold_tables), "roc")
-    save(plot_calibration(cal, titles=cut_labels if len(cut_labels) > 1 else None), "calibration")
+    levels = study.outcome.ordered_levels
+    save(plot_roc(rocs, labels=cut_labels, operating_points=threshold_tables, levels=levels), "roc")
+    save(plot_calibration(cal, titles=cut_labels if len(cut_labels) > 1 else None, min_cell_count=study.output.min_cell_count,
+                          levels=levels), "calibration")
+    if po:
+        columns = {c: column_label(derivation.design, c) for c in po["brant"].coef_by_cut.index}
+        save(plot_proportional_odds(po["brant"], po["lr"], levels=levels, column_labels=columns), "proportional_odds")
     return figures
 
 
@@ -405,7 +413,6 @@ def _proportional_odds_frames(po, derivation: Derivation) -> dict[str, pd.DataFr
         "chi-square": lr.statistic, "df": lr.df, "p (likelihood-ratio test)": lr.p,
         "log-likelihood, one slope for all cuts": lr.loglik_proportional,
         "log-likelihood, one slope per cut": lr.loglik_nonproportional,
-        "rows where the per-cut model's probabilities cross": lr.n_crossing,
     }])
     return {"po_terms": per_term, "po_brant": per_term, "po_lr": lr_frame}
 
@@ -439,7 +446,15 @@ def _results(ctx: StageContext, cohort, flow, derivation: Derivation, model: Pre
         "model_file": str(ctx.model_path.relative_to(ctx.record_dir)) if ctx.model_path.is_relative_to(ctx.record_dir) else ctx.model_path.name,
         "fit": {"loglik": fit.loglik, "aic": fit.aic, "bic": fit.bic, "n": fit.n, "converged": fit.converged, "warnings": list(fit.warnings), "lr_test": fit.lr_test.to_dict()},
         "parameters": model_table,
-        "proportional_odds": {k: v.to_dict() for k, v in po.items()},
+        "proportional_odds": {k: _small_counts_withheld(v.to_dict(), ctx.study.output.min_cell_count) for k, v in po.items()},
         "apparent": apparent,
         "descriptive_suppressed_cells": descriptive.n_suppressed,
     }
+
+
+def _small_counts_withheld(content: dict[str, Any], min_cell_count: int) -> dict[str, Any]:
+    """A proportional-odds result for the results file: a count of people below the minimum is withheld."""
+    crossing = content.get("n_crossing")
+    if isinstance(crossing, int) and 0 < crossing < min_cell_count:
+        return {**content, "n_crossing": None, "n_crossing_withheld": f"fewer than {min_cell_count}"}
+    return content

@@ -34,6 +34,8 @@ from ...modelling.modelfile import PredictionModel, load_model
 from ...validation.rule import RuleComparison, compare_with_rule
 from ...intake.study import Study
 from ...reporting.classification import publish_thresholds
+from ...reporting.figures.external_validation import published_case_mix
+from ...reporting.figures.performance import published_calibration
 from ...reporting.disclosure import SUPPRESSED, complementary_suppression
 from ...reporting.sentences.common import INTERVAL_KINDS, interval_words, measure_guide
 from ...reporting.sentences.external_validation import (
@@ -215,10 +217,12 @@ class ExternalValidationOutput:
             {
                 "model_sha256": self.model_sha256,
                 "data": {k: dict(v) for k, v in self.data.items()},
-                "cohorts": {k: {**v.to_dict(), **_published_subgroups(v, self.min_cell_count), "summary": cohort_summary(v)}
+                "cohorts": {k: {**v.to_dict(), "calibration": published_calibration(v.calibration, min_cell_count=self.min_cell_count),
+                                **_published_subgroups(v, self.min_cell_count), "summary": cohort_summary(v)}
                             for k, v in self.cohorts.items()},
                 "min_cell_count": self.min_cell_count,
-                "case_mix": {k: {**v.to_dict(), "interpretation": case_mix_sentence(v)} for k, v in self.case_mix.items()},
+                "case_mix": {k: {**published_case_mix(v, min_cell_count=self.min_cell_count), "interpretation": case_mix_sentence(v)}
+                             for k, v in self.case_mix.items()},
                 "rule": {k: {**v.to_dict(), "summary": rule_summary(v, outcome_levels=self.cohorts[k].levels)} for k, v in self.rule.items()},
                 "figures": dict(self.figures),
                 "texts": dict(self.texts),
@@ -448,14 +452,14 @@ def run(ctx) -> ExternalValidationOutput:
         ctx.save_figure(fig, name)
         figures[name] = (ctx.figures_dir / f"{name}.png").relative_to(ctx.record_dir).as_posix()
 
-    save("case_mix", plot_case_mix(list(results["case_mix"].values())))
+    save("case_mix", plot_case_mix(list(results["case_mix"].values()), min_cell_count=study.output.min_cell_count))
     for label, c in results["cohorts"].items():
         save(figure_name("calibration", label), plot_cohort_calibration(c, min_cell_count=study.output.min_cell_count))
         save(figure_name("decision", label), plot_cohort_decision_curves(c, results["rule"].get(label)))
         if len(c.subgroups):
             save(figure_name("subgroups", label), plot_subgroups(c))
     for label, r in results["rule"].items():
-        save(figure_name("rule", label), plot_rule_comparison(r))
+        save(figure_name("rule", label), plot_rule_comparison(r, levels=results["cohorts"][label].levels))
 
     notes = []
     for label, c in results["cohorts"].items():

@@ -9,7 +9,6 @@ every stage shares one style (Okabe–Ito colours, a line style per series).
 
 from __future__ import annotations
 
-import dataclasses
 from typing import Sequence
 
 import matplotlib as mpl
@@ -17,17 +16,19 @@ import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
 
-from ...measures.calibration import OrdinalCalibration
+from ...measures.calibration import merge_bins
 from ...validation.casemix import CaseMix
+from ..._jsonable import to_jsonable
 from ...errors import RiskvetError, problem
-from ...intake.outcome import cut_name
+from ..labels import cut_label
 from ...validation.external import CohortValidation
-from .performance import LINESTYLES, PALETTE, _REFERENCE, _STYLE, plot_calibration, plot_decision_curve
+from .performance import FIGURE_WIDTH, LINESTYLES, PALETTE, _LABEL_SIZE, _REFERENCE, _STYLE, _check_count, _grid, plot_calibration, plot_decision_curve
 from ...validation.rule import RuleComparison
 from ...validation.update import UpdateResult, method_name
 
 __all__ = [
     "plot_case_mix",
+    "published_case_mix",
     "plot_cohort_calibration",
     "plot_cohort_decision_curves",
     "plot_subgroups",
@@ -42,42 +43,59 @@ def _check(value, kind, func: str, name: str):
     return value
 
 
-def plot_case_mix(results: CaseMix | Sequence[CaseMix]) -> Figure:
+def _p_words(p: float) -> str:
+    """A p-value for a figure: "p < 0.001" or "p = " and three decimals."""
+    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+
+
+def plot_case_mix(results: CaseMix | Sequence[CaseMix], *, min_cell_count: int | None = None) -> Figure:
     """Distribution of the linear predictor in the derivation and each validation cohort.
 
     Parameters
     ----------
     results : CaseMix or sequence of CaseMix
         From :func:`riskvet.casemix.case_mix`, one panel each.
+    min_cell_count : int or None, keyword-only, default None
+        ``output.min_cell_count``.  With a whole number each cohort's
+        histogram has adjacent bins merged until every bin holds none or at
+        least that many people (:func:`riskvet.calibration.merge_bins`): a
+        density with the cohort's size and the bin's width states the bin's
+        count.  None draws no histogram, only the means.
 
     Returns
     -------
     matplotlib.figure.Figure
-        Per panel, the two histograms as densities (so cohorts of different
-        sizes compare), the two means as vertical lines, and the membership
-        C in the corner.
+        Per panel (two across), the two histograms as densities (so cohorts
+        of different sizes compare), the two means as vertical lines, and
+        the membership C in the corner.
     """
     func = "plot_case_mix"
     items = [results] if isinstance(results, CaseMix) else list(results)
     if not items or not all(isinstance(r, CaseMix) for r in items):
         raise RiskvetError(problem(f"{func}(results=)", allowed="a CaseMix or a non-empty sequence of them", received=type(results).__name__))
+    if min_cell_count is not None:
+        min_cell_count = _check_count(min_cell_count, func)
     with mpl.rc_context(_STYLE):
-        fig = Figure(figsize=(4.6 * len(items), 3.4), layout="constrained")
+        n_rows, n_cols = _grid(len(items))
+        fig = Figure(figsize=(FIGURE_WIDTH, 3.9 * n_rows), layout="constrained")
         for i, r in enumerate(items):
-            ax = fig.add_subplot(1, len(items), i + 1)
-            edges = r.lp_histogram_edges
-            width = np.diff(edges)
+            ax = fig.add_subplot(n_rows, n_cols, i + 1)
             for k, (counts, name, mean) in enumerate(
                 ((r.lp_histogram_derivation, r.derivation_label, r.lp_mean_derivation), (r.lp_histogram_validation, r.validation_label, r.lp_mean_validation))
             ):
-                total = counts.sum()
-                density = counts / (total * width) if total else counts
-                ax.stairs(density, edges, color=PALETTE[k], linestyle=LINESTYLES[k], linewidth=1.5, label=f"{name} (n = {r.n_derivation if k == 0 else r.n_validation})")
-                ax.axvline(mean, color=PALETTE[k], linestyle=LINESTYLES[k], linewidth=0.9)
+                label = f"{name} (n = {r.n_derivation if k == 0 else r.n_validation})"
+                if min_cell_count is not None:
+                    edges, merged = merge_bins(r.lp_histogram_edges, counts, min_count=min_cell_count)
+                    total = merged.sum()
+                    if merged.size:
+                        ax.stairs(merged / (total * np.diff(edges)) if total else merged, edges, color=PALETTE[k], linestyle=LINESTYLES[k],
+                                  linewidth=1.5, label=label)
+                        label = None
+                ax.axvline(mean, color=PALETTE[k], linestyle=LINESTYLES[k], linewidth=0.9, label=label)
             note = f"membership C {r.membership_c:.2f}"
             if np.isfinite(r.membership_c_null):
                 note += f"\n(chance alone {r.membership_c_null:.2f})"
-            ax.text(0.02, 0.97, note, transform=ax.transAxes, va="top", ha="left", fontsize=7.5)
+            ax.text(0.02, 0.97, note, transform=ax.transAxes, va="top", ha="left", fontsize=_LABEL_SIZE)
             ax.set_xlabel("linear predictor of the model")
             ax.set_ylabel("density")
             ax.set_title(f"{r.validation_label} against {r.derivation_label}")
@@ -85,26 +103,50 @@ def plot_case_mix(results: CaseMix | Sequence[CaseMix]) -> Figure:
     return fig
 
 
-def plot_cohort_calibration(result: CohortValidation) -> Figure:
-    """Calibration plots of one validation cohort, one panel per cut (see :func:`riskvet.plots.plot_calibration`)."""
-    result = _check(result, CohortValidation, "plot_cohort_calibration", "result")
-    titles = [f"{result.label}: {cut_name(result.levels, c.cut)}" for c in result.calibration.cuts]
-    return plot_calibration(_tidy_limits(result.calibration), titles=titles)
+def published_case_mix(result: CaseMix, *, min_cell_count: int) -> dict:
+    """A case-mix comparison for a results file: its histograms with adjacent bins merged as the figure draws them.
 
+    Parameters
+    ----------
+    result : CaseMix
+    min_cell_count : int, keyword-only
+        ``output.min_cell_count``.
 
-def _tidy_limits(calibration: OrdinalCalibration) -> OrdinalCalibration:
-    """Group limits nudged to enclose their proportion.
-
-    A Wilson limit of a group with no events can come out as 3e-18 rather
-    than 0 in floating point, which matplotlib refuses as a negative error
-    bar; the nudge is at most a few ulps and changes nothing visible.
+    Returns
+    -------
+    dict
+        JSON-ready: ``result.to_dict()`` with ``lp_histogram_edges``,
+        ``lp_histogram_derivation`` and ``lp_histogram_validation`` replaced
+        by ``lp_histogram`` = {"derivation": {"edges", "counts"},
+        "validation": {"edges", "counts"}}, every count 0 or at least
+        ``min_cell_count`` (:func:`riskvet.calibration.merge_bins`).
     """
-    cuts = []
-    for c in calibration.cuts:
-        lower = np.minimum(c.group_observed_lower, c.group_observed)
-        upper = np.maximum(c.group_observed_upper, c.group_observed)
-        cuts.append(dataclasses.replace(c, group_observed_lower=lower, group_observed_upper=upper))
-    return dataclasses.replace(calibration, cuts=tuple(cuts))
+    func = "published_case_mix"
+    result = _check(result, CaseMix, func, "result")
+    m = _check_count(min_cell_count, func)
+    out = {k: v for k, v in result.to_dict().items() if not k.startswith("lp_histogram")}
+    histogram = {}
+    for name, counts in (("derivation", result.lp_histogram_derivation), ("validation", result.lp_histogram_validation)):
+        edges, merged = merge_bins(result.lp_histogram_edges, counts, min_count=m)
+        histogram[name] = {"edges": edges, "counts": merged}
+    out["lp_histogram"] = histogram
+    return to_jsonable(out)
+
+
+def plot_cohort_calibration(result: CohortValidation, *, min_cell_count: int | None = None) -> Figure:
+    """Calibration of one validation cohort, one panel per cut (see :func:`riskvet.reporting.figures.performance.plot_calibration`).
+
+    Parameters
+    ----------
+    result : CohortValidation
+    min_cell_count : int or None, keyword-only, default None
+        ``output.min_cell_count``; None draws no grouped proportions and no
+        distribution of predictions (nothing resting on counts of people).
+    """
+    result = _check(result, CohortValidation, "plot_cohort_calibration", "result")
+    binary = len(result.levels) == 2
+    titles = [f"{result.label}: {cut_label(result.levels, c.cut, binary=binary)}" for c in result.calibration.cuts]
+    return plot_calibration(result.calibration, titles=titles, min_cell_count=min_cell_count, levels=result.levels)
 
 
 def plot_cohort_decision_curves(result: CohortValidation, rule: RuleComparison | None = None) -> Figure:
@@ -131,10 +173,10 @@ def plot_cohort_decision_curves(result: CohortValidation, rule: RuleComparison |
         for c in rule.rule_curves:
             curves.append(c)
             labels.append(f"rule ({rule.rule_column} >= {rule.positive_from})")
-    fig = plot_decision_curve(curves, labels=labels)
-    for ax, cut in zip(fig.axes, sorted({c.cut for c in curves})):
-        ax.set_title(f"{result.label}: {cut_name(result.levels, cut)}")
-        ax.set_xlabel(f"threshold probability for {cut_name(result.levels, cut)}")
+    fig = plot_decision_curve(curves, labels=labels, levels=result.levels)
+    binary = len(result.levels) == 2
+    for ax, cut in zip(fig.axes, dict.fromkeys(c.cut for c in curves)):
+        ax.set_title(result.label if cut is None else f"{result.label}: {cut_label(result.levels, cut, binary=binary)}")
     return fig
 
 
@@ -154,9 +196,11 @@ def plot_subgroups(result: CohortValidation, *, measure: str | None = None, cut:
     Returns
     -------
     matplotlib.figure.Figure
-        Estimate and bootstrap interval per subgroup; subgroups flagged small
-        are drawn hollow and marked "small", as a reminder not to over-read
-        them.
+        Estimate and bootstrap percentile interval per subgroup; subgroups
+        flagged small are drawn hollow with dashed intervals and marked
+        "small", as a reminder not to over-read them.  Subgroup sizes are not
+        written (the page's table of sizes states them under disclosure
+        control).
     """
     func = "plot_subgroups"
     result = _check(result, CohortValidation, func, "result")
@@ -176,9 +220,9 @@ def plot_subgroups(result: CohortValidation, *, measure: str | None = None, cut:
 
     whole = pick(perf)
     subs = pick(result.subgroups) if len(result.subgroups) else result.subgroups
-    label = whole["label"].iloc[0] + (f", {cut_name(result.levels, cut)}" if per_cut else "")
+    label = whole["label"].iloc[0] + (f", {cut_label(result.levels, cut, binary=len(result.levels) == 2)}" if per_cut else "")
     with mpl.rc_context(_STYLE):
-        fig = Figure(figsize=(6.0, 1.2 + 0.32 * (len(subs) + 1)), layout="constrained")
+        fig = Figure(figsize=(FIGURE_WIDTH, 1.4 + 0.36 * (len(subs) + 1)), layout="constrained")
         ax = fig.add_subplot()
         names = [f"whole cohort (n = {result.n})"]
         est = [float(whole["estimate"].iloc[0])]
@@ -186,7 +230,8 @@ def plot_subgroups(result: CohortValidation, *, measure: str | None = None, cut:
         hi = [float(whole["upper"].iloc[0])]
         small = [False]
         for r in subs.itertuples():
-            names.append(f"{r.column}: {r.group} (n = {r.n})" + ("  [small]" if r.small else ""))
+            # no size here: a subgroup's size may be small, and the page's table of sizes is under disclosure control
+            names.append(f"{r.column}: {r.group}" + ("  (small)" if r.small else ""))
             est.append(float(r.estimate))
             lo.append(float(r.lower))
             hi.append(float(r.upper))
@@ -198,58 +243,81 @@ def plot_subgroups(result: CohortValidation, *, measure: str | None = None, cut:
             ax.plot([e], [y], marker="o", markersize=5, color=PALETTE[0], markerfacecolor="white" if s else PALETTE[0], linestyle="none")
         ax.axvline(est[0], color=_REFERENCE, linewidth=0.9, linestyle=":")
         ax.set_yticks(ypos, names)
-        ax.set_xlabel(f"{label} ({result.confidence:.0%} bootstrap interval)")
+        ax.set_xlabel(f"{label}\n(estimate with {result.confidence:.0%} bootstrap percentile interval)")
         ax.set_title(f"{result.label}: subgroups")
         ax.grid(axis="y", visible=False)
     return fig
 
 
-def plot_rule_comparison(result: RuleComparison) -> Figure:
+def _outcome_title(outcome: str, cut: int, levels: Sequence[str] | None) -> str:
+    """A cut's event in words: from ``levels`` when given, else from its table name ``Y >= level``."""
+    if levels is not None and 0 <= cut < len(levels) - 1:
+        return cut_label(levels, cut, binary=len(levels) == 2)
+    text = str(outcome)
+    return f"{text.removeprefix('Y >= ')} or higher" if text.startswith("Y >= ") else text
+
+
+def _draw_c_difference(ax, draws: np.ndarray, row, title: str) -> None:
+    if draws.size:
+        ax.hist(draws, bins=min(30, max(5, draws.size // 5)), color=PALETTE[1], alpha=0.75, linewidth=0)
+    ax.axvline(0.0, color=_REFERENCE, linewidth=1.0)
+    ax.axvline(row.difference, color=PALETTE[0], linewidth=1.2, linestyle="--")
+    ax.set_title(f"{title}\nDeLong test {_p_words(row.pvalue)}", fontsize=_LABEL_SIZE + 0.5)
+    ax.set_xlabel("C of the model\nminus C of the rule")
+    ax.set_ylabel("bootstrap replicates")
+
+
+def _draw_nb_difference(ax, result: RuleComparison, levels: Sequence[str] | None) -> None:
+    nb = result.net_benefit_table.reset_index(drop=True)
+    rows = np.arange(len(nb))[::-1]
+    # a percentile interval need not contain the estimate, so its ends are drawn as they are
+    ax.hlines(rows, nb["boot_lower"], nb["boot_upper"], color=PALETTE[0], linewidth=1.3)
+    ax.plot(nb["difference"], rows, linestyle="none", marker="o", color=PALETTE[0])
+    ax.axvline(0.0, color=_REFERENCE, linewidth=1.0)
+    names = [f"{_outcome_title(o, int(c), levels)}, threshold {t:g}" for o, c, t in zip(nb["outcome"], nb["cut"], nb["threshold"])]
+    ax.set_yticks(rows, names)
+    ax.grid(axis="y", visible=False)
+    ax.set_xlabel(f"net benefit of the model minus the rule\n(estimate with {result.confidence:.0%} bootstrap percentile interval)")
+    ax.set_title("Net benefit at the study thresholds", loc="left")
+
+
+def plot_rule_comparison(result: RuleComparison, *, levels: Sequence[str] | None = None) -> Figure:
     """Bootstrap distributions of the model's advantage over the existing rule.
 
     Parameters
     ----------
     result : RuleComparison
         From :func:`riskvet.rule.compare_with_rule`.
+    levels : sequence of str, optional, keyword-only
+        The outcome's level labels, lowest first, to name the cuts.
 
     Returns
     -------
     matplotlib.figure.Figure
-        One panel per cut with the histogram of C_model - C_rule over the
-        paired bootstrap replicates (zero marked); when net benefit was
-        compared, a last panel with NB_model - NB_rule at each study
-        threshold and its bootstrap interval.
+        One panel per cut (two across) with the histogram of the difference
+        in C between model and rule over the paired bootstrap replicates
+        (zero marked); when net benefit was compared, a full-width panel
+        beneath with the difference in net benefit at each study threshold
+        and its bootstrap percentile interval.
     """
     func = "plot_rule_comparison"
     result = _check(result, RuleComparison, func, "result")
-    n_cuts = result.boot_c_difference.shape[1] if result.boot_c_difference.ndim == 2 else 0
-    n_cuts = max(n_cuts, len(result.concordance_table))
+    n_cuts = len(result.concordance_table)
     has_nb = len(result.net_benefit_table) > 0
-    panels = n_cuts + (1 if has_nb else 0)
+    n_rows, n_cols = _grid(max(n_cuts, 1))
+    heights = [3.4] * n_rows + ([0.42 * len(result.net_benefit_table) + 1.4] if has_nb else [])
     with mpl.rc_context(_STYLE):
-        fig = Figure(figsize=(3.6 * panels, 3.2), layout="constrained")
+        fig = Figure(figsize=(FIGURE_WIDTH, sum(heights)), layout="constrained")
+        # separate subfigures, so the long row names of the last panel do not narrow the panels above
+        parts = fig.subfigures(2, 1, height_ratios=[sum(heights[:n_rows]), heights[-1]]) if has_nb else [fig]
+        top = parts[0].subplots(n_rows, n_cols, squeeze=False).ravel()
         for j, row in enumerate(result.concordance_table.itertuples()):
-            ax = fig.add_subplot(1, panels, j + 1)
-            draws = result.boot_c_difference[:, j] if result.boot_c_difference.size else np.array([])
-            if draws.size:
-                ax.hist(draws, bins=min(30, max(5, draws.size // 5)), color=PALETTE[1], alpha=0.75, linewidth=0)
-            ax.axvline(0.0, color=_REFERENCE, linewidth=1.0)
-            ax.axvline(row.difference, color=PALETTE[0], linewidth=1.2, linestyle="--")
-            ax.set_title(f"{row.outcome}")
-            ax.set_xlabel("C model - C rule")
-            ax.set_ylabel("bootstrap replicates")
-            ax.text(0.02, 0.97, f"DeLong p = {row.pvalue:.2g}", transform=ax.transAxes, va="top", ha="left", fontsize=7.5)
+            draws = result.boot_c_difference[:, j] if result.boot_c_difference.ndim == 2 and result.boot_c_difference.size else np.array([])
+            _draw_c_difference(top[j], draws, row, _outcome_title(row.outcome, int(row.cut), levels))
+        for ax in top[n_cuts:]:
+            ax.remove()
         if has_nb:
-            ax = fig.add_subplot(1, panels, panels)
-            nb = result.net_benefit_table.reset_index(drop=True)
-            x = np.arange(len(nb))
-            # a percentile interval need not contain the estimate, so its ends are drawn as they are
-            ax.vlines(x, nb["boot_lower"], nb["boot_upper"], color=PALETTE[0], linewidth=1.2)
-            ax.plot(x, nb["difference"], linestyle="none", marker="o", color=PALETTE[0])
-            ax.axhline(0.0, color=_REFERENCE, linewidth=1.0)
-            ax.set_xticks(x, [f"{o.removeprefix('Y >= ')}\n{t:g}" for o, t in zip(nb["outcome"], nb["threshold"])], fontsize=7)
-            ax.set_ylabel("NB model - NB rule")
-            ax.set_title("net benefit at the study thresholds")
+            _draw_nb_difference(parts[1].subplots(), result, levels)
     return fig
 
 
@@ -265,7 +333,8 @@ def plot_update_calibration(result: UpdateResult) -> Figure:
     -------
     matplotlib.figure.Figure
         One panel per cut with the original model's and the chosen update's
-        smoothed calibration curves.  The "after" curve is apparent
+        smoothed calibration curves, named in a key beneath the panel (no
+        statistics are written in the figure).  The "after" curve is apparent
         (optimistic): the same data fitted the update.
     """
     func = "plot_update_calibration"
@@ -274,19 +343,22 @@ def plot_update_calibration(result: UpdateResult) -> Figure:
     before, after = result.calibration_before.cuts, result.calibration_after.cuts
     chosen = method_name(result.closed_test.chosen, binary=len(levels) == 2)
     with mpl.rc_context(_STYLE):
-        fig = Figure(figsize=(4.0 * len(before), 3.8), layout="constrained")
+        n_rows, n_cols = _grid(len(before))
+        fig = Figure(figsize=(FIGURE_WIDTH, 4.4 * n_rows + 0.4), layout="constrained")
         for j, (b, a) in enumerate(zip(before, after)):
-            ax = fig.add_subplot(1, len(before), j + 1)
-            ax.plot([0, 1], [0, 1], color=_REFERENCE, linestyle=":", linewidth=1.0, label="ideal")
-            ax.plot(b.curve_predicted, b.curve_observed, color=PALETTE[0], linestyle=LINESTYLES[0], label=f"original (calibration-in-the-large {b.calibration_in_the_large:+.2f})")
-            ax.plot(a.curve_predicted, a.curve_observed, color=PALETTE[2], linestyle=LINESTYLES[1], label=f"{chosen} ({a.calibration_in_the_large:+.2f})")
+            ax = fig.add_subplot(n_rows, n_cols, j + 1)
+            ax.plot([0, 1], [0, 1], color=_REFERENCE, linestyle=":", linewidth=1.2, label="ideal")
+            ax.plot(b.curve_predicted, b.curve_observed, color=PALETTE[0], linestyle=LINESTYLES[0], label="original model")
+            # the update is named in the title: a long name here would squeeze the panel
+            ax.plot(a.curve_predicted, a.curve_observed, color=PALETTE[2], linestyle=LINESTYLES[1], label="after the update")
             top = float(max(np.nanmax(b.curve_predicted), np.nanmax(a.curve_predicted)))
             limit = min(1.0, top * 1.05) if top < 0.95 else 1.0
+            # beneath the panel, not in a corner of it, so it covers no curve
+            ax.legend(loc="upper left", bbox_to_anchor=(0.0, -0.2), borderaxespad=0.0, fontsize=_LABEL_SIZE)
             ax.set_xlim(0, limit)
             ax.set_ylim(0, limit)
             ax.set_xlabel("predicted probability")
             ax.set_ylabel("observed proportion (smoothed)")
-            ax.set_title(f"{result.cohort}: {cut_name(levels, j)}")
-            ax.legend(loc="upper left", fontsize=7)
-        fig.suptitle(f"Calibration before and after {chosen}, on the data that fitted it (apparent: optimistic)", fontsize=9)
+            ax.set_title(f"{result.cohort}: {cut_label(levels, j, binary=len(levels) == 2)}")
+        fig.suptitle(f"Before and after {chosen}, on the data that fitted it\n(the curve after is apparent, so optimistic)", fontsize=_LABEL_SIZE + 1)
     return fig

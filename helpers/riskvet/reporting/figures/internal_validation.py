@@ -23,7 +23,7 @@ from matplotlib.patches import Patch
 
 from ...validation.bootstrap import InternalValidation, SelectionStability
 from ...errors import RiskvetError, problem
-from .performance import PALETTE, _REFERENCE, _STYLE
+from .performance import FIGURE_WIDTH, PALETTE, _REFERENCE, _STYLE
 
 __all__ = ["plot_optimism", "plot_calibration_slopes", "plot_selection_frequency"]
 
@@ -74,9 +74,9 @@ def plot_optimism(result: InternalValidation, *, measures: Sequence[str] | None 
         ("Calibration", [e for e in chosen if e.kind in ("slope", "intercept")], 1.0),
     ]
     panels = [p for p in panels if p[1]]
-    heights = [max(1.2, 0.32 * len(p[1]) + 0.6) for p in panels]
+    heights = [max(1.4, 0.38 * len(p[1]) + 0.7) for p in panels]
     with mpl.rc_context(_STYLE):
-        fig = Figure(figsize=(6.4, sum(heights) + 0.6), layout="constrained")
+        fig = Figure(figsize=(FIGURE_WIDTH, sum(heights) + 0.9), layout="constrained")
         axes = fig.subplots(len(panels), 1, gridspec_kw={"height_ratios": heights}, squeeze=False)[:, 0]
         for ax, (name, items, ideal) in zip(axes, panels):
             rows = np.arange(len(items))[::-1]
@@ -98,7 +98,7 @@ def plot_optimism(result: InternalValidation, *, measures: Sequence[str] | None 
             Line2D([], [], color=PALETTE[1], marker="s", label="optimism-corrected"),
             Line2D([], [], linestyle="none", marker="^", color=PALETTE[2], label=".632+"),
         ]
-        fig.legend(handles=handles, loc="outside lower center", ncols=3)
+        fig.legend(handles=handles, loc="outside lower center", ncols=3, fontsize=10)
         fig.suptitle(title or f"Internal validation: {result.n_succeeded} bootstrap replicates")
     return fig
 
@@ -128,7 +128,7 @@ def plot_calibration_slopes(result: InternalValidation, *, bins: int = 30, title
     slopes = slopes[np.isfinite(slopes)]
     s = result.shrinkage
     with mpl.rc_context(_STYLE):
-        fig = Figure(figsize=(5.2, 3.4), layout="constrained")
+        fig = Figure(figsize=(FIGURE_WIDTH, 4.0), layout="constrained")
         ax = fig.add_subplot()
         if slopes.size:
             ax.hist(slopes, bins=bins, color=PALETTE[6], edgecolor="white", linewidth=0.5, label="replicate models")
@@ -167,7 +167,7 @@ def plot_selection_frequency(stability: SelectionStability, *, title: str | None
     terms = list(stability.candidate_terms)
     rows = np.arange(len(terms))[::-1]
     with mpl.rc_context(_STYLE):
-        fig = Figure(figsize=(5.2, 0.28 * len(terms) + 1.2), layout="constrained")
+        fig = Figure(figsize=(FIGURE_WIDTH, 0.34 * len(terms) + 1.6), layout="constrained")
         ax = fig.add_subplot()
         for r, t in zip(rows, terms):
             chosen = t in stability.apparent_terms
@@ -182,6 +182,6 @@ def plot_selection_frequency(stability: SelectionStability, *, title: str | None
             Patch(facecolor=PALETTE[1], edgecolor=PALETTE[1], label="in the model derived on all data"),
             Patch(facecolor="white", edgecolor=PALETTE[1], hatch="///", label="not in that model"),
         ]
-        fig.legend(handles=handles, loc="outside lower center", ncols=2)
+        fig.legend(handles=handles, loc="outside lower center", ncols=1, fontsize=10)
         ax.set_title(title or "Variable-selection stability")
     return fig
