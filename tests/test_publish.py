@@ -58,6 +58,18 @@ def test_table_drops_a_range_index_keeps_a_named_one_and_formats_every_cell():
     assert named.columns == ("term", "n") and named.rows == (("a", "1"), ("b", "2"))
 
 
+def test_limits_become_one_interval_column_named_by_its_kind():
+    frame = pd.DataFrame({"cohort": ["a", "b"], "estimate": [0.5, 0.6], "lower limit": [0.1, None], "upper limit": [0.7, 0.8],
+                          "interval": ["95% bootstrap percentile interval", None]})
+    table = publish.table(frame)
+    assert table.columns == ("cohort", "estimate", "95% bootstrap percentile interval")
+    assert table.rows == (("a", "0.500", "0.100 to 0.700"), ("b", "0.600", DASH))
+    mixed = publish.table(frame.assign(interval=["95% Wald interval", "95% bootstrap percentile interval"]))
+    assert mixed.columns == ("cohort", "estimate", "limits of the interval", "interval")
+    wald = publish.table(pd.DataFrame({"odds ratio": [1.2], "lower (95% Wald interval)": [1.0], "upper (95% Wald interval)": [1.5]}))
+    assert wald.columns == ("odds ratio", "95% Wald interval") and wald.rows == (("1.200", "1.000 to 1.500"),)
+
+
 def test_empty_table_is_a_sentence_and_none_is_allowed():
     empty = publish.table(pd.DataFrame({"a": []}), empty="No subgroup was asked for.")
     assert empty._repr_html_() == '<p class="rv-empty">No subgroup was asked for.</p>'
@@ -71,7 +83,7 @@ def test_wide_table_is_split_into_parts_that_repeat_the_row_labels():
     assert len(parts) == 2 and all(p.columns[0] == "cut" for p in parts)
     assert sum(len(p.columns) - 1 for p in parts) == 12
     assert all(len(p.columns) <= publish.MAX_COLUMNS for p in parts)
-    assert table._repr_html_().count("<table>") == 2
+    assert table._repr_html_().count("<table") == 2
 
 
 def test_table_refuses_what_is_not_a_frame_and_unknown_kinds():

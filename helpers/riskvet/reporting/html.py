@@ -60,6 +60,8 @@ h2 { border-top: 1px solid var(--rv-rule); padding-top: 0.8rem; margin-top: 2rem
 .rv-table th, .rv-table td, .jp-RenderedHTMLCommon .rv-table th, .jp-RenderedHTMLCommon .rv-table td {
   border: none; border-bottom: 1px solid var(--rv-rule); padding: 0.25rem 0.6rem; text-align: left; vertical-align: top; white-space: normal; }
 .rv-table thead th { border-bottom: 2px solid var(--rv-ink); font-weight: 600; }
+.rv-table table.rv-fixed { table-layout: fixed; width: 100%; }
+.rv-table table.rv-fixed th, .rv-table table.rv-fixed td, .rv-table table.rv-fixed .rv-num { overflow-wrap: anywhere; white-space: normal; }
 .rv-table .rv-num, .jp-RenderedHTMLCommon .rv-table .rv-num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
 .rv-table tbody tr:nth-child(even) { background: #f7f9fb; }
 .rv-figure { margin: 0.8rem 0 1.4rem; }

@@ -215,7 +215,8 @@ class Table:
             for row in self.rows
         )
         caption = f"<caption>{html.escape(self.caption)}</caption>" if self.caption else ""
-        return f'<div class="rv-table"><table>{caption}<thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>'
+        layout = ' class="rv-fixed"' if len(self.columns) >= 4 else ""
+        return f'<div class="rv-table"><table{layout}>{caption}<thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>'
 
     def _repr_markdown_(self) -> str | None:
         return None
@@ -346,14 +347,31 @@ def _intervals(frame: pd.DataFrame, interval: str | None) -> tuple[pd.DataFrame,
                 used.update({low, high})
                 break
         else:
-            if name.lower() == "lower" and "upper" in [n.lower() for n in names]:
-                high = next(n for n in names if n.lower() == "upper")
-                pairs[words] = (list(frame[name]), list(frame[high]))
-                out[words] = frame[name]
+            rest = name[5:] if name.lower().startswith("lower") else None
+            high = next((n for n in names if rest is not None and n.lower() == "upper" + rest.lower()), None)
+            if high is not None:
+                named = rest.strip(" ,()").removeprefix("limit").strip(" ,()")
+                header = interval or named or _kind_header(frame, None)
+                pairs[header] = (list(frame[name]), list(frame[high]))
+                out[header] = frame[name]
                 used.update({name, high})
+                if "interval" in names and frame["interval"].nunique(dropna=True) <= 1:
+                    used.add("interval")  # its one kind is the header now
             elif name not in used:
                 out[name] = frame[name]
+    out = {k: v for k, v in out.items() if k not in used or k in pairs}
     return pd.DataFrame(out).reset_index(drop=True), pairs
+
+
+def _kind_header(frame: pd.DataFrame, given: str | None) -> str:
+    """The header of a joined interval column: the kind given, else the one kind an ``interval`` column names."""
+    if given:
+        return given
+    if "interval" in frame.columns:
+        kinds = frame["interval"].dropna().unique()
+        if len(kinds) == 1 and isinstance(kinds[0], str):
+            return kinds[0]
+    return "limits of the interval" if "interval" in frame.columns else "interval"
 
 
 def _interval_cell(lower: Any, upper: Any, decimals: int) -> str:
@@ -489,10 +507,10 @@ def notes(items: Iterable[Any], *, empty: str = "No statistical warnings were me
 #: What :func:`scan_text` looks for, by name.
 _FORBIDDEN = {
     "scientific notation": re.compile(r"(?<![\w.#&-])\d+(?:\.\d+)?[eE][-+]?\d+(?![\w.])"),
-    "missing-value word": re.compile(r"(?<![\w-])(?:NaN|nan|None|NaT|<NA>)(?![\w-])"),
+    "missing-value word": re.compile(r"(?<![\w-])(?:NaN|nan|None|NaT|<NA>)(?![\w-])(?!\s+(?:of|is|are|was|were)\b)"),
     "Python flag": re.compile(r"(?<![\w-])(?:True|False)(?![\w-])"),
     "absolute path": re.compile(r"(?:(?<=[\s\"'(>])|^)(?:/(?:home|tmp|usr|work|var|root|Users|opt|mnt)/[\w./-]+|[A-Za-z]:\\\w+)"),
-    "warning class name": re.compile(r"\b\w*(?:Warning|Error|Exception)\b(?=:|\s*\()"),
+    "warning class name": re.compile(r"\b\w+(?:Warning|Error|Exception)\b(?=:|\s*\()"),
     "source line": re.compile(r"\b[\w/-]+\.py:\d+"),
 }
 

@@ -61,7 +61,7 @@ _SHOWN = (
 )
 
 _MEASURE_LABELS = {
-    "auc": "C (AUC) of the cut",
+    "auc": "C (AUC)",
     "average_cut_auc": "average dichotomised C",
     "ordinal_c": "ordinal c-index",
     "generalised_c": "generalised C",

@@ -28,6 +28,7 @@ from ...modelling.modelfile import load_model, save_model
 from ...intake.study import Study
 from ...validation.external import measure_label
 from ...validation.update import UpdateResult, method_name, update_model
+from ...modelling.term_effects import column_label
 from ...reporting.sentences.common import measure_guide
 from ...reporting.sentences.external_validation import outcome_words
 from ...reporting.sentences.updating import CORRECTED_COLUMN, step_decision, updating_texts
@@ -126,7 +127,11 @@ class UpdatingOutput:
             table = table.merge(chosen, on="parameter", how="outer", sort=False)
         names = {f"threshold {a}|{b}": f"threshold of {outcome_words(self._levels, j)}"
                  for j, (a, b) in enumerate(zip(self._levels, self._levels[1:]))}
-        table["parameter"] = [names.get(p, p) for p in table["parameter"]]
+        design, chosen_design = self.result.fits["original"].model.design, chosen_fit.model.design
+        words = {c: column_label(design, c) for c in design.columns}
+        # an extension adds columns of its own design
+        words.update({c: column_label(chosen_design, c) for c in chosen_design.columns if c not in words})
+        table["parameter"] = [names.get(p, words.get(p, p)) for p in table["parameter"]]
         return table
 
     @property
