@@ -16,11 +16,15 @@ from statsmodels.stats.inter_rater import cohens_kappa
 
 from riskvet.measures.agreement import (
     ICC_FORMS,
+    PREVALENCE_LIMIT,
+    UNINFORMATIVE_REASONS,
+    agreement_indices,
     bland_altman,
     decision_agreement,
     icc,
     icc_table,
     kappa,
+    kappa_from_table,
 )
 from riskvet.errors import DataError, RiskvetError, RiskvetWarning, StudyError
 
@@ -443,3 +447,114 @@ def test_decision_agreement():
         decision_agreement(risk_a, risk_b, threshold=1.5)
     with pytest.raises(DataError, match="between 0 and 1"):
         decision_agreement(risk_a * 2, risk_b, threshold=0.3)
+
+
+# --------------------------------------------------------------------------
+# kappa from a table; PABAK, specific agreement, uninformative kappa
+# --------------------------------------------------------------------------
+
+# Feinstein AR, Cicchetti DV. J Clin Epidemiol 1990; 43: 543-549, the two
+# tables of the first paradox (recalled from memory): 100 pairs, p_o = .85 in
+# both, kappa .70 and .32.  In Feinstein's notation a = both yes, b = first
+# rater yes only, c = second rater yes only, d = both no; here rows are the
+# first rater, columns the second, "no" first: [[d, c], [b, a]].
+BALANCED = [[45, 6], [9, 40]]     # a = 40, b = 9, c = 6, d = 45
+UNBALANCED = [[5, 5], [10, 80]]   # a = 80, b = 10, c = 5, d = 5
+
+
+def test_kappa_from_table_is_kappa_of_the_pairs():
+    for table in (BALANCED, UNBALANCED, [[75, 1, 4], [5, 4, 1], [0, 0, 10]]):
+        a, b = _pairs_from_table(table)
+        for weights in (None, "linear", "quadratic"):
+            direct, pairs = kappa_from_table(table, weights=weights), kappa(a, b, weights=weights)
+            for field in ("value", "se", "se_null", "lower", "upper", "p_value", "expected_agreement"):
+                assert getattr(direct, field) == pytest.approx(getattr(pairs, field), rel=1e-12)
+            assert direct.table == pairs.table and direct.levels == (0, 1, 2)[: len(table)]
+    assert kappa_from_table(BALANCED, levels=["no", "yes"]).levels == ("no", "yes")
+    for bad in ([[1, 2, 3]], [[1, -1], [0, 2]], [[0.5, 1], [1, 1]], [[0, 0], [0, 0]], [[1]]):
+        with pytest.raises(DataError, match="kappa_from_table\\(table\\)"):
+            kappa_from_table(bad)
+    with pytest.raises(DataError, match="levels"):
+        kappa_from_table(BALANCED, levels=["x"])
+    with pytest.raises(StudyError, match="weights"):
+        kappa_from_table(BALANCED, weights="cubic")
+
+
+def test_prevalence_paradox_published_tables():
+    # Feinstein & Cicchetti 1990 (part I), recalled from memory: kappa .70 and .32 at p_o .85
+    # (two decimals given, so tolerance 0.005).
+    assert kappa_from_table(BALANCED).value == pytest.approx(0.70, abs=0.005)
+    assert kappa_from_table(UNBALANCED).value == pytest.approx(0.32, abs=0.005)
+    balanced, unbalanced = agreement_indices(BALANCED), agreement_indices(UNBALANCED)
+    # Byrt, Bishop & Carlin 1993: PABAK = 2 p_o - 1, the same for both tables (hand calculation: 2 x .85 - 1)
+    assert balanced.pabak == pytest.approx(0.70, abs=1e-12) and unbalanced.pabak == pytest.approx(0.70, abs=1e-12)
+    # prevalence index (a - d)/n and bias index (b - c)/n, by hand: (40 - 45)/100, (9 - 6)/100; (80 - 5)/100, (10 - 5)/100
+    assert balanced.prevalence_index == pytest.approx(-0.05, abs=1e-12) and balanced.bias_index == pytest.approx(0.03, abs=1e-12)
+    assert unbalanced.prevalence_index == pytest.approx(0.75, abs=1e-12) and unbalanced.bias_index == pytest.approx(0.05, abs=1e-12)
+    # Cicchetti & Feinstein 1990 (part II) specific agreement, by hand: p_pos = 2a/(2a + b + c), p_neg = 2d/(2d + b + c):
+    # 80/95 and 90/105; 160/175 and 10/25
+    assert balanced.positive_agreement == pytest.approx(80 / 95, abs=1e-12)
+    assert balanced.negative_agreement == pytest.approx(90 / 105, abs=1e-12)
+    assert unbalanced.positive_agreement == pytest.approx(160 / 175, abs=1e-12)
+    assert unbalanced.negative_agreement == pytest.approx(10 / 25, abs=1e-12)
+    # neither is flagged: the most used category holds 105 and 175 of the 200 readings (hand count: 51 + 54 "no"; 90 + 85 "yes")
+    assert balanced.largest_share == pytest.approx(0.525) and unbalanced.largest_share == pytest.approx(0.875)
+    assert balanced.informative and unbalanced.informative and not unbalanced.reason
+
+
+def test_pabak_for_more_categories_by_hand():
+    # Fleiss, Levin & Paik 2003 table (see test_kappa_published_example): p_o = .89, K = 3;
+    # Brennan & Prediger 1981: (K p_o - 1)/(K - 1) = (2.67 - 1)/2 = .835 by hand.
+    r = agreement_indices([[75, 1, 4], [5, 4, 1], [0, 0, 10]])
+    assert r.pabak == pytest.approx(0.835, abs=1e-12) and r.categories == 3
+    assert math.isnan(r.positive_agreement) and math.isnan(r.bias_index)
+    assert r.to_frame()["index"].tolist() == ["observed agreement", "prevalence- and bias-adjusted kappa"]
+    json.dumps(r.to_dict(), allow_nan=True)
+
+
+def test_uninformative_kappa():
+    # 148 of 150 agree, every one of them in the upper category, and one rater used only that category:
+    # kappa is 0 (hand calculation: p_o = p_e = 148/150) with a standard error of (almost) 0.
+    k = kappa_from_table([[0, 2], [0, 148]])
+    assert k.value == pytest.approx(0.0, abs=1e-12) and k.upper - k.lower < 1e-6
+    r = agreement_indices([[0, 2], [0, 148]])
+    assert not r.informative and r.reason_code == 1 and r.reason == UNINFORMATIVE_REASONS[1]
+    assert "prevalence" in r.reason and r.largest_share == pytest.approx(298 / 300)
+    assert r.pabak == pytest.approx(2 * 148 / 150 - 1) and r.negative_agreement == 0.0
+    assert r.positive_agreement == pytest.approx(296 / 298)
+    # one rater used a single category although no category dominates: kappa 0 whatever the other did
+    single = agreement_indices([[50, 50], [0, 0]])
+    assert single.largest_share == pytest.approx(0.75) and single.reason_code == 2 and not single.informative
+    assert kappa_from_table([[50, 50], [0, 0]]).value == pytest.approx(0.0, abs=1e-12)
+    # the limit itself: 95% of readings in one category is flagged, just under is not (hand counts over 200 readings)
+    assert agreement_indices([[95, 0], [0, 5]]).largest_share == pytest.approx(PREVALENCE_LIMIT)
+    assert not agreement_indices([[95, 0], [0, 5]]).informative
+    assert agreement_indices([[94, 0], [0, 6]]).informative
+    # no positive pair at all: positive agreement undefined
+    assert math.isnan(agreement_indices([[10, 0], [0, 0]]).positive_agreement)
+    for bad in ([[1, 2, 3]], [[-1, 1], [1, 1]], [[0, 0], [0, 0]]):
+        with pytest.raises(DataError, match="agreement_indices\\(table\\)"):
+            agreement_indices(bad)
+
+
+from hypothesis import given, settings, strategies as st
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.integers(0, 30), min_size=4, max_size=4).filter(lambda v: sum(v) > 0))
+def test_agreement_indices_invariants(cells):
+    t = np.array(cells).reshape(2, 2)
+    r = agreement_indices(t)
+    assert -1 <= r.pabak <= 1 and 0.5 <= r.largest_share <= 1
+    for v in (r.positive_agreement, r.negative_agreement):
+        assert math.isnan(v) or 0 <= v <= 1
+    # swapping the raters: the same agreement, the bias index changes sign
+    swapped = agreement_indices(t.T)
+    assert swapped.pabak == r.pabak and swapped.bias_index == pytest.approx(-r.bias_index, abs=1e-15)
+    assert swapped.positive_agreement == pytest.approx(r.positive_agreement, nan_ok=True)
+    # relabelling the categories: positive and negative agreement trade places, the prevalence index changes sign
+    flipped = agreement_indices(t[::-1, ::-1])
+    assert flipped.positive_agreement == pytest.approx(r.negative_agreement, nan_ok=True)
+    assert flipped.prevalence_index == pytest.approx(-r.prevalence_index, abs=1e-15)
+    # a slow direct count: p_o is the share of pairs on the diagonal
+    assert r.observed_agreement == pytest.approx(sum(t[i, i] for i in range(2)) / t.sum(), abs=1e-15)

@@ -435,6 +435,11 @@ class OutputSection(_Section):
     )
     min_cell_count: int = Field(default=5, ge=0, description="Counts below this are suppressed in descriptive tables; 0 shows all.")
     html: bool = True
+    pair_level_plots: bool = Field(
+        default=False,
+        description="Allow Bland–Altman figures that mark single pairs of readings; by default they show bins of pairs, "
+        "and bins holding fewer than min_cell_count people are not drawn.",
+    )
 
     _resolve_path = field_validator("records")(classmethod(lambda cls, v, info: _resolve(v, info)))
 

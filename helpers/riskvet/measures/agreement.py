@@ -32,6 +32,12 @@ __all__ = [
     "icc_table",
     "KappaResult",
     "kappa",
+    "kappa_from_table",
+    "PREVALENCE_LIMIT",
+    "UNINFORMATIVE_REASONS",
+    "AgreementIndices",
+    "agreement_indices",
+    "agreement_statistics",
     "BlandAltmanResult",
     "bland_altman",
     "DecisionAgreement",
@@ -609,49 +615,351 @@ def kappa(
     pos = {v: i for i, v in enumerate(lv)}
     counts = np.zeros((c, c), dtype=int)
     np.add.at(counts, (np.array([pos[v] for v in va]), np.array([pos[v] for v in vb])), 1)
+    return _kappa_result(counts, weights=weights, confidence=confidence, levels=tuple(lv))
 
-    w = _weight_matrix(weights, c)
-    p = counts / n
-    row = p.sum(axis=1)
-    col = p.sum(axis=0)
-    po = float(np.sum(w * p))
-    pe = float(np.sum(w * np.outer(row, col)))
+
+def _kappa_statistics(counts: np.ndarray, w: np.ndarray, confidence: float) -> dict[str, np.ndarray]:
+    """Kappa, its standard errors, interval and test of a stack of tables (N × K × K; formulas in :func:`kappa`).
+
+    No checks, no warnings: NaN where chance agreement is 1.
+    """
+    counts = np.asarray(counts, dtype=float)
+    n = counts.sum(axis=(1, 2))
+    p = counts / n[:, None, None]
+    row = p.sum(axis=2)
+    col = p.sum(axis=1)
+    expected = row[:, :, None] * col[:, None, :]
+    po = np.einsum("ij,nij->n", w, p)
+    pe = np.einsum("ij,nij->n", w, expected)
+    defined = pe < 1 - 1e-12
+    safe = np.where(defined, pe, 0.0)
+    k = np.where(defined, (po - safe) / (1 - safe), np.nan)
+    wbar_row = np.einsum("ij,nj->ni", w, col)  # w̄_i. = Σ_j p_.j w_ij
+    wbar_col = np.einsum("ni,ij->nj", row, w)  # w̄_.j = Σ_i p_i. w_ij
+    spread = wbar_row[:, :, None] + wbar_col[:, None, :]
+    kk = k[:, None, None]
+    scale = n * (1 - safe) ** 2
+    var = (np.sum(p * (w - spread * (1 - kk)) ** 2, axis=(1, 2)) - (k - safe * (1 - k)) ** 2) / scale
+    var0 = (np.sum(expected * (w - spread) ** 2, axis=(1, 2)) - safe**2) / scale
+    se = np.where(defined, np.sqrt(np.maximum(var, 0.0)), np.nan)
+    se0 = np.where(defined, np.sqrt(np.maximum(var0, 0.0)), np.nan)
+    zq = float(stats.norm.ppf(0.5 + confidence / 2))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = np.where(se0 > 0, k / se0, np.nan)
+    return {"value": k, "se": se, "se_null": se0, "lower": k - zq * se, "upper": k + zq * se, "z": z,
+            "p_value": 2 * stats.norm.sf(np.abs(z)), "observed_agreement": po, "expected_agreement": pe}
+
+
+def _kappa_result(counts: np.ndarray, *, weights: str | None, confidence: float, levels: tuple[Any, ...]) -> KappaResult:
+    s = {key: float(v[0]) for key, v in _kappa_statistics(counts[None], _weight_matrix(weights, counts.shape[0]), confidence).items()}
     notes: list[str] = []
-    if pe >= 1 - 1e-12:
+    if not math.isfinite(s["value"]):
         msg = "kappa: chance agreement is 1 (both raters used a single category); kappa is undefined"
-        warnings.warn(msg, RiskvetWarning, stacklevel=2)
+        warnings.warn(msg, RiskvetWarning, stacklevel=3)
         notes.append(msg)
-        k_val = se = se0 = z = pval = lo = hi = math.nan
-    else:
-        k_val = (po - pe) / (1 - pe)
-        wbar_row = w @ col  # w̄_i. = Σ_j p_.j w_ij
-        wbar_col = row @ w  # w̄_.j = Σ_i p_i. w_ij
-        spread = wbar_row[:, None] + wbar_col[None, :]
-        var = (np.sum(p * (w - spread * (1 - k_val)) ** 2) - (k_val - pe * (1 - k_val)) ** 2) / (n * (1 - pe) ** 2)
-        var0 = (np.sum(np.outer(row, col) * (w - spread) ** 2) - pe**2) / (n * (1 - pe) ** 2)
-        se = math.sqrt(max(float(var), 0.0))
-        se0 = math.sqrt(max(float(var0), 0.0))
-        zq = float(stats.norm.ppf(0.5 + confidence / 2))
-        lo, hi = k_val - zq * se, k_val + zq * se
-        z = k_val / se0 if se0 > 0 else math.nan
-        pval = float(2 * stats.norm.sf(abs(z))) if math.isfinite(z) else math.nan
     return KappaResult(
-        weights=weights,
-        value=float(k_val),
-        se=float(se),
-        se_null=float(se0),
-        lower=float(lo),
-        upper=float(hi),
-        confidence=confidence,
-        z=float(z),
-        p_value=float(pval),
-        observed_agreement=po,
-        expected_agreement=pe,
-        n=n,
-        levels=tuple(lv),
-        table=tuple(tuple(int(v) for v in r) for r in counts),
-        warnings=tuple(notes),
+        weights=weights, value=float(s["value"]), se=float(s["se"]), se_null=float(s["se_null"]),
+        lower=float(s["lower"]), upper=float(s["upper"]), confidence=confidence, z=float(s["z"]),
+        p_value=float(s["p_value"]), observed_agreement=s["observed_agreement"],
+        expected_agreement=s["expected_agreement"], n=int(counts.sum()), levels=levels,
+        table=tuple(tuple(int(v) for v in r) for r in counts), warnings=tuple(notes),
     )
+
+
+def _count_table(where: str, table: Any) -> np.ndarray:
+    counts = np.asarray(table)
+    if counts.ndim != 2 or counts.shape[0] != counts.shape[1] or counts.shape[0] < 2:
+        raise DataError(problem(f"{where}(table)", allowed="a square table of counts with at least 2 categories", received=f"shape {counts.shape}"))
+    try:
+        numbers = counts.astype(float)
+    except (TypeError, ValueError):
+        raise DataError(problem(f"{where}(table)", allowed="whole counts >= 0", received=counts.tolist())) from None
+    if not np.all(np.isfinite(numbers)) or np.any(numbers < 0) or np.any(numbers % 1) or numbers.sum() < 1:
+        raise DataError(problem(f"{where}(table)", allowed="whole counts >= 0, at least one pair", received=counts.tolist()))
+    return numbers.astype(np.int64)
+
+
+def kappa_from_table(
+    table: Any,
+    *,
+    weights: Literal["linear", "quadratic"] | None = None,
+    confidence: float = 0.95,
+    levels: Any = None,
+) -> KappaResult:
+    """Cohen's kappa from a K × K table of counts (first rater in rows).
+
+    The same statistic as :func:`kappa` on the pairs the table counts; see
+    there for the formulas and references.
+
+    Parameters
+    ----------
+    table : K × K counts
+        Whole counts >= 0, K >= 2.
+    weights : {None, "linear", "quadratic"}, default None
+    confidence : float, default 0.95
+    levels : sequence of K labels, optional
+        Default 0..K−1.
+
+    Returns
+    -------
+    KappaResult
+
+    Raises
+    ------
+    DataError
+        Not a square table of whole counts, or no pairs; ``levels`` of the wrong length.
+    StudyError
+        Unknown ``weights`` or a confidence outside (0, 1).
+    """
+    if weights not in (None, "linear", "quadratic"):
+        raise StudyError(problem("kappa_from_table(weights)", allowed="None, 'linear' or 'quadratic'", received=weights))
+    confidence = _check_confidence("kappa_from_table", confidence)
+    counts = _count_table("kappa_from_table", table)
+    lv = tuple(range(counts.shape[0])) if levels is None else tuple(_plain(v) for v in levels)
+    if len(lv) != counts.shape[0] or len(set(lv)) != len(lv):
+        raise DataError(problem("kappa_from_table(levels)", allowed=f"{counts.shape[0]} distinct labels", received=list(lv)))
+    return _kappa_result(counts, weights=weights, confidence=confidence, levels=lv)
+
+
+# --------------------------------------------------------------------------
+# kappa's paradoxes: prevalence- and bias-adjusted kappa, specific agreement
+# --------------------------------------------------------------------------
+
+#: Kappa is called uninformative when one category holds at least this share of all readings.
+PREVALENCE_LIMIT = 0.95
+
+
+@dataclass(frozen=True)
+class AgreementIndices(_Result):
+    """Indices that read a raters' cross-table where kappa alone misleads.
+
+    Attributes
+    ----------
+    n : int
+        Pairs of ratings.
+    categories : int
+        K, the number of categories.
+    observed_agreement : float
+        Share of pairs on the diagonal, p_o.
+    expected_agreement : float
+        Chance agreement of unweighted kappa, p_e.
+    pabak : float
+        Prevalence- and bias-adjusted kappa, (K·p_o − 1)/(K − 1).
+    prevalence_index : float
+        2 × 2 tables: (n₁₁ − n₀₀)/n, both raters positive minus both negative
+        (NaN for larger tables).
+    bias_index : float
+        2 × 2 tables: (n₁₀ − n₀₁)/n, the first rater's share positive minus
+        the second's (NaN for larger tables).
+    positive_agreement, negative_agreement : float
+        2 × 2 tables: 2n₁₁/(2n₁₁ + n₀₁ + n₁₀) and 2n₀₀/(2n₀₀ + n₀₁ + n₁₀),
+        NaN when their denominator is 0 or the table is larger.
+    largest_share : float
+        Share of all 2n readings (both raters) in the most used category.
+    largest_category : int
+        Its position (0 = first level).
+    informative : bool
+        False when kappa cannot be read as agreement beyond chance (``reason``).
+    reason_code : int
+        0 when informative, else the key of :data:`UNINFORMATIVE_REASONS`.
+    reason : str
+        Why kappa is uninformative, in words; empty when it is informative.
+    """
+
+    n: int
+    categories: int
+    observed_agreement: float
+    expected_agreement: float
+    pabak: float
+    prevalence_index: float
+    bias_index: float
+    positive_agreement: float
+    negative_agreement: float
+    largest_share: float
+    largest_category: int
+    informative: bool
+    reason_code: int
+    reason: str
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per index: index, value."""
+        rows = [("observed agreement", self.observed_agreement), ("prevalence- and bias-adjusted kappa", self.pabak)]
+        if self.categories == 2:
+            rows += [("positive agreement", self.positive_agreement), ("negative agreement", self.negative_agreement),
+                     ("prevalence index", self.prevalence_index), ("bias index", self.bias_index)]
+        return pd.DataFrame(rows, columns=["index", "value"])
+
+
+#: Why kappa is uninformative, by code (0: informative).
+UNINFORMATIVE_REASONS: dict[int, str] = {
+    1: (f"one category holds at least {PREVALENCE_LIMIT:.0%} of all readings, so the agreement expected by chance is close to 1 "
+        "and kappa moves a long way with the readings of a few people (the prevalence effect)"),
+    2: ("one rater used a single category, so kappa is 0 or undefined whatever the other rater recorded, "
+        "and its interval says nothing about agreement"),
+}
+
+
+def _uninformative_reason(counts: np.ndarray, share: float) -> int:
+    if share >= PREVALENCE_LIMIT:
+        return 1
+    if (counts.sum(axis=1) > 0).sum() == 1 or (counts.sum(axis=0) > 0).sum() == 1:
+        return 2
+    return 0
+
+
+def agreement_indices(table: Any) -> AgreementIndices:
+    """Prevalence- and bias-adjusted kappa, specific agreement and whether kappa is informative.
+
+    Parameters
+    ----------
+    table : K × K counts
+        First rater in rows, second in columns, categories in their order; for
+        a 2 × 2 table the second category is the positive one.
+
+    Returns
+    -------
+    AgreementIndices
+
+    Raises
+    ------
+    DataError
+        Not a square table of whole counts >= 0, or no pairs.
+
+    Notes
+    -----
+    With n pairs, K categories and p_o the share on the diagonal:
+
+    PABAK = (K·p_o − 1)/(K − 1), kappa with chance agreement taken as 1/K
+    (Brennan & Prediger 1981); for K = 2 it is 2p_o − 1, which Byrt, Bishop &
+    Carlin (1993) call the prevalence- and bias-adjusted kappa.  With the
+    2 × 2 cells n₀₀ (both negative), n₁₁ (both positive), n₁₀ (first rater
+    positive only) and n₀₁ (second rater positive only), their prevalence
+    index is (n₁₁ − n₀₀)/n and bias index (n₁₀ − n₀₁)/n.
+
+    Specific agreement (Cicchetti & Feinstein 1990; de Vet et al. 2013):
+    positive agreement 2n₁₁/(2n₁₁ + n₀₁ + n₁₀), the chance that one rater
+    records positive given the other does; negative agreement
+    2n₀₀/(2n₀₀ + n₀₁ + n₁₀).
+
+    Kappa is called uninformative (a project rule, from the paradoxes
+    Feinstein & Cicchetti 1990 describe) when one category holds at least
+    :data:`PREVALENCE_LIMIT` of the 2n readings, so that the chance
+    agreement p_e is close to 1 and kappa divides by 1 − p_e close to 0, or
+    when a rater used a single category (kappa is then 0 or undefined, and
+    its standard error near 0, whatever the other rater did).  The first that
+    applies is the reason given.  (A chance agreement p_e of at least the
+    limit needs such a category: p_e = Σ r_i c_i is at most the largest
+    share of either rater.)
+
+    References
+    ----------
+    Byrt T, Bishop J, Carlin JB. Bias, prevalence and kappa. Journal of
+    Clinical Epidemiology 1993; 46(5): 423–429.
+
+    Brennan RL, Prediger DJ. Coefficient kappa: some uses, misuses, and
+    alternatives. Educational and Psychological Measurement 1981; 41(3): 687–699.
+
+    Feinstein AR, Cicchetti DV. High agreement but low kappa: I. The problems
+    of two paradoxes. Journal of Clinical Epidemiology 1990; 43(6): 543–549.
+
+    Cicchetti DV, Feinstein AR. High agreement but low kappa: II. Resolving
+    the paradoxes. Journal of Clinical Epidemiology 1990; 43(6): 551–558.
+
+    de Vet HCW, Mokkink LB, Terwee CB, Hoekstra OS, Knol DL. Clinicians are
+    right not to like Cohen's κ. BMJ 2013; 346: f2125.
+
+    de Vet HCW, Dikmans RE, Eekhout I. Specific agreement on dichotomous
+    outcomes can be calculated for more than two raters. Journal of Clinical
+    Epidemiology 2017; 83: 85–89.
+    """
+    counts = _count_table("agreement_indices", table)
+    v = {key: value[0] for key, value in _indices(counts[None]).items()}
+    code = int(v["reason_code"])
+    return AgreementIndices(
+        n=int(counts.sum()), categories=counts.shape[0], observed_agreement=float(v["observed_agreement"]),
+        expected_agreement=float(v["expected_agreement"]), pabak=float(v["pabak"]), prevalence_index=float(v["prevalence_index"]),
+        bias_index=float(v["bias_index"]), positive_agreement=float(v["positive_agreement"]),
+        negative_agreement=float(v["negative_agreement"]), largest_share=float(v["largest_share"]),
+        largest_category=int(v["largest_category"]), informative=code == 0, reason_code=code,
+        reason=UNINFORMATIVE_REASONS.get(code, ""),
+    )
+
+
+def _indices(counts: np.ndarray) -> dict[str, np.ndarray]:
+    """The indices of :func:`agreement_indices` for a stack of tables (N × K × K), as arrays."""
+    counts = np.asarray(counts, dtype=float)
+    N, K = counts.shape[0], counts.shape[1]
+    n = counts.sum(axis=(1, 2))
+    rows, cols = counts.sum(axis=2), counts.sum(axis=1)
+    po = np.trace(counts, axis1=1, axis2=2) / n
+    pe = np.sum(rows * cols, axis=1) / n**2
+    readings = rows + cols
+    largest = np.argmax(readings, axis=1)
+    share = readings.max(axis=1) / (2 * n)
+    single = ((rows > 0).sum(axis=1) == 1) | ((cols > 0).sum(axis=1) == 1)
+    nan = np.full(N, np.nan)
+    out = {"observed_agreement": po, "expected_agreement": pe, "pabak": (K * po - 1) / (K - 1), "largest_share": share,
+           "largest_category": largest, "reason_code": np.where(share >= PREVALENCE_LIMIT, 1, np.where(single, 2, 0)),
+           "prevalence_index": nan, "bias_index": nan, "positive_agreement": nan, "negative_agreement": nan}
+    if K == 2:
+        both_no, both_yes = counts[:, 0, 0], counts[:, 1, 1]
+        off = counts[:, 0, 1] + counts[:, 1, 0]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            out.update(prevalence_index=(both_yes - both_no) / n, bias_index=(counts[:, 1, 0] - counts[:, 0, 1]) / n,
+                       positive_agreement=np.where(2 * both_yes + off > 0, 2 * both_yes / (2 * both_yes + off), np.nan),
+                       negative_agreement=np.where(2 * both_no + off > 0, 2 * both_no / (2 * both_no + off), np.nan))
+    return out
+
+
+def agreement_statistics(tables: Any, *, weighted: bool = False, confidence: float = 0.95) -> dict[str, np.ndarray]:
+    """Kappa, PABAK and specific agreement of many cross-tables at once, in order of importance.
+
+    Parameters
+    ----------
+    tables : N × K × K counts, or one K × K table
+        First rater in rows; every table with at least one pair.
+    weighted : bool, default False
+        Also the quadratic-weighted kappa.
+    confidence : float, default 0.95
+        Confidence level of the Wald limits.
+
+    Returns
+    -------
+    dict of str to ndarray (N,)
+        ``uninformative_reason`` (0, or the key of
+        :data:`UNINFORMATIVE_REASONS`), ``observed_agreement``, ``kappa``
+        with ``kappa_lower`` and ``kappa_upper``, with ``weighted`` the same
+        for ``weighted_kappa``, ``pabak``, and for 2 × 2 tables
+        ``positive_agreement``, ``negative_agreement``, ``prevalence_index``
+        and ``bias_index``; NaN where undefined.  The formulas are those of
+        :func:`kappa` and :func:`agreement_indices`.
+
+    Raises
+    ------
+    DataError
+        Not a stack of square tables of whole counts >= 0, or a table without pairs.
+    """
+    confidence = _check_confidence("agreement_statistics", confidence)
+    counts = np.asarray(tables)
+    if counts.ndim == 2:
+        counts = counts[None]
+    if counts.ndim != 3 or counts.shape[1] != counts.shape[2] or counts.shape[1] < 2 or counts.shape[0] < 1:
+        raise DataError(problem("agreement_statistics(tables)", allowed="square tables of counts (N × K × K, K >= 2)", received=f"shape {counts.shape}"))
+    numbers = counts.astype(float)
+    if not np.all(np.isfinite(numbers)) or np.any(numbers < 0) or np.any(numbers % 1) or np.any(numbers.sum(axis=(1, 2)) < 1):
+        raise DataError(problem("agreement_statistics(tables)", allowed="whole counts >= 0, at least one pair per table", received="other values"))
+    K = counts.shape[1]
+    ind = _indices(numbers)
+    k = _kappa_statistics(numbers, np.eye(K), confidence)
+    out = {"uninformative_reason": ind["reason_code"].astype(float), "observed_agreement": ind["observed_agreement"],
+           "kappa": k["value"], "kappa_lower": k["lower"], "kappa_upper": k["upper"]}
+    if weighted:
+        wk = _kappa_statistics(numbers, _weight_matrix("quadratic", K), confidence)
+        out.update(weighted_kappa=wk["value"], weighted_kappa_lower=wk["lower"], weighted_kappa_upper=wk["upper"])
+    out["pabak"] = ind["pabak"]
+    if K == 2:
+        out.update({name: ind[name] for name in ("positive_agreement", "negative_agreement", "prevalence_index", "bias_index")})
+    return out
 
 
 # --------------------------------------------------------------------------

@@ -23,7 +23,13 @@ Every cross-table the record publishes (the raters' categories, and the
 decisions at each threshold) goes through :func:`publish_cross_table`: counts
 from 1 to ``min_cell_count − 1`` are suppressed, and so is any further count
 or total from which a suppressed count could be worked out with the totals
-and agreement counts the record states.
+and agreement counts the record states.  The statistics of such a table
+(kappa, PABAK, specific agreement) go through :func:`publish_statistics`,
+which rounds them, or withholds them, so that they give no suppressed count
+away; the sentences and the results file state only those published values.
+Bland–Altman figures show bins of pairs (bins holding fewer than
+``min_cell_count`` people are not drawn) unless the study allows pair-level
+plots (``output.pair_level_plots``).
 """
 
 from __future__ import annotations
@@ -32,15 +38,18 @@ import dataclasses
 import re
 import warnings
 from dataclasses import dataclass, field
-from typing import Any, Mapping
+from typing import Any, Callable, Mapping
 
 import numpy as np
 import pandas as pd
 
 from ..._jsonable import to_jsonable
-from ...measures.agreement import BlandAltmanResult, DecisionAgreement, ICCTable, KappaResult, bland_altman, decision_agreement, icc_table, kappa
+from ...measures.agreement import (
+    UNINFORMATIVE_REASONS, BlandAltmanResult, DecisionAgreement, ICCTable, KappaResult, agreement_statistics, bland_altman,
+    decision_agreement, icc_table, kappa,
+)
 from ...intake.data import Cohorts, load_cohorts, read_table
-from ...reporting.disclosure import PublishedTable, publish_cross_table
+from ...reporting.disclosure import PublishedStatistics, PublishedTable, publish_cross_table, publish_statistics
 from ...errors import DataError, ModelFileError, RiskvetWarning, StudyError, problem
 from ...modelling.modelfile import PredictionModel, load_model
 from ...intake.study import RatedItem, Study
@@ -50,16 +59,68 @@ from ...reporting.sentences.agreement import (
     NO_MODEL_NOTE,
     agreement_summary,
     continuous_sentence,
+    differing_count,
+    figures_sentence,
     items_sentence,
     kappa_sentence,
+    missing_rows_sentence,
     risk_sentence,
+    statistic_rows,
 )
 
 __all__ = ["ItemAgreement", "CutRiskAgreement", "RiskAgreement",
-           "AgreementOutput", "assess", "run"]
+           "AgreementOutput", "table_statistics", "assess", "run"]
 
 #: The ICC forms reported for two fixed raters: absolute agreement and consistency.
 PRIMARY_ICC_FORMS = ("2,1", "3,1")
+
+
+# --------------------------------------------------------------------------
+# statistics of a published cross-table
+# --------------------------------------------------------------------------
+
+def table_statistics(*, weighted: bool, confidence: float = 0.95) -> Callable[[np.ndarray], dict[str, np.ndarray]]:
+    """The statistics a raters' cross-table publishes, as a function of a stack of tables, in order of importance.
+
+    :func:`riskvet.measures.agreement.agreement_statistics` (kappa, with
+    ``weighted`` the quadratic-weighted kappa, PABAK, specific agreement);
+    :func:`riskvet.reporting.disclosure.publish_statistics` rounds or
+    withholds them.
+    """
+    def compute(tables: np.ndarray) -> dict[str, np.ndarray]:
+        return agreement_statistics(tables, weighted=weighted, confidence=confidence)
+
+    return compute
+
+
+def _publish(table: Any, *, min_cell_count: int, weighted: bool, confidence: float) -> tuple[PublishedTable, PublishedStatistics]:
+    published = publish_cross_table(table, min_cell_count=min_cell_count, bands=weighted)
+    together = [(key, f"{key}_lower", f"{key}_upper") for key in ("kappa", "weighted_kappa")]
+    return published, publish_statistics(table, published, table_statistics(weighted=weighted, confidence=confidence), groups=together)
+
+
+def _kappa_dict(k: KappaResult, stats: PublishedStatistics, published: PublishedTable, key: str) -> dict[str, Any]:
+    """Kappa as the results file holds it: everything when no count is suppressed, else only the published values."""
+    cells = [list(row) for row in published.cells]
+    if not published.suppressed:
+        d = k.to_dict()
+        d.update(table=cells, rounded_to=None)
+        return d
+    withheld = stats[key] is None
+    return {"weights": k.weights, "value": stats[key], "lower": stats[f"{key}_lower"], "upper": stats[f"{key}_upper"],
+            "confidence": k.confidence, "n": k.n, "levels": list(k.levels), "rounded_to": stats.decimals[key],
+            "withheld": withheld, "warnings": [] if withheld else list(k.warnings), "table": cells}
+
+
+def _indices_dict(stats: PublishedStatistics) -> dict[str, Any]:
+    names = ("observed_agreement", "pabak", "positive_agreement", "negative_agreement", "prevalence_index", "bias_index")
+    reason = stats["uninformative_reason"]
+    return {
+        **{name: stats.values.get(name) for name in names},
+        "kappa_informative": None if reason is None else reason == 0,
+        "kappa_uninformative_reason": None if reason is None else UNINFORMATIVE_REASONS.get(int(reason), ""),
+    }
+
 
 # --------------------------------------------------------------------------
 # results
@@ -83,7 +144,8 @@ class ItemAgreement:
         How that order was decided: ``"numeric"``, ``"study levels"``,
         ``"derivation levels"`` or ``"sorted as text"``; empty for continuous items.
     kappa : KappaResult or None
-        Unweighted kappa (binary and ordinal).
+        Unweighted kappa (binary and ordinal), unrounded; the record holds
+        ``statistics`` instead.
     weighted_kappa : KappaResult or None
         Quadratic-weighted kappa (ordinal).
     icc : ICCTable or None
@@ -99,6 +161,10 @@ class ItemAgreement:
     published : PublishedTable or None
         The cross-table as published (:func:`publish_cross_table`); None for
         continuous items.
+    statistics : PublishedStatistics or None
+        Kappa, PABAK and specific agreement as published
+        (:func:`publish_statistics`: rounded or withheld when the
+        cross-table has suppressed counts); None for continuous items.
     """
 
     name: str
@@ -117,6 +183,7 @@ class ItemAgreement:
     text: str
     warnings: tuple[str, ...] = ()
     published: PublishedTable | None = None
+    statistics: PublishedStatistics | None = None
 
     def agreement_table(self) -> pd.DataFrame | None:
         """The raters' cross-table (rater_a in rows) with totals, as published; None for continuous items."""
@@ -125,52 +192,58 @@ class ItemAgreement:
         return self.published.frame(self.levels, row_name=f"{self.name}: {self.rater_a}", column_name=self.rater_b)
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-ready summary: statistics, the suppressed cross-table, no per-pair values."""
+        """JSON-ready summary: published statistics, the suppressed cross-table, no per-pair values."""
         out: dict[str, Any] = {
-            "name": self.name,
-            "scale": self.scale,
-            "rater_a": self.rater_a,
-            "rater_b": self.rater_b,
-            "n_rows": self.n_rows,
-            "n_pairs": self.n_pairs,
-            "levels": list(self.levels),
-            "level_order": self.level_order,
-            "min_cell_count": self.min_cell_count,
-            "text": self.text,
-            "warnings": list(self.warnings),
+            "name": self.name, "scale": self.scale, "rater_a": self.rater_a, "rater_b": self.rater_b,
+            "n_rows": self.n_rows, "n_pairs": self.n_pairs, "levels": list(self.levels), "level_order": self.level_order,
+            "min_cell_count": self.min_cell_count, "text": self.text, "warnings": list(self.warnings),
+            "kappa": None, "weighted_kappa": None, "agreement_indices": None, "statistics": None,
         }
-        for key in ("kappa", "weighted_kappa"):
-            k = getattr(self, key)
-            if k is None:
-                out[key] = None
-            else:
-                d = k.to_dict()
-                d["table"] = [list(row) for row in self.published.cells]
-                out[key] = d
+        if self.kappa is not None and self.statistics is not None:
+            out["kappa"] = _kappa_dict(self.kappa, self.statistics, self.published, "kappa")
+            if self.weighted_kappa is not None:
+                out["weighted_kappa"] = _kappa_dict(self.weighted_kappa, self.statistics, self.published, "weighted_kappa")
+            out["agreement_indices"] = _indices_dict(self.statistics)
+            out["statistics"] = self.statistics.to_dict()
         out["cross_table"] = None if self.published is None else self.published.to_dict()
         out["icc"] = None if self.icc is None else self.icc.to_dict()
         out["bland_altman"] = None if self.bland_altman is None else _ba_summary(self.bland_altman)
         return to_jsonable(out)
 
     def to_frame(self) -> pd.DataFrame:
-        """One row per statistic: item, scale, statistic, estimate, ci_lower, ci_upper, n."""
+        """One row per statistic as published: item (with its pairs), statistic, estimate, lower and upper limit, interval, note."""
         rows = []
-        if self.kappa is not None:
-            rows.append(("kappa", self.kappa.value, self.kappa.lower, self.kappa.upper))
-        if self.weighted_kappa is not None:
-            rows.append(("quadratic-weighted kappa", self.weighted_kappa.value, self.weighted_kappa.lower, self.weighted_kappa.upper))
+        if self.statistics is not None:
+            binary = len(self.levels) == 2
+            rows += statistic_rows(self.statistics, confidence=self.kappa.confidence, weighted=self.weighted_kappa is not None, binary=binary)
         if self.icc is not None:
             for form in PRIMARY_ICC_FORMS:
                 r = self.icc[form]
-                rows.append((f"ICC({form})", r.value, r.lower, r.upper))
+                kind = "approximate F-based" if form.startswith("2") else "F-based"
+                rows.append({"statistic": f"ICC({form})", "estimate": r.value, "lower limit": r.lower, "upper limit": r.upper,
+                             "interval": f"{r.confidence:.0%} {kind} interval", "note": ""})
         if self.bland_altman is not None:
-            for q, e, lo, hi in self.bland_altman.to_frame()[["quantity", "estimate", "ci_lower", "ci_upper"]].itertuples(index=False):
-                rows.append((q, e, lo, hi))
-        out = pd.DataFrame(rows, columns=["statistic", "estimate", "ci_lower", "ci_upper"])
-        out.insert(0, "scale", self.scale)
-        out.insert(0, "item", self.name)
-        out["n"] = self.n_pairs
+            rows += _ba_rows(self.bland_altman, units="in the item's units")
+        out = pd.DataFrame(rows, columns=["statistic", "estimate", "lower limit", "upper limit", "interval", "note"])
+        out.insert(0, "item", f"{self.name} ({self.n_pairs} pairs)")
         return out
+
+
+def _ba_rows(ba: BlandAltmanResult, *, units: str, scale: float = 1.0, prefix: str = "", slope: bool = True) -> list[dict[str, Any]]:
+    """Frame rows of a Bland–Altman result: bias, limits (and the proportional-bias slope), with the kind of interval."""
+    rows = []
+    frame = ba.to_frame()[["quantity", "estimate", "ci_lower", "ci_upper"]]
+    for q, e, lo, hi in frame.itertuples(index=False):
+        if q == "proportional bias slope":
+            if not slope:
+                continue
+            factor, note = 1.0, ""
+        else:
+            factor, note = scale, units
+        kind = "t" if q in ("bias", "proportional bias slope") else "approximate (Bland and Altman 1986)"
+        rows.append({"statistic": f"{prefix}{q}", "estimate": e * factor, "lower limit": lo * factor, "upper limit": hi * factor,
+                     "interval": f"{ba.confidence:.0%} {kind} interval", "note": note})
+    return rows
 
 
 def _ba_summary(ba: BlandAltmanResult) -> dict[str, Any]:
@@ -193,12 +266,17 @@ class CutRiskAgreement:
     risks : BlandAltmanResult
         Risk from rater_a's readings minus risk from rater_b's.
     decisions : tuple of DecisionAgreement
-        One per threshold the study gives for this cut (may be empty).
+        One per threshold the study gives for this cut (may be empty),
+        unrounded; the record holds ``published_tables`` and ``statistics``.
     min_cell_count : int
         The decision cross-tables are published through
         :func:`publish_cross_table` with this minimum.
     text : str
         One interpreting sentence.
+    published_tables : tuple of PublishedTable
+        The decision cross-table at each threshold, as published.
+    statistics : tuple of PublishedStatistics
+        Kappa, PABAK and specific agreement of the decisions at each threshold, as published.
     """
 
     cut: int
@@ -207,22 +285,24 @@ class CutRiskAgreement:
     decisions: tuple[DecisionAgreement, ...]
     min_cell_count: int
     text: str
+    published_tables: tuple[PublishedTable, ...] = ()
+    statistics: tuple[PublishedStatistics, ...] = ()
 
     def published(self, threshold_index: int) -> PublishedTable:
         """The decision cross-table at the study's ``threshold_index``-th threshold, as published."""
-        return publish_cross_table(self.decisions[threshold_index].decisions.table, min_cell_count=self.min_cell_count)
+        return self.published_tables[threshold_index]
 
     def to_dict(self) -> dict[str, Any]:
         decisions = []
-        for i, d in enumerate(self.decisions):
-            item = d.to_dict()
-            item["risks"] = _ba_summary(d.risks)
-            table = self.published(i)
-            item["decisions"]["table"] = [list(row) for row in table.cells]
-            # positive_a / positive_b are the raters' totals of the "at or above" row and column
-            item["positive_a"], item["positive_b"] = table.row_totals[-1], table.column_totals[-1]
-            item["cross_table"] = table.to_dict()
-            decisions.append(item)
+        for d, table, stats in zip(self.decisions, self.published_tables, self.statistics):
+            decisions.append({
+                "threshold": d.threshold, "n": d.n,
+                # the raters' totals of the "at or above" row and column, and the pairs decided differently, as published
+                "positive_a": table.row_totals[-1], "positive_b": table.column_totals[-1],
+                "different_decisions": differing_count(table),
+                "decisions": _kappa_dict(d.decisions, stats, table, "kappa"),
+                "agreement_indices": _indices_dict(stats), "statistics": stats.to_dict(), "cross_table": table.to_dict(),
+            })
         return to_jsonable({"cut": self.cut, "label": self.label, "risks": _ba_summary(self.risks), "decisions": decisions,
                             "min_cell_count": self.min_cell_count, "text": self.text})
 
@@ -273,15 +353,19 @@ class RiskAgreement:
         })
 
     def to_frame(self) -> pd.DataFrame:
-        """One row per cut and quantity: risk bias and limits, then decision kappa and discordance per threshold."""
+        """One row per cut and quantity, as published: the risks' bias and limits (percentage points), then per
+        threshold the people decided differently and the decisions' kappa, PABAK and specific agreement."""
         rows = []
         for c in self.cuts:
-            for q, e, lo, hi in c.risks.to_frame()[["quantity", "estimate", "ci_lower", "ci_upper"]].iloc[:3].itertuples(index=False):
-                rows.append({"cut": c.cut, "event": c.label, "threshold": None, "quantity": f"risk {q}", "estimate": e, "ci_lower": lo, "ci_upper": hi, "discordant": None, "n": c.risks.n})
-            for d in c.decisions:
-                rows.append({"cut": c.cut, "event": c.label, "threshold": d.threshold, "quantity": "decision kappa", "estimate": d.decisions.value,
-                             "ci_lower": d.decisions.lower, "ci_upper": d.decisions.upper, "discordant": d.discordant, "n": d.n})
-        return pd.DataFrame(rows, columns=["cut", "event", "threshold", "quantity", "estimate", "ci_lower", "ci_upper", "discordant", "n"])
+            for row in _ba_rows(c.risks, units="percentage points", scale=100.0, prefix="risk ", slope=False):
+                rows.append({"cut": c.cut, "event": c.label, "quantity": row.pop("statistic"), **row})
+            for d, table, stats in zip(c.decisions, c.published_tables, c.statistics):
+                at = f"at threshold {d.threshold:g}"
+                rows.append({"cut": c.cut, "event": c.label, "quantity": f"people decided differently {at}, of {d.n}",
+                             "estimate": differing_count(table), "lower limit": None, "upper limit": None, "interval": "", "note": ""})
+                for row in statistic_rows(stats, confidence=d.decisions.confidence, weighted=False, binary=True, indices=False):
+                    rows.append({"cut": c.cut, "event": c.label, "quantity": f"decision {row.pop('statistic')} {at}", **row})
+        return pd.DataFrame(rows, columns=["cut", "event", "quantity", "estimate", "lower limit", "upper limit", "interval", "note"])
 
 
 @dataclass(frozen=True)
@@ -301,10 +385,14 @@ class AgreementOutput:
         Figure name -> PNG path relative to the record folder (filled by :func:`run`).
     texts : dict of str to str
         Interpreting sentences: ``"summary"`` (one line per stage for the
-        record's summary), ``"items"`` and ``"risk"``.
+        record's summary), ``"items"``, ``"risk"`` and ``"figures"`` (what
+        the Bland–Altman figures draw: bins or single pairs).
     notes : tuple of str
         Statistical warnings met while :func:`run` assessed the study (each
         is also recorded on the result it concerns).
+    pair_level_plots : bool
+        Whether the Bland–Altman figures mark single pairs
+        (``output.pair_level_plots``) rather than bins of pairs.
     """
 
     items: tuple[ItemAgreement, ...]
@@ -313,6 +401,7 @@ class AgreementOutput:
     texts: Mapping[str, str]
     figures: Mapping[str, str] = field(default_factory=dict)
     notes: tuple[str, ...] = ()
+    pair_level_plots: bool = False
 
     def item(self, name: str) -> ItemAgreement:
         """The result of one rated item."""
@@ -320,6 +409,11 @@ class AgreementOutput:
             if it.name == name:
                 return it
         raise StudyError(problem("AgreementOutput.item(name)", allowed=f"one of {[i.name for i in self.items]}", received=name))
+
+    @property
+    def figure_note(self) -> str:
+        """What the Bland–Altman figures draw (bins of pairs, or single pairs), for the page."""
+        return self.texts.get("figures", "")
 
     def item_figure(self, name: str) -> str | None:
         """The Bland–Altman figure of a continuous item (PNG path relative to the record), if drawn."""
@@ -336,6 +430,7 @@ class AgreementOutput:
             "risk": None if self.risk is None else self.risk.to_dict(),
             "risk_note": self.risk_note,
             "figures": dict(self.figures),
+            "pair_level_plots": self.pair_level_plots,
             "texts": dict(self.texts),
             "notes": list(self.notes),
         })
@@ -376,8 +471,10 @@ def _item_agreement(item: RatedItem, ratings: pd.DataFrame, study: Study, cohort
     levels: list[str] = []
     order = "numeric"
     text = ""
+    m = study.output.min_cell_count
+    stats = None
     if len(a) < len(ratings):
-        notes.append(f"{len(ratings) - len(a)} of {len(ratings)} rows lack a reading from one or both raters and are left out.")
+        notes.append(missing_rows_sentence(len(ratings) - len(a), len(ratings), m))
     try:
         if item.scale == "continuous":
             table = icc_table(pd.DataFrame({"a": a, "b": b}))
@@ -390,9 +487,10 @@ def _item_agreement(item: RatedItem, ratings: pd.DataFrame, study: Study, cohort
                 wk = kappa(a, b, levels=levels, weights="quadratic")
                 if order == "sorted as text":
                     notes.append(f"The order of the categories of {item.name} is not known (not numbers, no study levels); they were sorted as text, which the weighted kappa depends on.")
-            notes.extend(k.warnings)
-            published = publish_cross_table(k.table, min_cell_count=study.output.min_cell_count, bands=wk is not None)
-            text = kappa_sentence(item, k, wk, levels, published)
+            published, stats = _publish(k.table, min_cell_count=m, weighted=wk is not None, confidence=k.confidence)
+            if stats["kappa"] is not None:
+                notes.extend(k.warnings)
+            text = kappa_sentence(item, levels, published, stats, confidence=k.confidence)
     except DataError as exc:
         notes.append(f"Not computed: {exc}")
         text = f"{item.name}: agreement could not be computed ({exc})."
@@ -400,7 +498,7 @@ def _item_agreement(item: RatedItem, ratings: pd.DataFrame, study: Study, cohort
         name=item.name, scale=item.scale, rater_a=item.rater_a, rater_b=item.rater_b,
         n_rows=len(ratings), n_pairs=int(both.sum()), levels=tuple(levels), level_order=order if levels else "",
         kappa=k, weighted_kappa=wk, icc=table, bland_altman=ba,
-        min_cell_count=study.output.min_cell_count, text=text, warnings=tuple(notes), published=published,
+        min_cell_count=m, text=text, warnings=tuple(notes), published=published, statistics=stats,
     )
 
 
@@ -470,8 +568,11 @@ def _risk_agreement(study: Study, cohorts: Cohorts, model: PredictionModel, rati
     for j in range(len(levels) - 1):
         risk_a, risk_b = prob_a[:, j + 1 :].sum(axis=1), prob_b[:, j + 1 :].sum(axis=1)
         decisions = tuple(decision_agreement(risk_a, risk_b, threshold=t) for t in study.thresholds_for_cut(j))
+        published = [_publish(d.decisions.table, min_cell_count=study.output.min_cell_count, weighted=False,
+                              confidence=d.decisions.confidence) for d in decisions]
         draft = CutRiskAgreement(cut=j, label=cut_label(levels, j, binary=binary), risks=bland_altman(risk_a, risk_b), decisions=decisions,
-                                 min_cell_count=study.output.min_cell_count, text="")
+                                 min_cell_count=study.output.min_cell_count, text="",
+                                 published_tables=tuple(p for p, _ in published), statistics=tuple(s for _, s in published))
         cuts.append(dataclasses.replace(draft, text=risk_sentence(draft)))
     note = DEVICE_NOTE
     if from_file:
@@ -523,7 +624,13 @@ def assess(study: Study, *, cohorts: Cohorts | None = None, model: PredictionMod
     correlations of Shrout & Fleiss (1979), of which ICC(2,1) and ICC(3,1)
     are shown, since the same two raters rated everyone; and Bland–Altman
     95% limits of agreement of rater_a − rater_b (1986).  Only pairs with
-    both readings are used; the number left out is recorded.
+    both readings are used; the number left out is recorded.  Beside kappa:
+    the prevalence- and bias-adjusted kappa (Byrt, Bishop & Carlin 1993),
+    and for two categories positive and negative agreement (Cicchetti &
+    Feinstein 1990), with kappa called uninformative when one category holds
+    nearly all readings (:func:`riskvet.measures.agreement.agreement_indices`).
+    Statistics of a cross-table with suppressed counts are rounded or
+    withheld (:func:`riskvet.reporting.disclosure.publish_statistics`).
 
     Risk and decision: the model's P(Y > j) from each rater's readings, other
     predictors as in the ratings file when it holds them, else fixed at the
@@ -542,6 +649,12 @@ def assess(study: Study, *, cohorts: Cohorts | None = None, model: PredictionMod
 
     Bland JM, Altman DG. Statistical methods for assessing agreement between
     two methods of clinical measurement. Lancet 1986; 327(8476): 307–310.
+
+    Byrt T, Bishop J, Carlin JB. Bias, prevalence and kappa. Journal of
+    Clinical Epidemiology 1993; 46(5): 423–429.
+
+    Cicchetti DV, Feinstein AR. High agreement but low kappa: II. Resolving
+    the paradoxes. Journal of Clinical Epidemiology 1990; 43(6): 551–558.
     """
     if not isinstance(study, Study):
         raise StudyError(problem("assess(study)", allowed="a Study from load_study", received=type(study).__name__))
@@ -560,8 +673,10 @@ def assess(study: Study, *, cohorts: Cohorts | None = None, model: PredictionMod
     else:
         risk, note = _risk_agreement(study, cohorts, model, ratings)
         risk_text = note if risk is None else note + " " + " ".join(c.text for c in risk.cuts)
-    return AgreementOutput(items=items, risk=risk, risk_note=note,
-                           texts={"summary": agreement_summary(items, risk), "items": items_text, "risk": risk_text})
+    pair_level = bool(getattr(study.output, "pair_level_plots", False))
+    texts = {"summary": agreement_summary(items, risk), "items": items_text, "risk": risk_text,
+             "figures": figures_sentence(pair_level=pair_level, min_cell_count=study.output.min_cell_count)}
+    return AgreementOutput(items=items, risk=risk, risk_note=note, texts=texts, pair_level_plots=pair_level)
 
 
 def _figure_name(prefix: str, name: str) -> str:
@@ -580,7 +695,9 @@ def run(ctx) -> AgreementOutput:
     Returns
     -------
     AgreementOutput
-        With ``figures`` naming the PNG files written (SVG beside each).
+        With ``figures`` naming the PNG files written (SVG beside each):
+        binned Bland–Altman plots, or pair-level ones when the study sets
+        ``output.pair_level_plots``.
 
     Raises
     ------
@@ -607,11 +724,11 @@ def run(ctx) -> AgreementOutput:
     for item in out.items:
         if item.bland_altman is not None:
             name = _figure_name("bland_altman", item.name)
-            save(name, plot_item_agreement(item))
+            save(name, plot_item_agreement(item, pair_level=out.pair_level_plots))
     if out.risk is not None:
         for c in out.risk.cuts:
             name = f"risk_bland_altman_cut{c.cut}"
-            save(name, plot_risk_agreement(c))
+            save(name, plot_risk_agreement(c, pair_level=out.pair_level_plots))
     out = dataclasses.replace(out, figures=figures, notes=notes)
     ctx.write_results(out.to_dict())
     return out
