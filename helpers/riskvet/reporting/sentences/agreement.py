@@ -117,11 +117,18 @@ def statistic_rows(stats: PublishedStatistics, *, confidence: float, weighted: b
     wald = f"{confidence:.0%} Wald interval"
     rows = []
 
+    def shown(name: str) -> Any:
+        """A rounded statistic as text with exactly its published decimals (0.47 stays 0.47, not 0.470)."""
+        value, places = stats[name], stats.decimals.get(name)
+        if places is None or value is None or value != value:
+            return value
+        return f"{value:.{places}f}"
+
     def add(label: str, name: str, interval: bool, kappa: bool = False) -> None:
         interval = interval and name not in stats.withheld
-        rows.append({"statistic": label, "estimate": stats[name],
-                     "lower limit": stats[f"{name}_lower"] if interval else None,
-                     "upper limit": stats[f"{name}_upper"] if interval else None,
+        rows.append({"statistic": label, "estimate": shown(name),
+                     "lower limit": shown(f"{name}_lower") if interval else None,
+                     "upper limit": shown(f"{name}_upper") if interval else None,
                      "interval": wald if interval else "", "note": _note(stats, name, kappa=kappa)})
 
     add("kappa", "kappa", True, kappa=True)
