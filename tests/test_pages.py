@@ -190,7 +190,7 @@ def _strings(value):
 
 # Codes of the program that must never reach a page: results keys of measures by cut, cut numbers,
 # thresholds written with a bar.
-_CODES = re.compile(r"\b\w+_cut\d+\b|\bcut \d+\b|(?<![|\w])\w+\|\w+(?![|\w])|\bY >= ")
+_CODES = re.compile(r"\b\w+_cut\d+\b|\bcut \d+\b(?! to\b)|(?<![|\w])\w+\|\w+(?![|\w])|\bY >= ")
 
 
 @pytest.mark.parametrize("kind", ["ordered", "binary"])

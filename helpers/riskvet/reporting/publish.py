@@ -184,6 +184,9 @@ class Table:
         A sentence above the table.
     empty : str
         The sentence shown instead of a table without rows.
+    part : bool
+        A part of a wider table (see :meth:`parts`): it takes the page's
+        width, as tables of four or more columns do.
     """
 
     columns: tuple[str, ...]
@@ -191,6 +194,7 @@ class Table:
     numeric: tuple[bool, ...]
     caption: str | None
     empty: str
+    part: bool = False
 
     def to_frame(self) -> pd.DataFrame:
         """The formatted cells as strings (no index)."""
@@ -215,7 +219,7 @@ class Table:
             for row in self.rows
         )
         caption = f"<caption>{html.escape(self.caption)}</caption>" if self.caption else ""
-        layout = ' class="rv-fixed"' if len(self.columns) >= 4 else ""
+        layout = ' class="rv-fixed"' if len(self.columns) >= 4 or self.part else ""
         return f'<div class="rv-table"><table{layout}>{caption}<thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>'
 
     def _repr_markdown_(self) -> str | None:
@@ -240,7 +244,7 @@ class Table:
             caption = f"{lead}(Part {number} of {len(chunks)} of a table too wide to show at once.)"
             out.append(Table(
                 columns=tuple(self.columns[i] for i in keep), rows=tuple(tuple(r[i] for i in keep) for r in self.rows),
-                numeric=tuple(self.numeric[i] for i in keep), caption=caption, empty=self.empty,
+                numeric=tuple(self.numeric[i] for i in keep), caption=caption, empty=self.empty, part=True,
             ))
         return out
 
