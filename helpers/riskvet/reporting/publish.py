@@ -264,7 +264,7 @@ def table(
     kinds: Mapping[str, str] | None = None,
     decimals: int | Mapping[str, int] = 3,
     empty: str = "There is nothing to show in this table for this study.",
-    interval: str | None = None,
+    interval: str | Mapping[str, str] | None = None,
 ) -> Table:
     """A DataFrame as a page shows it.
 
@@ -289,7 +289,8 @@ def table(
         The kind of the intervals the table holds ("95% bootstrap percentile
         interval"): columns of lower and upper limits (``X_lower`` and
         ``X_upper``, ``lower`` and ``upper``) are joined into one column
-        ``X, <interval>`` showing "lower to upper".
+        ``X, <interval>`` showing "lower to upper".  A mapping gives the kind
+        per estimate column (``{"sensitivity": "95% Wilson interval"}``).
 
     Returns
     -------
@@ -323,11 +324,11 @@ def table(
     return Table(columns=tuple(columns), rows=tuple(tuple(r) for r in rows), numeric=tuple(numeric), caption=caption, empty=empty)
 
 
-_LIMIT_NAMES = (("_lower", "_upper"), (" lower", " upper"), (", lower limit", ", upper limit"), (" (lower)", " (upper)"),
-                (" lower limit", " upper limit"))
+_LIMIT_NAMES = ((", lower limit", ", upper limit"), (" lower limit", " upper limit"), ("_lower", "_upper"), (", lower", ", upper"),
+                (" lower", " upper"), (" (lower)", " (upper)"))
 
 
-def _intervals(frame: pd.DataFrame, interval: str | None) -> tuple[pd.DataFrame, dict[str, tuple[list, list]]]:
+def _intervals(frame: pd.DataFrame, interval: str | Mapping[str, str] | None) -> tuple[pd.DataFrame, dict[str, tuple[list, list]]]:
     """Columns of lower and upper limits joined into one interval column ("0.872 to 0.979") after their estimate.
 
     ``X_lower``/``X_upper`` (or ``X lower``, ``X, lower limit`` ...) become
@@ -335,6 +336,8 @@ def _intervals(frame: pd.DataFrame, interval: str | None) -> tuple[pd.DataFrame,
     column named ``<interval>``.  ``interval`` names the kind ("95% Wilson
     interval"); without it the header says "interval".
     """
+    kinds = dict(interval) if isinstance(interval, Mapping) else {}
+    interval = None if isinstance(interval, Mapping) else interval
     words = interval or "interval"
     names = [str(c) for c in frame.columns]
     out, pairs, used = {}, {}, set()
@@ -345,7 +348,7 @@ def _intervals(frame: pd.DataFrame, interval: str | None) -> tuple[pd.DataFrame,
             low, high = f"{name}{low_suffix}", f"{name}{high_suffix}"
             if low in names and high in names:
                 out[name] = frame[name]
-                joined = f"{header_words(name)}, {words}"
+                joined = f"{header_words(name)}, {kinds.get(name, words)}"
                 pairs[joined] = (list(frame[low]), list(frame[high]))
                 out[joined] = frame[name]
                 used.update({low, high})
