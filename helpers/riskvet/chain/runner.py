@@ -884,7 +884,7 @@ def run_study(
             _print_start(study, record, model_input, out=out)
             results, failed, interrupted = _run_stages(
                 record, manifest, chosen=chosen, templates=templates, parameters=parameters, variables=variables,
-                html=study.output.html, show_code=show_code, render_html=render_html, out=out,
+                out=out,
             )
             with _signals_held():
                 if study.output.html and interrupted is None:
@@ -979,9 +979,6 @@ def _run_stages(
     templates: Mapping[str, Path],
     parameters: dict[str, str],
     variables: Mapping[str, str],
-    html: bool,
-    show_code: bool,
-    render_html: Callable[..., Any],
     out: TextIO,
 ) -> tuple[list[StageRun], bool, BaseException | None]:
     """Run the chosen stages in order, rewriting the manifest after each.
@@ -1001,8 +998,7 @@ def _run_stages(
                 continue
             run, interrupted = _run_stage(
                 stage, label, record=record, manifest=manifest, template=templates[stage], parameters=parameters,
-                variables=variables, log_path=Path(scratch) / f"{stage}.log", html=html, show_code=show_code,
-                render_html=render_html, out=out,
+                variables=variables, log_path=Path(scratch) / f"{stage}.log", out=out,
             )
             results.append(run)
             if interrupted is not None:
@@ -1029,12 +1025,9 @@ def _run_stage(
     parameters: dict[str, str],
     variables: Mapping[str, str],
     log_path: Path,
-    html: bool,
-    show_code: bool,
-    render_html: Callable[..., Any],
     out: TextIO,
 ) -> tuple[StageRun, BaseException | None]:
-    """Execute one stage notebook and render it as HTML.
+    """Execute one stage notebook (its page is rendered once every stage has run: :func:`_render_pages`).
 
     Returns how the stage went, and the KeyboardInterrupt that stopped it (or None).
     """

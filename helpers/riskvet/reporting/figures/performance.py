@@ -339,6 +339,15 @@ def _draw_calibration(fig: Figure, cell: Any, result: CalibrationResult, title: 
     return rows
 
 
+def _calibration_panels(result: CalibrationResult | OrdinalCalibration, func: str) -> list[CalibrationResult]:
+    """One calibration result per panel: each cut of an ordinal result, or the binary result itself."""
+    if isinstance(result, OrdinalCalibration):
+        return list(result.cuts)
+    if isinstance(result, CalibrationResult):
+        return [result]
+    raise RiskvetError(problem(f"{func}(result=)", allowed="a CalibrationResult or OrdinalCalibration", received=type(result).__name__))
+
+
 def plot_calibration(
     result: CalibrationResult | OrdinalCalibration,
     *,
@@ -383,12 +392,7 @@ def plot_calibration(
         :func:`calibration_statistics` gives them as a table for beside it.
     """
     func = "plot_calibration"
-    if isinstance(result, OrdinalCalibration):
-        panels = list(result.cuts)
-    elif isinstance(result, CalibrationResult):
-        panels = [result]
-    else:
-        raise RiskvetError(problem(f"{func}(result=)", allowed="a CalibrationResult or OrdinalCalibration", received=type(result).__name__))
+    panels = _calibration_panels(result, func)
     if min_cell_count is not None:
         min_cell_count = _check_count(min_cell_count, func)
     default = [_cut_title(levels, p.cut, len(panels)) for p in panels]
@@ -432,12 +436,7 @@ def calibration_statistics(result: CalibrationResult | OrdinalCalibration, *, le
         interval from the log scale, the integrated calibration index none.
     """
     func = "calibration_statistics"
-    if isinstance(result, OrdinalCalibration):
-        panels = list(result.cuts)
-    elif isinstance(result, CalibrationResult):
-        panels = [result]
-    else:
-        raise RiskvetError(problem(f"{func}(result=)", allowed="a CalibrationResult or OrdinalCalibration", received=type(result).__name__))
+    panels = _calibration_panels(result, func)
     nan = float("nan")
     rows = []
     for r in panels:
