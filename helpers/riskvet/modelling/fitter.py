@@ -892,6 +892,17 @@ class CumulativeFit:
         Iteration limit used.
     tol : float
         Convergence tolerance used on the Newton decrement.
+    estimation : str
+        How the estimates were obtained: ``"maximum likelihood"``,
+        ``"firth"`` (bias-reduced, penalised by half the log-determinant of
+        the information) or ``"penalized"`` (ridge, lasso or elastic net).
+    penalty : dict or None
+        For ``estimation="penalized"``: the penalty's settings (``alpha``,
+        ``l1_ratio`` and how columns were grouped); None otherwise.
+    interval_kind : str
+        What ``lower`` and ``upper`` of :meth:`to_frame` are: ``"Wald"``, or
+        ``"profile penalised likelihood"``; ``"none"`` when the estimation has
+        no interval (penalised fits).
     """
 
     link: str
@@ -918,6 +929,9 @@ class CumulativeFit:
     has_offset: bool
     max_iter: int
     tol: float
+    estimation: str = "maximum likelihood"
+    penalty: Any = None
+    interval_kind: str = "Wald"
 
     @property
     def n_levels(self) -> int:
@@ -1073,6 +1087,9 @@ class CumulativeFit:
                 "has_offset": self.has_offset,
                 "max_iter": self.max_iter,
                 "tol": self.tol,
+                "estimation": self.estimation,
+                "penalty": self.penalty,
+                "interval_kind": self.interval_kind,
                 "parameters": self.to_frame(),
                 "cov": {"names": list(self.cov.index), "matrix": self.cov.to_numpy().tolist()},
             }
