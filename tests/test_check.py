@@ -83,7 +83,8 @@ def test_an_outcome_written_as_4_0_matches_the_level_4(study):
 
 
 def test_low_events_per_parameter_is_a_warning_of_check(study, capsys):
-    notes = check_before_fitting(load_study(study), load_cohorts(load_study(study)).derivation)
+    s = load_study(study)
+    notes = cli.support_notes(s, load_cohorts(s).derivation)
     # the small demo has about 44 people in its smallest level for 18 candidate parameters
     assert any(n.startswith("low events per candidate parameter: ") and "below 10" in n for n in notes)
     assert cli.main(["check", str(study)]) == 0
@@ -93,10 +94,27 @@ def test_low_events_per_parameter_is_a_warning_of_check(study, capsys):
         assert f"warning: {note}" in out
 
 
-def test_more_folds_than_rows_in_a_level_is_noted(study):
+def test_a_failing_sample_size_criterion_is_named_with_its_remedy(study, capsys):
+    """The development criteria (Riley et al., Stat Med 2019) at the data's own level proportions: the 15-row
+    check names the criterion that fails, how many people it needs, and suggests fewer candidates or a penalty."""
+    from riskvet.planning import data_support_notes, ordinal_development_size
+
+    notes = data_support_notes(level_counts=[9, 6], n_parameters=6)
+    shrink = next(n for n in notes if n.startswith("sample-size criterion 'shrinkage' fails"))
+    needed = next(c.n for c in ordinal_development_size(n_parameters=6, proportions=[0.6, 0.4]).cuts[0].criteria if c.name == "shrinkage")
+    assert f"needs at least {needed} people" in shrink and "the derivation data hold 15" in shrink
+    assert "fewer candidate parameters" in shrink and "penalised method" in shrink
+    # with a penalised method already chosen, the advice is fewer candidates only
+    assert all("penalised method" not in n for n in data_support_notes(level_counts=[9, 6], n_parameters=6, penalized=True))
+    # ample data for few parameters: nothing to say
+    assert data_support_notes(level_counts=[4000, 1000], n_parameters=4) == []
+
+
+def test_more_folds_than_people_in_a_level_is_refused(study):
     _edit(study, lambda raw: raw.setdefault("selection", {}).update(method="forward", folds=50))
     s = load_study(study)
     cohort = load_cohorts(s).derivation
     smallest = min(cohort.outcome_counts.values())
-    notes = check_before_fitting(s, cohort)
-    assert (smallest < 50) == any(n.startswith("selection.folds is 50") for n in notes)
+    assert smallest < 50
+    with pytest.raises(StudyError, match=rf"selection.folds: expected at most {smallest}, the people in the smallest outcome level"):
+        check_before_fitting(s, cohort)

@@ -73,7 +73,7 @@ def check_report(study_path: str | Path, *, out=None) -> int:
     records = check_records_folder(study)
     print(f"records go to {records}", file=out)
     cohorts = load_cohorts(study)
-    notes = check_before_fitting(study, cohorts.derivation, study_file=study_path)
+    notes = check_before_fitting(study, cohorts.derivation, study_file=study_path) + support_notes(study, cohorts.derivation)
     print("design: every candidate term can be built on the derivation data", file=out)
     for cohort in [cohorts.derivation, *cohorts.validation.values()]:
         print(f"\n== {cohort.label} ({cohort.source}) ==", file=out)
@@ -94,6 +94,21 @@ def check_report(study_path: str | Path, *, out=None) -> int:
         print(f"warning: {note}", file=out)
     print(f"\nusable. {CAUTION}", file=out)
     return 0
+
+
+def support_notes(study, cohort) -> list[str]:
+    """Whether the derivation data can support the study's candidate parameters (events per parameter, sample-size criteria)."""
+    from ..modelling.derive import candidate_design
+    from ..planning.samplesize import data_support_notes
+
+    planning = study.planning
+    counts = [int(cohort.outcome_counts.get(lv, 0)) for lv in study.outcome.ordered_levels]
+    return data_support_notes(
+        level_counts=counts, n_parameters=len(candidate_design(study, cohort.frame).columns),
+        anticipated_c=None if planning is None else planning.anticipated_c,
+        anticipated_r2_cs=None if planning is None else planning.anticipated_r2_cs,
+        shrinkage=0.9 if planning is None else planning.shrinkage, penalized=study.selection.penalized,
+    )
 
 
 def _cmd_check(args: argparse.Namespace) -> int:

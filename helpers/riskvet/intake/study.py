@@ -303,18 +303,51 @@ class PredictorsSection(_Section):
 
 
 class ModelSection(_Section):
-    """The model family."""
+    """The model family, how it is estimated, and what happens when the data are separated."""
 
-    link: Literal["logit", "probit", "cloglog"] = "logit"
+    link: Literal["logit", "probit", "cloglog", "loglog"] = "logit"
     proportional: bool = True
+    estimation: Literal["maximum_likelihood", "firth"] = Field(
+        default="maximum_likelihood",
+        description="maximum_likelihood, or firth: Firth's bias-reduced estimates for every fit of the derivation procedure.",
+    )
+    on_separation: Literal["stop", "firth"] = Field(
+        default="stop",
+        description="When the chosen model's maximum-likelihood fit is separated: stop with a message, or refit it with Firth's method.",
+    )
+
+
+#: Selection methods that choose the model by a penalty tuned by cross-validation.
+PENALIZED_METHODS = ("ridge", "lasso", "elastic_net")
 
 
 class SelectionSection(_Section):
     """Variable selection, repeated in every bootstrap replicate."""
 
-    method: Literal["none", "forward", "backward"] = "none"
-    folds: int = Field(default=10, ge=2, le=50, description="k of the k-fold CV choosing the forward model size.")
+    method: Literal["none", "forward", "backward", "ridge", "lasso", "elastic_net"] = "none"
+    folds: int = Field(default=10, ge=2, le=50, description="k of the k-fold CV choosing the forward model size or the penalty.")
     seed: int = Field(default=0, ge=0)
+    l1_ratio: float | None = Field(
+        default=None, gt=0, lt=1,
+        description="elastic_net only: the lasso share of the penalty, strictly between 0 (ridge) and 1 (lasso); 0.5 when not given.",
+    )
+    n_penalties: int = Field(default=30, ge=5, le=200, description="ridge, lasso, elastic_net: penalties tried, on a log grid.")
+
+    @model_validator(mode="after")
+    def _penalty_options(self) -> "SelectionSection":
+        if self.l1_ratio is not None and self.method != "elastic_net":
+            raise ValueError(f"l1_ratio: only for method elastic_net (ridge is 0 and lasso is 1); received it with method {self.method!r}")
+        return self
+
+    @property
+    def penalized(self) -> bool:
+        """Whether the method is ridge, lasso or elastic net."""
+        return self.method in PENALIZED_METHODS
+
+    @property
+    def lasso_share(self) -> float:
+        """The l1 share of the penalty: 0 for ridge, 1 for lasso, ``l1_ratio`` (0.5 by default) for elastic net."""
+        return {"ridge": 0.0, "lasso": 1.0}.get(self.method, 0.5 if self.l1_ratio is None else float(self.l1_ratio))
 
 
 class InternalValidationSection(_Section):
@@ -516,6 +549,11 @@ class Study(_Section):
             labels = [c.label for c in self.data.validation]
             if self.updating.cohort not in labels:
                 raise ValueError(f"updating.cohort: expected one of the validation labels {labels}; received {self.updating.cohort!r}")
+        if self.selection.penalized and self.model.estimation == "firth":
+            raise ValueError(
+                f"model.estimation: firth is a fitting option for the methods none, forward and backward; selection.method "
+                f"{self.selection.method!r} already penalises the coefficients (use one penalty or the other)"
+            )
         if self.agreement is not None and self.agreement.enabled and self.data.ratings is None:
             raise ValueError("agreement: needs data.ratings, the paired-ratings file")
         return self

@@ -95,17 +95,14 @@ def candidate_design(study: Study, frame: pd.DataFrame) -> DesignSpec:
     )
 
 
-#: Events per candidate parameter below which the page and ``riskvet check`` warn (common practice: 10).
-LOW_EVENTS_PER_PARAMETER = 10
-
-
 def check_before_fitting(study: Study, cohort: Any, *, study_file: str | Path | None = None) -> list[str]:
     """Build everything the derivation builds before it fits, so a study fails here and not in a record.
 
     The design specification is learned from the derivation cohort (category
     references and levels, spline knots), the cross-validation folds are
-    compared with the outcome's level counts, and events per candidate
-    parameter are counted.  Nothing is fitted.
+    compared with the outcome's level counts.  Nothing is fitted.  Whether
+    the data can support the candidate parameters is judged by
+    :func:`riskvet.planning.data_support_notes`.
 
     Parameters
     ----------
@@ -118,8 +115,8 @@ def check_before_fitting(study: Study, cohort: Any, *, study_file: str | Path | 
     Returns
     -------
     list of str
-        Notes the analyst should read: low events per candidate parameter,
-        more cross-validation folds than rows in an outcome level.
+        Notes the analyst should read (none at present: every problem found
+        here is an error).
 
     Raises
     ------
@@ -127,7 +124,8 @@ def check_before_fitting(study: Study, cohort: Any, *, study_file: str | Path | 
         Naming the study key whose value the data cannot support: a
         categorical reference that is not a level of the data (with the level
         it matches when only the case differs), knots a predictor's distinct
-        values cannot place.
+        values cannot place, more cross-validation folds (``selection.folds``,
+        forward and penalised methods) than people in an outcome level.
     """
     try:
         return _check_before_fitting(study, cohort)
@@ -149,26 +147,19 @@ def _check_before_fitting(study: Study, cohort: Any) -> list[str]:
             hint = f" (the data write it {same[0]!r}; levels are compared exactly, case included)" if same else ""
             raise StudyError(problem(f"predictors.candidates.{name}.reference", allowed=f"one of the levels in the data {seen}", received=p.reference) + hint)
     try:
-        design = candidate_design(study, cohort.frame)
+        candidate_design(study, cohort.frame)
     except DesignError as exc:
         raise StudyError(f"predictors: the design cannot be built on the derivation data ({cohort.source}): {exc}") from None
     counts = {lv: int(n) for lv, n in cohort.outcome_counts.items()}
-    notes = []
-    if study.selection.method == "forward":
-        small = {lv: n for lv, n in counts.items() if n < study.selection.folds}
-        if small:
-            notes.append(
-                f"selection.folds is {study.selection.folds}, more than the rows of outcome level(s) {small}: some "
-                "cross-validation folds will hold none of them; consider fewer folds"
-            )
-    n_parameters = len(design.columns) + len(counts) - 1
-    fewest = min(counts.values()) if counts else 0
-    if n_parameters and fewest / n_parameters < LOW_EVENTS_PER_PARAMETER:
-        notes.append(
-            f"low events per candidate parameter: {fewest} people in the smallest outcome level for {n_parameters} candidate "
-            f"parameters ({fewest / n_parameters:.1f} per parameter, below {LOW_EVENTS_PER_PARAMETER}); expect optimism and unstable selection"
-        )
-    return notes
+    cross_validated = study.selection.method == "forward" or study.selection.penalized
+    small = {lv: n for lv, n in counts.items() if n < study.selection.folds}
+    if cross_validated and small:
+        # a level with fewer people than folds leaves some held-out fold without it (or empty)
+        raise StudyError(problem(
+            "selection.folds", allowed=f"at most {min(counts.values())}, the people in the smallest outcome level",
+            received=f"{study.selection.folds}, more than the people of outcome level(s) {small}",
+        ))
+    return []
 
 
 def derive(
@@ -227,6 +218,10 @@ def derive(
         link=study.model.link,
         proportional=study.model.proportional,
         weights=counts,
+        firth=study.model.estimation == "firth",
+        l1_ratio=study.selection.l1_ratio,
+        n_penalties=study.selection.n_penalties,
+        on_separation="firth" if study.model.on_separation == "firth" else "warn",
     )
     chosen = set(result.terms)
     final = design.subset([t.name for t in design.terms if t.name in chosen])

@@ -9,7 +9,16 @@ them; Harrell 2015, section 4.3):
   chosen by k-fold cross-validated test log-likelihood, the path then re-run
   on all data up to that size;
 * ``"backward"``: backward elimination by AIC from the full model;
-* ``"none"``: the pre-specified model with every term.
+* ``"none"``: the pre-specified model with every term;
+* ``"ridge"``, ``"lasso"``, ``"elastic_net"``: every term in one penalised
+  fit, the penalty chosen by k-fold cross-validated log-likelihood on
+  standardised columns (:func:`riskvet.modelling.penalized.tune_penalty`);
+  a term whose coefficients the lasso part sets to zero is left out, and a
+  multi-column term is penalised as a group, so it enters or leaves whole.
+
+Firth's bias-reduced estimation (``firth=True``) is a fitting option for
+``"forward"``, ``"backward"`` and ``"none"``: every fit of the procedure is
+then a Firth fit.
 
 Selection is a deterministic function of the data, the options and the
 seed, so that a bootstrap can repeat it in every resample.
@@ -20,7 +29,7 @@ from __future__ import annotations
 import dataclasses
 import math
 import warnings
-from typing import Mapping, Sequence
+from typing import Any, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -47,7 +56,11 @@ from .links import LINKS
 
 __all__ = ["select_terms", "SelectionResult", "METHODS"]
 
-METHODS = ("forward", "backward", "none")
+METHODS = ("forward", "backward", "none", "ridge", "lasso", "elastic_net")
+#: The methods whose model is one penalised fit, and the l1 share of their penalty (elastic net: the caller's).
+PENALIZED = {"ridge": 0.0, "lasso": 1.0, "elastic_net": None}
+#: What happens when the chosen model's maximum-likelihood fit is separated.
+ON_SEPARATION = ("warn", "firth")
 
 _PATH_COLUMNS = ["step", "action", "term", "criterion", "statistic", "df", "p", "loglik", "aic", "n_params"]
 
@@ -96,6 +109,12 @@ class SelectionResult:
     warnings : tuple of str
         Trouble met along the way (fold paths cut short, fits that did not
         converge or hinted at separation) and the final fit's warnings.
+    penalty : PenaltyChoice or None
+        The penalised methods: the cross-validated choice of the penalty
+        (its curve, the chosen ``alpha``); None for the other methods.
+    refit_with_firth : bool
+        Whether the chosen model's maximum-likelihood fit was separated and
+        ``on_separation="firth"`` refitted it with Firth's method.
     """
 
     method: str
@@ -112,6 +131,8 @@ class SelectionResult:
     link: str
     proportional: bool
     warnings: tuple
+    penalty: Any = None
+    refit_with_firth: bool = False
 
     def to_frame(self) -> pd.DataFrame:
         """The selection path (see ``path``)."""
@@ -132,6 +153,8 @@ class SelectionResult:
                 "path": self.path,
                 "cv": self.cv,
                 "warnings": list(self.warnings),
+                "penalty": None if self.penalty is None else self.penalty.to_dict(),
+                "refit_with_firth": self.refit_with_firth,
                 "fit": self.fit.to_dict(),
             }
         )
@@ -163,7 +186,7 @@ def _log_chi2_sf(stat: float, df: int) -> float:
 class _Problem:
     """The data of one selection, rows sorted by outcome level."""
 
-    def __init__(self, X, y, K, w, unit, link, proportional, term_cols, names, term_names):
+    def __init__(self, X, y, K, w, unit, link, proportional, term_cols, names, term_names, firth=False):
         # Columns are taken from the transposed copy, so that sub-matrices are
         # Fortran-ordered and the fitter's own transposed copy is free.
         self.XT = np.ascontiguousarray(X.T)
@@ -177,6 +200,8 @@ class _Problem:
         self.names = names  # column names
         self.term_names = term_names
         self.m = K - 1
+        # Firth's fits only when asked: the keyword is passed only then.
+        self.fit_options = {"firth": True} if firth else {}
 
     def per_col(self) -> int:
         return 1 if self.proportional else self.m
@@ -191,7 +216,7 @@ class _Problem:
         w = None if self.unit else (self.w if rows is None else self.w[rows])
         return _fit_arrays(
             Xs, y, self.K, proportional=self.proportional, link=self.link, weights=w, start=start,
-            names=[self.names[c] for c in cols], need_cov=False,
+            names=[self.names[c] for c in cols], need_cov=False, **self.fit_options,
         )
 
     def test_loglik(self, rows, cols, params) -> float:
@@ -410,6 +435,10 @@ def select_terms(
     link: str = "logit",
     proportional: bool = True,
     weights=None,
+    firth: bool = False,
+    l1_ratio: float | None = None,
+    n_penalties: int = 30,
+    on_separation: str = "warn",
 ) -> SelectionResult:
     """Select terms of a cumulative-link model.
 
@@ -436,6 +465,18 @@ def select_terms(
     weights : array-like, optional, keyword-only
         Frequency weights.  Folds are dealt over rows, so all copies that a
         weight stands for fall in the same fold; rows of weight 0 are dropped.
+    firth : bool, keyword-only
+        Fit every model of the procedure by Firth's bias-reduced likelihood
+        (methods forward, backward and none).
+    l1_ratio : float, optional, keyword-only
+        ``"elastic_net"``: the lasso share of the penalty, in (0, 1); 0.5
+        when omitted.  Not used by the other methods.
+    n_penalties : int, keyword-only
+        Penalised methods: the number of penalties on the log grid tried.
+    on_separation : {"warn", "firth"}, keyword-only
+        When the chosen model's maximum-likelihood fit is separated: keep it
+        and warn (its separation is on ``fit.separation``), or refit the
+        chosen terms by Firth's method (``refit_with_firth`` is then set).
 
     Returns
     -------
@@ -476,11 +517,22 @@ def select_terms(
 
     Steyerberg, E. W. (2019). Clinical Prediction Models (2nd ed.), chapter 11.
     Springer.
+
+    Firth, D. (1993). Bias reduction of maximum likelihood estimates.
+    Biometrika, 80(1), 27-38.
+
+    Tibshirani, R. (1996). Regression shrinkage and selection via the lasso.
+    Journal of the Royal Statistical Society, Series B, 58(1), 267-288.
+
+    Yuan, M., & Lin, Y. (2006). Model selection and estimation in regression
+    with grouped variables. Journal of the Royal Statistical Society, Series B,
+    68(1), 49-67.
     """
     with one_blas_thread():
         return _select_terms(
             X, y, groups=groups, forced=forced, method=method, n_folds=n_folds, seed=seed,
-            link=link, proportional=proportional, weights=weights,
+            link=link, proportional=proportional, weights=weights, firth=firth, l1_ratio=l1_ratio,
+            n_penalties=n_penalties, on_separation=on_separation,
         )
 
 
@@ -495,10 +547,18 @@ def _warn(msgs: list[str], msg: str, category: type[Warning], stacklevel: int) -
     warnings.warn(msg, category, stacklevel=stacklevel + 1)
 
 
-def _check_options(method: str, link: str, proportional) -> None:
-    """Refuse an unknown method or link, or a model form that is not a bool."""
+def _check_options(method: str, link: str, proportional, firth=False, l1_ratio=None, on_separation="warn") -> None:
+    """Refuse an unknown method or link, a model form that is not a bool, or penalty options that do not go together."""
     if method not in METHODS:
         raise DesignError(problem("method", allowed=f"one of {list(METHODS)}", received=method))
+    if not isinstance(firth, (bool, np.bool_)):
+        raise FitError(problem("firth", allowed="True or False", received=firth))
+    if firth and method in PENALIZED:
+        raise DesignError(problem("firth", allowed=f"False with method {method!r} (its penalty already shrinks the coefficients)", received=firth))
+    if l1_ratio is not None and (method != "elastic_net" or isinstance(l1_ratio, bool) or not isinstance(l1_ratio, (int, float)) or not 0.0 < l1_ratio < 1.0):
+        raise DesignError(problem("l1_ratio", allowed="a number strictly between 0 and 1, with method 'elastic_net' only", received=f"{l1_ratio!r} with method {method!r}"))
+    if on_separation not in ON_SEPARATION:
+        raise DesignError(problem("on_separation", allowed=f"one of {list(ON_SEPARATION)}", received=on_separation))
     if link not in LINKS:
         raise FitError(problem("link", allowed=f"one of {list(LINKS)}", received=link))
     if not isinstance(proportional, (bool, np.bool_)):
@@ -532,8 +592,12 @@ class _Selected:
 def _sorted_folds(prob: _Problem, codes: np.ndarray, keep: np.ndarray, order: np.ndarray, n_folds: int, rng: np.random.Generator, levels) -> np.ndarray:
     """Fold of each sorted row, for the cross-validation of the forward path."""
     counts = np.bincount(prob.y, minlength=prob.K)
-    if np.min(counts) < 2:
-        raise DesignError(problem("y", allowed="at least 2 rows in every level for cross-validation", received=dict(zip(levels, counts.tolist()))))
+    if np.min(counts) < max(2, n_folds):
+        # a level with fewer rows than folds leaves some held-out fold without it
+        raise DesignError(problem(
+            "n_folds", allowed=f"at most the number of rows in the smallest outcome level ({int(np.min(counts))}), and at least 2 rows in every level",
+            received=f"{n_folds} folds; rows by level {dict(zip(levels, counts.tolist()))}",
+        ))
     # Folds are drawn over the input row order, then carried to the sorted rows.
     fold_in = np.full(codes.shape[0], -1, dtype=np.int64)
     fold_in[keep] = _folds(codes[keep], n_folds, rng)
@@ -642,9 +706,13 @@ def _select_terms(
     link: str = "logit",
     proportional: bool = True,
     weights=None,
+    firth: bool = False,
+    l1_ratio: float | None = None,
+    n_penalties: int = 30,
+    on_separation: str = "warn",
 ) -> SelectionResult:
     """:func:`select_terms` itself, run by it with one BLAS thread."""
-    _check_options(method, link, proportional)
+    _check_options(method, link, proportional, firth, l1_ratio, on_separation)
     codes, K, levels = _as_outcome(y, None)
     n = codes.shape[0]
     Xa, columns = _as_matrix(X, n)
@@ -656,16 +724,23 @@ def _select_terms(
     _check_levels(codes, K, w, levels)
     rng = None
     seed_used = None
-    if method == "forward":
+    if method == "forward" or method in PENALIZED:
         rng, seed_used = _fold_source(n_folds, seed)
     # Keep rows with positive weight and sort them by level once: every
     # design below is then already sorted and its rows line up with X.
     keep = np.flatnonzero(w > 0)
+    if method in PENALIZED:
+        share = PENALIZED[method] if PENALIZED[method] is not None else (0.5 if l1_ratio is None else float(l1_ratio))
+        return _penalized_selection(
+            pd.DataFrame(Xa[keep], columns=list(columns)), codes[keep], None if unit else w[keep], levels=levels,
+            names=names, term_cols=term_cols, forced_idx=forced_idx, method=method, l1_ratio=share, n_folds=int(n_folds),
+            rng=rng, seed_used=seed_used, n_penalties=int(n_penalties), link=link, proportional=bool(proportional),
+        )
     order = keep[np.argsort(codes[keep], kind="stable")]
     Xs = np.ascontiguousarray(Xa[order])
     ys = codes[order]
     ws = w[order]
-    prob = _Problem(Xs, ys, K, ws, unit, link, bool(proportional), term_cols, list(columns), names)
+    prob = _Problem(Xs, ys, K, ws, unit, link, bool(proportional), term_cols, list(columns), names, firth=bool(firth))
     free = [i for i in range(len(names)) if i not in forced_idx]
     msgs: list[str] = []
 
@@ -681,9 +756,8 @@ def _select_terms(
     chosen_cols = [columns[c] for c in chosen.cols]
     frame = pd.DataFrame(Xs[:, chosen.cols], columns=chosen_cols)
     y_cat = pd.Categorical.from_codes(ys, categories=list(levels), ordered=True)
-    # Its warnings are issued by the fitter and recorded on it and here.
-    final = fit_cumulative(frame, y_cat, link=link, proportional=bool(proportional), weights=None if unit else ws, start=chosen.raw.params)
-    msgs.extend(f"final model: {m}" for m in final.warnings)
+    final, refit = _final_fit(frame, y_cat, start=chosen.raw.params, link=link, proportional=bool(proportional),
+                              weights=None if unit else ws, firth=bool(firth), on_separation=on_separation, msgs=msgs)
     return SelectionResult(
         method=method,
         terms=tuple(names[t] for t in chosen.terms),
@@ -699,7 +773,74 @@ def _select_terms(
         link=link,
         proportional=bool(proportional),
         warnings=tuple(msgs),
+        refit_with_firth=refit,
     )
+
+
+def _final_fit(frame, y_cat, *, start, link, proportional, weights, firth, on_separation, msgs) -> tuple[CumulativeFit, bool]:
+    """The chosen model through the public fitter (full table, warnings, the separation check); a separated
+    maximum-likelihood fit is refitted by Firth's method when ``on_separation="firth"``.
+
+    Its warnings are issued by the fitter and recorded on it and in ``msgs``.
+    """
+    options = {"firth": True} if firth else {}
+    final = fit_cumulative(frame, y_cat, link=link, proportional=proportional, weights=weights, start=start, **options)
+    msgs.extend(f"final model: {m}" for m in final.warnings)
+    if not (final.separation and not firth and on_separation == "firth"):
+        return final, False
+    with warnings.catch_warnings():
+        # the separation was found and reported on the maximum-likelihood fit
+        warnings.simplefilter("ignore", SeparationWarning)
+        refit = fit_cumulative(frame, y_cat, link=link, proportional=proportional, weights=weights, firth=True)
+    msgs.append(f"final model: separated by {list(final.separation)}; refitted by Firth's bias-reduced likelihood, whose estimates are finite")
+    msgs.extend(f"final model (Firth): {m}" for m in refit.warnings)
+    return refit, True
+
+
+def _penalized_selection(frame, codes, weights, *, levels, names, term_cols, forced_idx, method, l1_ratio, n_folds, rng,
+                         seed_used, n_penalties, link, proportional) -> SelectionResult:
+    """Ridge, lasso or elastic net: one penalised fit, the penalty tuned by cross-validation; a term whose
+    coefficients are all zero is left out (the forced terms are not penalised)."""
+    from .penalized import tune_penalty
+
+    columns = list(frame.columns)
+    groups = {names[t]: [columns[c] for c in cols] for t, cols in enumerate(term_cols)}
+    unpenalized = [columns[c] for t in forced_idx for c in term_cols[t]]
+    y_cat = pd.Categorical.from_codes(codes, categories=list(levels), ordered=True)
+    choice = tune_penalty(frame, y_cat, l1_ratio=l1_ratio, groups=groups, unpenalized=unpenalized, n_folds=n_folds, seed=rng,
+                          n_alphas=n_penalties, link=link, proportional=proportional, weights=weights)
+    fit = choice.fit
+    coef = np.asarray(fit.coef, dtype=float).reshape(len(columns), -1)
+    nonzero = np.any(coef != 0.0, axis=1)
+    kept = [t for t in range(len(names)) if t in forced_idx or any(nonzero[c] for c in term_cols[t])]
+    kept = forced_idx + [t for t in kept if t not in forced_idx]
+    kept_cols = [columns[c] for t in kept for c in term_cols[t]]
+    fit = _restrict(fit, kept_cols)
+    rows = [{"step": 0, "action": "penalised fit", "term": "", "criterion": "cross-validated log-likelihood",
+             "statistic": float(choice.alpha), "df": int(fit.n_params), "p": math.nan, "loglik": fit.loglik, "aic": fit.aic,
+             "n_params": int(fit.n_params)}]
+    for t in range(len(names)):
+        if t not in kept:
+            rows.append({**rows[0], "step": len(rows), "action": "set to zero", "term": names[t], "statistic": math.nan})
+    msgs = [f"final model: {m}" for m in fit.warnings]
+    return SelectionResult(
+        method=method, terms=tuple(names[t] for t in kept), forced=tuple(names[t] for t in forced_idx),
+        columns=tuple(kept_cols), path=pd.DataFrame(rows, columns=_PATH_COLUMNS), cv=None, cv_by_fold=None, size=None,
+        fit=fit, seed=seed_used, n_folds=n_folds, link=link, proportional=proportional, warnings=tuple(msgs), penalty=choice,
+    )
+
+
+def _restrict(fit: CumulativeFit, keep: list[str]) -> CumulativeFit:
+    """A penalised fit without the columns whose coefficients are zero (the same model, fewer columns)."""
+    if list(fit.columns) == keep:
+        return fit
+    cuts = list(fit.thresholds.index)
+    # parameter names as the fitter gives them: a column's name, or ``column[cut]`` per cut
+    names = cuts + (keep if fit.proportional else [f"{c}[{cut}]" for c in keep for cut in cuts])
+    coef = fit.coef.loc[keep]
+    params = fit.params.loc[names]
+    return dataclasses.replace(fit, columns=tuple(keep), coef=coef, params=params, se=fit.se.loc[names],
+                               cov=fit.cov.loc[names, names])
 
 
 def _drop_params(params: np.ndarray, cols: list[int], drop_cols: list[int], prob: _Problem) -> np.ndarray:

@@ -1070,3 +1070,95 @@ def justification_text(result: DevelopmentSize | OrdinalDevelopmentSize | Valida
             parts.append("This is fewer than the 100 events once suggested as a minimum for validation (Collins, Ogundimu & Altman 2016).")
         return " ".join(parts)
     raise StudyError(problem("justification_text(result)", allowed="a DevelopmentSize, OrdinalDevelopmentSize or ValidationSize", received=type(result).__name__))
+
+
+#: Events per candidate parameter below which ``riskvet check`` and the derivation page warn
+#: (common practice: 10, a rule of thumb the published criteria replace, kept as a first alarm).
+LOW_EVENTS_PER_PARAMETER = 10
+
+
+def data_support_notes(
+    *,
+    level_counts: Sequence[int],
+    n_parameters: int,
+    anticipated_c: float | None = None,
+    anticipated_r2_cs: float | None = None,
+    shrinkage: float = 0.9,
+    penalized: bool = False,
+) -> list[str]:
+    """What the derivation data cannot support, in sentences: the development criteria the data fail.
+
+    Parameters
+    ----------
+    level_counts : sequence of int
+        People in each outcome level of the derivation data, lowest first.
+    n_parameters : int
+        Candidate predictor parameters (design columns of every candidate
+        term; the K − 1 thresholds not counted).
+    anticipated_c, anticipated_r2_cs : float, optional
+        The study's anticipated performance (``planning`` section); with
+        neither, R² is set so that Nagelkerke's R² is 0.15, as in
+        :func:`development_size`.
+    shrinkage : float
+        Target expected shrinkage of criterion (i).
+    penalized : bool
+        Whether the study already uses a penalised method (the advice then
+        asks for fewer candidates only).
+
+    Returns
+    -------
+    list of str
+        One sentence per problem: events per candidate parameter below
+        :data:`LOW_EVENTS_PER_PARAMETER`, and each criterion of
+        :func:`ordinal_development_size` (every cut of an ordered outcome)
+        needing more people than the data hold, with the remedy.
+
+    Notes
+    -----
+    The criteria are evaluated at the observed level proportions, so the
+    check asks: could data of this size and case mix support this many
+    candidate parameters?  A penalised fit does not remove the need
+    (Riley et al. 2021): tuned shrinkage is itself unstable in small data.
+
+    References
+    ----------
+    Riley RD, Snell KIE, Ensor J, et al. Minimum sample size for developing a
+    multivariable prediction model: Part II – binary and time-to-event
+    outcomes. Statistics in Medicine 2019; 38(7): 1276–1296.
+
+    Riley RD, Snell KIE, Martin GP, et al. Penalization and shrinkage methods
+    produced unreliable clinical prediction models especially when sample
+    size was small. Journal of Clinical Epidemiology 2021; 132: 88–96.
+    """
+    counts = [int(c) for c in level_counts]
+    n = sum(counts)
+    p = int(n_parameters)
+    if n <= 0 or p <= 0 or len(counts) < 2 or min(counts) <= 0:
+        return []
+    remedy = ("use fewer candidate parameters (drop or merge candidates, fewer spline knots)" if penalized else
+              "use fewer candidate parameters (drop or merge candidates, fewer spline knots) or a penalised method "
+              "(selection.method: ridge, lasso or elastic_net), knowing that tuned shrinkage is itself unstable in small data")
+    notes = []
+    fewest = min(counts)
+    if fewest / (p + len(counts) - 1) < LOW_EVENTS_PER_PARAMETER:
+        notes.append(
+            f"low events per candidate parameter: {fewest} people in the smallest outcome level for {p + len(counts) - 1} candidate "
+            f"parameters ({fewest / (p + len(counts) - 1):.1f} per parameter, below {LOW_EVENTS_PER_PARAMETER}); "
+            "expect optimism and unstable selection"
+        )
+    try:
+        size = ordinal_development_size(n_parameters=p, proportions=[c / n for c in counts], c_statistic=anticipated_c,
+                                        r2_cs=anticipated_r2_cs, shrinkage=shrinkage)
+    except StudyError as exc:
+        return notes + [f"the development sample-size criteria could not be evaluated: {exc}"]
+    for j, cut in enumerate(size.cuts):
+        for crit in cut.criteria:
+            if crit.n > n:
+                where = "" if len(counts) == 2 else f" at cut {j + 1} (above level {j + 1} of {len(counts)})"
+                per = "" if crit.name == "overall risk" else f" for {p} candidate parameters"
+                todo = "more data; no choice of model can estimate the overall risk this precisely" if crit.name == "overall risk" else remedy
+                notes.append(
+                    f"sample-size criterion '{crit.name}'{where} fails (Riley et al. 2019): it needs at least {crit.n} people "
+                    f"({crit.target}){per}; the derivation data hold {n}. To do: {todo}"
+                )
+    return notes
