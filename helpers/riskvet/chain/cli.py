@@ -101,13 +101,17 @@ def support_notes(study, cohort) -> list[str]:
     from ..modelling.derive import candidate_design
     from ..planning.samplesize import data_support_notes
 
+    from ..reporting.labels import cut_label
+
     planning = study.planning
-    counts = [int(cohort.outcome_counts.get(lv, 0)) for lv in study.outcome.ordered_levels]
+    levels = study.outcome.ordered_levels
+    counts = [int(cohort.outcome_counts.get(lv, 0)) for lv in levels]
     return data_support_notes(
         level_counts=counts, n_parameters=len(candidate_design(study, cohort.frame).columns),
         anticipated_c=None if planning is None else planning.anticipated_c,
         anticipated_r2_cs=None if planning is None else planning.anticipated_r2_cs,
         shrinkage=0.9 if planning is None else planning.shrinkage, penalized=study.selection.penalized,
+        cut_names=[cut_label(levels, j, binary=len(levels) == 2) for j in range(len(levels) - 1)],
     )
 
 

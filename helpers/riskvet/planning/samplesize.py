@@ -1085,6 +1085,8 @@ def data_support_notes(
     anticipated_r2_cs: float | None = None,
     shrinkage: float = 0.9,
     penalized: bool = False,
+    cut_names: Sequence[str] | None = None,
+    events_per_parameter: bool = True,
 ) -> list[str]:
     """What the derivation data cannot support, in sentences: the development criteria the data fail.
 
@@ -1104,6 +1106,11 @@ def data_support_notes(
     penalized : bool
         Whether the study already uses a penalised method (the advice then
         asks for fewer candidates only).
+    cut_names : sequence of str, optional
+        The K − 1 cuts in words, to say where an ordered outcome's criterion fails.
+    events_per_parameter : bool
+        Include the events-per-candidate-parameter note (a page that states
+        events per parameter in its own sentence leaves it out).
 
     Returns
     -------
@@ -1140,7 +1147,7 @@ def data_support_notes(
               "(selection.method: ridge, lasso or elastic_net), knowing that tuned shrinkage is itself unstable in small data")
     notes = []
     fewest = min(counts)
-    if fewest / (p + len(counts) - 1) < LOW_EVENTS_PER_PARAMETER:
+    if events_per_parameter and fewest / (p + len(counts) - 1) < LOW_EVENTS_PER_PARAMETER:
         notes.append(
             f"low events per candidate parameter: {fewest} people in the smallest outcome level for {p + len(counts) - 1} candidate "
             f"parameters ({fewest / (p + len(counts) - 1):.1f} per parameter, below {LOW_EVENTS_PER_PARAMETER}); "
@@ -1154,7 +1161,8 @@ def data_support_notes(
     for j, cut in enumerate(size.cuts):
         for crit in cut.criteria:
             if crit.n > n:
-                where = "" if len(counts) == 2 else f" at cut {j + 1} (above level {j + 1} of {len(counts)})"
+                name = cut_names[j] if cut_names is not None else f"cut {j + 1} (above level {j + 1} of {len(counts)})"
+                where = "" if len(counts) == 2 else f" for {name}"
                 per = "" if crit.name == "overall risk" else f" for {p} candidate parameters"
                 todo = "more data; no choice of model can estimate the overall risk this precisely" if crit.name == "overall risk" else remedy
                 notes.append(

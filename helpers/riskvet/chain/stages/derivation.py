@@ -34,11 +34,12 @@ from ...modelling.term_effects import TermEffects, column_label, term_effects, t
 from ...errors import RiskvetError, RiskvetWarning
 from ...modelling.modelfile import PredictionModel, model_from_fit, save_model
 from ...reporting.figures.performance import calibration_statistics, plot_calibration, plot_roc, published_calibration
-from ...reporting.figures.derivation import plot_odds_ratios, plot_proportional_odds, plot_selection_curve
+from ...reporting.figures.derivation import plot_odds_ratios, plot_penalty_curve, plot_proportional_odds, plot_selection_curve
 from ...modelling.proportional_odds import brant_test, proportional_odds_lr_test
 from ...reporting.labels import cut_label, summary_label
 from ...reporting.sentences.common import interval_words, measure_guide
 from ...reporting.sentences.derivation import LOW_EVENTS_PER_PARAMETER, derivation_texts
+from ...planning.samplesize import data_support_notes
 from ...validation.external import measure_label
 from ..stagekit import StageContext
 
@@ -164,6 +165,8 @@ def run(ctx: StageContext) -> DerivationOutput:
     descriptive = descriptive_table(cohort, labels={lv: study.outcome.label(lv) for lv in levels}, min_cell_count=study.output.min_cell_count)
 
     derivation = derive(study, frame, y)
+    separated = separated_terms(derivation)
+    _stop_if_separated(study, derivation, separated)
     cut_labels = [cut_label(levels, j, binary=K == 2) for j in range(K - 1)]
     parameters = _parameter_table(derivation.fit, levels)
     effects = term_effects(derivation.fit, derivation.design, frame, cut_names=cut_labels)
@@ -185,10 +188,19 @@ def run(ctx: StageContext) -> DerivationOutput:
         smallest_level=smallest, proportional_odds=po, summary=apparent["summary"],
         n_levels=K, min_cell_count=study.output.min_cell_count, levels=levels,
         n_candidate_parameters=n_candidates, calibration=cal, link=study.model.link,
+        fit=derivation.fit, separated_terms=separated,
+    )
+    texts["data_support"] = data_support_notes(
+        level_counts=np.bincount(y, minlength=K).tolist(), n_parameters=len(derivation.candidate_design.columns),
+        anticipated_c=None if study.planning is None else study.planning.anticipated_c,
+        anticipated_r2_cs=None if study.planning is None else study.planning.anticipated_r2_cs,
+        shrinkage=0.9 if study.planning is None else study.planning.shrinkage, penalized=study.selection.penalized,
+        cut_names=cut_labels, events_per_parameter=False,
     )
     epp = smallest / max(n_candidates, 1)
     judged = {"events_per_candidate_parameter": epp, "low_events_per_parameter": epp < LOW_EVENTS_PER_PARAMETER,
-              "inference_caution": texts["inference"]}
+              "inference_caution": texts["inference"], "separated_terms": list(separated),
+              "estimation": derivation.fit.estimation, "refit_with_firth": derivation.selection.refit_with_firth}
     ctx.write_results(_results(ctx, cohort, flow, derivation, model, parameters, po, apparent, descriptive) | {"term_effects": effects.to_dict(), "texts": texts, **judged})
     return DerivationOutput(
         derivation=derivation,
@@ -208,6 +220,24 @@ def run(ctx: StageContext) -> DerivationOutput:
     )
 
 
+def separated_terms(derivation: Derivation) -> tuple[str, ...]:
+    """The terms, in words, whose columns the separation check of the final fit named (in design order)."""
+    found = set(derivation.fit.separation)
+    return tuple(term_label(t) for t in derivation.design.terms if found & set(t.columns))
+
+
+def _stop_if_separated(study, derivation: Derivation, separated: tuple[str, ...]) -> None:
+    """Refuse a separated maximum-likelihood model when the study says ``model.on_separation: stop``."""
+    if not separated or derivation.fit.estimation == "firth":
+        return
+    raise RiskvetError(
+        f"the derivation data are separated by {', '.join(separated)} (columns {list(derivation.fit.separation)}): some combination "
+        "of their values predicts part of the outcome perfectly, so the maximum-likelihood estimates are infinite and the model "
+        "cannot be used. The study says model.on_separation: stop. To go on, set model.on_separation: firth (refit the chosen model "
+        "by Firth's bias-reduced method) or model.estimation: firth, or merge the sparse categories or levels."
+    )
+
+
 def _parameter_table(fit: Any, levels: tuple[str, ...]) -> pd.DataFrame:
     """The fit's parameter table, thresholds (and the cut of a per-cut coefficient) named by the cut's event."""
     table = fit.to_frame()
@@ -224,16 +254,19 @@ def _model_frame(parameters: pd.DataFrame, derivation: Derivation, cut_labels: l
     design = derivation.design
     coefficient = parameters["kind"].to_numpy() == "coefficient"
     words = [column_label(design, t) if c else t for t, c in zip(parameters["term"], coefficient)]
-    wald = interval_words("wald")
     frame = pd.DataFrame({"parameter": words})
     if not derivation.fit.proportional:
         frame["cut"] = parameters["cut"].to_numpy()
     frame["estimate"] = parameters["estimate"].to_numpy()
-    frame["standard error"] = parameters["se"].to_numpy()
-    frame[f"lower ({wald})"] = parameters["lower"].to_numpy()
-    frame[f"upper ({wald})"] = parameters["upper"].to_numpy()
-    frame["z"] = parameters["z"].to_numpy()
-    frame["p-value"] = parameters["p"].to_numpy()
+    kind = derivation.fit.interval_kind
+    if kind != "none":
+        # penalised estimates have no valid standard errors, so those columns are left off
+        interval = interval_words("profile_penalised" if kind == "profile penalised likelihood" else "wald")
+        frame["standard error"] = parameters["se"].to_numpy()
+        frame[f"lower ({interval})"] = parameters["lower"].to_numpy()
+        frame[f"upper ({interval})"] = parameters["upper"].to_numpy()
+        frame["z"] = parameters["z"].to_numpy()
+        frame["p-value"] = parameters["p"].to_numpy()
     if "odds_ratio" in parameters.columns:
         linear = {t.columns[0] for t in design.terms if t.kind == "linear"}
         keep = coefficient & parameters["term"].isin(linear).to_numpy()
@@ -270,6 +303,9 @@ def _frozen_model(study, cohort, derivation: Derivation) -> PredictionModel:
         "derivation_data_sha256": file_sha256(study.data.derivation),
         "n_analysed": int(cohort.n_analysed),
         "selection": study.selection.method,
+        "estimation": derivation.fit.estimation,
+        "penalty": None if derivation.selection.penalty is None else {"alpha": derivation.selection.penalty.alpha,
+                                                                         "l1_ratio": derivation.selection.penalty.l1_ratio},
         "parent_model_sha256": None,
         "update_method": None,
     }
@@ -332,6 +368,8 @@ def _figures(ctx: StageContext, derivation: Derivation, parameters: pd.DataFrame
 
     if derivation.selection.cv is not None:
         save(plot_selection_curve(derivation.selection), "selection_curve")
+    if derivation.selection.penalty is not None:
+        save(plot_penalty_curve(derivation.selection), "penalty_curve")
     if study.model.link == "logit" and study.model.proportional:
         single = {c for t in derivation.design.terms if t.kind in ("linear", "categorical") for c in t.columns}
         shown = parameters[(parameters["kind"] == "coefficient") & parameters["term"].isin(single)].copy()
@@ -393,6 +431,11 @@ def _selection_frames(derivation: Derivation) -> dict[str, pd.DataFrame]:
         out["cv_curve"] = derivation.selection.cv.rename(columns={
             "size": "terms added", "mean_test_loglik": "mean held-out log-likelihood per person",
             "se": "standard error", "n_folds_reached": "folds that reached this size"}).reset_index(drop=True)
+    if derivation.selection.penalty is not None:
+        curve = derivation.selection.penalty.to_frame()
+        out["penalty_curve"] = curve.rename(columns={
+            "alpha": "penalty", "mean_test_loglik": "mean held-out log-likelihood per person", "se": "standard error",
+            "n_nonzero_groups": "terms with a non-zero coefficient"}).reset_index(drop=True)
     return out
 
 

@@ -25,7 +25,7 @@ from ...modelling.selection import SelectionResult
 from ..labels import cut_label
 from .performance import FIGURE_WIDTH, MARKERS, PALETTE, _BAND, _REFERENCE, _STYLE
 
-__all__ = ["plot_selection_curve", "plot_odds_ratios", "plot_proportional_odds", "proportional_odds_table", "proportional_odds_sentence"]
+__all__ = ["plot_selection_curve", "plot_penalty_curve", "plot_odds_ratios", "plot_proportional_odds", "proportional_odds_table", "proportional_odds_sentence"]
 
 
 def plot_selection_curve(result: SelectionResult, *, title: str | None = None) -> Figure:
@@ -59,6 +59,39 @@ def plot_selection_curve(result: SelectionResult, *, title: str | None = None) -
         ax.set_ylabel("test log-likelihood per person")
         ax.legend(loc="lower right")
         ax.set_title(title or f"{result.n_folds}-fold cross-validated forward path")
+    return fig
+
+
+def plot_penalty_curve(result: SelectionResult, *, title: str | None = None) -> Figure:
+    """Cross-validated test log-likelihood by penalty (log axis, strongest penalty on the left), the chosen one marked.
+
+    Parameters
+    ----------
+    result : SelectionResult
+        From a penalised method (``result.penalty`` holds the curve: ``alpha``,
+        ``mean_test_loglik``, ``se`` and ``n_nonzero_groups`` per penalty).
+    title : str, optional
+        Axes title.
+    """
+    choice = getattr(result, "penalty", None)
+    if not isinstance(result, SelectionResult) or choice is None:
+        raise RiskvetError(problem("plot_penalty_curve(result=)", allowed="a SelectionResult of ridge, lasso or elastic net", received=type(result).__name__))
+    cv = choice.to_frame().sort_values("alpha", ascending=False)
+    x = cv["alpha"].to_numpy(dtype=float)
+    m = cv["mean_test_loglik"].to_numpy(dtype=float)
+    s = cv["se"].to_numpy(dtype=float)
+    with mpl.rc_context(_STYLE):
+        fig = Figure(figsize=(FIGURE_WIDTH, 4.0), layout="constrained")
+        ax = fig.add_subplot()
+        ax.fill_between(x, m - s, m + s, color="#d9d9d9", linewidth=0, label="mean ± 1 SE across folds")
+        ax.plot(x, m, color=PALETTE[0], marker="o", markersize=3.5, label="mean over folds")
+        ax.axvline(float(choice.alpha), color=PALETTE[2], linestyle="--", linewidth=1.2, label=f"chosen penalty {choice.alpha:.3g}")
+        ax.set_xscale("log")
+        ax.invert_xaxis()  # from the strongest penalty (fewest terms) to the weakest, as terms enter
+        ax.set_xlabel("penalty (standardised columns; log scale, strongest on the left)")
+        ax.set_ylabel("test log-likelihood per person")
+        ax.legend(loc="lower right")
+        ax.set_title(title or f"{result.n_folds}-fold cross-validated penalty")
     return fig
 
 

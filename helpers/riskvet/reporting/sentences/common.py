@@ -187,6 +187,7 @@ INTERVAL_KINDS = {
     "wald": "Wald interval",
     "wald_log": "Wald interval on the log scale",
     "profile": "profile-likelihood interval",
+    "profile_penalised": "profile penalised-likelihood interval",
     "delong": "DeLong interval",
     "wilson": "Wilson interval",
     "replicates": "range of the central replicates",

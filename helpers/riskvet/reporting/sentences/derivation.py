@@ -36,6 +36,8 @@ def derivation_texts(
     n_candidate_parameters: int | None = None,
     calibration: Any = None,
     link: str = "logit",
+    fit: Any = None,
+    separated_terms: Sequence[str] = (),
 ) -> dict[str, str]:
     """One interpreting sentence per table and figure of the derivation stage.
 
@@ -66,8 +68,14 @@ def derivation_texts(
         Apparent calibration; gives the Hosmer–Lemeshow sentence.
     link : str
         The model's link (odds ratios only for the logit link).
+    fit : CumulativeFit, optional
+        The final fit: how it was estimated (maximum likelihood, Firth,
+        penalised) and what its intervals are.
+    separated_terms : sequence of str
+        Terms, in words, that separate the derivation data (empty if none).
     """
     K = n_levels
+    fit_interval_kind = getattr(fit, "interval_kind", "Wald")
     levels = list(levels) if levels is not None else [f"level {k}" for k in range(K)]
     cuts = [cut_label(levels, j, binary=K == 2) for j in range(K - 1)]
     texts = {
@@ -84,13 +92,16 @@ def derivation_texts(
         "model": (
             f"The final model has {n_terms} terms and {n_params} parameters "
             f"({smallest_level} people in the smallest outcome level, {smallest_level / max(n_params, 1):.1f} per parameter). "
-            f"Each row is one coefficient with its {interval_words('wald')}; "
+            + coefficient_interval_words(fit_interval_kind)
             + ("a single-column term also shows its odds ratio per unit (above 1: risk shifts towards higher levels). "
                if link == "logit" else "")
             + "A spline, a categorical predictor or an interaction has several coefficients that are read together, "
             "not one by one: its effect over stated values and its joint test are in the next two tables."
         ),
-        "effects": effects_sentence(link),
+        "effects": effects_sentence(link, interval_kind=fit_interval_kind),
+        "estimation": estimation_sentence(fit, selection),
+        "separation": separation_sentence(separated_terms, refit=getattr(selection, "refit_with_firth", False),
+                                          firth=getattr(fit, "estimation", "") == "firth"),
         "term_tests": (
             "Joint Wald test of each term: all its coefficients zero together (chi-square on as many degrees of freedom "
             "as the term has coefficients). A spline's test asks whether the predictor matters at all, not whether it is curved."
@@ -120,8 +131,12 @@ def derivation_texts(
         epp = smallest_level / max(n_candidate_parameters, 1)
         if epp < LOW_EVENTS_PER_PARAMETER:
             summary_parts.append(f"Events per candidate parameter are low ({epp:.1f}, below {LOW_EVENTS_PER_PARAMETER}).")
-    if getattr(selection, "method", "none") != "none":
-        summary_parts.append("Its p-values and Wald intervals ignore the variable selection and are too optimistic.")
+    if separated_terms:
+        summary_parts.append(f"The data are separated by {', '.join(separated_terms)}; the model was fitted by Firth's method.")
+    if getattr(selection, "method", "none") in PENALIZED_WORDS:
+        summary_parts.append(f"The coefficients were shrunk by a {PENALIZED_WORDS[selection.method]} penalty tuned by cross-validation.")
+    elif getattr(selection, "method", "none") != "none":
+        summary_parts.append("Its p-values and intervals ignore the variable selection and are too optimistic.")
     texts["summary"] = " ".join(summary_parts)
     if calibration is not None:
         texts["hosmer_lemeshow"] = hosmer_lemeshow_sentence(calibration, n_levels=K)
@@ -140,6 +155,12 @@ def post_selection_sentence(selection: Any) -> str:
     recommendations for the practicing statistician. Biometrical Journal
     2018;60(3):431–449.
     """
+    if getattr(selection, "method", "none") in PENALIZED_WORDS:
+        return (
+            f"The coefficients are {PENALIZED_WORDS[selection.method]} estimates: shrunk towards zero by a penalty chosen on these "
+            "same data. Penalised estimates have no valid standard errors, z statistics or p-values, so none are shown; how "
+            "stable the chosen penalty and the calibration slope are over bootstrap replicates is on the internal-validation page."
+        )
     if getattr(selection, "method", "none") == "none":
         return (
             "No variable selection was done, so the z statistics, p-values and Wald intervals are those of the "
@@ -210,12 +231,12 @@ def hosmer_lemeshow_sentence(calibration: Any, *, n_levels: int) -> str:
     )
 
 
-def effects_sentence(link: str) -> str:
+def effects_sentence(link: str, *, interval_kind: str = "Wald") -> str:
     """How to read the table of term effects over stated contrasts."""
     effect = "odds ratio of a higher outcome level" if link == "logit" else "change in the linear predictor"
+    with_interval = "" if interval_kind == "none" else f", with its {interval_words('wald')}"
     return (
-        f"The effect of each term as the {effect} between two stated values of its predictor, with its "
-        f"{interval_words('wald')}: for a numeric predictor the 75th against the 25th percentile of the derivation data "
+        f"The effect of each term as the {effect} between two stated values of its predictor{with_interval}: for a numeric predictor the 75th against the 25th percentile of the derivation data "
         "(the same contrast for every numeric predictor, so their effects can be compared), for a categorical one each "
         "level against the reference. Predictors that interact with it are held at the stated values; all others do not "
         "change the effect. Like the coefficients, these intervals ignore the variable selection."
@@ -233,7 +254,91 @@ def selection_sentence(selection: Any) -> str:
         )
     if selection.method == "backward":
         return f"Backward elimination by AIC kept: {chosen}."
+    if selection.method in PENALIZED_WORDS and getattr(selection, "penalty", None) is not None:
+        pen = selection.penalty
+        dropped = "" if selection.method == "ridge" else " A term whose coefficients the penalty set to zero is left out; a multi-column term is penalised as a group, so it enters or leaves whole."
+        return (
+            f"{PENALIZED_WORDS[selection.method].capitalize()} regression on every candidate term, the penalty chosen by "
+            f"{selection.n_folds}-fold cross-validated log-likelihood on standardised columns (penalty {pen.alpha:.4g}); "
+            f"coefficients are reported on the original scale.{dropped} The model keeps: {chosen}. The bootstrap repeats the "
+            "tuning in every replicate."
+        )
     return f"No selection: the pre-specified model with {chosen}."
+
+
+#: The penalised selection methods in words.
+PENALIZED_WORDS = {"ridge": "ridge", "lasso": "lasso", "elastic_net": "elastic-net"}
+
+
+def coefficient_interval_words(interval_kind: str) -> str:
+    """How each row of the coefficient table is qualified, by the kind of its interval."""
+    if interval_kind == "none":
+        return "Each row is one coefficient; penalised estimates have no standard errors or intervals. "
+    kind = "profile_penalised" if interval_kind == "profile penalised likelihood" else "wald"
+    return f"Each row is one coefficient with its {interval_words(kind)}; "
+
+
+def estimation_sentence(fit: Any, selection: Any) -> str:
+    """How the final model's coefficients were estimated, with the sources.
+
+    References
+    ----------
+    Firth D. Bias reduction of maximum likelihood estimates. Biometrika
+    1993;80(1):27–38.
+
+    Heinze G, Schemper M. A solution to the problem of separation in logistic
+    regression. Statistics in Medicine 2002;21(16):2409–2419.
+
+    Van Calster B, van Smeden M, De Cock B, Steyerberg EW. Regression
+    shrinkage methods for clinical prediction models do not guarantee
+    improved performance: simulation study. Statistical Methods in Medical
+    Research 2020;29(11):3166–3178.
+
+    Riley RD, Snell KIE, Martin GP, et al. Penalization and shrinkage methods
+    produced unreliable clinical prediction models especially when sample
+    size was small. Journal of Clinical Epidemiology 2021;132:88–96.
+    """
+    estimation = getattr(fit, "estimation", "maximum likelihood")
+    if estimation == "firth":
+        intervals = ("profile penalised-likelihood intervals" if getattr(fit, "interval_kind", "") == "profile penalised likelihood"
+                     else "Wald intervals from the inverse information")
+        return (
+            "The coefficients are Firth's bias-reduced estimates: the likelihood penalised by half the log-determinant of the "
+            "information (Firth, Biometrika 1993), which removes the first-order small-sample bias and stays finite when the "
+            f"data are separated (Heinze & Schemper, Statistics in Medicine 2002). The intervals are {intervals}. "
+            "Firth's predictions are pulled slightly towards one half; the calibration-in-the-large on the derivation data is "
+            "then close to, not exactly, zero."
+        )
+    if estimation == "penalized":
+        return (
+            "The coefficients are penalised estimates, so they are biased towards zero on purpose, to offset overfitting. "
+            "Caution: a penalty tuned on small data is itself unstable, and shrinkage chosen this way does not guarantee "
+            "better-calibrated predictions in new data (Van Calster et al., Statistical Methods in Medical Research 2020; "
+            "Riley et al., Journal of Clinical Epidemiology 2021); the internal-validation page shows how much the chosen "
+            "penalty and the calibration slope vary over bootstrap replicates."
+        )
+    return "The coefficients are maximum-likelihood estimates."
+
+
+def separation_sentence(terms: Sequence[str], *, refit: bool, firth: bool) -> str:
+    """Whether the derivation data are separated, by which terms, and what was done about it.
+
+    References
+    ----------
+    Albert A, Anderson JA. On the existence of maximum likelihood estimates in
+    logistic regression models. Biometrika 1984;71(1):1–10.
+    """
+    if not terms:
+        return ("The separation check (a linear programme after the fit) found no term whose coefficients could grow "
+                "without bound: the estimates exist.")
+    named = ", ".join(terms)
+    head = (f"The derivation data are separated by {named}: some combination of its values predicts part of the outcome "
+            "perfectly, so the maximum-likelihood estimates would be infinite (Albert & Anderson, Biometrika 1984).")
+    if refit:
+        return head + " As the study asks (model.on_separation: firth), the chosen model was refitted by Firth's method, whose estimates are finite."
+    if firth:
+        return head + " The model is fitted by Firth's method, whose estimates are finite."
+    return head
 
 
 def proportional_odds_sentence(po: Mapping[str, Any]) -> str:
