@@ -74,9 +74,18 @@ from ._checks import (
     _z,
 )
 from .decision import _proportion_interval
-from ..errors import RiskvetError, RiskvetWarning, problem
+from ..errors import FitError, RiskvetError, RiskvetWarning, problem
 
-__all__ = ["CalibrationResult", "OrdinalCalibration", "MergedGroups", "calibration", "ordinal_calibration", "merge_groups", "merge_bins"]
+__all__ = [
+    "CalibrationResult",
+    "OrdinalCalibration",
+    "MergedGroups",
+    "calibration",
+    "ordinal_calibration",
+    "merge_groups",
+    "merge_bins",
+    "SLOPE_UNDEFINED_CONSTANT",
+]
 
 #: Predictions are clipped to [_EPS, 1 - _EPS] before taking logits.
 _EPS = 1e-10
@@ -94,6 +103,26 @@ _N_HIST_BINS = 40
 # ---------------------------------------------------------------------------
 
 
+#: Logits whose spread is at most this share of their size (at least 1) count as constant:
+#: predictions of one value, computed through exp and log, differ by rounding
+#: (about 1e-15 relative); 1e-8 leaves a wide margin above it and far below
+#: any spread a model with a predictor gives (common practice for a tolerance).
+_CONSTANT_LP = 1e-8
+
+#: Why the calibration slope is NaN when every prediction is the same.
+SLOPE_UNDEFINED_CONSTANT = (
+    "the predictions are constant (a model with no predictors): a calibration slope needs predictions that vary"
+)
+
+
+def _is_constant(lp: np.ndarray) -> bool:
+    """Whether the values of ``lp`` are one value up to rounding (see ``_CONSTANT_LP``)."""
+    if lp.size == 0:
+        return True
+    scale = max(1.0, float(np.max(np.abs(lp))))
+    return float(np.ptp(lp)) <= _CONSTANT_LP * scale
+
+
 @dataclass(frozen=True)
 class _Recalibration:
     citl: float
@@ -103,6 +132,7 @@ class _Recalibration:
     intercept_se: float
     slope_se: float
     notes: tuple[str, ...]
+    slope_undefined: str = ""
 
 
 def _recalibrate(y: np.ndarray, lp: np.ndarray) -> _Recalibration:
@@ -112,12 +142,27 @@ def _recalibrate(y: np.ndarray, lp: np.ndarray) -> _Recalibration:
     - offset), so P(Y = 1) = expit(-theta + x beta + offset): the intercept of
     the recalibration model is -theta, with the same SE.  Trouble met by the
     fitter (separation, non-convergence) is warned by it and recorded here.
+    With constant ``lp`` (a model without predictors) the slope regression
+    has nothing to regress on: slope and its intercept are NaN and
+    ``slope_undefined`` says why; so too when that fit cannot be made.
+    Calibration-in-the-large is defined either way.
     """
     from ..modelling.fitter import fit_cumulative  # deferred: keeps importing the metrics light
 
     large = fit_cumulative(None, y, offset=lp)
-    slope = fit_cumulative(lp[:, None], y)
-    notes = tuple(f"calibration-in-the-large fit: {m}" for m in large.warnings) + tuple(f"calibration slope fit: {m}" for m in slope.warnings)
+    notes = tuple(f"calibration-in-the-large fit: {m}" for m in large.warnings)
+    nan = float("nan")
+    undefined = SLOPE_UNDEFINED_CONSTANT if _is_constant(lp) else ""
+    slope = None
+    if not undefined:
+        try:
+            slope = fit_cumulative(lp[:, None], y)
+        except FitError as exc:
+            first = (str(exc).splitlines() or [""])[0][:300]
+            undefined = f"the calibration slope regression cannot be fitted: {first}"
+    if slope is None:
+        return _Recalibration(citl=float(-large.thresholds.iloc[0]), citl_se=float(large.se.iloc[0]), intercept=nan,
+                              slope=nan, intercept_se=nan, slope_se=nan, notes=notes, slope_undefined=undefined)
     return _Recalibration(
         citl=float(-large.thresholds.iloc[0]),
         citl_se=float(large.se.iloc[0]),
@@ -125,7 +170,7 @@ def _recalibrate(y: np.ndarray, lp: np.ndarray) -> _Recalibration:
         slope=float(slope.coef.iloc[0]),
         intercept_se=float(slope.se.iloc[0]),
         slope_se=float(slope.se.iloc[1]),
-        notes=notes,
+        notes=notes + tuple(f"calibration slope fit: {m}" for m in slope.warnings),
     )
 
 
@@ -371,6 +416,11 @@ class CalibrationResult:
         For an ordered outcome, the cut j (event Y > j).
     warnings : tuple of str
         Statistical warnings met (also issued as warnings).
+    slope_undefined : str
+        Why ``slope``, its SE, limits and ``slope_intercept`` are NaN: the
+        predictions are constant (:data:`SLOPE_UNDEFINED_CONSTANT`, a model
+        with no predictors; every other field is still computed), or the
+        slope regression cannot be fitted.  Empty when the slope is defined.
     """
 
     calibration_in_the_large: float
@@ -419,13 +469,17 @@ class CalibrationResult:
     n_events: int
     cut: int | None
     warnings: tuple[str, ...]
+    slope_undefined: str = ""
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready dict of the fields."""
         return _fields_dict(self)
 
     def to_frame(self) -> pd.DataFrame:
-        """Tidy summary: measure, estimate, se, lower, upper (one row per measure)."""
+        """Tidy summary: measure, estimate, se, lower, upper (one row per measure).
+
+        A slope that is undefined (``slope_undefined``) is a row of NaN.
+        """
         nan = float("nan")
         rows = [
             ("calibration_in_the_large", self.calibration_in_the_large, self.calibration_in_the_large_se, self.calibration_in_the_large_lower, self.calibration_in_the_large_upper),
@@ -692,6 +746,7 @@ def _calibration_one(
         n_events=int(events),
         cut=cut,
         warnings=tuple(notes),
+        slope_undefined=rec.slope_undefined,
     )
 
 
@@ -763,6 +818,12 @@ def calibration(
     (q = 2, frac = 0.75, no robustness iterations) are the local-regression
     settings behind the published ICI (Austin & Steyerberg 2019, as recalled
     from memory); q = 1 is the local linear smoother.
+
+    Constant predictions p (a model with no predictors) are a valid input:
+    logit p has no spread, so the slope b is undefined and returned as NaN
+    with ``slope_undefined`` saying why; calibration-in-the-large is then
+    logit(ybar) - logit(p), O/E = ybar / p and the smoothed curve is the
+    mean outcome, so ICI = |ybar - p|.
 
     Hosmer–Lemeshow: C = sum_g (O_g - E_g)^2 / (E_g (1 - E_g / n_g)) over
     quantile groups of prob, referred to chi-square with g - 2 df on

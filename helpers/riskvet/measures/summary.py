@@ -78,6 +78,11 @@ def performance_summary(y: Any, prob: Any) -> dict[str, float]:
         ``calibration_intercept_cut{j}``, ``calibration_slope_cut{j}``, ``ici_cut{j}``
             Calibration-in-the-large, calibration slope and ICI of cut j, as
             in :func:`calibration` with its default smoother (local quadratic, frac = 0.75).
+            The slope is NaN when the cut's predictions are constant (a
+            model with no predictors; why is
+            :data:`riskvet.measures.calibration.SLOPE_UNDEFINED_CONSTANT`)
+            or its regression cannot be fitted; every other value is
+            computed (C = 0.5 for constant predictions).
         ``n_fit_warnings``
             Number of warnings the recalibration fits met (separation,
             non-convergence); the warnings themselves are issued as usual.

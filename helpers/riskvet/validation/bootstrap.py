@@ -18,10 +18,13 @@ is identical, bit for bit, whether the replicates run in one process, in
 worker runs with one BLAS thread.
 
 Replicates that fail (an outcome level absent from the resample, a fit that
-does not converge or meets separation, a design the resample cannot support)
-are counted and listed with their reason; none is silently dropped, and the
-run stops with a :class:`~riskvet.errors.RiskvetError` when more than the
-study's ``internal_validation.max_failed_share`` fail.
+does not converge or meets separation, a design the resample cannot support,
+or any other error met inside the replicate) are counted and listed with
+their reason; none is silently dropped and none stops the run, which stops
+with a :class:`~riskvet.errors.RiskvetError` only when more than the study's
+``internal_validation.max_failed_share`` fail.  Estimates that cannot be read
+(few patients on one side of a cut, replicate values spread too widely) are
+computed and flagged ``unstable`` with the reason.
 """
 
 from __future__ import annotations
@@ -44,11 +47,12 @@ import numpy as np
 import pandas as pd
 
 from .._jsonable import to_jsonable
-from ..errors import DataError, DesignError, FitError, RiskvetError, RiskvetWarning, problem
+from ..errors import DataError, DesignError, FitError, RiskvetError, RiskvetWarning, StudyError, problem
 
 __all__ = [
     "MeasureEstimate",
     "ReplicateFailure",
+    "ReplicateSpread",
     "SelectionStability",
     "ShrinkageEstimate",
     "InternalValidation",
@@ -57,6 +61,9 @@ __all__ = [
     "heuristic_shrinkage",
     "shrink_model",
     "write_shrunken_model",
+    "MIN_CUT_EVENTS",
+    "UNSTABLE_SPREAD",
+    "MIN_DEFINED_SHARE",
 ]
 
 #: Probabilities are floored here before taking logs (per-row log-likelihood pieces).
@@ -65,6 +72,32 @@ _LOG_FLOOR = 1e-15
 _SEED_CEILING = 2**31 - 1
 #: Weight of the out-of-bag estimate in the .632 estimator (1 - 1/e, rounded as published).
 _W632 = 0.632
+
+#: Fewest patients on the smaller side of a cut of an ordered outcome (events
+#: or non-events) for that cut's own measures to be read.  The replicate
+#: models are measured on the original data, which play the part of a
+#: validation sample for them, and at least 100 events and 100 non-events is
+#: the minimum given for validating a model's performance (Vergouwe et al.
+#: 2005; Collins, Ogundimu & Altman 2016).  It applies to the per-cut measures
+#: of an ordered outcome (a rare level's cut) only: a binary outcome's
+#: measures are the model's headline and keep their value, flagged by the
+#: spread rule below when the replicates cannot pin them down.
+MIN_CUT_EVENTS = 100
+
+#: Width of the central 95% of a measure's replicate values on the original
+#: data beyond which its corrected value is flagged unstable, by kind (common
+#: practice; the widths are this package's choice): a calibration slope
+#: spread over more than 1 (say 0.5 to 1.5) runs from strong overfitting to
+#: underfitting, so the correction cannot say which; calibration-in-the-large
+#: spread over more than 2 on the logit scale is a factor above e^2 (7.4) in
+#: the odds of the mean risk; a C statistic spread over more than 0.25 covers
+#: half of the range 0.5 to 1 on which C is read.
+UNSTABLE_SPREAD: dict[str, float] = {"slope": 1.0, "intercept": 2.0, "concordance": 0.25}
+
+#: A measure defined in fewer than this share of the successful replicates is
+#: flagged unstable: the optimism then rests on a selected minority of them
+#: (common practice).
+MIN_DEFINED_SHARE = 0.5
 
 
 # ---------------------------------------------------------------------------
@@ -133,10 +166,16 @@ def _measure_specs(levels: Sequence[str]) -> list[tuple[str, str, str]]:
 
 
 def _lp_slope(y: np.ndarray, lp: np.ndarray | None, K: int, link: str) -> float:
-    """Slope b of the cumulative model P(Y <= j) = F(a_j - b LP) on the given data."""
+    """Slope b of the cumulative model P(Y <= j) = F(a_j - b LP) on the given data.
+
+    NaN when the linear predictor is constant (a model with no predictors:
+    the slope is undefined, see :data:`riskvet.measures.calibration.SLOPE_UNDEFINED_CONSTANT`)
+    or the fit does not converge or meets separation.
+    """
+    from ..measures.calibration import _is_constant
     from ..modelling.fitter import fit_cumulative
 
-    if lp is None or lp.ndim != 1 or np.ptp(lp) <= 0:
+    if lp is None or lp.ndim != 1 or _is_constant(lp):
         return float("nan")
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RiskvetWarning)
@@ -309,6 +348,21 @@ class MeasureEstimate:
     n_oob : int
         Replicates with an out-of-bag value (for replicate-averaged Err(1)),
         or rows out of bag at least once (for the per-row Brier and R2).
+    smaller_side : int or None
+        For a measure of one cut (and every measure of a binary outcome but
+        the overall ones): patients on the smaller side of the cut in the
+        derivation data, min(events, non-events); None otherwise.
+    unstable : bool
+        The corrected value is computed but not to be read as an estimate:
+        fewer than :data:`MIN_CUT_EVENTS` patients on the smaller side of its
+        cut, a central-95% spread of its replicate values on the original
+        data wider than :data:`UNSTABLE_SPREAD` for its kind, or a value in
+        fewer than :data:`MIN_DEFINED_SHARE` of the successful replicates.
+    unstable_reason : str
+        Every rule met, in words, joined by "; "; empty when stable.
+    undefined_reason : str
+        Why the apparent or corrected value is NaN (for example a model with
+        no predictors, whose calibration slope is undefined); empty otherwise.
     """
 
     measure: str
@@ -332,9 +386,72 @@ class MeasureEstimate:
     test_upper: float
     n_replicates: int
     n_oob: int
+    smaller_side: int | None = None
+    unstable: bool = False
+    unstable_reason: str = ""
+    undefined_reason: str = ""
 
     def to_dict(self) -> dict[str, Any]:
         return to_jsonable({f: getattr(self, f) for f in self.__dataclass_fields__})
+
+
+@dataclass(frozen=True)
+class ReplicateSpread:
+    """How one quantity the derivation procedure produces varies across the bootstrap replicates.
+
+    Attributes
+    ----------
+    quantity : str
+        ``penalty_alpha`` (the penalty weight a penalised derivation chose)
+        or ``calibration_slope`` (the slope of each replicate model's linear
+        predictor on the original data, the bootstrap shrinkage factor).
+    label : str
+        The quantity in words.
+    apparent : float
+        Its value for the derivation on all data (the apparent calibration
+        slope; the penalty chosen on all data).
+    median, lower, upper : float
+        Median and 2.5 / 97.5 percentiles (the central 95%; numpy's linear
+        interpolation) of the finite replicate values.
+    n_replicates : int
+        Replicates with a finite value.
+    values : tuple of float
+        Every successful replicate's value, in replicate order (NaN where
+        it has none).
+    """
+
+    quantity: str
+    label: str
+    apparent: float
+    median: float
+    lower: float
+    upper: float
+    n_replicates: int
+    values: tuple[float, ...] = field(default=(), repr=False)
+
+    def to_dict(self) -> dict[str, Any]:
+        return to_jsonable({f: getattr(self, f) for f in self.__dataclass_fields__})
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row: quantity, label, apparent, median, lower, upper, n_replicates."""
+        columns = ["quantity", "label", "apparent", "median", "lower", "upper", "n_replicates"]
+        return pd.DataFrame([{c: getattr(self, c) for c in columns}], columns=columns)
+
+
+def _replicate_spread(quantity: str, label: str, apparent: float | None, values: Sequence[float | None]) -> ReplicateSpread:
+    """Median and central 95% of the finite ``values`` (NaN when there are none)."""
+    v = np.asarray([np.nan if x is None else float(x) for x in values], dtype=float)
+    finite = v[np.isfinite(v)]
+    tail = 100.0 * (1.0 - _SPREAD_SHARE) / 2.0
+    if finite.size:
+        median = float(np.median(finite))
+        lo, hi = (float(x) for x in np.percentile(finite, [tail, 100.0 - tail]))
+    else:
+        median = lo = hi = float("nan")
+    return ReplicateSpread(
+        quantity=quantity, label=label, apparent=float("nan") if apparent is None else float(apparent),
+        median=median, lower=lo, upper=hi, n_replicates=int(finite.size), values=tuple(float(x) for x in v),
+    )
 
 
 @dataclass(frozen=True)
@@ -346,11 +463,15 @@ class ReplicateFailure:
     replicate : int
         Replicate number 0 .. n_boot-1.
     reason : str
-        ``empty outcome level``, ``non-convergence``, ``separation``,
-        ``fit error``, ``design error``, ``data error``, ``numerical error``
-        or ``cannot predict original data``.
+        ``empty outcome level``, ``non-convergence``, ``separation`` (not
+        for a Firth fit, which is finite under separation), ``cannot predict
+        original data``, or the kind of error met: ``fit error``, ``design
+        error``, ``data error``, ``study error``, ``input error``,
+        ``numerical error``, ``arithmetic error``, ``lookup error``, ``type
+        error``, ``value error``, ``recursion error``, ``unexpected error``.
     message : str
-        The error message or detail.
+        The first line of the error message (with where it was met, for an
+        error the package did not expect), or the detail.
     """
 
     replicate: int
@@ -540,6 +661,14 @@ class InternalValidation:
         ``out_of_bag``) and ``value``.
     selection_seeds : tuple of int
         The selection seed each replicate used.
+    slope_spread : ReplicateSpread or None
+        The replicate models' calibration slopes on the original data (the
+        values behind ``shrinkage.bootstrap``): apparent slope, median and
+        central 95%.
+    penalty_spread : ReplicateSpread or None
+        For a penalised derivation (``fit.estimation == "penalized"``), the
+        penalty weight alpha chosen on all data and in each replicate; None
+        otherwise.
     """
 
     estimates: tuple[MeasureEstimate, ...]
@@ -557,6 +686,8 @@ class InternalValidation:
     apparent_warnings: tuple[str, ...]
     replicate_values: pd.DataFrame = field(repr=False)
     selection_seeds: tuple[int, ...] = field(repr=False)
+    slope_spread: ReplicateSpread | None = None
+    penalty_spread: ReplicateSpread | None = None
 
     @property
     def n_failed(self) -> int:
@@ -581,8 +712,14 @@ class InternalValidation:
         return rows["value"].to_numpy(dtype=float)
 
     def to_frame(self) -> pd.DataFrame:
-        """One row per measure with every estimate."""
+        """One row per measure with every estimate (with ``unstable``, ``unstable_reason``, ``undefined_reason``)."""
         return pd.DataFrame([dataclasses.asdict(e) for e in self.estimates])  # NaN kept (to_dict makes it None)
+
+    def spreads_frame(self) -> pd.DataFrame:
+        """The replicate spreads of the calibration slope and (penalised derivations) the chosen penalty."""
+        parts = [s.to_frame() for s in (self.slope_spread, self.penalty_spread) if s is not None]
+        columns = ["quantity", "label", "apparent", "median", "lower", "upper", "n_replicates"]
+        return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=columns)
 
     def failures_frame(self) -> pd.DataFrame:
         """Failed replicates: replicate, reason, message."""
@@ -615,6 +752,8 @@ class InternalValidation:
                 "apparent_warnings": self.apparent_warnings,
                 "selection_seeds": self.selection_seeds,
                 "replicate_values": values,
+                "slope_spread": self.slope_spread.to_dict() if self.slope_spread is not None else None,
+                "penalty_spread": self.penalty_spread.to_dict() if self.penalty_spread is not None else None,
             }
         )
 
@@ -1051,16 +1190,44 @@ class _Payload:
     link: str
 
 
-def _failure_reason(exc: Exception) -> str:
-    if isinstance(exc, FitError):
-        return "fit error"
-    if isinstance(exc, DesignError):
-        return "design error"
-    if isinstance(exc, DataError):
-        return "data error"
-    if isinstance(exc, np.linalg.LinAlgError):
-        return "numerical error"
-    return "error"
+#: Reason of a failed replicate by the kind of error met, most specific kind first.
+#: The names are stable: records, pages and tests read them.
+_REASONS: tuple[tuple[type[BaseException], str], ...] = (
+    (FitError, "fit error"),
+    (DesignError, "design error"),
+    (DataError, "data error"),
+    (StudyError, "study error"),
+    (RiskvetError, "input error"),
+    (np.linalg.LinAlgError, "numerical error"),
+    (ArithmeticError, "arithmetic error"),  # division by zero, overflow, floating-point trouble
+    (LookupError, "lookup error"),  # an index or key that does not exist
+    (TypeError, "type error"),
+    (ValueError, "value error"),
+    (RecursionError, "recursion error"),
+)
+
+#: Errors that are never a replicate's failure: they stop the whole run.
+#: (KeyboardInterrupt and SystemExit are not Exceptions, so no handler here catches them.)
+_PROPAGATE: tuple[type[BaseException], ...] = (MemoryError,)
+
+
+def _failure_reason(exc: BaseException) -> str:
+    """The stable reason name of a replicate that met ``exc`` (``unexpected error`` for any other kind)."""
+    for kind, reason in _REASONS:
+        if isinstance(exc, kind):
+            return reason
+    return "unexpected error"
+
+
+def _failure_message(exc: BaseException, where: str = "") -> str:
+    """The first line of the error's message (at most 300 characters), after ``where`` when given.
+
+    The message is kept without the error's class name, so that it reads as
+    words on a page; the reason (:func:`_failure_reason`) names the kind.
+    """
+    lines = str(exc).strip().splitlines()
+    first = lines[0][:300] if lines else f"an {_failure_reason(exc)} without a message"
+    return f"{where}: {first}" if where else first
 
 
 def _fit_and_predict(study, frame_fit: pd.DataFrame, y_fit: np.ndarray, frame_new: pd.DataFrame, seed: int, K: int,
@@ -1082,8 +1249,12 @@ def _fit_and_predict(study, frame_fit: pd.DataFrame, y_fit: np.ndarray, frame_ne
         warnings.simplefilter("always")
         try:
             derivation = derive(study, frame_fit, y_fit, seed=seed, weights=weights)
+        except _PROPAGATE:
+            raise
         except (RiskvetError, np.linalg.LinAlgError) as exc:
-            raise _ReplicateFailed(_failure_reason(exc), str(exc).splitlines()[0][:300]) from None
+            raise _ReplicateFailed(_failure_reason(exc), _failure_message(exc)) from None
+        except Exception as exc:  # any other error of the procedure is this replicate's failure, not the run's
+            raise _ReplicateFailed(_failure_reason(exc), _failure_message(exc, "deriving the model")) from None
     for w in seen:
         caught[w.category.__name__] += 1
     fit = derivation.fit
@@ -1093,12 +1264,17 @@ def _fit_and_predict(study, frame_fit: pd.DataFrame, y_fit: np.ndarray, frame_ne
             why = ("the likelihood could not be improved from its starting values" if fit.iterations == 0
                    else f"no convergence after {fit.iterations} Newton iterations")
         raise _ReplicateFailed("non-convergence", f"the model derived on this resample did not converge: {why}")
-    if fit.separation:
+    # A Firth fit stays finite under separation (Heinze & Schemper 2002), so it is a model like any other.
+    if fit.separation and getattr(fit, "estimation", "maximum likelihood") != "firth":
         raise _ReplicateFailed("separation", f"separated by {list(fit.separation)}")
     try:
         prob, lp = _predict(derivation, frame_new)
+    except _PROPAGATE:
+        raise
     except RiskvetError as exc:
-        raise _ReplicateFailed("cannot predict original data", str(exc).splitlines()[0][:300]) from None
+        raise _ReplicateFailed("cannot predict original data", _failure_message(exc)) from None
+    except Exception as exc:
+        raise _ReplicateFailed(_failure_reason(exc), _failure_message(exc, "predicting with the derived model")) from None
     return derivation, prob, lp, caught
 
 
@@ -1129,23 +1305,45 @@ class _ReplicateFailed(Exception):
         self.message = message
 
 
+def _chosen_penalty(fit) -> float | None:
+    """The penalty weight alpha a penalised fit chose, or None for any other estimation."""
+    if getattr(fit, "estimation", None) != "penalized":
+        return None
+    penalty = getattr(fit, "penalty", None)
+    alpha = penalty.get("alpha") if isinstance(penalty, dict) else None
+    return float(alpha) if alpha is not None else float("nan")
+
+
 def _replicate(payload: _Payload, item: tuple[int, np.random.SeedSequence]) -> dict[str, Any]:
-    """One bootstrap replicate of the whole derivation procedure."""
+    """One bootstrap replicate of the whole derivation procedure.
+
+    Every error met on the way (other than those in ``_PROPAGATE`` and the
+    interrupts) makes the replicate a counted failure with its reason.
+    """
     i, child = item
-    n = len(payload.frame)
-    idx, sel_seed = _draw(child, n)
+    idx, sel_seed = _draw(child, len(payload.frame))
     record: dict[str, Any] = {"replicate": i, "selection_seed": sel_seed}
+    try:
+        record.update(_replicate_values(payload, idx, sel_seed))
+    except _ReplicateFailed as exc:
+        record.update(status="failed", reason=exc.reason, message=exc.message)
+    except _PROPAGATE:
+        raise
+    except Exception as exc:
+        record.update(status="failed", reason=_failure_reason(exc), message=_failure_message(exc, "measuring the replicate model"))
+    return record
+
+
+def _replicate_values(payload: _Payload, idx: np.ndarray, sel_seed: int) -> dict[str, Any]:
+    """The derivation on resample ``idx`` and its measures on the resample, the original data and out of bag."""
+    n = len(payload.frame)
     # the resample as counts: each drawn person is one weighted row, so the
     # selection's cross-validation never splits a person's copies over folds
     counts = np.bincount(idx, minlength=n)
     y_b = payload.y[idx]
-    try:
-        derivation, prob, lp, caught = _fit_and_predict(
-            payload.study, payload.frame, payload.y, payload.frame, sel_seed, payload.K, weights=counts
-        )
-    except _ReplicateFailed as exc:
-        record.update(status="failed", reason=exc.reason, message=exc.message)
-        return record
+    derivation, prob, lp, caught = _fit_and_predict(
+        payload.study, payload.frame, payload.y, payload.frame, sel_seed, payload.K, weights=counts
+    )
     y = payload.y
     lp_b = lp[idx] if lp.ndim == 1 else None
     boot, w1 = _measures(y_b, prob[idx], lp_b, K=payload.K, link=payload.link)
@@ -1160,7 +1358,7 @@ def _replicate(payload: _Payload, item: tuple[int, np.random.SeedSequence]) -> d
     brier_row, logp_row = _row_pieces(y[oob_rows], prob[oob_rows])
     for c in (w1, w2, w3):
         caught.update({f"measure:{k}": v for k, v in c.items()})
-    record.update(
+    return dict(
         status="ok",
         terms=derivation.terms,
         boot=boot,
@@ -1170,8 +1368,8 @@ def _replicate(payload: _Payload, item: tuple[int, np.random.SeedSequence]) -> d
         brier_oob=brier_row,
         logp_oob=logp_row,
         warnings=dict(caught),
+        penalty_alpha=_chosen_penalty(derivation.fit),
     )
-    return record
 
 
 # ---------------------------------------------------------------------------
@@ -1292,7 +1490,21 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
       model's df for comparison);
     * spread: the SD and the 2.5 / 97.5 percentiles of the replicate
       values, i.e. their central 95% (there is no confidence setting for
-      it).
+      it); ``slope_spread`` and, for a penalised derivation,
+      ``penalty_spread`` give the median and central 95% of the replicate
+      calibration slopes and of the chosen penalty weights;
+    * stability: an estimate is flagged ``unstable`` (still computed) when
+      the smaller side of its cut holds fewer than :data:`MIN_CUT_EVENTS`
+      patients (Vergouwe et al. 2005; Collins, Ogundimu & Altman 2016),
+      when the central 95% of its replicate values on the original data is
+      wider than :data:`UNSTABLE_SPREAD` for its kind, or when it is defined
+      in fewer than :data:`MIN_DEFINED_SHARE` of the successful replicates
+      (both common practice);
+    * failures: any error met inside a replicate (other than running out of
+      memory or an interrupt) makes it a failed replicate with its reason,
+      never a crash of the run; a derived fit with separation fails unless
+      it is a Firth fit.  A model with no predictors is a valid result: its
+      calibration slopes are NaN with ``undefined_reason`` saying why.
 
     References
     ----------
@@ -1312,6 +1524,15 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
        models. Statistics in Medicine 1990;9(11):1303-1325.
     .. [6] Cox DR. Two further applications of a model for binary
        regression. Biometrika 1958;45(3-4):562-565.
+    .. [7] Vergouwe Y, Steyerberg EW, Eijkemans MJC, Habbema JDF.
+       Substantial effective sample sizes were required for external
+       validation studies of predictive logistic regression models. Journal
+       of Clinical Epidemiology 2005;58(5):475-483.
+    .. [8] Collins GS, Ogundimu EO, Altman DG. Sample size considerations for
+       the external validation of a multivariable prognostic model: a
+       resampling study. Statistics in Medicine 2016;35(2):214-226.
+    .. [9] Heinze G, Schemper M. A solution to the problem of separation in
+       logistic regression. Statistics in Medicine 2002;21(16):2409-2419.
     """
     func = "validate_internally"
     study = _check_study(study, func)
@@ -1341,8 +1562,15 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
 
     arrays = {s: {k: np.asarray(v, dtype=float) for k, v in d.items()} for s, d in tally.values.items()}
     estimates = _measure_estimates(specs, arrays, tally, apparent, y, prob, K=K)
-    shrinkage = _shrinkage(arrays["original"], study, apparent_derivation, proportional_lp=lp.ndim == 1, K=K, link=link)
+    estimates = _with_flags(estimates, y, K=K, n_succeeded=len(tally.ok_ids), constant_lp=_constant_lp(lp))
+    slopes, source = _shrinkage_slopes(arrays["original"], proportional_lp=lp.ndim == 1, K=K, link=link)
+    shrinkage = _shrinkage(slopes, source, study, apparent_derivation, K=K)
     stability = _selection_stability(study, apparent_derivation, tally.terms)
+    slope_spread = _replicate_spread("calibration_slope", "Calibration slope of the replicate models on the original data",
+                                     _apparent_slope(apparent, K=K, proportional_lp=lp.ndim == 1), slopes)
+    apparent_alpha = _chosen_penalty(apparent_derivation.fit)
+    penalty_spread = (None if apparent_alpha is None else
+                      _replicate_spread("penalty_alpha", "Penalty weight chosen by the derivation procedure", apparent_alpha, tally.penalties))
 
     return InternalValidation(
         estimates=tuple(estimates),
@@ -1360,6 +1588,8 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
         apparent_warnings=apparent_warnings,
         replicate_values=_replicate_table(arrays, tally.ok_ids, keys),
         selection_seeds=tuple(tally.seeds),
+        slope_spread=slope_spread,
+        penalty_spread=penalty_spread,
     )
 
 
@@ -1393,7 +1623,8 @@ class _Tally:
     maps sample (``bootstrap``, ``original``, ``out_of_bag``) to measure key
     to the successful replicates' values; ``brier_sum``,
     ``logp_sum`` and ``oob_count`` are per original row, summed over the
-    replicates that left the row out.
+    replicates that left the row out; ``penalties`` holds the penalty weight
+    each successful replicate chose (None unless its fit was penalised).
     """
 
     failures: tuple[ReplicateFailure, ...]
@@ -1405,6 +1636,7 @@ class _Tally:
     brier_sum: np.ndarray
     logp_sum: np.ndarray
     oob_count: np.ndarray
+    penalties: tuple[float | None, ...] = ()
 
 
 def _run_replicates(payload: _Payload, *, seed: int, n_boot: int, keys: Sequence[str], n_jobs: int,
@@ -1421,6 +1653,7 @@ def _run_replicates(payload: _Payload, *, seed: int, n_boot: int, keys: Sequence
     brier_sum = np.zeros(n)
     logp_sum = np.zeros(n)
     oob_count = np.zeros(n, dtype=np.int64)
+    penalties: list[float | None] = []
     for rec in _execute(_replicate, payload, items, n_jobs=n_jobs, scheduler=scheduler,
                         desc="bootstrap", progress=progress):
         seeds.append(rec["selection_seed"])
@@ -1428,6 +1661,7 @@ def _run_replicates(payload: _Payload, *, seed: int, n_boot: int, keys: Sequence
             failures.append(ReplicateFailure(rec["replicate"], rec["reason"], rec["message"]))
             continue
         ok_ids.append(rec["replicate"])
+        penalties.append(rec.get("penalty_alpha"))
         terms_list.append(tuple(rec["terms"]))
         warn_counts.update(rec["warnings"])
         for sample, src in (("bootstrap", "boot"), ("original", "test"), ("out_of_bag", "oob")):
@@ -1440,6 +1674,7 @@ def _run_replicates(payload: _Payload, *, seed: int, n_boot: int, keys: Sequence
     return _Tally(
         failures=tuple(failures), seeds=tuple(seeds), terms=tuple(terms_list), replicate_warnings=dict(warn_counts),
         values=values, ok_ids=tuple(ok_ids), brier_sum=brier_sum, logp_sum=logp_sum, oob_count=oob_count,
+        penalties=tuple(penalties),
     )
 
 
@@ -1508,20 +1743,95 @@ def _measure_estimates(specs: Sequence[tuple[str, str, str]], arrays: dict[str, 
     return estimates
 
 
-def _shrinkage(original: dict[str, np.ndarray], study, apparent_derivation, *, proportional_lp: bool, K: int,
-               link: str) -> ShrinkageEstimate:
-    """Bootstrap and heuristic uniform shrinkage factors.
+def _constant_lp(lp: np.ndarray) -> bool:
+    """Whether a linear predictor (one column, or one per cut) is constant: a model with no predictors."""
+    from ..measures.calibration import _is_constant
+
+    columns = lp[:, None] if lp.ndim == 1 else lp
+    return bool(columns.shape[1] == 0 or all(_is_constant(columns[:, j]) for j in range(columns.shape[1])))
+
+
+def _measure_cut(key: str, K: int) -> int | None:
+    """The cut a measure belongs to (every measure of a binary outcome but the overall ones belongs to cut 0)."""
+    head, sep, tail = key.rpartition("_cut")
+    if sep and tail.isdigit():
+        return int(tail)
+    if K == 2 and key in ("auc", "calibration_slope", "calibration_intercept", "ici"):
+        return 0
+    return None
+
+
+def _undefined_reason(e: MeasureEstimate, *, constant_lp: bool) -> str:
+    """Why an estimate's apparent or corrected value is NaN, in words; empty when both are numbers."""
+    from ..measures.calibration import SLOPE_UNDEFINED_CONSTANT
+
+    if np.isfinite(e.apparent) and np.isfinite(e.corrected):
+        return ""
+    if e.kind == "slope" and constant_lp and not np.isfinite(e.apparent):
+        return f"the model derived on all data has no predictors: {SLOPE_UNDEFINED_CONSTANT}"
+    if not np.isfinite(e.apparent):
+        return "the measure is undefined for the model derived on all data"
+    return "no replicate gave the measure both on its resample and on the original data"
+
+
+def _instability(e: MeasureEstimate, smaller: int | None, *, n_succeeded: int) -> list[str]:
+    """The rules of :attr:`MeasureEstimate.unstable` an estimate meets, each in words."""
+    reasons = []
+    if smaller is not None and smaller < MIN_CUT_EVENTS:
+        reasons.append(f"{smaller} patients on the smaller side of this cut, fewer than the {MIN_CUT_EVENTS} needed to read its measures")
+    width = UNSTABLE_SPREAD.get(e.kind)
+    spread = e.test_upper - e.test_lower
+    if width is not None and np.isfinite(spread) and spread > width:
+        reasons.append(
+            f"the replicate models' values on the original data spread over {spread:.3g} "
+            f"({e.test_lower:.3g} to {e.test_upper:.3g}, central 95%), wider than {width:g}"
+        )
+    if n_succeeded and e.n_replicates < MIN_DEFINED_SHARE * n_succeeded:
+        reasons.append(f"defined in {e.n_replicates} of {n_succeeded} successful replicates, fewer than {MIN_DEFINED_SHARE:.0%}")
+    return reasons
+
+
+def _with_flags(estimates: Sequence[MeasureEstimate], y: np.ndarray, *, K: int, n_succeeded: int,
+                constant_lp: bool) -> list[MeasureEstimate]:
+    """Every estimate with its cut's smaller side, its stability flag and reasons, and why it is undefined."""
+    out = []
+    for e in estimates:
+        cut = _measure_cut(e.measure, K)
+        smaller = None if cut is None or K == 2 else int(min(np.sum(y > cut), np.sum(y <= cut)))
+        reasons = _instability(e, smaller, n_succeeded=n_succeeded)
+        out.append(dataclasses.replace(
+            e, smaller_side=smaller, unstable=bool(reasons), unstable_reason="; ".join(reasons),
+            undefined_reason=_undefined_reason(e, constant_lp=constant_lp),
+        ))
+    return out
+
+
+def _shrinkage_slopes(original: dict[str, np.ndarray], *, proportional_lp: bool, K: int, link: str) -> tuple[np.ndarray, str]:
+    """Each replicate model's calibration slope on the original data, and how it was measured.
 
     ``original`` holds the replicate models' measures on the original data;
     ``proportional_lp`` says whether the linear predictor is one column.
     """
     if proportional_lp:
-        slopes = original["calibration_slope"]
-        source = f"slope of the replicate models' linear predictor in a cumulative {link} model on the original data"
-    else:
-        cut_keys = [f"calibration_slope_cut{j}" for j in range(K - 1)]
-        slopes = np.nanmean(np.vstack([original[k] for k in cut_keys]), axis=0)
-        source = "mean of the per-cut logistic calibration slopes on the original data (non-proportional model)"
+        return original["calibration_slope"], f"slope of the replicate models' linear predictor in a cumulative {link} model on the original data"
+    cut_keys = [f"calibration_slope_cut{j}" for j in range(K - 1)]
+    stacked = np.vstack([original[k] for k in cut_keys])
+    have = np.isfinite(stacked).any(axis=0)
+    slopes = np.full(stacked.shape[1], np.nan)
+    slopes[have] = np.nanmean(stacked[:, have], axis=0)  # a replicate without any slope stays NaN, unwarned
+    return slopes, "mean of the per-cut logistic calibration slopes on the original data (non-proportional model)"
+
+
+def _apparent_slope(apparent: dict[str, float], *, K: int, proportional_lp: bool) -> float:
+    """The apparent calibration slope, measured as :func:`_shrinkage_slopes` measures the replicates'."""
+    if proportional_lp:
+        return apparent["calibration_slope"]
+    values = np.asarray([apparent[f"calibration_slope_cut{j}"] for j in range(K - 1)], dtype=float)
+    return float(np.mean(values[np.isfinite(values)])) if np.isfinite(values).any() else float("nan")
+
+
+def _shrinkage(slopes: np.ndarray, source: str, study, apparent_derivation, *, K: int) -> ShrinkageEstimate:
+    """Bootstrap and heuristic uniform shrinkage factors from the replicate models' slopes (:func:`_shrinkage_slopes`)."""
     s_sd, s_lo, s_hi = _spread(slopes)
     # Heuristic shrinkage (van Houwelingen & le Cessie 1990), (chi2 - df) / chi2.
     # chi2 is the likelihood-ratio chi-square of the model the procedure selected

@@ -4,7 +4,9 @@ A second opinion beside the bootstrap (:mod:`riskvet.bootstrap`): the data
 are split into k folds stratified by outcome level; for each fold the study's
 whole derivation procedure (:func:`riskvet.derive.derive`) runs on the other
 k - 1 folds and the resulting model predicts the held-out fold.  The split is
-repeated ``n_repeats`` times with fresh random folds.
+repeated ``n_repeats`` times with fresh random folds.  k may not exceed the
+rows of the smallest outcome level, so that no fold lacks a level; a fold
+that meets any error is counted as failed with its reason.
 
 Two summaries are reported for every measure, because they answer slightly
 different questions:
@@ -47,14 +49,17 @@ from .bootstrap import (
     _check_study,
     _derive_on_all_data,
     _execute,
+    _failure_message,
+    _failure_reason,
     _fit_and_predict,
     _mean,
     _measure_specs,
     _measures,
+    _PROPAGATE,
     _ReplicateFailed,
     _spread,
 )
-from ..errors import RiskvetError, problem
+from ..errors import DesignError, RiskvetError, problem
 
 __all__ = ["CrossValidationEstimate", "CrossValidation", "cross_validate", "stratified_folds"]
 
@@ -107,8 +112,9 @@ class CrossValidation:
     n_folds, n_repeats, seed : int
         Settings.
     failures : tuple of ReplicateFailure
-        Folds whose derivation produced no model; ``replicate`` is the fold
-        number ``r * n_folds + f`` (repeat r, fold f).
+        Folds that produced no model or could not be measured, with their
+        reason; ``replicate`` is the fold number ``r * n_folds + f``
+        (repeat r, fold f).
     n, n_levels : int
         Rows and outcome levels.
     levels : tuple of str
@@ -189,26 +195,38 @@ class _CVPayload:
 
 
 def _fold(payload: _CVPayload, item: tuple[int, int, int]) -> dict[str, Any]:
+    """Derive on one fold's training rows and measure on its held-out rows.
+
+    Every error met (other than those in ``_PROPAGATE`` and the interrupts)
+    makes the fold a counted failure with its reason.
+    """
     r, f, sel_seed = item
-    held = payload.folds[r] == f
-    train, test = np.flatnonzero(~held), np.flatnonzero(held)
     record: dict[str, Any] = {"repeat": r, "fold": f}
     try:
-        _, prob, lp, caught = _fit_and_predict(
-            payload.study,
-            payload.frame.iloc[train].reset_index(drop=True),
-            payload.y[train],
-            payload.frame.iloc[test].reset_index(drop=True),
-            sel_seed,
-            payload.K,
-        )
+        record.update(_fold_values(payload, r, f, sel_seed))
     except _ReplicateFailed as exc:
         record.update(status="failed", reason=exc.reason, message=exc.message)
-        return record
+    except _PROPAGATE:
+        raise
+    except Exception as exc:
+        record.update(status="failed", reason=_failure_reason(exc), message=_failure_message(exc, "measuring the fold's model"))
+    return record
+
+
+def _fold_values(payload: _CVPayload, r: int, f: int, sel_seed: int) -> dict[str, Any]:
+    held = payload.folds[r] == f
+    train, test = np.flatnonzero(~held), np.flatnonzero(held)
+    _, prob, lp, caught = _fit_and_predict(
+        payload.study,
+        payload.frame.iloc[train].reset_index(drop=True),
+        payload.y[train],
+        payload.frame.iloc[test].reset_index(drop=True),
+        sel_seed,
+        payload.K,
+    )
     values, measure_warnings = _measures(payload.y[test], prob, lp if lp.ndim == 1 else None, K=payload.K, link=payload.link)
     caught.update({f"measure:{k}": v for k, v in measure_warnings.items()})
-    record.update(status="ok", rows=test, prob=prob, lp=lp, values=values, warnings=dict(caught))
-    return record
+    return dict(status="ok", rows=test, prob=prob, lp=lp, values=values, warnings=dict(caught))
 
 
 def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, n_jobs: int = 1, progress: bool = True) -> CrossValidation:
@@ -238,6 +256,9 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
 
     Raises
     ------
+    DesignError
+        More folds than rows in the smallest outcome level: some fold would
+        hold none of that level (the message gives the counts by level).
     RiskvetError
         Bad input, or more failed folds than ``max_failed_share`` allows.
 
@@ -264,11 +285,10 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
     seed = _check_seed(seed, func)
     n_jobs = _check_n_jobs(n_jobs, func)
     n = len(frame)
-    if n_folds > n:
-        raise RiskvetError(problem(f"{func}(n_folds=)", allowed=f"at most the number of rows ({n})", received=n_folds))
     levels = tuple(study.outcome.ordered_levels)
     K = len(levels)
     link = study.model.link
+    _check_folds_fit_levels(y, levels, n_folds=n_folds, func=func)
 
     folds, items = _draw_folds(y, n_folds=n_folds, n_repeats=n_repeats, seed=seed)
 
@@ -300,6 +320,18 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
         apparent_warnings=apparent_warnings,
         fold_values=pd.DataFrame(tally.fold_rows, columns=["repeat", "fold", "measure", "value"]),
     )
+
+
+def _check_folds_fit_levels(y: np.ndarray, levels: Sequence[str], *, n_folds: int, func: str) -> None:
+    """Refuse more folds than rows in the smallest outcome level: every fold must hold every level."""
+    counts = np.bincount(y, minlength=len(levels))
+    if n_folds > int(counts.min()):
+        by_level = {str(lv): int(c) for lv, c in zip(levels, counts.tolist())}
+        raise DesignError(problem(
+            f"{func}(n_folds=)",
+            allowed=f"at most the rows of the smallest outcome level ({int(counts.min())}), so that every fold holds every level",
+            received=f"n_folds = {n_folds} with rows by outcome level {by_level}",
+        ))
 
 
 def _draw_folds(y: np.ndarray, *, n_folds: int, n_repeats: int, seed: int) -> tuple[np.ndarray, list[tuple[int, int, int]]]:
@@ -380,7 +412,12 @@ def _pooled_values(tally: _FoldTally, y: np.ndarray, *, keys: list[str], K: int,
     for r in range(tally.pooled_prob.shape[0]):
         have = np.all(np.isfinite(tally.pooled_prob[r]), axis=1)
         lp_r = tally.pooled_lp[r, have] if tally.pooled_lp is not None else None
-        values, _ = _measures(y[have], tally.pooled_prob[r, have], lp_r, K=K, link=link)
+        try:
+            values, _ = _measures(y[have], tally.pooled_prob[r, have], lp_r, K=K, link=link)
+        except _PROPAGATE:
+            raise
+        except Exception:  # a repeat whose pooled predictions cannot be measured has no pooled value
+            values = {k: float("nan") for k in keys}
         for k in keys:
             pooled[k].append(values[k])
     return pooled

@@ -10,7 +10,10 @@ names, flagging subgroups too small to read.
 
 Bootstrap replicate i resamples the cohort's rows with stream i of
 ``numpy.random.SeedSequence(seed).spawn(n_boot)``, so results do not depend
-on how many workers ran them.
+on how many workers ran them.  A resample that cannot be measured (an
+outcome level absent, or any error met while measuring) is a counted
+failure with its reason; when more than ``max_failed_share`` of them fail,
+the whole-cohort intervals are not reported (NaN, with the reason stated).
 """
 
 from __future__ import annotations
@@ -24,6 +27,7 @@ import numpy as np
 import pandas as pd
 
 from .._jsonable import to_jsonable
+from .bootstrap import _PROPAGATE, ReplicateFailure, _failure_message, _failure_reason
 from ..measures.calibration import OrdinalCalibration, ordinal_calibration
 from ..measures.decision import NetBenefitResult, ThresholdTable, net_benefit, threshold_table
 from ..measures.discrimination import OrdinalDiscrimination, dichotomise, ordinal_discrimination
@@ -271,38 +275,59 @@ def _check_boot(n_boot: Any, seed: Any, confidence: Any, func: str) -> tuple[int
     return int(n_boot), int(seed), float(confidence)
 
 
-def _summary_or_none(y: np.ndarray, prob: np.ndarray, K: int) -> dict[str, float] | None:
-    if np.bincount(y, minlength=K).min() == 0:
-        return None
+@dataclass(frozen=True)
+class _Unmeasured:
+    """Why a resample (or a subgroup of it) has no measures: a stable reason and the message's first line."""
+
+    reason: str
+    message: str
+
+
+def _summary_or_reason(y: np.ndarray, prob: np.ndarray, K: int, levels: Sequence[str] | None = None) -> dict[str, float] | _Unmeasured:
+    """The lean measures of (y, prob), or why there are none; an error never escapes (but ``_PROPAGATE``)."""
+    counts = np.bincount(y, minlength=K)
+    if y.size == 0 or counts.min() == 0:
+        names = list(levels) if levels is not None and len(levels) == K else list(range(K))
+        empty = [names[j] for j in np.flatnonzero(counts == 0)]
+        tally = {str(lv): int(c) for lv, c in zip(names, counts.tolist())}
+        return _Unmeasured("empty outcome level", f"no one in outcome level(s) {empty} of the resample; people by level {tally}")
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RiskvetWarning)
         try:
             return performance_summary(y, prob)
-        except DataError:
-            return None
+        except _PROPAGATE:
+            raise
+        except Exception as exc:
+            return _Unmeasured(_failure_reason(exc), _failure_message(exc, "measuring the resample"))
+
+
+def _summary_or_none(y: np.ndarray, prob: np.ndarray, K: int) -> dict[str, float] | None:
+    out = _summary_or_reason(y, prob, K)
+    return out if isinstance(out, dict) else None
 
 
 class _Replicate:
     """Picklable bootstrap replicate: the whole cohort and every subgroup."""
 
-    def __init__(self, y: np.ndarray, prob: np.ndarray, masks: Mapping[tuple[str, str], np.ndarray]):
-        self.y, self.prob, self.masks = y, prob, masks
+    def __init__(self, y: np.ndarray, prob: np.ndarray, masks: Mapping[tuple[str, str], np.ndarray],
+                 levels: Sequence[str] | None = None):
+        self.y, self.prob, self.masks, self.levels = y, prob, masks, levels
 
-    def __call__(self, stream: np.random.SeedSequence) -> dict[tuple[str, str], dict[str, float] | None]:
+    def __call__(self, stream: np.random.SeedSequence) -> dict[tuple[str, str], dict[str, float] | _Unmeasured]:
         rng = np.random.default_rng(stream)
         n = self.y.shape[0]
         idx = rng.integers(0, n, n)
         yb, pb = self.y[idx], self.prob[idx]
         K = self.prob.shape[1]
-        out = {("", ""): _summary_or_none(yb, pb, K)}
+        out = {("", ""): _summary_or_reason(yb, pb, K, self.levels)}
         for key, mask in self.masks.items():
             sel = mask[idx]
-            out[key] = _summary_or_none(yb[sel], pb[sel], K) if sel.any() else None
+            out[key] = _summary_or_reason(yb[sel], pb[sel], K, self.levels) if sel.any() else _Unmeasured("empty subgroup", "no one of the subgroup in the resample")
         return out
 
 
-def _interval_rows(apparent: Mapping[str, float] | None, reps: list[Mapping[str, float] | None], keys: Sequence[str], confidence: float, levels: Sequence[str]) -> list[dict[str, Any]]:
-    ok = [r for r in reps if r is not None]
+def _interval_rows(apparent: Mapping[str, float] | None, reps: list[Any], keys: Sequence[str], confidence: float, levels: Sequence[str]) -> list[dict[str, Any]]:
+    ok = [r for r in reps if isinstance(r, dict)]
     tail = 100 * (1 - confidence) / 2
     K = len(levels)
     rows = []
@@ -400,13 +425,28 @@ class CohortValidation:
         Bootstrap replicates and seed.
     n_failed : int
         Whole-cohort replicates that could not be evaluated (an outcome
-        level absent from the resample).
+        level absent from the resample, or an error met while measuring it).
     confidence : float
     min_subgroup_size : int
     warnings : tuple of str
     min_subgroup_events : int
         Fewest events and non-events at every cut for a subgroup not to be
         flagged ``few_events``.
+    failures : tuple of ReplicateFailure
+        Every whole-cohort replicate that could not be evaluated, with its
+        reason (``empty outcome level``, ``data error``, ``fit error``, ...)
+        and the first line of the message.
+    max_failed_share : float
+        The share of failed replicates above which the whole-cohort
+        intervals are not reported.
+    intervals_withheld : str
+        Why the whole-cohort intervals of ``performance`` are NaN (more
+        failed replicates than ``max_failed_share`` allows); empty when they
+        are reported.
+    interval_notes : dict of str to str
+        Measure key (a key of ``performance_summary``) -> why that measure's
+        interval is NaN although the others are reported: the measure was
+        undefined in more than ``max_failed_share`` of the replicates.
     """
 
     label: str
@@ -428,6 +468,18 @@ class CohortValidation:
     min_subgroup_size: int
     warnings: tuple[str, ...]
     min_subgroup_events: int = MIN_SUBGROUP_EVENTS
+    failures: tuple[ReplicateFailure, ...] = ()
+    max_failed_share: float = 0.1
+    intervals_withheld: str = ""
+    interval_notes: Mapping[str, str] = field(default_factory=dict)
+
+    @property
+    def failure_counts(self) -> dict[str, int]:
+        """Failed whole-cohort replicates by reason."""
+        counts: dict[str, int] = {}
+        for f in self.failures:
+            counts[f.reason] = counts.get(f.reason, 0) + 1
+        return dict(sorted(counts.items()))
 
     def to_frame(self) -> pd.DataFrame:
         """The headline measures with intervals, with a ``cohort`` column."""
@@ -488,6 +540,11 @@ class CohortValidation:
                 "min_subgroup_size": self.min_subgroup_size,
                 "min_subgroup_events": self.min_subgroup_events,
                 "warnings": list(self.warnings),
+                "failures": [f.to_dict() for f in self.failures],
+                "failure_counts": self.failure_counts,
+                "max_failed_share": self.max_failed_share,
+                "intervals_withheld": self.intervals_withheld,
+                "interval_notes": dict(self.interval_notes),
             }
         )
 
@@ -512,6 +569,7 @@ def validate_cohort(
     confidence: float = 0.95,
     n_jobs: int = 1,
     scheduler: str | None = None,
+    max_failed_share: float = 0.1,
 ) -> CohortValidation:
     """Performance of a frozen model in one validation cohort, with bootstrap intervals.
 
@@ -547,6 +605,15 @@ def validate_cohort(
         Worker processes (-1: every core).
     scheduler : str, optional, keyword-only
         Address of a dask.distributed scheduler (``compute.scheduler``).
+    max_failed_share : float, keyword-only
+        Largest share of the ``n_boot`` replicates that may fail (an outcome
+        level absent from the resample, or an error met while measuring it)
+        before the whole-cohort intervals are withheld: above it they are
+        NaN and ``intervals_withheld`` says why; at or below it the number
+        failed and their reasons are in ``failures``.  A single measure
+        undefined in more than this share of the replicates loses its
+        interval alone (``interval_notes``).  The default, 0.1, is the
+        default of ``internal_validation.max_failed_share``.
 
     Returns
     -------
@@ -593,6 +660,8 @@ def validate_cohort(
         raise RiskvetError(problem(f"{func}(min_subgroup_size=)", allowed="a whole number >= 1", received=min_subgroup_size))
     if isinstance(min_subgroup_events, bool) or not isinstance(min_subgroup_events, (int, np.integer)) or min_subgroup_events < 1:
         raise RiskvetError(problem(f"{func}(min_subgroup_events=)", allowed="a whole number >= 1", received=min_subgroup_events))
+    if isinstance(max_failed_share, bool) or not isinstance(max_failed_share, (int, float, np.floating)) or not 0.0 <= float(max_failed_share) <= 1.0:
+        raise RiskvetError(problem(f"{func}(max_failed_share=)", allowed="a share between 0 and 1", received=max_failed_share))
     limits = (int(min_subgroup_size), int(min_subgroup_events))
     prob = apply_model(model, frame, label=label)
     levels = tuple(model.levels)
@@ -607,14 +676,15 @@ def validate_cohort(
     masks, sizes = _subgroup_groups(frame, yy, subgroups, K=K, limits=limits)
 
     apparent = performance_summary(yy, prob)
-    reps = run_replicates(_Replicate(yy, prob, masks), n_boot=n_boot, seed=seed, n_jobs=n_jobs, scheduler=scheduler) if n_boot else []
+    reps = run_replicates(_Replicate(yy, prob, masks, levels), n_boot=n_boot, seed=seed, n_jobs=n_jobs, scheduler=scheduler) if n_boot else []
     keys = summary_keys(K)
     whole = [r[("", "")] for r in reps]
-    n_failed = sum(r is None for r in whole)
-    if n_failed:
-        notes.append(f"bootstrap: {n_failed} of {n_boot} resamples lacked an outcome level and were left out")
+    failures = tuple(ReplicateFailure(i, r.reason, r.message) for i, r in enumerate(whole) if isinstance(r, _Unmeasured))
     performance = pd.DataFrame(_order_rows(_interval_rows(apparent, whole, keys, confidence, levels)))
     performance["cut"] = performance["cut"].astype("Int64")
+    performance, withheld, interval_notes, failure_notes = _withhold_intervals(
+        performance, failures, n_boot=n_boot, max_failed_share=float(max_failed_share))
+    notes += failure_notes
     sub_table, sub_notes = _subgroup_table(masks, yy, prob, reps, keys=keys, confidence=confidence, levels=levels, limits=limits)
     notes += sub_notes
     for note in notes:
@@ -634,12 +704,54 @@ def validate_cohort(
         subgroup_sizes=sizes,
         n_boot=n_boot,
         seed=seed,
-        n_failed=n_failed,
+        n_failed=len(failures),
         confidence=confidence,
         min_subgroup_size=int(min_subgroup_size),
         warnings=tuple(dict.fromkeys(notes)),
         min_subgroup_events=int(min_subgroup_events),
+        failures=failures,
+        max_failed_share=float(max_failed_share),
+        intervals_withheld=withheld,
+        interval_notes=interval_notes,
     )
+
+
+def _withhold_intervals(performance: pd.DataFrame, failures: Sequence[ReplicateFailure], *, n_boot: int,
+                        max_failed_share: float) -> tuple[pd.DataFrame, str, dict[str, str], list[str]]:
+    """Apply the failure limit to the whole-cohort intervals.
+
+    Returns the table (limits and SE set to NaN where withheld), why all of
+    them are withheld (empty when not), why single measures' are, and the
+    notes to issue.
+    """
+    notes: list[str] = []
+    if not n_boot:
+        return performance, "", {}, notes
+    table = performance.copy()
+    counts: dict[str, int] = {}
+    for f in failures:
+        counts[f.reason] = counts.get(f.reason, 0) + 1
+    allowed = max_failed_share * n_boot
+    withheld = ""
+    if failures:
+        by_reason = ", ".join(f"{c} {r}" for r, c in sorted(counts.items()))
+        notes.append(f"bootstrap: {len(failures)} of {n_boot} resamples could not be evaluated and were left out ({by_reason})")
+    if len(failures) > allowed:
+        withheld = (f"{len(failures)} of {n_boot} resamples could not be evaluated, more than the "
+                    f"{max_failed_share:.0%} allowed (max_failed_share); bootstrap intervals are not reported")
+        table[["se", "lower", "upper"]] = np.nan
+        notes.append(f"bootstrap: {withheld}")
+        return table, withheld, {}, notes
+    interval_notes: dict[str, str] = {}
+    for i, row in table.iterrows():
+        missing = n_boot - int(row["n_boot_used"])
+        if missing > allowed:
+            key = row["measure"] if pd.isna(row["cut"]) else f"{row['measure']}_cut{int(row['cut'])}"
+            interval_notes[key] = (f"undefined in {missing} of {n_boot} resamples, more than the {max_failed_share:.0%} "
+                                   "allowed (max_failed_share); its bootstrap interval is not reported")
+            table.loc[i, ["se", "lower", "upper"]] = np.nan
+            notes.append(f"bootstrap: {row['label']}{'' if pd.isna(row['cut']) else ', ' + str(row['outcome'])}: {interval_notes[key]}")
+    return table, "", interval_notes, notes
 
 
 def _check_outcome(y: Any, *, n_rows: int, levels: Sequence[str], label: str, func: str) -> tuple[np.ndarray, np.ndarray]:
