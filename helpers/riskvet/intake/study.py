@@ -382,6 +382,7 @@ class ExternalValidationSection(_Section):
     enabled: bool = True
     n_boot: int = Field(default=200, ge=1, le=100_000)
     seed: int = Field(default=2, ge=0)
+    max_failed_share: float = Field(default=0.1, ge=0, le=1, description="Above this share of failed replicates the intervals are withheld.")
     subgroups: tuple[Subgroup, ...] = ()
     min_subgroup_size: int = Field(default=100, ge=1)
 

@@ -159,6 +159,13 @@ def _check_before_fitting(study: Study, cohort: Any) -> list[str]:
             "selection.folds", allowed=f"at most {min(counts.values())}, the people in the smallest outcome level",
             received=f"{study.selection.folds}, more than the people of outcome level(s) {small}",
         ))
+    iv = study.internal_validation
+    small = {lv: n for lv, n in counts.items() if n < iv.cv_folds}
+    if iv.enabled and iv.cv_repeats > 0 and small:
+        raise StudyError(problem(
+            "internal_validation.cv_folds", allowed=f"at most {min(counts.values())}, the people in the smallest outcome level (or cv_repeats: 0)",
+            received=f"{iv.cv_folds}, more than the people of outcome level(s) {small}",
+        ))
     return []
 
 

@@ -403,7 +403,7 @@ def validate_external(study: Study, model: PredictionModel, cohorts: Cohorts) ->
         validated = validate_cohort(
             model, cohort.frame, cohort.y, label=label, thresholds=thresholds, subgroups=ev.subgroups,
             min_subgroup_size=ev.min_subgroup_size, n_boot=ev.n_boot, seed=ev.seed,
-            n_jobs=study.compute.n_jobs, scheduler=study.compute.scheduler,
+            n_jobs=study.compute.n_jobs, scheduler=study.compute.scheduler, max_failed_share=ev.max_failed_share,
         )
         # Small classification counts (and the measures that give them back) never reach the record.
         published = {cut: publish_thresholds(t, min_cell_count=study.output.min_cell_count).table for cut, t in validated.threshold_tables.items()}
@@ -464,6 +464,12 @@ def run(ctx) -> ExternalValidationOutput:
     notes = []
     for label, c in results["cohorts"].items():
         notes += [f"{label}: {w}" for w in c.warnings]
+        if c.failures:
+            counts = ", ".join(f"{n} {reason}" for reason, n in c.failure_counts.items())
+            notes.append(f"{label}: {len(c.failures)} of {c.n_boot} bootstrap replicates failed ({counts})")
+        if c.intervals_withheld:
+            notes.append(f"{label}: intervals withheld: {c.intervals_withheld}")
+        notes += [f"{label}: {key}: {why}" for key, why in c.interval_notes.items()]
         notes += [f"{label}: case-mix: {w}" for w in results["case_mix"][label].warnings]
     for label, r in results["rule"].items():
         notes += [f"{label}: rule: {w}" for w in r.warnings]

@@ -54,6 +54,7 @@ ESTIMATE_COLUMNS = (
     "change, 97.5th percentile of replicates",
     ".632+ estimate",
     "replicates used",
+    "can it be read?",
 )
 
 
@@ -121,14 +122,26 @@ class InternalValidationOutput:
         """
         rows = []
         for e in self.validation.estimates:
+            # an unstable estimate is not presented as a corrected value: its spread stays, its reason is given
+            shown = float("nan") if e.unstable else e.corrected
             rows.append(dict(zip(ESTIMATE_COLUMNS, (
-                e.label, e.apparent, e.corrected, e.corrected - e.apparent,
-                judge_change(BASE_KEYS[e.kind], e.apparent, e.corrected),
+                e.label, e.apparent, shown, shown - e.apparent,
+                judge_change(BASE_KEYS[e.kind], e.apparent, shown) if not e.unstable else "not read: unstable",
                 -e.optimism_upper, -e.optimism_lower,
-                e.estimate_632plus if e.kind in SHOWN_632PLUS else float("nan"),
-                e.n_replicates,
+                e.estimate_632plus if e.kind in SHOWN_632PLUS and not e.unstable else float("nan"),
+                e.n_replicates, readability(e),
             ))))
         return pd.DataFrame(rows, columns=list(ESTIMATE_COLUMNS))
+
+    def spreads_frame(self) -> pd.DataFrame | None:
+        """The replicate spread of the calibration slope and, for a penalised derivation, of the chosen penalty; headers in words."""
+        frame = self.validation.spreads_frame()
+        if frame.empty:
+            return None
+        frame = frame.drop(columns="quantity")
+        frame.columns = ["quantity", "on all data", "median over replicates", "2.5th percentile of replicates",
+                         "97.5th percentile of replicates", "replicates"]
+        return frame
 
     @property
     def guide(self) -> pd.DataFrame:
@@ -161,6 +174,15 @@ class InternalValidationOutput:
                 "texts": dict(self.texts),
             }
         )
+
+
+def readability(e) -> str:
+    """Whether a measure's corrected value can be read, in words: ``yes``, ``unstable: ...`` or ``undefined: ...``."""
+    if getattr(e, "undefined_reason", ""):
+        return f"undefined: {e.undefined_reason}"
+    if getattr(e, "unstable", False):
+        return f"unstable: {e.unstable_reason}"
+    return "yes"
 
 
 def _model_check(ctx, validation: InternalValidation) -> str:

@@ -120,6 +120,8 @@ def internal_validation_texts(validation: Any, crossval: Any, shrunk: str | None
         "shrinkage": shrinkage_sentence(validation.shrinkage),
         "stability": stability_sentence(validation.stability),
         "failures": failure_sentence(validation),
+        "readability": readability_sentence(validation),
+        "tuning": tuning_sentence(validation),
     }
     if crossval is not None:
         texts["crossval"] = crossval_sentence(crossval) + (
@@ -139,6 +141,61 @@ def internal_validation_texts(validation: Any, crossval: Any, shrunk: str | None
         texts["shrunken_model"] = "No shrunken model was written" + (f": {notes[-1]}." if notes else ".")
     texts["shrunken_model"] += f" Model check: {model_check}."
     return texts
+
+
+def readability_sentence(validation: Any) -> str:
+    """Which corrected values the table leaves out as unstable or undefined, and the rules behind them."""
+    unstable = [e.label for e in validation.estimates if getattr(e, "unstable", False) and not getattr(e, "undefined_reason", "")]
+    undefined = [e.label for e in validation.estimates if getattr(e, "undefined_reason", "")]
+    parts = []
+    if unstable:
+        parts.append(
+            f"Not read, because unstable: {', '.join(unstable)}. Their replicates cannot pin the value down (too few people on "
+            "the smaller side of a cut of the ordered outcome, a central 95% of replicate values too wide for the measure, or "
+            "a value in fewer than half of the replicates), so no corrected value is shown for them, only the spread of the "
+            "change; the reason for each is in the last column."
+        )
+    if undefined:
+        parts.append(f"Undefined: {', '.join(undefined)}; the reason is in the last column.")
+    if not parts:
+        return "Every corrected value in the table can be read: none was flagged unstable or undefined."
+    return " ".join(parts)
+
+
+def tuning_sentence(validation: Any) -> str:
+    """How much the tuned penalty and the calibration slope vary over replicates, with the published cautions.
+
+    References
+    ----------
+    Van Calster B, van Smeden M, De Cock B, Steyerberg EW. Regression
+    shrinkage methods for clinical prediction models do not guarantee
+    improved performance: simulation study. Statistical Methods in Medical
+    Research 2020;29(11):3166–3178.
+
+    Riley RD, Snell KIE, Martin GP, et al. Penalization and shrinkage methods
+    produced unreliable clinical prediction models especially when sample
+    size was small. Journal of Clinical Epidemiology 2021;132:88–96.
+    """
+    pen = getattr(validation, "penalty_spread", None)
+    slope = getattr(validation, "slope_spread", None)
+    if pen is None:
+        if slope is None:
+            return "No replicate spread of the calibration slope could be computed."
+        return (f"Over {slope.n_replicates} replicates the calibration slope of the derived models on the original data had median "
+                f"{slope.median:.2f} (central 95% {slope.lower:.2f} to {slope.upper:.2f}).")
+    text = (
+        f"Each replicate tuned its own penalty by cross-validation: on all data the penalty is {pen.apparent:.3g}; over "
+        f"{pen.n_replicates} replicates its median was {pen.median:.3g} (central 95% {pen.lower:.3g} to {pen.upper:.3g})."
+    )
+    if slope is not None:
+        text += (f" The calibration slope of the replicate models on the original data had median {slope.median:.2f} "
+                 f"(central 95% {slope.lower:.2f} to {slope.upper:.2f}).")
+    return text + (
+        " Caution: a penalty tuned on the data is itself estimated, and in small samples it varies so much that shrinkage "
+        "chosen this way does not reliably give well-calibrated predictions (Van Calster et al., Statistical Methods in "
+        "Medical Research 2020; Riley et al., Journal of Clinical Epidemiology 2021); a wide spread here means the amount of "
+        "shrinkage the model carries is uncertain."
+    )
 
 
 def stability_sentence(stability: Any) -> str:
