@@ -142,6 +142,10 @@ class DataSection(_Section):
     validation: tuple[ValidationCohort, ...] = ()
     ratings: Path | None = None
     id_column: str | None = None
+    weight_column: str | None = Field(
+        default=None,
+        description="Frequency weights: the column saying how many identical people each row stands for (whole numbers >= 0).",
+    )
     missing_values: tuple[str, ...] = ("", "NA", "N/A", "NaN", "nan", ".")
     category_map: dict[str, dict[str, str]] = Field(
         default_factory=dict,
@@ -541,6 +545,9 @@ class Study(_Section):
             if len(set(values)) != len(values):
                 raise ValueError(f"thresholds.{key}: each threshold once; received {list(values)}")
         columns = set(self.predictors.candidates) | set(self.updating.new_predictors)
+        weight = self.data.weight_column
+        if weight is not None and (weight in columns or weight in (self.outcome.column, self.data.id_column)):
+            raise ValueError(f"data.weight_column: {weight!r} is also the outcome, the id column or a predictor; the weights need a column of their own")
         if self.outcome.column in columns:
             raise ValueError(f"predictors: the outcome column {self.outcome.column!r} cannot also be a predictor")
         clash = sorted(set(self.predictors.candidates) & set(self.updating.new_predictors))
