@@ -5,7 +5,7 @@ The model for an outcome with levels ``0 < 1 < ... < K-1`` is
     P(Y <= j | x) = F(theta_j - x beta - offset),   j = 0, ..., K-2,
 
 with increasing thresholds ``theta`` and a link distribution ``F`` (logit,
-probit or complementary log-log).  ``K = 2`` is ordinary binary regression
+probit, complementary log-log or log-log).  ``K = 2`` is ordinary binary regression
 with intercept ``-theta_0``.  A positive coefficient shifts probability to
 higher levels.  The non-proportional model has one coefficient vector per cut
 (``beta_j``), and its cumulative probabilities can cross.
@@ -153,6 +153,8 @@ class _RawFit(NamedTuple):
     suspect_separation: bool  # worth running the separation check
     pieces: tuple  # per-row derivative pieces at the returned parameters (sorted rows)
     design: _Design
+    firth: bool = False  # Firth's bias-reduced estimates (cov: inverse expected information)
+    loglik_penalized: float = math.nan  # Firth: loglik + 1/2 log det I at the estimates
 
 
 def _ab_matrices(X: np.ndarray, iu: np.ndarray, il: np.ndarray, m: int, proportional: bool) -> tuple[np.ndarray, np.ndarray]:
@@ -250,13 +252,7 @@ def _to_natural(d: _Design, phi: np.ndarray, cov: np.ndarray | None = None):
     out[:m] += _threshold_shift(d, phi)
     if cov is None:
         return out, None
-    p = d.center.shape[0]
-    T = np.eye(phi.shape[0])
-    if d.proportional:
-        T[:m, m:] = d.center[None, :]
-    else:
-        cols = m + np.arange(p)[None, :] * m + np.arange(m)[:, None]  # m x p
-        T[np.arange(m)[:, None], cols] = d.center[None, :]
+    T = _natural_map(d)
     return out, T @ cov @ T.T
 
 
@@ -652,6 +648,330 @@ def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, check_collin
     return phi, ll, pc, cov, converged, iterations, singular
 
 
+# --------------------------------------------------------------------------
+# Firth's bias-reduced estimation
+# --------------------------------------------------------------------------
+
+
+class _FirthState(NamedTuple):
+    """The penalised log-likelihood at one point and what its score needs."""
+
+    lstar: float  # l + 1/2 log det I
+    loglik: float
+    pieces: tuple  # per-row pieces of the log-likelihood (see _evaluate)
+    info: np.ndarray  # expected information
+    fac: tuple  # its scaled Cholesky factor
+    f: np.ndarray  # n x m densities at every cut argument
+    df: np.ndarray  # n x m their derivatives
+    inv_p: np.ndarray  # n x K inverse level probabilities
+
+
+def _cut_jacobian(d: _Design) -> np.ndarray:
+    """``D[i, j] = du_ij / dphi``: every cut argument of every row (n x m x q).
+
+    ``u_ij = theta_j - x_i beta_j - offset_i`` for all ``m = K - 1`` cuts,
+    not only those of the row's observed level; the expected information
+    needs them all.
+    """
+    n, p = d.X.shape
+    m = d.K - 1
+    D = np.zeros((n, m, d.n_params))
+    D[:, np.arange(m), np.arange(m)] = 1.0
+    if d.proportional:
+        D[:, :, m:] = -d.X[:, None, :]
+    else:
+        for j in range(m):
+            D[:, j, m + j :: m] = -d.X  # the coefficients of cut j
+    return D
+
+
+def _level_probabilities(F: np.ndarray, S: np.ndarray, u: np.ndarray) -> np.ndarray:
+    """``P_ik = F(u_ik) - F(u_i,k-1)`` for every level (n x K), upper tail by ``S``."""
+    n, m = u.shape
+    P = np.empty((n, m + 1))
+    P[:, 0] = F[:, 0]
+    P[:, m] = S[:, m - 1]
+    if m > 1:
+        P[:, 1:m] = np.where(u[:, :-1] > 0.0, S[:, :-1] - S[:, 1:], F[:, 1:] - F[:, :-1])
+    return P
+
+
+def _firth_value(d: _Design, phi: np.ndarray, D: np.ndarray) -> _FirthState | None:
+    """Penalised log-likelihood at ``phi``; None outside the model's domain.
+
+    Notes
+    -----
+    Row ``i`` has cut arguments ``u_i = D_i phi`` and level probabilities
+    ``P_ik``; its expected information is ``D_i' W_i D_i`` with the
+    tridiagonal ``W_i = sum_k c_k c_k' / P_ik``, ``c_k = f_k e_k - f_{k-1}
+    e_{k-1}`` (``dP_k/du = c_k``): ``W_jj = f_j^2 (1/P_j + 1/P_{j+1})`` and
+    ``W_j,j+1 = -f_j f_{j+1} / P_{j+1}``.  ``I = sum_i w_i D_i' W_i D_i``.
+    Every level probability must be positive (the non-proportional model can
+    leave that region), and ``I`` positive definite.
+    """
+    ll, pc = _evaluate(d, phi)
+    if not np.isfinite(ll):
+        return None
+    u = D @ phi
+    if d.off is not None:
+        u -= d.off[:, None]
+    F, S, f, df = _parts(d.link, u)
+    P = _level_probabilities(F, S, u)
+    if not np.all(P > 0.0):
+        return None
+    n, m = u.shape
+    inv_p = 1.0 / P
+    W = np.zeros((n, m, m))
+    idx = np.arange(m)
+    W[:, idx, idx] = f * f * (inv_p[:, :m] + inv_p[:, 1:])
+    if m > 1:
+        band = -f[:, :-1] * f[:, 1:] * inv_p[:, 1:m]
+        W[:, idx[:-1], idx[1:]] = band
+        W[:, idx[1:], idx[:-1]] = band
+    if not d.unit:
+        W *= d.w[:, None, None]
+    q = D.shape[2]
+    info = D.reshape(-1, q).T @ np.matmul(W, D).reshape(-1, q)
+    info = 0.5 * (info + info.T)
+    fac = _chol_scaled(info)
+    if fac is None:
+        return None
+    L, dsc = fac
+    logdet = 2.0 * float(np.sum(np.log(np.diag(L)))) + 2.0 * float(np.sum(np.log(dsc)))
+    return _FirthState(ll + 0.5 * logdet, ll, pc, info, fac, f, df, inv_p)
+
+
+def _firth_score(d: _Design, st: _FirthState, D: np.ndarray) -> np.ndarray:
+    """Score of the penalised log-likelihood ``l + 1/2 log det I``.
+
+    Notes
+    -----
+    ``d/dphi (1/2 log det I) = 1/2 tr(I^-1 dI/dphi) = sum_i w_i D_i' v_i``
+    with ``M_i = D_i I^-1 D_i'`` and, writing ``f'`` for the density's
+    derivative and ``q_k = c_k' M_i c_k``,
+    ``v_ij = f'_j (M c_j)_j / P_j - q_j f_j / (2 P_j^2)
+    - f'_j (M c_{j+1})_j / P_{j+1} + q_{j+1} f_j / (2 P_{j+1}^2)``
+    (the derivative of ``sum_k c_k' M c_k / P_k`` in ``u_j`` at fixed ``M``,
+    halved).  For the binary logit model this is the modified score
+    ``X'(y - pi + h (1/2 - pi))`` of Firth (1993), ``h`` the hat diagonal.
+    """
+    n, m, q = D.shape
+    inv = _chol_inverse(st.fac)
+    DI = (D.reshape(-1, q) @ inv).reshape(n, m, q)
+    M = np.matmul(DI, D.transpose(0, 2, 1))
+    f, df, ip = st.f, st.df, st.inv_p
+    idx = np.arange(m)
+    Md = M[:, idx, idx]
+    fM = f * Md
+    mc_own = fM.copy()  # (M c_j)_j
+    mc_next = -fM  # (M c_{j+1})_j
+    qk = np.zeros((n, m + 1))
+    qk[:, :m] = f * fM
+    qk[:, 1:] += f * fM
+    if m > 1:
+        Ms = M[:, idx[1:], idx[:-1]]  # M_{j+1, j}
+        mc_own[:, 1:] -= Ms * f[:, :-1]
+        mc_next[:, :-1] += Ms * f[:, 1:]
+        qk[:, 1:m] -= 2.0 * f[:, 1:] * f[:, :-1] * Ms
+    v = (
+        df * mc_own * ip[:, :m]
+        - 0.5 * qk[:, :m] * f * ip[:, :m] ** 2
+        - df * mc_next * ip[:, 1:]
+        + 0.5 * qk[:, 1:] * f * ip[:, 1:] ** 2
+    )
+    if not d.unit:
+        v *= d.w[:, None]
+    return _gradient(d, st.pieces) + v.reshape(-1) @ D.reshape(-1, q)
+
+
+def _firth_ascent(d: _Design, D: np.ndarray, phi: np.ndarray, st: _FirthState, *, max_iter: int, tol: float,
+                  basis: np.ndarray | None = None) -> tuple[np.ndarray, _FirthState, bool, int]:
+    """Fisher scoring with step-halving on the penalised log-likelihood.
+
+    With ``basis`` (q x r) only ``phi + basis gamma`` is searched (a profile
+    with one linear combination held fixed).  Converged when the decrement
+    ``U' I^-1 U`` of the penalised score ``U`` falls below ``tol ** 1.5``;
+    one last step follows if it does not lower the objective.  Fisher
+    scoring ignores the penalty's curvature and so converges linearly
+    (about one digit per step on the examples of the tests), which is why
+    the stop is tighter than Newton's ``tol``: it leaves the estimates about
+    as precise as a Newton fit at ``tol``.  Once the decrement is below
+    ``tol``, a step that no longer raises the objective beyond rounding
+    also ends the fit (converged).
+    """
+    loose, tol = tol, tol**1.5
+    iterations = 0
+    while True:
+        U = _firth_score(d, st, D)
+        if basis is None:
+            step = _chol_solve(st.fac, U)
+        else:
+            Ug = basis.T @ U
+            Ig = basis.T @ st.info @ basis
+            try:
+                step = basis @ np.linalg.solve(Ig, Ug)
+            except np.linalg.LinAlgError:
+                return phi, st, False, iterations
+        dec = float(U @ step)
+        done = dec <= tol
+        if not done and iterations >= max_iter:
+            return phi, st, False, iterations
+        t = 1.0
+        for _ in range(_MAX_HALVINGS if not done else 1):
+            trial = phi + t * step
+            if _admissible(d, trial):
+                s = _firth_value(d, trial, D)
+                if s is not None and s.lstar >= st.lstar - (1e-12 * (1.0 + abs(st.lstar)) if done else 0.0):
+                    stalled = dec <= loose and s.lstar - st.lstar <= 1e-14 * (1.0 + abs(st.lstar))
+                    phi, st = trial, s
+                    iterations += 1
+                    done = done or stalled
+                    break
+            t *= 0.5
+        else:
+            if not done:
+                return phi, st, dec <= math.sqrt(tol), iterations
+        if done:
+            return phi, st, True, iterations
+
+
+def _nonproportional_start(d: _Design, max_iter: int, tol: float, check_collinear) -> np.ndarray:
+    """Start of a non-proportional Firth fit (centred parameters of ``d``).
+
+    The maximum-likelihood fit when it converges with every level
+    probability of every row positive and no separation hint (Firth's
+    estimate is within ``O(1/n)`` of it); otherwise the proportional Firth
+    fit on the same columns, one copy of each coefficient per cut.
+    """
+    m = d.K - 1
+    phi, _, pc, _, converged, _, singular = _newton(d, _default_start(d), max_iter, tol, check_collinear, False)
+    if converged and not singular and not _separation_screen(d, phi, pc[5], converged, singular):
+        u = _cut_jacobian(d) @ phi
+        if d.off is not None:
+            u -= d.off[:, None]
+        F, S, _, _ = _parts(d.link, u)
+        if np.all(_level_probabilities(F, S, u) > 0.0):
+            return phi
+    dp = _make_design(d.X, d.y, d.K, d.w, d.off, d.link, True, d.unit)
+    phi = _firth_fit(dp, None, max_iter, tol, check_collinear)[0]
+    return np.r_[phi[:m], np.repeat(phi[m:], m)]
+
+
+def _firth_fit(d: _Design, phi: np.ndarray | None, max_iter: int, tol: float, check_collinear) -> tuple:
+    """Firth's estimates on the design ``d`` from ``phi`` (None: the default start).
+
+    The non-proportional model starts from :func:`_nonproportional_start`.  Its
+    penalised log-likelihood is defined only where every row has positive
+    probability at every level (the expected information holds ``1/P_ik``
+    for all levels, observed or not) and grows without bound as one of them
+    tends to zero, so Firth's estimate there is the root of the modified
+    score that Fisher scoring reaches from that start; data on which the
+    maximum-likelihood cumulative probabilities cross may have no such root,
+    and the fit then reports non-convergence.
+    """
+    D = _cut_jacobian(d)
+    if phi is None:
+        phi = _default_start(d)
+        if not d.proportional and d.X.shape[1]:
+            phi = _nonproportional_start(d, max_iter, tol, check_collinear)
+    st = _firth_value(d, phi, D) if _admissible(d, phi) else None
+    if st is None:
+        phi = _default_start(d)
+        st = _firth_value(d, phi, D)
+    if st is None:
+        check_collinear()
+        raise FitError(problem("X", allowed="columns whose expected information can be factorised", received="a singular information at the start"))
+    phi, st, converged, iterations = _firth_ascent(d, D, phi, st, max_iter=max_iter, tol=tol)
+    return phi, st, converged, iterations, D
+
+
+def _natural_map(d: _Design) -> np.ndarray:
+    """``T`` with natural-scale parameters ``T phi_c`` (see :func:`_to_natural`)."""
+    q = d.n_params
+    T = np.eye(q)
+    if d.center is None:
+        return T
+    m = d.K - 1
+    p = d.center.shape[0]
+    if d.proportional:
+        T[:m, m:] = d.center[None, :]
+    else:
+        cols = m + np.arange(p)[None, :] * m + np.arange(m)[:, None]  # m x p
+        T[np.arange(m)[:, None], cols] = d.center[None, :]
+    return T
+
+
+class _Profile:
+    """Profile of the penalised log-likelihood over one linear combination ``a' phi``."""
+
+    def __init__(self, d, D, phi, st, a, tol, max_iter):
+        self.d, self.D, self.a, self.tol, self.max_iter = d, D, a, tol, max_iter
+        self.top = st.lstar
+        # Orthonormal basis of the directions that leave a' phi unchanged.
+        full = np.linalg.svd(a[None, :])[2]
+        self.basis = full[1:].T
+        self.phi = phi
+
+    def deviance(self, b: float) -> float:
+        """``2 (l*(full) - max l* with a' phi = b)``."""
+        a = self.a
+        phi = self.phi + a * (b - a @ self.phi) / (a @ a)
+        st = _firth_value(self.d, phi, self.D)
+        if st is None:
+            return math.inf
+        phi, st, _, _ = _firth_ascent(self.d, self.D, phi, st, max_iter=self.max_iter, tol=self.tol, basis=self.basis)
+        self.phi = phi
+        return 2.0 * (self.top - st.lstar)
+
+
+def _profile_limit(prof: _Profile, est: float, width: float, crit: float, side: float) -> float:
+    """Where the profile deviance reaches ``crit`` on one side of ``est``."""
+    lo, dist = est, width
+    for _ in range(60):
+        b = est + side * dist
+        g = prof.deviance(b) - crit
+        if g >= 0.0:
+            # Outside the model's domain the deviance is infinite; capping it
+            # keeps Brent's bracket valid there.
+            def excess(x: float) -> float:
+                return min(prof.deviance(x), 1e300) - crit
+
+            return float(optimize.brentq(excess, lo, b, xtol=1e-9 * max(width, 1e-12), rtol=1e-12))
+        lo, dist = b, 2.0 * dist
+    return side * math.inf
+
+
+def _firth_profiles(d: _Design, D: np.ndarray, phi_c: np.ndarray, st: _FirthState, se: np.ndarray, confidence: float,
+                    tol: float, max_iter: int) -> np.ndarray:
+    """Profile penalised-likelihood limits and penalised LR p-values (q x 3).
+
+    Notes
+    -----
+    For natural-scale parameter ``k`` (``a_k' phi_c``, ``a_k`` the row of
+    :func:`_natural_map`), the limits are the two values ``b`` where
+    ``2 (l*(phi_hat) - max_{a_k' phi = b} l*(phi)) = chi2_1(confidence)``
+    (Heinze & Schemper 2002), found by doubling a bracket from the Wald
+    half-width and Brent's method; the p-value is the chi-squared upper tail
+    of the same statistic at ``b = 0``.
+    """
+    T = _natural_map(d)
+    crit = float(stats.chi2.ppf(confidence, 1))
+    z = math.sqrt(crit)
+    out = np.empty((T.shape[0], 3))
+    for k in range(T.shape[0]):
+        a = T[k]
+        est = float(a @ phi_c)
+        width = z * float(se[k]) if np.isfinite(se[k]) and se[k] > 0 else 1.0
+        prof = _Profile(d, D, phi_c, st, a, tol, max_iter)
+        out[k, 0] = _profile_limit(prof, est, width, crit, -1.0)
+        prof.phi = phi_c
+        out[k, 1] = _profile_limit(prof, est, width, crit, 1.0)
+        prof.phi = phi_c
+        stat = max(prof.deviance(0.0), 0.0)
+        out[k, 2] = float(special.chdtrc(1, stat)) if np.isfinite(stat) else 0.0
+    return out
+
+
 def _check_levels(y: np.ndarray, K: int, w: np.ndarray, level_names) -> None:
     counts = np.bincount(y, weights=w, minlength=K)[:K]
     empty = np.flatnonzero(counts <= 0)
@@ -682,6 +1002,7 @@ def _fit_arrays(
     names=None,
     level_names=None,
     need_cov: bool = True,
+    firth: bool = False,
 ) -> _RawFit:
     """Fit a cumulative model on validated arrays; never warns.
 
@@ -703,6 +1024,13 @@ def _fit_arrays(
     matrix ill-conditioned.  Scaling is not needed as well: the information
     is factorised with unit diagonal (:func:`_chol_scaled`), which is the
     same as scaling the columns.
+
+    ``firth=True`` maximises the penalised log-likelihood ``l + 1/2 log det
+    I`` instead (:func:`_firth_fit`); ``loglik`` is then the log-likelihood
+    at Firth's estimates and ``cov`` the inverse expected information.
+
+    ``suspect_separation`` is a cheap screen (:func:`_separation_screen`),
+    not the linear programme of :func:`_separated_columns`.
     """
     unit = weights is None
     w = np.ones(y.shape[0]) if unit else np.asarray(weights, dtype=float)
@@ -722,16 +1050,72 @@ def _fit_arrays(
                     first = _evaluate(d, start)
                     if np.isfinite(first[0]):
                         phi = start
-        if phi is None:
-            phi = _default_start(d)
-            first = None
-        phi, ll, pc, cov, converged, iterations, singular = _newton(
-            d, phi, max_iter, tol, lambda: _raise_if_collinear(X, w, names), need_cov, first
-        )
+        if firth:
+            phi, st, converged, iterations, _ = _firth_fit(d, phi, max_iter, tol, lambda: _raise_if_collinear(X, w, names))
+            ll, pc, singular, lstar = st.loglik, st.pieces, False, st.lstar
+            cov = _chol_inverse(st.fac) if need_cov else None
+        else:
+            if phi is None:
+                phi = _default_start(d)
+                first = None
+            phi, ll, pc, cov, converged, iterations, singular = _newton(
+                d, phi, max_iter, tol, lambda: _raise_if_collinear(X, w, names), need_cov, first
+            )
+            lstar = math.nan
+        suspect = _separation_screen(d, phi, pc[5], converged, singular)
         phi, cov = _to_natural(d, phi, cov)
-    P = pc[5]
-    suspect = (not converged) or singular or bool(np.max(P) > 1.0 - _SEPARATION_HINT)
-    return _RawFit(phi, ll, cov, converged, iterations, singular, suspect, pc, d)
+    return _RawFit(phi, ll, cov, converged, iterations, singular, suspect, pc, d, bool(firth), float(lstar))
+
+
+# A coefficient times its column's standard deviation above this (a log odds
+# ratio of 10 per standard deviation for the logit link, an odds ratio of
+# 22,000) is not met in ordinary clinical data; it marks an estimate running
+# off towards infinity (common practice).
+_HUGE_STANDARDISED = 10.0
+
+
+def _separation_screen(d: _Design, phi: np.ndarray, P: np.ndarray, converged: bool, singular: bool) -> bool:
+    """Cheap screen of one fit: is the separation programme worth running?
+
+    Notes
+    -----
+    True when the fit did not converge or its information was singular; when
+    some row's observed level has probability within ``1e-6`` of one; when a
+    coefficient times its column's standard deviation exceeds
+    ``_HUGE_STANDARDISED``; or when a two-valued column (an indicator) has,
+    at one of its values, no row in the lowest or the highest level (any
+    level, for the non-proportional model).  The last is the quasi-complete
+    pattern of a rare category that an estimate near the limit hides: the
+    fit converges, with a large coefficient and a huge standard error, while
+    no probability is near one.  The screen is a few passes over ``X``
+    (``O(n p)``, no linear programme): 0.12 ms at n = 2,000 with 18 columns
+    on the project's 2-core machine, against 0.66 ms for a warm-started
+    fit.  It may flag fits that are not separated (the programme then
+    clears them) and is meant never to miss the patterns above.
+    """
+    if not converged or singular or bool(np.max(P) > 1.0 - _SEPARATION_HINT):
+        return True
+    X = d.X
+    p = X.shape[1]
+    if p == 0:
+        return False
+    m = d.K - 1
+    coef = np.abs(phi[m:]).reshape(p, -1).max(axis=1)
+    lo, hi = X.min(axis=0), X.max(axis=0)
+    if np.any(coef * X.std(axis=0) > _HUGE_STANDARDISED):
+        return True
+    two = np.flatnonzero(np.all((X == lo) | (X == hi), axis=0))
+    if two.size == 0:
+        return False
+    at_hi = (X[:, two] == hi[two]).astype(np.int64)
+    n_hi = np.add.reduceat(at_hi, d.starts[: d.K], axis=0)  # K x columns: rows at the upper value by level
+    n_lo = np.diff(d.starts)[:, None] - n_hi
+    for counts in (n_hi, n_lo):
+        present = counts > 0
+        missing = ~present.all(axis=0) if not d.proportional else ~(present[0] & present[-1])
+        if np.any(missing):
+            return True
+    return False
 
 
 def _separated_columns(d: _Design) -> tuple[int, ...]:
@@ -760,14 +1144,35 @@ def _separated_columns(d: _Design) -> tuple[int, ...]:
     Konis, K. (2007). Linear programming algorithms for detecting separated
     data in binary logistic regression models. DPhil thesis, University of Oxford.
     """
-    X = d.X
-    p = X.shape[1]
+    p = d.X.shape[1]
     if p == 0:
         return ()
+    res, _ = _separation_lp(d, None)
+    if res.status != 0:
+        return ()
     m = d.K - 1
-    sd = X.std(axis=0)
+    nb = (res.x.shape[0] - m) // 2
+    delta = res.x[m : m + nb] - res.x[m + nb :]
+    scale = np.abs(delta).max()
+    if d.proportional:
+        mag = np.abs(delta)
+    else:
+        mag = np.abs(delta.reshape(p, m)).max(axis=1)
+    return tuple(int(j) for j in np.flatnonzero(mag > 1e-6 * scale))
+
+
+def _separation_lp(d: _Design, rows: np.ndarray | None):
+    """The linear programme of :func:`_separated_columns` on ``rows`` (None: all).
+
+    Returns scipy's result and the constraint matrix ``G`` (``G delta <= 0``).
+    """
+    X = d.X if rows is None else d.X[rows]
+    y = d.y if rows is None else d.y[rows]
+    m = d.K - 1
+    sd = d.X.std(axis=0)
     sd[sd <= 0] = 1.0
-    iu, il, up, lo = d.cut_indices()
+    iu, il = np.minimum(y, m - 1), np.maximum(y - 1, 0)
+    up, lo = y < m, y > 0
     A, B = _ab_matrices(X / sd, iu, il, m, d.proportional)
     G = np.vstack([-A[up], B[lo]])  # G delta <= 0 row by row
     slack = G.sum(axis=0)  # -(summed slack) as a function of delta
@@ -783,15 +1188,45 @@ def _separated_columns(d: _Design) -> tuple[int, ...]:
         bounds=[(None, None)] * m + [(0.0, None)] * (2 * nb),
         method="highs",
     )
-    if res.status != 0:
+    return res, G
+
+
+# Above this many rows the programme first runs on a subset of this size.
+# Measured on the project's 2-core machine (K = 3, 20 columns, 5 of them
+# indicators, not separated): the full programme takes 40 ms at n = 2,000
+# (the fit 8 ms) and 3.1-3.6 s at n = 100,000 (the fit 0.2 s proportional,
+# 0.5 s not); the subset screen of _separation_check clears the same data
+# in 9-11 ms at n = 2,000 and 17-20 ms at n = 100,000 (a 5,000-row subset
+# took 93-109 ms there).  Separated data, or a subset too degenerate to
+# decide, still pay for the full programme.
+_LP_SUBSET = 500
+
+
+def _separation_check(d: _Design) -> tuple[int, ...]:
+    """The separation programme after a fit, with an exact screen for large data.
+
+    Notes
+    -----
+    Up to ``_LP_SUBSET`` rows the programme of :func:`_separated_columns`
+    runs on all rows.  Above, it first runs on a level-stratified systematic
+    subset (evenly spaced rows of the level-sorted design, plus the first
+    and last row of every level).  A separating direction of all rows
+    satisfies the subset's inequalities ``G_S delta <= 0``; if the subset's
+    programme is infeasible, every such ``delta`` has ``G_S delta = 0``, and
+    if ``G_S`` has full column rank that forces ``delta = 0``.  So an
+    infeasible subset programme with a full-rank ``G_S`` proves there is no
+    separation, exactly; otherwise (the subset is separated, or too
+    degenerate to decide) the programme runs on all rows.
+    """
+    n = d.y.shape[0]
+    if d.X.shape[1] == 0:
         return ()
-    delta = res.x[m : m + nb] - res.x[m + nb :]
-    scale = np.abs(delta).max()
-    if d.proportional:
-        mag = np.abs(delta)
-    else:
-        mag = np.abs(delta.reshape(p, m)).max(axis=1)
-    return tuple(int(j) for j in np.flatnonzero(mag > 1e-6 * scale))
+    if n > _LP_SUBSET:
+        rows = np.unique(np.r_[np.linspace(0, n - 1, _LP_SUBSET).astype(np.int64), d.starts[:-1], d.starts[1:] - 1])
+        res, G = _separation_lp(d, rows)
+        if res.status == 2 and np.linalg.matrix_rank(G) == G.shape[1]:
+            return ()
+    return _separated_columns(d)
 
 
 def _null_loglik(y: np.ndarray, K: int, w: np.ndarray) -> float:
@@ -844,7 +1279,7 @@ class CumulativeFit:
     Attributes
     ----------
     link : str
-        ``"logit"``, ``"probit"`` or ``"cloglog"``.
+        ``"logit"``, ``"probit"``, ``"cloglog"`` or ``"loglog"``.
     proportional : bool
         One coefficient vector for all cuts (True) or one per cut (False).
     levels : tuple of str
@@ -903,6 +1338,20 @@ class CumulativeFit:
         What ``lower`` and ``upper`` of :meth:`to_frame` are: ``"Wald"``, or
         ``"profile penalised likelihood"``; ``"none"`` when the estimation has
         no interval (penalised fits).
+    loglik_penalized : float
+        Firth fits: ``loglik + 1/2 log det I`` at the estimates (``I`` the
+        expected information); NaN otherwise.  For Firth fits ``loglik`` is
+        the ordinary log-likelihood at Firth's estimates (``aic`` and ``bic``
+        use it), ``cov`` the inverse expected information, and ``lr_test``
+        the penalised likelihood-ratio test against the Firth fit of the
+        thresholds alone.
+    profile : pandas.DataFrame or None
+        Binary Firth fits: per parameter (index as ``params``) the profile
+        penalised-likelihood limits ``lower``, ``upper`` at
+        ``profile_confidence`` and the penalised likelihood-ratio ``p`` of
+        the parameter being zero (Heinze & Schemper 2002); None otherwise.
+    profile_confidence : float
+        Confidence level of ``profile`` (NaN without one).
     """
 
     link: str
@@ -932,6 +1381,9 @@ class CumulativeFit:
     estimation: str = "maximum likelihood"
     penalty: Any = None
     interval_kind: str = "Wald"
+    loglik_penalized: float = math.nan
+    profile: Any = None
+    profile_confidence: float = math.nan
 
     @property
     def n_levels(self) -> int:
@@ -1008,9 +1460,34 @@ class CumulativeFit:
 
     # ---- tables ----------------------------------------------------------
 
+    def _profile_at(self, confidence: float) -> pd.DataFrame | None:
+        """The stored profile limits, checked against ``confidence``."""
+        _z_value(confidence)
+        if self.profile is None:
+            return None
+        if not math.isclose(float(confidence), self.profile_confidence, rel_tol=0.0, abs_tol=1e-12):
+            raise FitError(
+                problem(
+                    "confidence",
+                    allowed=(
+                        f"{self.profile_confidence:g}, the level the profile penalised-likelihood limits were computed at "
+                        "(refit with fit_cumulative(..., firth=True, confidence=...) for another)"
+                    ),
+                    received=confidence,
+                )
+            )
+        return self.profile
+
     def confint(self, confidence: float = 0.95) -> pd.DataFrame:
-        """Wald intervals ``estimate -/+ z se`` for all parameters."""
+        """Intervals for all parameters, of the kind ``interval_kind`` names.
+
+        Wald, ``estimate -/+ z se``; for binary Firth fits the profile
+        penalised-likelihood limits (only at ``profile_confidence``).
+        """
         z = _z_value(confidence)
+        prof = self._profile_at(confidence)
+        if prof is not None:
+            return prof[["lower", "upper"]].copy()
         est = self.params
         return pd.DataFrame({"lower": est - z * self.se, "upper": est + z * self.se}, index=est.index)
 
@@ -1018,8 +1495,10 @@ class CumulativeFit:
         """Tidy parameter table.
 
         Columns: term, kind ("threshold" or "coefficient"), cut (the cut of a
-        per-cut coefficient, else empty), estimate, se, lower, upper (Wald,
-        ``confidence``), z, p; for the logit link also odds_ratio,
+        per-cut coefficient, else empty), estimate, se, lower, upper (of the
+        kind ``interval_kind`` names, at ``confidence``), z (``estimate /
+        se``), p (Wald; for binary Firth fits the penalised likelihood-ratio
+        p-value); for the logit link also odds_ratio,
         odds_ratio_lower, odds_ratio_upper (coefficients only: the odds ratio
         of a higher level per unit of the column).
         """
@@ -1045,6 +1524,10 @@ class CumulativeFit:
                     cuts.append(self.thresholds.index[j])
         with np.errstate(divide="ignore", invalid="ignore"):
             zval = est / se
+        lower, upper, pval = est - z * se, est + z * se, 2.0 * stats.norm.sf(np.abs(zval))
+        prof = self._profile_at(confidence)
+        if prof is not None:
+            lower, upper, pval = (prof[c].to_numpy(dtype=float) for c in ("lower", "upper", "p"))
         frame = pd.DataFrame(
             {
                 "term": terms,
@@ -1052,10 +1535,10 @@ class CumulativeFit:
                 "cut": cuts,
                 "estimate": est,
                 "se": se,
-                "lower": est - z * se,
-                "upper": est + z * se,
+                "lower": lower,
+                "upper": upper,
                 "z": zval,
-                "p": 2.0 * stats.norm.sf(np.abs(zval)),
+                "p": pval,
             }
         )
         if self.link == "logit":
@@ -1090,7 +1573,9 @@ class CumulativeFit:
                 "estimation": self.estimation,
                 "penalty": self.penalty,
                 "interval_kind": self.interval_kind,
-                "parameters": self.to_frame(),
+                "loglik_penalized": self.loglik_penalized,
+                "profile_confidence": self.profile_confidence,
+                "parameters": self.to_frame(self.profile_confidence if self.profile is not None else 0.95),
                 "cov": {"names": list(self.cov.index), "matrix": self.cov.to_numpy().tolist()},
             }
         )
@@ -1208,7 +1693,6 @@ def _param_names(columns, levels, proportional: bool) -> tuple[list[str], list[s
 
 
 def _start_vector(start, columns, m: int, proportional: bool, q: int) -> np.ndarray:
-    p = len(columns)
     if isinstance(start, CumulativeFit):
         if start.n_levels - 1 != m:
             raise FitError(problem("start", allowed=f"a fit with {m + 1} outcome levels", received=f"{start.n_levels} levels"))
@@ -1249,8 +1733,10 @@ def fit_cumulative(
     n_levels: int | None = None,
     max_iter: int = DEFAULT_MAX_ITER,
     tol: float = DEFAULT_TOL,
+    firth: bool = False,
+    confidence: float = 0.95,
 ) -> CumulativeFit:
-    """Fit a cumulative-link model by Newton-Raphson.
+    """Fit a cumulative-link model by Newton-Raphson, or Firth's bias-reduced fit.
 
     Parameters
     ----------
@@ -1263,8 +1749,12 @@ def fit_cumulative(
         the level order and labels.
     proportional : bool, keyword-only
         One coefficient vector for all cuts (default) or one per cut.
-    link : {"logit", "probit", "cloglog"}, keyword-only
-        Link distribution F.
+    link : {"logit", "probit", "cloglog", "loglog"}, keyword-only
+        Link distribution F.  With two levels the model is for
+        ``P(Y = 0) = F(theta - x beta)``: ``"cloglog"`` then models the
+        LOWEST level, ``P(Y = 0) = 1 - exp(-exp(theta - x beta))``, and
+        ``"loglog"`` gives the complementary log-log regression of the event,
+        ``P(Y = 1) = 1 - exp(-exp(x beta - theta))`` (intercept ``-theta``).
     offset : array-like, optional, keyword-only
         Known part of the linear predictor, subtracted from every threshold
         argument (recalibration in the large uses the old linear predictor).
@@ -1284,6 +1774,14 @@ def fit_cumulative(
     tol : float, keyword-only
         Convergence tolerance on the Newton decrement (default 1e-8; a last
         full Newton step follows, leaving a decrement of order tol**2).
+        Firth fits stop when the decrement of the penalised score is below
+        ``tol**1.5`` (their Fisher-scoring steps converge linearly).
+    firth : bool, keyword-only
+        Maximise Firth's penalised log-likelihood ``l + 1/2 log det I``
+        (finite estimates under separation; ``estimation="firth"``).
+    confidence : float, keyword-only
+        Level of the profile penalised-likelihood limits of a binary Firth
+        fit (default 0.95); unused otherwise.
 
     Returns
     -------
@@ -1300,8 +1798,11 @@ def fit_cumulative(
     ConvergenceWarning
         The iteration limit was reached, or no ascent step could be found.
     SeparationWarning
-        Complete or quasi-complete separation; the columns responsible are
-        named and stored in ``separation``.
+        Complete or quasi-complete separation, found by a linear programme
+        run after every fit; the columns responsible are named and stored in
+        ``separation``.  A Firth fit of separated data records the columns
+        and a message in ``warnings`` but does not warn: its estimates are
+        finite.
     CrossingWarning
         Non-proportional model whose cumulative probabilities cross on some
         rows of the fitting data (counted in ``n_crossing``).
@@ -1310,7 +1811,7 @@ def fit_cumulative(
     -----
     ``P(Y <= j | x) = F(theta_j - x beta - offset)``.  The log-likelihood
     ``sum_i w_i log(F(a_i) - F(b_i))`` is concave in ``(theta, beta)`` for the
-    three links (their densities are log-concave; Pratt 1981), so Newton's
+    four links (their densities are log-concave; Pratt 1981), so Newton's
     method is run with step-halving, and a step is only accepted if the
     log-likelihood stays finite and does not fall (for the proportional model
     this keeps the thresholds strictly increasing).  Newton's method works on
@@ -1338,8 +1839,32 @@ def fit_cumulative(
     probability enters the likelihood; such rows are counted in
     ``n_crossing`` and warned about.
 
+    Firth's fit (Firth 1993) maximises ``l*(phi) = l(phi) + 1/2 log det
+    I(phi)`` with ``I`` the expected information (for the binary logit model
+    it equals the observed one, and the score is ``X'(y - pi + h (1/2 -
+    pi))``, ``h`` the hat diagonal); the score of the penalty,
+    ``1/2 tr(I^-1 dI/dphi)``, is formed analytically from the density and
+    its derivative (see :func:`_firth_score`).  Fisher-scoring steps
+    ``I^-1 U*`` with step-halving on ``l*``; converged when ``U*' I^-1 U*``
+    is below ``tol``.  ``cov`` is the inverse expected information at the
+    estimates.  For two levels, ``to_frame`` and ``confint`` give the
+    profile penalised-likelihood limits and penalised likelihood-ratio
+    p-values of Heinze & Schemper (2002); for more levels, Wald limits from
+    the inverse expected information (``interval_kind="Wald"``).
+
+    Separation is checked after every fit by the linear programme of
+    :func:`_separated_columns` (see :func:`_separation_check` for large
+    data).
+
     References
     ----------
+    Firth, D. (1993). Bias reduction of maximum likelihood estimates.
+    Biometrika, 80(1), 27-38.
+
+    Heinze, G., & Schemper, M. (2002). A solution to the problem of
+    separation in logistic regression. Statistics in Medicine, 21(16),
+    2409-2419.
+
     McCullagh, P. (1980). Regression models for ordinal data. Journal of the
     Royal Statistical Society, Series B, 42(2), 109-142.
 
@@ -1362,6 +1887,9 @@ def fit_cumulative(
         raise FitError(problem("max_iter", allowed="a positive integer", received=max_iter))
     if not isinstance(tol, (int, float)) or not 0.0 < float(tol) < 1.0:
         raise FitError(problem("tol", allowed="a number in (0, 1)", received=tol))
+    if not isinstance(firth, (bool, np.bool_)):
+        raise FitError(problem("firth", allowed="True or False", received=firth))
+    _z_value(confidence)
     codes, K, levels = _as_outcome(y, n_levels)
     n = codes.shape[0]
     Xa, columns = _as_matrix(X, n)
@@ -1378,9 +1906,11 @@ def fit_cumulative(
 
     raw = _fit_arrays(
         Xa, codes, K, proportional=bool(proportional), link=link, offset=off, weights=w,
-        start=phi0, max_iter=int(max_iter), tol=float(tol), names=columns, level_names=levels,
+        start=phi0, max_iter=int(max_iter), tol=float(tol), names=columns, level_names=levels, firth=bool(firth),
     )
-    return _build_fit(raw, columns, levels, cuts, coef_names, link, bool(proportional), off is not None, int(max_iter), float(tol))
+    return _build_fit(
+        raw, columns, levels, cuts, coef_names, link, bool(proportional), off is not None, int(max_iter), float(tol), float(confidence)
+    )
 
 
 def _crossing_rows(raw: _RawFit) -> int:
@@ -1395,25 +1925,39 @@ def _crossing_rows(raw: _RawFit) -> int:
     return int(np.sum(np.any(np.diff(u, axis=1) <= 0.0, axis=1)))
 
 
-def _build_fit(raw: _RawFit, columns, levels, cuts, coef_names, link, proportional, has_offset, max_iter, tol) -> CumulativeFit:
+def _separation_messages(raw: _RawFit, columns, firth: bool) -> tuple[tuple[str, ...], list[str]]:
+    """Run the separation programme after a fit; name the columns, warn unless Firth."""
+    cols = _separation_check(raw.design)
+    if not cols:
+        return (), []
+    separation = tuple(columns[j] for j in cols)
+    if firth:
+        # Firth's penalty keeps every estimate finite: recorded, not warned.
+        tail = "Firth's estimates are finite" if raw.converged else "Firth's fit did not converge either (see the convergence note)"
+        msg = f"separation: the data are separated by {list(separation)} (the maximum-likelihood estimates would be infinite); {tail}"
+        return separation, [msg]
+    msg = (
+        f"separation: the likelihood keeps rising as the coefficient(s) of {list(separation)} grow; "
+        "their estimates and standard errors are not finite in the limit"
+    )
+    warnings.warn(msg, SeparationWarning, stacklevel=4)
+    return separation, [msg]
+
+
+def _build_fit(raw: _RawFit, columns, levels, cuts, coef_names, link, proportional, has_offset, max_iter, tol,
+               confidence: float = 0.95) -> CumulativeFit:
     d = raw.design
     m = d.K - 1
     p = len(columns)
     names = cuts + coef_names
-    msgs: list[str] = []
-    separation: tuple[str, ...] = ()
-    if raw.suspect_separation:
-        cols = _separated_columns(d)
-        if cols:
-            separation = tuple(columns[j] for j in cols)
-            msg = (
-                f"separation: the likelihood keeps rising as the coefficient(s) of {list(separation)} grow; "
-                "their estimates and standard errors are not finite in the limit"
-            )
-            msgs.append(msg)
-            warnings.warn(msg, SeparationWarning, stacklevel=3)
-    if not raw.converged and not separation:
+    separation, msgs = _separation_messages(raw, columns, raw.firth)
+    if not raw.converged and not (separation and not raw.firth):
         why = "the information matrix became singular" if raw.singular else f"no convergence after {raw.iterations} iterations"
+        if raw.firth and not proportional:
+            why += (
+                "; the penalised likelihood of the non-proportional model rises without bound as the probability "
+                "of a level of some row tends to zero, and no interior Firth estimate was found"
+            )
         msg = f"convergence: {why} (tol={tol:g}, max_iter={max_iter})"
         msgs.append(msg)
         warnings.warn(msg, ConvergenceWarning, stacklevel=3)
@@ -1443,6 +1987,15 @@ def _build_fit(raw: _RawFit, columns, levels, cuts, coef_names, link, proportion
         ll0 = _fit_arrays(np.zeros((d.y.shape[0], 0)), d.y, d.K, link=link, offset=d.off, weights=d.w).loglik
     k = len(names)
     n_total = float(d.w.sum())
+    if raw.firth:
+        null = _fit_arrays(np.zeros((d.y.shape[0], 0)), d.y, d.K, link=link, offset=d.off, weights=d.w, firth=True, need_cov=False)
+        lr_test = _lr(raw.loglik_penalized, null.loglik_penalized, k - m)
+    else:
+        lr_test = _lr(raw.loglik, ll0, k - m)
+    profile, interval_kind = None, "Wald"
+    if raw.firth and d.K == 2:
+        profile = _profile_frame(raw, all_index, se_arr, confidence, tol, max_iter)
+        interval_kind = "profile penalised likelihood"
     return CumulativeFit(
         link=link,
         proportional=proportional,
@@ -1459,7 +2012,7 @@ def _build_fit(raw: _RawFit, columns, levels, cuts, coef_names, link, proportion
         n_rows=int(d.y.shape[0]),
         aic=float(-2.0 * raw.loglik + 2.0 * k),
         bic=float(-2.0 * raw.loglik + k * math.log(n_total)),
-        lr_test=_lr(raw.loglik, ll0, k - m),
+        lr_test=lr_test,
         converged=bool(raw.converged),
         iterations=int(raw.iterations),
         n_crossing=n_cross,
@@ -1468,4 +2021,20 @@ def _build_fit(raw: _RawFit, columns, levels, cuts, coef_names, link, proportion
         has_offset=has_offset,
         max_iter=max_iter,
         tol=tol,
+        estimation="firth" if raw.firth else "maximum likelihood",
+        interval_kind=interval_kind,
+        loglik_penalized=float(raw.loglik_penalized),
+        profile=profile,
+        profile_confidence=float(confidence) if profile is not None else math.nan,
     )
+
+
+def _profile_frame(raw: _RawFit, index, se: np.ndarray, confidence: float, tol: float, max_iter: int) -> pd.DataFrame:
+    """Profile penalised-likelihood limits and p-values of a binary Firth fit."""
+    d = raw.design
+    phi_c = _to_centred(d, raw.params)
+    D = _cut_jacobian(d)
+    st = _firth_value(d, phi_c, D)
+    with one_blas_thread():
+        out = _firth_profiles(d, D, phi_c, st, se, confidence, tol, max_iter)
+    return pd.DataFrame(out, index=index, columns=["lower", "upper", "p"])

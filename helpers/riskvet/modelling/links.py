@@ -5,7 +5,14 @@ The fitter needs, at each argument ``t``, the distribution function ``F(t)``,
 its complement ``S(t) = 1 - F(t)`` computed without cancellation, the
 density ``f(t) = F'(t)`` and its derivative ``f'(t)``.
 
-All three distributions have log-concave densities, which makes the
+``cloglog`` and ``loglog`` are mirror images, ``F_loglog(t) = 1 -
+F_cloglog(-t)``.  With two outcome levels ``P(Y = 0 | x) = F(theta - x
+beta)``, so ``"cloglog"`` puts the complementary log-log on the LOWEST level,
+``P(Y = 0) = 1 - exp(-exp(theta - x beta))``, and ``"loglog"`` puts it on the
+event, ``P(Y = 1) = 1 - exp(-exp(x beta - theta))``: the binary
+complementary log-log regression of the event (intercept ``-theta``).
+
+All four distributions have log-concave densities, which makes the
 cumulative-model log-likelihood concave in the thresholds and coefficients
 (Pratt, 1981).
 
@@ -25,7 +32,7 @@ from scipy import special
 
 __all__ = ["LINKS", "link_parts", "link_cdf", "link_ppf"]
 
-LINKS = ("logit", "probit", "cloglog")
+LINKS = ("logit", "probit", "cloglog", "loglog")
 
 _SQRT_2PI = float(np.sqrt(2.0 * np.pi))
 
@@ -44,6 +51,9 @@ def link_parts(link: str, t: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.nda
     probit: ``F = Phi(t)``, ``f = phi(t)``, ``f' = -t phi(t)``.
     cloglog: ``F = 1 - exp(-exp(t))``, ``S = exp(-exp(t))``, ``f = exp(t) S``,
     ``f' = f (1 - exp(t))``.
+    loglog: ``F = exp(-exp(-t))``, ``S = 1 - exp(-exp(-t))``, ``f = exp(-t) F``,
+    ``f' = f (exp(-t) - 1)``; computed as the mirror of cloglog at ``-t`` (so
+    ``S`` comes from ``expm1`` and keeps its precision in the upper tail).
     """
     if link == "logit":
         F = special.expit(t)
@@ -61,6 +71,9 @@ def link_parts(link: str, t: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.nda
         F = -np.expm1(-e)
         f = e * S
         return F, S, f, f * (1.0 - e)
+    if link == "loglog":
+        Fm, Sm, fm, dfm = link_parts("cloglog", -t)
+        return Sm, Fm, fm, -dfm
     raise ValueError(f"unknown link {link!r}")
 
 
@@ -72,6 +85,8 @@ def link_cdf(link: str, t: np.ndarray) -> np.ndarray:
         return special.ndtr(t)
     if link == "cloglog":
         return -np.expm1(-np.exp(np.minimum(t, _CLOGLOG_UPPER)))
+    if link == "loglog":
+        return np.exp(-np.exp(np.minimum(-t, _CLOGLOG_UPPER)))
     raise ValueError(f"unknown link {link!r}")
 
 
@@ -84,4 +99,6 @@ def link_ppf(link: str, p: np.ndarray) -> np.ndarray:
         return special.ndtri(p)
     if link == "cloglog":
         return np.log(-np.log1p(-p))
+    if link == "loglog":
+        return -np.log(-np.log(p))
     raise ValueError(f"unknown link {link!r}")

@@ -9,6 +9,7 @@ proportional model against the non-proportional cumulative model.
 from __future__ import annotations
 
 import dataclasses
+import math
 import warnings
 from typing import Mapping, Sequence
 
@@ -25,7 +26,7 @@ from .fitter import (
     _as_vector,
     _check_levels,
     _fit_arrays,
-    _separated_columns,
+    _separation_check,
     fit_cumulative,
 )
 
@@ -33,7 +34,7 @@ __all__ = ["brant_test", "proportional_odds_lr_test", "BrantTest", "Proportional
 
 
 def _chi2_p(stat: float, df: int) -> float:
-    return float(special.chdtrc(df, stat)) if df > 0 else float("nan")
+    return float(special.chdtrc(df, stat)) if df > 0 and np.isfinite(stat) else float("nan")
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -60,6 +61,14 @@ class BrantTest:
         Number of outcome levels K.
     warnings : tuple of str
         Trouble in the separate binary fits (separation, non-convergence).
+    separation : tuple of str
+        ``"y > level: column"`` for each column that separates a binary fit.
+    valid : bool
+        False when a binary fit is separated: its slopes and their
+        covariance are not finite in the limit, so ``statistic`` and ``p``
+        (overall and per term) are NaN and ``reason`` says why.
+    reason : str
+        Why the test is not valid (empty when it is).
     """
 
     statistic: float
@@ -70,11 +79,18 @@ class BrantTest:
     n: float
     n_levels: int
     warnings: tuple
+    separation: tuple = ()
+    valid: bool = True
+    reason: str = ""
 
     def to_frame(self) -> pd.DataFrame:
-        """Overall test then one row per term: term, statistic, df, p."""
+        """Overall test then one row per term: term, statistic, df, p.
+
+        A test that is not valid adds the columns valid (False) and reason.
+        """
         overall = pd.DataFrame([{"term": "overall", "statistic": self.statistic, "df": self.df, "p": self.p}])
-        return pd.concat([overall, self.terms[["term", "statistic", "df", "p"]]], ignore_index=True)
+        frame = pd.concat([overall, self.terms[["term", "statistic", "df", "p"]]], ignore_index=True)
+        return frame if self.valid else frame.assign(valid=False, reason=self.reason)
 
     def to_dict(self) -> dict:
         return to_jsonable(
@@ -88,6 +104,9 @@ class BrantTest:
                 "n": self.n,
                 "n_levels": self.n_levels,
                 "warnings": list(self.warnings),
+                "separation": list(self.separation),
+                "valid": self.valid,
+                "reason": self.reason,
             }
         )
 
@@ -105,6 +124,25 @@ def _term_groups(columns: tuple[str, ...], groups) -> list[tuple[str, list[int]]
             raise FitError(problem(f"groups[{term!r}]", allowed=f"names among the columns of X {list(columns)}", received=cols))
         out.append((str(term), [columns.index(c) for c in cols]))
     return out
+
+
+def _brant_covariance(X1: np.ndarray, w: np.ndarray, pis: list, m: int, p: int) -> np.ndarray:
+    """Covariance of the stacked slopes of the separate binary fits (see :func:`brant_test`)."""
+    V = [None] * m
+    for j in range(m):
+        info = X1.T @ (X1 * (w * pis[j] * (1.0 - pis[j]))[:, None])
+        V[j] = np.linalg.inv(info)
+    big = np.empty((m * p, m * p))
+    for j in range(m):
+        for l in range(j, m):
+            if l == j:
+                block = V[j]
+            else:
+                cross = X1.T @ (X1 * (w * (pis[l] - pis[j] * pis[l]))[:, None])
+                block = V[j] @ cross @ V[l]
+            big[j * p : (j + 1) * p, l * p : (l + 1) * p] = block[1:, 1:]
+            big[l * p : (l + 1) * p, j * p : (j + 1) * p] = block[1:, 1:].T
+    return big
 
 
 def brant_test(X, y, *, weights=None, groups: Mapping[str, Sequence[str]] | None = None) -> BrantTest:
@@ -166,32 +204,22 @@ def brant_test(X, y, *, weights=None, groups: Mapping[str, Sequence[str]] | None
     pis = []
     slopes = np.empty((p, m))
     msgs: list[str] = []
+    separated: list[str] = []
     for j in range(m):
         z = (codes > j).astype(np.int64)
         raw = _fit_arrays(Xa, z, 2, weights=w, names=columns, level_names=(f"y<={levels[j]}", f"y>{levels[j]}"))
         theta, beta = raw.params[0], raw.params[1:]
-        if raw.suspect_separation:
-            sep = _separated_columns(raw.design)
-            if sep:
-                msg = f"separation in the binary fit of y > {levels[j]}: columns {[columns[c] for c in sep]}"
-                msgs.append(msg)
-                warnings.warn(msg, SeparationWarning, stacklevel=2)
+        # Always checked: a quasi-complete separation can converge with no
+        # probability near one (see fitter._separation_screen).
+        sep = _separation_check(raw.design)
+        if sep:
+            separated += [f"y > {levels[j]}: {columns[c]}" for c in sep]
+            msg = f"separation in the binary fit of y > {levels[j]}: columns {[columns[c] for c in sep]}"
+            msgs.append(msg)
+            warnings.warn(msg, SeparationWarning, stacklevel=2)
         pis.append(special.expit(X1 @ np.r_[-theta, beta]))
         slopes[:, j] = beta
-    V = [None] * m
-    for j in range(m):
-        info = X1.T @ (X1 * (w * pis[j] * (1.0 - pis[j]))[:, None])
-        V[j] = np.linalg.inv(info)
-    big = np.empty((m * p, m * p))
-    for j in range(m):
-        for l in range(j, m):
-            if l == j:
-                block = V[j]
-            else:
-                cross = X1.T @ (X1 * (w * (pis[l] - pis[j] * pis[l]))[:, None])
-                block = V[j] @ cross @ V[l]
-            big[j * p : (j + 1) * p, l * p : (l + 1) * p] = block[1:, 1:]
-            big[l * p : (l + 1) * p, j * p : (j + 1) * p] = block[1:, 1:].T
+    big = None if separated else _brant_covariance(X1, w, pis, m, p)
     bstar = slopes.T.reshape(-1)  # cut-major: beta_0, beta_1, ...
 
     def wald(cols: list[int]) -> tuple[float, int]:
@@ -207,13 +235,19 @@ def brant_test(X, y, *, weights=None, groups: Mapping[str, Sequence[str]] | None
         stat = float(db @ np.linalg.solve(D @ Vs @ D.T, db))
         return stat, (m - 1) * k
 
-    stat, df = wald(list(range(p)))
+    stat, df = wald(list(range(p))) if not separated else (np.nan, p * (m - 1))
     rows = []
     for term, cols in terms:
-        s, k = wald(cols)
+        s, k = wald(cols) if not separated else (np.nan, len(cols) * (m - 1))
         rows.append({"term": term, "columns": ", ".join(columns[c] for c in cols), "statistic": s, "df": k, "p": _chi2_p(s, k)})
     cut_names = [f"y>{lev}" for lev in levels[:-1]]
+    reason = ""
+    if separated:
+        reason = f"not valid: separated binary fit(s) ({'; '.join(separated)}); their slopes are not finite"
     return BrantTest(
+        separation=tuple(separated),
+        valid=not separated,
+        reason=reason,
         statistic=stat,
         df=df,
         p=_chi2_p(stat, df),
@@ -246,6 +280,15 @@ class ProportionalOddsLRTest:
         The two fits.
     warnings : tuple of str
         Trouble met by either fit.
+    separation : tuple of str
+        ``"proportional fit: column"`` / ``"non-proportional fit: column"``
+        for each column the separation check names in either fit.
+    valid : bool
+        False when either fit is separated: a maximised log-likelihood is
+        then a limit, not attained, so ``statistic`` and ``p`` are NaN and
+        ``reason`` says why.
+    reason : str
+        Why the test is not valid (empty when it is).
     """
 
     statistic: float
@@ -257,10 +300,16 @@ class ProportionalOddsLRTest:
     proportional_fit: CumulativeFit
     nonproportional_fit: CumulativeFit
     warnings: tuple
+    separation: tuple = ()
+    valid: bool = True
+    reason: str = ""
 
     def to_frame(self) -> pd.DataFrame:
-        """One row: statistic, df, p, both log-likelihoods, n_crossing."""
-        return pd.DataFrame(
+        """One row: statistic, df, p, both log-likelihoods, n_crossing.
+
+        A test that is not valid adds the columns valid (False) and reason.
+        """
+        frame = pd.DataFrame(
             [
                 {
                     "statistic": self.statistic,
@@ -272,6 +321,7 @@ class ProportionalOddsLRTest:
                 }
             ]
         )
+        return frame if self.valid else frame.assign(valid=False, reason=self.reason)
 
     def to_dict(self) -> dict:
         return to_jsonable(
@@ -285,6 +335,9 @@ class ProportionalOddsLRTest:
                 "n_crossing": self.n_crossing,
                 "link": self.proportional_fit.link,
                 "warnings": list(self.warnings),
+                "separation": list(self.separation),
+                "valid": self.valid,
+                "reason": self.reason,
             }
         )
 
@@ -298,7 +351,7 @@ def proportional_odds_lr_test(X, y, *, link: str = "logit", weights=None, offset
         Model matrix without intercept.
     y : array-like of int or ordered Categorical
         Outcome with K >= 3 levels.
-    link : {"logit", "probit", "cloglog"}, keyword-only
+    link : {"logit", "probit", "cloglog", "loglog"}, keyword-only
         Link of both models.
     weights, offset : array-like, optional, keyword-only
         As for :func:`riskvet.models.fit_cumulative`.
@@ -316,7 +369,9 @@ def proportional_odds_lr_test(X, y, *, link: str = "logit", weights=None, offset
     warm-started from the proportional fit.  When its cumulative
     probabilities cross on the data (``n_crossing > 0``) the larger model is
     not a proper probability model there and the test should be read with
-    care.
+    care.  When either fit is separated (the fitter's separation check names
+    the columns) the test is marked not valid (``valid``, ``reason``) and its
+    statistic and p-value are NaN.
 
     References
     ----------
@@ -338,7 +393,20 @@ def proportional_odds_lr_test(X, y, *, link: str = "logit", weights=None, offset
     nonprop = fit_cumulative(frame, y_cat, link=link, weights=weights, offset=offset, proportional=False, start=prop)
     stat = max(0.0, 2.0 * (nonprop.loglik - prop.loglik))
     df = Xa.shape[1] * (K - 2)
+    separated = tuple(f"proportional fit: {c}" for c in prop.separation) + tuple(
+        f"non-proportional fit: {c}" for c in nonprop.separation
+    )
+    reason = ""
+    if separated:
+        stat = math.nan
+        reason = (
+            f"not valid: separation ({'; '.join(separated)}); the maximised log-likelihood is a limit that is not "
+            "attained, so the likelihood ratio is not a chi-squared statistic"
+        )
     return ProportionalOddsLRTest(
+        separation=separated,
+        valid=not separated,
+        reason=reason,
         statistic=float(stat),
         df=int(df),
         p=_chi2_p(stat, df),
