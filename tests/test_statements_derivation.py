@@ -233,3 +233,16 @@ def test_equation_names_cuts_once_and_never_with_a_bar():
     assert "|" not in text
     assert "P(observed or higher) = 1 - expit(" in text and "P(transferred) = 1 - expit(" in text
     assert "transferred or higher" not in text
+
+
+def test_a_separated_proportional_odds_test_is_said_not_valid_rather_than_printed_as_nan():
+    """A proportional-odds test whose fit is separated has no statistic: the sentence says why, never 'nan'."""
+    from types import SimpleNamespace
+
+    from riskvet.reporting.sentences.derivation import proportional_odds_sentence
+
+    reason = "not valid: separated binary fit(s) (cut 1: ['site=c']); their slopes are not finite"
+    brant = SimpleNamespace(valid=False, reason=reason, statistic=float("nan"), df=2, p=float("nan"), warnings=())
+    lr = SimpleNamespace(valid=True, reason="", statistic=3.2, df=2, p=0.2, warnings=())
+    text = proportional_odds_sentence({"brant": brant, "lr": lr})
+    assert "could not be checked" in text and reason in text and "nan" not in text

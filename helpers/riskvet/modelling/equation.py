@@ -18,8 +18,9 @@ _LINK_TEXT = {
     "logit": ("expit", "expit(t) = 1 / (1 + exp(-t))"),
     "probit": ("Phi", "Phi is the standard normal distribution function"),
     "cloglog": ("G", "G(t) = 1 - exp(-exp(t))"),
+    "loglog": ("H", "H(t) = exp(-exp(-t))"),
 }
-_LINK_TEX = {"logit": r"\operatorname{expit}", "probit": r"\Phi", "cloglog": r"G"}
+_LINK_TEX = {"logit": r"\operatorname{expit}", "probit": r"\Phi", "cloglog": r"G", "loglog": r"H"}
 
 
 def _num(value: float, digits: int) -> str:
@@ -70,7 +71,7 @@ def plain_equation(model: Any, *, digits: int = 4) -> str:
         lines.append("LP = " + (" + ".join(parts) if parts else "0").replace("+ -", "- "))
         if len(levels) == 2:
             # a binary model read the usual way: intercept -theta, P(event) = F(intercept + LP) for the logit
-            # and probit links (symmetric); for cloglog 1 - G(theta - LP) is kept as it is
+            # and probit links (symmetric); for cloglog and loglog 1 - F(theta - LP) is kept as it is
             if model.link in ("logit", "probit"):
                 lines.append(f"P({levels[1]}) = {fname}({_num(-model.thresholds[0], digits)} + LP)   (intercept {_num(-model.thresholds[0], digits)})")
             else:

@@ -227,8 +227,19 @@ def separated_terms(derivation: Derivation) -> tuple[str, ...]:
 
 
 def _stop_if_separated(study, derivation: Derivation, separated: tuple[str, ...]) -> None:
-    """Refuse a separated maximum-likelihood model when the study says ``model.on_separation: stop``."""
-    if not separated or derivation.fit.estimation == "firth":
+    """Refuse a separated maximum-likelihood model when the study says ``model.on_separation: stop``, and a Firth
+    fit without a maximum (possible for the model with a slope per cut, whose penalty is unbounded near crossing
+    cumulative probabilities)."""
+    fit = derivation.fit
+    if fit.estimation == "firth" and not fit.converged:
+        why = next((w for w in fit.warnings if w.startswith("convergence")), "no convergence")
+        raise RiskvetError(
+            f"Firth's bias-reduced fit of the chosen model found no maximum on the derivation data ({why}). "
+            + ("With a slope per cut (model.proportional: false) the penalised likelihood can rise without bound; use "
+               "model.proportional: true, or merge sparse categories or levels." if not fit.proportional else
+               "Merge sparse categories or levels, or use fewer candidate terms.")
+        )
+    if not separated or fit.estimation == "firth":
         return
     raise RiskvetError(
         f"the derivation data are separated by {', '.join(separated)} (columns {list(derivation.fit.separation)}): some combination "

@@ -303,6 +303,9 @@ def proportional_odds_sentence(brant: BrantTest, lr: ProportionalOddsLRTest | No
     str
     """
     _check_po(brant, lr, "proportional_odds_sentence")
+    invalid = [test.reason for test in (brant, lr) if test is not None and not getattr(test, "valid", True)]
+    if invalid:
+        return "The tests of proportional odds are not valid here (" + "; ".join(invalid) + "), so no statistic is given."
     text = (f"Taking every column of the model together, Brant's test of one common coefficient for all cuts gives "
             f"chi-square {brant.statistic:.2f} on {brant.df} degrees of freedom ({_p_words(brant.p)}).")
     if lr is not None:

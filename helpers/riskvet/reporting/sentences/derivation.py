@@ -346,9 +346,16 @@ def proportional_odds_sentence(po: Mapping[str, Any]) -> str:
     if not po:
         return "Proportional odds is not checked: the outcome is binary or the model is non-proportional."
     brant, lr = po["brant"], po["lr"]
-    verdict = "gives little evidence against" if brant.p >= 0.05 else "suggests departures from"
     trouble = list(brant.warnings) + list(lr.warnings)
     note = (" Fitting trouble met on the way: " + "; ".join(trouble) + ".") if trouble else ""
+    invalid = [f"{name} is {test.reason}" for name, test in (("Brant's test", brant), ("the likelihood-ratio test", lr))
+               if not getattr(test, "valid", True)]
+    if invalid:
+        return (
+            "Proportional odds could not be checked: " + "; ".join(invalid) + ". A separated fit has no finite estimates, so "
+            "a test built on it has no meaning; merge sparse categories or levels to test proportional odds." + note
+        )
+    verdict = "gives little evidence against" if brant.p >= 0.05 else "suggests departures from"
     return (
         f"Brant's test (overall chi-squared {brant.statistic:.2f} on {brant.df} df, p = {brant.p:.3f}) {verdict} proportional odds; "
         f"the likelihood-ratio test against the non-proportional model gives chi-squared {lr.statistic:.2f} on {lr.df} df, p = {lr.p:.3f}. "
