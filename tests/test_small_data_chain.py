@@ -203,3 +203,25 @@ def test_a_rare_level_per_cut_slope_is_marked_unstable_not_corrected(rare_level_
     top_cut = [k for k in rows if k.endswith("_cut1")]
     assert top_cut and all(rows[k]["unstable"] is True for k in top_cut)
     assert "Not read, because unstable" in _page_text(result, "internal_validation")
+
+
+def test_riskvet_check_names_a_separating_term_before_anything_is_fitted(tmp_path, capsys):
+    from riskvet.chain import cli
+    from riskvet.intake.study import load_study
+    from riskvet.intake.data import load_cohorts
+    from riskvet.modelling.derive import separating_terms
+
+    path = _write_study(tmp_path / "sep-check", _separated_binary(), outcome=_BINARY, candidates=_SITE,
+                        internal={"enabled": False})
+    study = load_study(path)
+    cohort = load_cohorts(study).derivation
+    assert separating_terms(study, cohort.frame, cohort.y) == ("site",)
+    assert cli.main(["check", str(path)]) == 0
+    out = capsys.readouterr().out
+    assert "warning: separation: the derivation data are separated by site (categories)" not in out  # term names, not labels
+    assert "warning: separation: the derivation data are separated by site in the model with every candidate" in out
+    assert "the derivation will stop (model.on_separation: stop)" in out
+    # data that are not separated say nothing about it
+    frame = _separated_binary()
+    frame.loc[frame.index[frame["site"] == "c"][:5], "outcome"] = "yes"
+    assert separating_terms(study, frame, (frame["outcome"] == "yes").to_numpy().astype(int)) == ()

@@ -98,7 +98,7 @@ def check_report(study_path: str | Path, *, out=None) -> int:
 
 def support_notes(study, cohort) -> list[str]:
     """Whether the derivation data can support the study's candidate parameters (events per parameter, sample-size criteria)."""
-    from ..modelling.derive import candidate_design
+    from ..modelling.derive import candidate_design, separating_terms
     from ..planning.samplesize import data_support_notes
 
     from ..reporting.labels import cut_label
@@ -106,7 +106,20 @@ def support_notes(study, cohort) -> list[str]:
     planning = study.planning
     levels = study.outcome.ordered_levels
     counts = [int(cohort.outcome_counts.get(lv, 0)) for lv in levels]
-    return data_support_notes(
+    notes = []
+    separating = separating_terms(study, cohort.frame, cohort.y, weights=getattr(cohort, "weights", None))
+    if separating:
+        then = {"stop": "the derivation will stop (model.on_separation: stop) if the chosen model holds them",
+                "firth": "the chosen model will be refitted by Firth's method if it holds them (model.on_separation: firth)"}
+        notes.append(
+            f"separation: the derivation data are separated by {', '.join(separating)} in the model with every candidate "
+            "(some combination of their values predicts part of the outcome perfectly, so maximum-likelihood estimates "
+            "would be infinite); "
+            + ("every fit uses Firth's method (model.estimation: firth), whose estimates are finite"
+               if study.model.estimation == "firth" else then[study.model.on_separation])
+            + "; merging sparse categories or levels removes it"
+        )
+    return notes + data_support_notes(
         level_counts=counts, n_parameters=len(candidate_design(study, cohort.frame).columns),
         anticipated_c=None if planning is None else planning.anticipated_c,
         anticipated_r2_cs=None if planning is None else planning.anticipated_r2_cs,

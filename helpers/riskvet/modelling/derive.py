@@ -22,7 +22,7 @@ from ..errors import DataError, DesignError, StudyError, problem
 from .selection import SelectionResult, select_terms
 from ..intake.study import Study
 
-__all__ = ["Derivation", "candidate_design", "candidate_parameters", "check_before_fitting", "derive"]
+__all__ = ["Derivation", "candidate_design", "candidate_parameters", "check_before_fitting", "derive", "separating_terms"]
 
 
 @dataclass(frozen=True)
@@ -233,6 +233,37 @@ def derive(
     chosen = set(result.terms)
     final = design.subset([t.name for t in design.terms if t.name in chosen])
     return Derivation(candidate_design=design, design=final, selection=result)
+
+
+def separating_terms(study: Study, frame: pd.DataFrame, y: np.ndarray, *, weights: np.ndarray | None = None) -> tuple[str, ...]:
+    """Candidate terms whose columns separate the outcome in the model with every candidate (nothing is fitted).
+
+    The linear-programming test of the fitter (Albert & Anderson 1984;
+    Konis 2007) on the design of every candidate term, in the study's model
+    form.  Adding columns cannot undo a separation, so a term named here
+    separates every selected model that holds the columns named with it;
+    ``riskvet check`` reports these terms before anything is fitted.
+
+    Returns
+    -------
+    tuple of str
+        Term names in design order (empty when the data are not separated).
+    """
+    from .fitter import _make_design, _separation_check
+
+    design = candidate_design(study, frame)
+    X = design.transform(frame).to_numpy(dtype=float)
+    codes = np.asarray(y, dtype=np.int64)
+    w = np.ones(codes.shape[0]) if weights is None else np.asarray(weights, dtype=float)
+    keep = w > 0
+    order = np.argsort(codes[keep], kind="stable")
+    K = len(study.outcome.ordered_levels)
+    if X.shape[1] == 0 or np.any(np.bincount(codes[keep], minlength=K) == 0):
+        return ()
+    d = _make_design(X[keep][order], codes[keep][order], K, w[keep][order], None, study.model.link,
+                     study.model.proportional, weights is None)
+    found = {design.columns[j] for j in _separation_check(d)}
+    return tuple(t.name for t in design.terms if found & set(t.columns))
 
 
 def candidate_parameters(design: DesignSpec, n_levels: int) -> int:
