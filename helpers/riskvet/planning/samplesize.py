@@ -1163,7 +1163,7 @@ def data_support_notes(
             if crit.n > n:
                 name = cut_names[j] if cut_names is not None else f"cut {j + 1} (above level {j + 1} of {len(counts)})"
                 where = "" if len(counts) == 2 else f" for {name}"
-                per = "" if crit.name == "overall risk" else f" for {p} candidate parameters"
+                per = "" if crit.name == "overall risk" else f" for {p} candidate predictor parameters (thresholds not counted)"
                 todo = "more data; no choice of model can estimate the overall risk this precisely" if crit.name == "overall risk" else remedy
                 notes.append(
                     f"sample-size criterion '{crit.name}'{where} fails (Riley et al. 2019): it needs at least {crit.n} people "
