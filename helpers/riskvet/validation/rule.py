@@ -12,6 +12,13 @@ listed lowest risk first (green < amber < red), or a numeric score.
   reaches each of the study's thresholds, both weighed at that threshold;
 * by the bootstrap distribution of both differences (paired: the model and
   the rule are evaluated on the same resampled patients).
+
+Bootstrap replicate i resamples the patients with stream i of
+``numpy.random.SeedSequence(seed).spawn(n_boot)``, so results do not depend
+on how many workers ran them.  A resample that cannot be measured (an
+outcome level absent, or any error met while measuring it) is a counted
+failure with its reason; when more than ``max_failed_share`` of them fail,
+the bootstrap intervals are not reported (NaN, with the reason stated).
 """
 
 from __future__ import annotations
@@ -29,7 +36,8 @@ from ..measures.decision import NetBenefitResult, net_benefit, rule_net_benefit
 from ..measures.discrimination import ConcordanceComparison, compare_concordance, concordance, dichotomise
 from ..errors import DataError, RiskvetError, RiskvetWarning, problem
 from ..intake.outcome import cut_name
-from .external import _check_boot, decision_grid, run_replicates
+from .bootstrap import _PROPAGATE, ReplicateFailure, _failure_message, _failure_reason
+from .external import _Unmeasured, _check_boot, decision_grid, run_replicates
 
 __all__ = ["RuleComparison", "rule_score", "rule_positive", "compare_with_rule"]
 
@@ -105,12 +113,14 @@ class RuleComparison:
         Per cut: model (a) against rule (b), paired DeLong test.
     concordance_table : DataFrame
         ``cut``, ``outcome``, ``c_model``, ``c_rule``, ``difference``,
-        ``se``, ``lower``, ``upper``, ``pvalue`` (DeLong) and
-        ``boot_lower``, ``boot_upper`` (bootstrap percentiles).
+        ``se``, ``lower``, ``upper``, ``pvalue`` (DeLong; never resting on
+        the replicates) and ``boot_lower``, ``boot_upper`` (bootstrap
+        percentiles), ``n_boot_used`` (replicates behind them).
     net_benefit_table : DataFrame
         ``cut``, ``outcome``, ``threshold``, ``nb_model``, ``nb_rule``,
         ``nb_treat_all``, ``difference`` (model minus rule), ``boot_lower``,
-        ``boot_upper``; empty without ``positive_from`` or thresholds.
+        ``boot_upper``, ``n_boot_used``; empty without ``positive_from`` or
+        thresholds.
     boot_c_difference : ndarray, shape (n_ok, K-1)
         Bootstrap distribution of C_model - C_rule per cut.
     boot_nb_difference : dict of int to ndarray
@@ -120,9 +130,26 @@ class RuleComparison:
         Decision curves of the model and of the rule per cut over
         :func:`riskvet.external.decision_grid` (empty without
         ``positive_from``), for the figure.
-    n_boot, seed, n_failed : int
+    n_boot, seed : int
+        Bootstrap replicates and seed.
+    n_failed : int
+        Replicates that could not be evaluated (an outcome level absent from
+        the resample, or an error met while measuring it).
     confidence : float
     warnings : tuple of str
+    failures : tuple of ReplicateFailure
+        Every replicate that could not be evaluated, with its reason
+        (``empty outcome level``, ``arithmetic error``, ``numerical error``,
+        ...; the names of :class:`riskvet.validation.bootstrap.ReplicateFailure`)
+        and the first line of the message.
+    max_failed_share : float
+        The share of failed replicates above which the bootstrap intervals
+        are not reported.
+    intervals_withheld : str
+        Why ``boot_lower`` and ``boot_upper`` of both tables are NaN (more
+        failed replicates than ``max_failed_share`` allows); empty when they
+        are reported.  The replicates that were measured stay in
+        ``boot_c_difference`` and ``boot_nb_difference``.
     """
 
     label: str
@@ -145,6 +172,19 @@ class RuleComparison:
     n_failed: int
     confidence: float
     warnings: tuple[str, ...]
+    failures: tuple[ReplicateFailure, ...] = ()
+    max_failed_share: float = 0.1
+    intervals_withheld: str = ""
+
+    @property
+    def failure_counts(self) -> dict[str, int]:
+        """Failed replicates by reason."""
+        return _count_reasons(self.failures)
+
+    def failure_frame(self) -> pd.DataFrame:
+        """One row per failed replicate: ``cohort``, ``replicate``, ``reason``, ``message``."""
+        rows = [{"cohort": self.label, **f.to_dict()} for f in self.failures]
+        return pd.DataFrame(rows, columns=["cohort", "replicate", "reason", "message"])
 
     def to_frame(self) -> pd.DataFrame:
         """The concordance comparison, one row per cut."""
@@ -180,24 +220,48 @@ class RuleComparison:
                 "n_failed": self.n_failed,
                 "confidence": self.confidence,
                 "warnings": list(self.warnings),
+                "failures": [f.to_dict() for f in self.failures],
+                "failure_counts": self.failure_counts,
+                "max_failed_share": self.max_failed_share,
+                "intervals_withheld": self.intervals_withheld,
             }
         )
 
 
-class _RuleReplicate:
-    """One paired bootstrap replicate: C and NB differences per cut."""
+def _count_reasons(failures: Sequence[ReplicateFailure]) -> dict[str, int]:
+    counts: dict[str, int] = {}
+    for f in failures:
+        counts[f.reason] = counts.get(f.reason, 0) + 1
+    return dict(sorted(counts.items()))
 
-    def __init__(self, y, prob, score, positive, thresholds):
+
+class _RuleReplicate:
+    """One paired bootstrap replicate: C and NB differences per cut, or why there are none."""
+
+    def __init__(self, y, prob, score, positive, thresholds, names):
         self.y, self.prob, self.score, self.positive, self.thresholds = y, prob, score, positive, thresholds
+        self.names = names
 
     def __call__(self, stream):
+        """The differences on resample ``stream``; any error but ``_PROPAGATE`` makes it a counted failure."""
+        try:
+            return self.differences(stream)
+        except _PROPAGATE:
+            raise
+        except Exception as exc:  # an error of one resample is that replicate's failure, not the run's
+            return _Unmeasured(_failure_reason(exc), _failure_message(exc, "measuring the resample"))
+
+    def differences(self, stream):
         rng = np.random.default_rng(stream)
         n = self.y.shape[0]
         idx = rng.integers(0, n, n)
         yb, pb, sb = self.y[idx], self.prob[idx], self.score[idx]
         K = self.prob.shape[1]
-        if np.bincount(yb, minlength=K).min() == 0:
-            return None
+        counts = np.bincount(yb, minlength=K)
+        if counts.min() == 0:
+            empty = [self.names[j] for j in np.flatnonzero(counts == 0)]
+            tally = {str(lv): int(c) for lv, c in zip(self.names, counts.tolist())}
+            return _Unmeasured("empty outcome level", f"no one in outcome level(s) {empty} of the resample; people by level {tally}")
         c_diff, nb_diff = [], {}
         for j in range(K - 1):
             y_cut, p_cut = dichotomise(yb, pb, cut=j)
@@ -227,6 +291,7 @@ def compare_with_rule(
     confidence: float = 0.95,
     n_jobs: int = 1,
     scheduler: str | None = None,
+    max_failed_share: float = 0.1,
 ) -> RuleComparison:
     """Compare the model's predictions with an existing rule on the same patients.
 
@@ -254,6 +319,15 @@ def compare_with_rule(
     n_boot, seed, confidence, n_jobs, scheduler : keyword-only
         Paired bootstrap replicates, seed, interval level, worker processes
         and dask scheduler (see :func:`riskvet.external.run_replicates`).
+    max_failed_share : float, keyword-only
+        Largest share of the ``n_boot`` replicates that may fail (an outcome
+        level absent from the resample, or any error met while measuring it)
+        before the bootstrap intervals are withheld: above it ``boot_lower``
+        and ``boot_upper`` are NaN and ``intervals_withheld`` says why; at
+        or below it the failed replicates are left out and listed in
+        ``failures``.  The DeLong comparison does not rest on the replicates
+        and is always reported.  The default, 0.1, is that of
+        :func:`riskvet.validation.external.validate_cohort`.
 
     Returns
     -------
@@ -269,7 +343,10 @@ def compare_with_rule(
     threshold pt: NB = TP/n - FP/n * pt/(1 - pt), for the model treating
     patients with P(Y > j) >= pt, for the rule treating its positive
     patients (Vickers & Elkin 2006).  The bootstrap resamples patients and
-    evaluates both on each resample (paired); intervals are percentiles.
+    evaluates both on each resample (paired); intervals are the
+    (1 - confidence)/2 and (1 + confidence)/2 percentiles of the differences
+    over the B_ok replicates that could be measured (Efron & Tibshirani
+    1993, ch. 13), reported only when B - B_ok <= max_failed_share * B.
 
     References
     ----------
@@ -283,10 +360,14 @@ def compare_with_rule(
     Vickers AJ, Van Calster B, Steyerberg EW. Net benefit approaches to the
     evaluation of prediction models, molecular markers, and diagnostic tests.
     BMJ 2016;352:i6.
+
+    Efron B, Tibshirani RJ. An Introduction to the Bootstrap. Chapman & Hall, 1993.
     """
     func = "compare_with_rule"
     yy, prob, score_all = _check_inputs(y, prob, rule_values, kind=kind, levels=levels, positive_from=positive_from,
                                         n_boot=n_boot, seed=seed, confidence=confidence, func=func)
+    if isinstance(max_failed_share, bool) or not isinstance(max_failed_share, (int, float, np.floating)) or not 0.0 <= float(max_failed_share) <= 1.0:
+        raise RiskvetError(problem(f"{func}(max_failed_share=)", allowed="a share between 0 and 1", received=max_failed_share))
     K = prob.shape[1]
     names = tuple(outcome_levels) if outcome_levels is not None else tuple(str(k) for k in range(K))
     keep = np.isfinite(score_all)
@@ -303,16 +384,17 @@ def compare_with_rule(
         yy, prob, score, positive, thresholds, names=names, confidence=confidence
     )
 
-    reps = run_replicates(_RuleReplicate(yy, prob, score, positive, thresholds), n_boot=int(n_boot), seed=int(seed), n_jobs=n_jobs, scheduler=scheduler) if n_boot else []
-    ok = [r for r in reps if r is not None]
-    n_failed = len(reps) - len(ok)
-    if n_failed:
-        notes.append(f"bootstrap: {n_failed} of {n_boot} resamples lacked an outcome level and were left out")
+    replicate = _RuleReplicate(yy, prob, score, positive, thresholds, names)
+    reps = run_replicates(replicate, n_boot=int(n_boot), seed=int(seed), n_jobs=n_jobs, scheduler=scheduler) if n_boot else []
+    failures = tuple(ReplicateFailure(i, r.reason, r.message) for i, r in enumerate(reps) if isinstance(r, _Unmeasured))
+    ok = [r for r in reps if not isinstance(r, _Unmeasured)]
+    withheld, failure_notes = _failure_limit(failures, n_boot=int(n_boot), max_failed_share=float(max_failed_share))
+    notes += failure_notes
     tail = 100 * (1 - float(confidence)) / 2
     boot_c = np.array([r[0] for r in ok], dtype=float).reshape(len(ok), K - 1)
-    c_table = _concordance_table(c_rows, boot_c, tail=tail)
+    c_table = _concordance_table(c_rows, boot_c, tail=tail, withheld=bool(withheld))
     boot_nb = {j: np.array([r[1][j] for r in ok], dtype=float).reshape(len(ok), len(thresholds[j])) for j in thresholds if positive is not None}
-    nb_table = _net_benefit_table(nb_rows, boot_nb, thresholds, tail=tail)
+    nb_table = _net_benefit_table(nb_rows, boot_nb, thresholds, tail=tail, withheld=bool(withheld))
     for note in notes:
         warnings.warn(note, RiskvetWarning, stacklevel=2)
     return RuleComparison(
@@ -333,9 +415,12 @@ def compare_with_rule(
         rule_curves=tuple(rule_curves),
         n_boot=int(n_boot),
         seed=int(seed),
-        n_failed=n_failed,
+        n_failed=len(failures),
         confidence=float(confidence),
         warnings=tuple(notes),
+        failures=failures,
+        max_failed_share=float(max_failed_share),
+        intervals_withheld=withheld,
     )
 
 
@@ -411,29 +496,46 @@ def _net_benefit_rows(y_cut: np.ndarray, p_cut: np.ndarray, positive: np.ndarray
     return rows
 
 
-def _concordance_table(c_rows: list[dict[str, Any]], boot_c: np.ndarray, *, tail: float) -> pd.DataFrame:
-    """The concordance rows with the bootstrap percentile interval of each cut's difference."""
+def _failure_limit(failures: Sequence[ReplicateFailure], *, n_boot: int, max_failed_share: float) -> tuple[str, list[str]]:
+    """Why the bootstrap intervals are withheld (empty when they are not) and the notes to issue."""
+    notes: list[str] = []
+    if not failures:
+        return "", notes
+    by_reason = ", ".join(f"{c} {r}" for r, c in _count_reasons(failures).items())
+    notes.append(f"bootstrap: {len(failures)} of {n_boot} resamples could not be evaluated and were left out ({by_reason})")
+    if len(failures) <= max_failed_share * n_boot:
+        return "", notes
+    withheld = (f"{len(failures)} of {n_boot} resamples could not be evaluated, more than the "
+                f"{max_failed_share:.0%} allowed (max_failed_share); bootstrap intervals are not reported")
+    notes.append(f"bootstrap: {withheld}")
+    return withheld, notes
+
+
+def _concordance_table(c_rows: list[dict[str, Any]], boot_c: np.ndarray, *, tail: float, withheld: bool = False) -> pd.DataFrame:
+    """The concordance rows with the bootstrap percentile interval of each cut's difference (NaN when withheld)."""
     c_table = pd.DataFrame(c_rows)
-    if boot_c.shape[0] >= 2:
+    if boot_c.shape[0] >= 2 and not withheld:
         lo, hi = np.percentile(boot_c, [tail, 100 - tail], axis=0)
     else:
         lo = hi = np.full(boot_c.shape[1], np.nan)
     c_table["boot_lower"], c_table["boot_upper"] = lo, hi
+    c_table["n_boot_used"] = boot_c.shape[0]
     return c_table
 
 
 def _net_benefit_table(nb_rows: list[dict[str, Any]], boot_nb: Mapping[int, np.ndarray],
-                       thresholds: Mapping[int, tuple[float, ...]], *, tail: float) -> pd.DataFrame:
-    """The net benefit rows with the bootstrap percentile interval of each difference."""
+                       thresholds: Mapping[int, tuple[float, ...]], *, tail: float, withheld: bool = False) -> pd.DataFrame:
+    """The net benefit rows with the bootstrap percentile interval of each difference (NaN when withheld)."""
     nb_table = pd.DataFrame(nb_rows, columns=["cut", "outcome", "threshold", "nb_model", "nb_rule", "nb_treat_all", "difference"])
     nb_lo, nb_hi = [], []
     for r in nb_table.itertuples():
         draws = boot_nb[r.cut][:, list(thresholds[r.cut]).index(r.threshold)]
-        if draws.size >= 2:
+        if draws.size >= 2 and not withheld:
             a, b = np.percentile(draws, [tail, 100 - tail])
         else:
             a = b = float("nan")
         nb_lo.append(a)
         nb_hi.append(b)
     nb_table["boot_lower"], nb_table["boot_upper"] = nb_lo, nb_hi
+    nb_table["n_boot_used"] = pd.Series([boot_nb[c].shape[0] for c in nb_table["cut"]], dtype="int64")
     return nb_table

@@ -23,6 +23,13 @@ update as a new :class:`~riskvet.modelfile.PredictionModel` whose provenance
 names its parent and the data it was updated on, and reports performance on
 the updating data before and after (optimistic: the same data chose and
 fitted the update; bootstrap-corrected figures on request).
+
+Bootstrap replicate i repeats the whole procedure on a resample drawn with
+stream i of ``numpy.random.SeedSequence(seed).spawn(n_boot)``, so results do
+not depend on how many workers ran them.  A replicate that cannot be
+evaluated (an outcome level absent, or any error met on the way) is a
+counted failure with its reason; when more than ``max_failed_share`` of them
+fail, the optimism correction is not reported (NaN, with the reason stated).
 """
 
 from __future__ import annotations
@@ -44,6 +51,8 @@ from ..intake.design import DesignSpec, build_design
 from ..errors import DataError, RiskvetError, RiskvetWarning, problem
 from ..modelling.modelfile import PredictionModel, model_from_fit
 from ..modelling.fitter import fit_cumulative
+from .bootstrap import _PROPAGATE, ReplicateFailure, _failure_message, _failure_reason
+from .external import _Unmeasured, run_replicates
 
 __all__ = [
     "METHODS",
@@ -284,8 +293,9 @@ class UpdatePerformance:
     n_boot : int
         Bootstrap replicates behind the correction (0: none).
     n_failed : int
-        Replicates that could not be evaluated (a fit failed or an outcome
-        level was absent) and were left out.
+        Replicates that could not be evaluated (an outcome level absent from
+        the resample, or any error met while refitting, testing or measuring)
+        and were left out.
     note : str
         Why the apparent figures are optimistic.
     replicate_choices : dict of str to int
@@ -293,6 +303,23 @@ class UpdatePerformance:
         chose it.  The optimism is that of the whole procedure, whichever
         update each replicate chose, so the corrected figures describe the
         procedure as much as the update chosen on all the data.
+    failures : tuple of ReplicateFailure
+        Every replicate that could not be evaluated, with its reason
+        (``empty outcome level``, ``fit error``, ``numerical error``,
+        ``arithmetic error``, ...; the names of
+        :class:`riskvet.validation.bootstrap.ReplicateFailure`) and the first
+        line of the message, after the step where it was met.
+    max_failed_share : float
+        The share of failed replicates above which the correction is not
+        reported.
+    correction_withheld : str
+        Why ``optimism`` and ``corrected`` are NaN for every measure (more
+        failed replicates than ``max_failed_share`` allows); empty when they
+        are reported.
+    correction_notes : dict of str to str
+        Measure key (a key of ``performance_summary``) -> why that measure's
+        correction is NaN although the others are reported: the measure was
+        undefined in more than ``max_failed_share`` of the replicates.
     """
 
     table: pd.DataFrame = field(repr=False)
@@ -300,13 +327,36 @@ class UpdatePerformance:
     n_failed: int
     note: str
     replicate_choices: Mapping[str, int] = field(default_factory=dict)
+    failures: tuple[ReplicateFailure, ...] = ()
+    max_failed_share: float = 0.1
+    correction_withheld: str = ""
+    correction_notes: Mapping[str, str] = field(default_factory=dict)
+
+    @property
+    def failure_counts(self) -> dict[str, int]:
+        """Failed replicates by reason."""
+        return _count_reasons(self.failures)
+
+    def failure_frame(self) -> pd.DataFrame:
+        """One row per failed replicate: ``replicate``, ``reason``, ``message``."""
+        return pd.DataFrame([f.to_dict() for f in self.failures], columns=["replicate", "reason", "message"])
 
     def to_frame(self) -> pd.DataFrame:
         return self.table.copy()
 
     def to_dict(self) -> dict[str, Any]:
         return to_jsonable({"n_boot": self.n_boot, "n_failed": self.n_failed, "note": self.note, "rows": self.table,
-                            "replicate_choices": dict(self.replicate_choices)})
+                            "replicate_choices": dict(self.replicate_choices),
+                            "failures": [f.to_dict() for f in self.failures], "failure_counts": self.failure_counts,
+                            "max_failed_share": self.max_failed_share, "correction_withheld": self.correction_withheld,
+                            "correction_notes": dict(self.correction_notes)})
+
+
+def _count_reasons(failures: Sequence[ReplicateFailure]) -> dict[str, int]:
+    counts: dict[str, int] = {}
+    for f in failures:
+        counts[f.reason] = counts.get(f.reason, 0) + 1
+    return dict(sorted(counts.items()))
 
 
 @dataclass(frozen=True)
@@ -896,12 +946,21 @@ def _fit_all(model: PredictionModel, frame: pd.DataFrame, y: np.ndarray, *, new_
 
 
 class _UpdateReplicate:
-    """One bootstrap replicate of the whole update procedure (every fit, the closed test)."""
+    """One bootstrap replicate of the whole update procedure (every fit, the closed test), or why there is none."""
 
     def __init__(self, model, frame, y, new_predictors, alpha, cohort):
         self.args = (model, frame, y, new_predictors, alpha, cohort)
 
     def __call__(self, stream):
+        """The replicate's choice and optimism; any error but ``_PROPAGATE`` makes it a counted failure."""
+        try:
+            return self.optimism(stream)
+        except _PROPAGATE:
+            raise
+        except Exception as exc:  # an error of one resample is that replicate's failure, not the run's
+            return _Unmeasured(_failure_reason(exc), _failure_message(exc, "resampling the updating data"))
+
+    def optimism(self, stream):
         return _boot_replicate(*self.args, stream)
 
 
@@ -911,19 +970,27 @@ def _boot_replicate(model, frame, y, new_predictors, alpha, cohort, seed_seq):
     idx = rng.integers(0, n, n)
     yb = y[idx]
     K = len(model.levels)
-    if np.bincount(yb, minlength=K).min() == 0:
-        return None
+    counts = np.bincount(yb, minlength=K)
+    if counts.min() == 0:
+        empty = [model.levels[j] for j in np.flatnonzero(counts == 0)]
+        tally = {str(lv): int(c) for lv, c in zip(model.levels, counts.tolist())}
+        return _Unmeasured("empty outcome level", f"no one in outcome level(s) {empty} of the resample; people by level {tally}")
     fb = frame.iloc[idx].reset_index(drop=True)
+    step = "refitting the updates"
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RiskvetWarning)
         try:
             fits = _fit_all(model, fb, yb, new_predictors=new_predictors, cohort=cohort)
+            step = "choosing the update"
             method = closed_test(fits, alpha=alpha).chosen
+            step = "measuring the chosen update"
             chosen = fits[method].model
             apparent = _summary(yb, chosen.predict_proba(fb))
             test = _summary(y, chosen.predict_proba(frame))
-        except (RiskvetError, np.linalg.LinAlgError):
-            return None
+        except _PROPAGATE:
+            raise
+        except Exception as exc:  # counted with its reason and the step that met it
+            return _Unmeasured(_failure_reason(exc), _failure_message(exc, step))
     return {"chosen": method, "optimism": {k: apparent[k] - test[k] for k in apparent}}
 
 
@@ -939,6 +1006,7 @@ def update_model(
     seed: int | None = None,
     n_jobs: int = 1,
     scheduler: str | None = None,
+    max_failed_share: float = 0.1,
 ) -> UpdateResult:
     """Fit the updating hierarchy on one cohort and choose an update by closed testing.
 
@@ -970,6 +1038,17 @@ def update_model(
         Worker processes for the bootstrap (-1: every core).
     scheduler : str, optional, keyword-only
         Address of a dask.distributed scheduler (``compute.scheduler``).
+    max_failed_share : float, keyword-only
+        Largest share of the ``n_boot`` replicates that may fail (an outcome
+        level absent from the resample, or any error met while refitting,
+        testing or measuring) before the correction is withheld: above it
+        ``optimism`` and ``corrected`` are NaN and
+        ``performance.correction_withheld`` says why; at or below it the
+        failed replicates are left out and listed in
+        ``performance.failures``.  A single measure undefined in more than
+        this share of the replicates loses its correction alone
+        (``performance.correction_notes``).  The default, 0.1, is that of
+        :func:`riskvet.validation.external.validate_cohort`.
 
     Returns
     -------
@@ -981,7 +1060,9 @@ def update_model(
     optimistic.  The bootstrap correction follows Harrell, Lee & Mark
     (1996): optimism = mean over replicates of (performance of the procedure's
     chosen model on the resample - its performance on the updating data),
-    corrected = apparent - optimism.
+    corrected = apparent - optimism.  The mean is over the B_ok replicates
+    that could be evaluated, and is reported only when
+    B - B_ok <= max_failed_share * B.
 
     References
     ----------
@@ -1001,6 +1082,8 @@ def update_model(
         raise RiskvetError(problem(f"{func}(n_boot=)", allowed="a whole number >= 0", received=n_boot))
     if n_boot > 0 and (seed is None or isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0):
         raise RiskvetError(problem(f"{func}(seed=)", allowed="a non-negative integer when n_boot > 0", received=seed))
+    if isinstance(max_failed_share, bool) or not isinstance(max_failed_share, (int, float, np.floating)) or not 0.0 <= float(max_failed_share) <= 1.0:
+        raise RiskvetError(problem(f"{func}(max_failed_share=)", allowed="a share between 0 and 1", received=max_failed_share))
     new_predictors = dict(new_predictors or {})
     missing_cols = [c for c in new_predictors if c not in frame.columns]
     if missing_cols:
@@ -1028,34 +1111,18 @@ def update_model(
     table["cut"] = table["cut"].astype("Int64")
     table["optimism"] = np.nan
     table["corrected"] = np.nan
-    n_failed = 0
-    choices: dict[str, int] = {}
-    if n_boot > 0:
-        from .external import run_replicates
-
-        reps = run_replicates(_UpdateReplicate(model, frame_used, yy, new_predictors, a, cohort), n_boot=int(n_boot), seed=int(seed), n_jobs=n_jobs, scheduler=scheduler)
-        ok = [r["optimism"] for r in reps if r is not None]
-        n_failed = len(reps) - len(ok)
-        choices = {m: sum(1 for r in reps if r is not None and r["chosen"] == m) for m in fits}
-        choices = {m: c for m, c in choices.items() if c}
-        if ok:
-            keys = list(ok[0])
-            optimism = {k: float(np.nanmean([r[k] for r in ok])) for k in keys}
-            chosen_rows = table["method"] == test.chosen
-            for i in np.flatnonzero(chosen_rows.to_numpy()):
-                m, c = table.at[i, "measure"], table.at[i, "cut"]
-                key = m if pd.isna(c) else f"{m}_cut{int(c)}"
-                if key in optimism:
-                    table.at[i, "optimism"] = optimism[key]
-                    table.at[i, "corrected"] = table.at[i, "apparent"] - optimism[key]
-    performance = UpdatePerformance(table=table, n_boot=int(n_boot), n_failed=n_failed, note=_OPTIMISM_NOTE, replicate_choices=choices)
+    performance, boot_notes = _bootstrap_correction(
+        _UpdateReplicate(model, frame_used, yy, new_predictors, a, cohort), table, chosen=test.chosen, methods=list(fits),
+        n_boot=int(n_boot), seed=seed, n_jobs=n_jobs, scheduler=scheduler, max_failed_share=float(max_failed_share),
+    )
+    for note in boot_notes:
+        warnings.warn(note, RiskvetWarning, stacklevel=2)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RiskvetWarning)  # recorded on the calibration results
         before = ordinal_calibration(yy, model.predict_proba(frame_used))
         after = ordinal_calibration(yy, fits[test.chosen].model.predict_proba(frame_used))
     notes = [f"{m}: {w}" for m, f in fits.items() for w in f.warnings]
-    if n_failed:
-        notes.append(f"bootstrap: {n_failed} of {n_boot} replicates could not be evaluated and were left out")
+    notes += boot_notes
     notes.append(_OPTIMISM_NOTE)
     return UpdateResult(
         cohort=cohort,
@@ -1070,3 +1137,68 @@ def update_model(
         calibration_after=after,
         warnings=tuple(notes),
     )
+
+
+def _bootstrap_correction(replicate: _UpdateReplicate, table: pd.DataFrame, *, chosen: str, methods: Sequence[str], n_boot: int,
+                          seed: int | None, n_jobs: int, scheduler: str | None,
+                          max_failed_share: float) -> tuple[UpdatePerformance, list[str]]:
+    """Run the replicates and fill the chosen update's optimism and corrected values, under the failure limit.
+
+    Returns the performance and the notes to issue (failures by reason,
+    and what was withheld).
+    """
+    if n_boot == 0:
+        return UpdatePerformance(table=table, n_boot=0, n_failed=0, note=_OPTIMISM_NOTE,
+                                 max_failed_share=max_failed_share), []
+    reps = run_replicates(replicate, n_boot=n_boot, seed=int(seed), n_jobs=n_jobs, scheduler=scheduler)
+    failures = tuple(ReplicateFailure(i, r.reason, r.message) for i, r in enumerate(reps) if isinstance(r, _Unmeasured))
+    done = [r for r in reps if not isinstance(r, _Unmeasured)]
+    choices = {m: sum(1 for r in done if r["chosen"] == m) for m in methods}
+    choices = {m: c for m, c in choices.items() if c}
+    withheld, notes = _failure_limit(failures, n_boot=n_boot, max_failed_share=max_failed_share)
+    correction_notes: dict[str, str] = {}
+    if done and not withheld:
+        ok = [r["optimism"] for r in done]
+        allowed = max_failed_share * n_boot
+        optimism: dict[str, float] = {}
+        for k in ok[0]:
+            values = [r[k] for r in ok]
+            missing = n_boot - int(np.isfinite(values).sum())
+            if missing > allowed or missing == n_boot:
+                correction_notes[k] = (f"undefined in {missing} of {n_boot} resamples, more than the {max_failed_share:.0%} "
+                                       "allowed (max_failed_share); its optimism correction is not reported"
+                                       if missing > allowed else
+                                       f"undefined in every one of the {n_boot} resamples; its optimism correction is not reported")
+                notes.append(f"bootstrap: {k}: {correction_notes[k]}")
+            else:
+                optimism[k] = float(np.nanmean(values))
+        _fill_correction(table, optimism, chosen=chosen)
+    performance = UpdatePerformance(table=table, n_boot=n_boot, n_failed=len(failures), note=_OPTIMISM_NOTE, replicate_choices=choices,
+                                    failures=failures, max_failed_share=max_failed_share, correction_withheld=withheld,
+                                    correction_notes=correction_notes)
+    return performance, notes
+
+
+def _fill_correction(table: pd.DataFrame, optimism: Mapping[str, float], *, chosen: str) -> None:
+    """Write the optimism and the corrected value into the chosen update's rows of ``table`` (in place)."""
+    for i in np.flatnonzero((table["method"] == chosen).to_numpy()):
+        m, c = table.at[i, "measure"], table.at[i, "cut"]
+        key = m if pd.isna(c) else f"{m}_cut{int(c)}"
+        if key in optimism:
+            table.at[i, "optimism"] = optimism[key]
+            table.at[i, "corrected"] = table.at[i, "apparent"] - optimism[key]
+
+
+def _failure_limit(failures: Sequence[ReplicateFailure], *, n_boot: int, max_failed_share: float) -> tuple[str, list[str]]:
+    """Why the correction is withheld (empty when it is not) and the notes to issue."""
+    notes: list[str] = []
+    if not failures:
+        return "", notes
+    by_reason = ", ".join(f"{c} {r}" for r, c in _count_reasons(failures).items())
+    notes.append(f"bootstrap: {len(failures)} of {n_boot} replicates could not be evaluated and were left out ({by_reason})")
+    if len(failures) <= max_failed_share * n_boot:
+        return "", notes
+    withheld = (f"{len(failures)} of {n_boot} replicates could not be evaluated, more than the {max_failed_share:.0%} "
+                "allowed (max_failed_share); the optimism correction is not reported")
+    notes.append(f"bootstrap: {withheld}")
+    return withheld, notes
