@@ -183,3 +183,14 @@ def test_json_and_figures(result):
     assert "Y >= high" in rule_summary(result)
     with pytest.raises(RiskvetError, match="RuleComparison"):
         plot_rule_comparison("result")
+
+
+def test_withheld_bootstrap_intervals_are_said_so_and_delong_given(result):
+    """Too many failed replicates: the page's sentence says the bootstrap intervals are withheld and why, and gives
+    DeLong's intervals instead, never 'nan'."""
+    import dataclasses
+
+    withheld = dataclasses.replace(result, intervals_withheld="4 of 30 replicates failed, more than the allowed share 0.1")
+    text = rule_summary(withheld)
+    assert "bootstrap intervals are withheld (4 of 30 replicates failed" in text
+    assert "DeLong interval" in text and "nan" not in text.lower()

@@ -497,3 +497,17 @@ def test_updating_notebook_template():
 
     shown = [k for c in cells if c["cell_type"] == "code" for k in re.findall(r'out\.texts\["(\w+)"\]', c["source"])]
     assert len(shown) == len(set(shown)) and shown.count("optimism") == 1
+
+
+def test_a_withheld_correction_is_said_so_not_printed_as_nan(model):
+    """Too many failed replicates of the updating procedure: the optimism sentence gives the reason, never 'nan'."""
+    import dataclasses
+
+    from riskvet.reporting.sentences.updating import optimism_sentence
+
+    v, y = validation(600, 10)
+    result = update_model(model, v, y, n_boot=8, seed=4)
+    table = result.performance.table.assign(optimism=np.nan, corrected=np.nan)
+    perf = dataclasses.replace(result.performance, table=table, correction_withheld="3 of 8 replicates failed, more than the allowed share 0.1")
+    text = optimism_sentence(dataclasses.replace(result, performance=perf), "average_cut_auc", None, "average C over the cuts")
+    assert "is withheld: 3 of 8 replicates failed" in text and "nan" not in text.lower()

@@ -274,7 +274,9 @@ def rule_summary(comparison: Any, *, outcome_levels: Any = None) -> str:
     interval of a difference is the bootstrap percentile interval when the
     comparison ran the bootstrap, else DeLong's.
     """
-    boot = comparison.n_boot > 0
+    withheld = getattr(comparison, "intervals_withheld", "")
+    # with the bootstrap intervals withheld (too many failed replicates), DeLong's intervals are given instead
+    boot = comparison.n_boot > 0 and not withheld
     kind = interval_words("bootstrap" if boot else "delong", comparison.confidence)
     parts = [f"In {comparison.label}, the rule '{comparison.rule_column}' was recorded for {comparison.n} patients ({comparison.n_missing_rule} without it were left out)."]
     for r in comparison.concordance_table.itertuples():
@@ -288,7 +290,10 @@ def rule_summary(comparison: Any, *, outcome_levels: Any = None) -> str:
             f"For {r.outcome if outcome_levels is None else outcome_words(outcome_levels, r.cut)}, C is {r.c_model:.3f} for the model and {r.c_rule:.3f} for the rule "
             f"(difference {r.difference:+.3f}, {kind} {lo:+.3f} to {hi:+.3f}; DeLong test {p}): {verdict}."
         )
-    if len(comparison.net_benefit_table):
+    if withheld:
+        parts.append(f"The bootstrap intervals are withheld ({withheld}); the intervals above are DeLong's, and the net "
+                     "benefit differences have no interval.")
+    elif len(comparison.net_benefit_table):
         better = comparison.net_benefit_table[comparison.net_benefit_table["boot_lower"] > 0]
         worse = comparison.net_benefit_table[comparison.net_benefit_table["boot_upper"] < 0]
         total = len(comparison.net_benefit_table)

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 from typing import Any, Mapping
 
 from ...validation.update import METHODS, method_label, method_name
@@ -63,6 +65,10 @@ def optimism_sentence(result: Any, c_key: str, c_cut: Any, c_name: str) -> str:
         return f"Warning: {perf.note}"
     row = rows.iloc[0]
     used = perf.n_boot - perf.n_failed
+    withheld = getattr(perf, "correction_withheld", "") or getattr(perf, "correction_notes", {}).get(c_key, "")
+    if withheld or not math.isfinite(float(row["corrected"])):
+        return (f"Warning: {perf.note} The bootstrap correction of {c_name} for the whole updating procedure is withheld: "
+                f"{withheld or 'it could not be computed from the replicates'}.")
     order = sorted(perf.replicate_choices.items(), key=lambda kv: (-kv[1], METHODS.index(kv[0])))
     chose = ", ".join(f"{method_name(m, binary=binary)} in {k}" for m, k in order)
     name = method_name(result.closed_test.chosen, binary=binary)
