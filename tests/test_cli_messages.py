@@ -76,7 +76,7 @@ def test_positional_arguments_have_help(command, capsys):
 
 
 def test_check_audit_reads_in_words(capsys, tmp_path):
-    study = new_study_folder(tmp_path / "s", n_derivation=80, n_validation=50, n_ratings=20)
+    study = new_study_folder(tmp_path / "s", n_derivation=200, n_validation=50, n_ratings=20)
     assert cli.main(["check", str(study)]) == 0
     out = capsys.readouterr().out
     audit = out.split("columns as received:")[1].split("\n\n")[0]
