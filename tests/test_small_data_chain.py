@@ -225,3 +225,14 @@ def test_riskvet_check_names_a_separating_term_before_anything_is_fitted(tmp_pat
     frame = _separated_binary()
     frame.loc[frame.index[frame["site"] == "c"][:5], "outcome"] = "yes"
     assert separating_terms(study, frame, (frame["outcome"] == "yes").to_numpy().astype(int)) == ()
+
+
+def test_the_lasso_page_shows_its_penalty_curve_table_and_figure(rare_level_lasso):
+    frame, result = rare_level_lasso
+    text = _page_text(result, "derivation")
+    assert "Cross-validated log-likelihood at each penalty tried" in text
+    assert "terms with a non-zero coefficient" in text
+    assert (result.record_dir / "figures" / "derivation" / "penalty_curve.svg").is_file()
+    # the optimism figure draws an unstable estimate without its corrected value, and says so
+    svg = (result.record_dir / "figures" / "internal_validation" / "optimism.svg").read_text()
+    assert "unstable: not corrected" in svg

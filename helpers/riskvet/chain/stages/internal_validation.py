@@ -199,12 +199,18 @@ def _model_check(ctx, validation: InternalValidation) -> str:
 
 
 def _as_shown(validation: InternalValidation) -> InternalValidation:
-    """The validation as the page draws it: a .632+ estimate only for the kinds in ``SHOWN_632PLUS``.
+    """The validation as the page draws it: a .632+ estimate only for the kinds in ``SHOWN_632PLUS``, and no
+    corrected value (nor .632+) for an estimate flagged unstable.
 
     The results file keeps every estimate; the figure and the table leave out
     the ones the page explains are not meaningful.
     """
-    estimates = tuple(e if e.kind in SHOWN_632PLUS else dataclasses.replace(e, estimate_632plus=float("nan")) for e in validation.estimates)
+    nan = float("nan")
+    estimates = tuple(
+        dataclasses.replace(e, corrected=nan, estimate_632plus=nan) if e.unstable
+        else e if e.kind in SHOWN_632PLUS else dataclasses.replace(e, estimate_632plus=nan)
+        for e in validation.estimates
+    )
     return dataclasses.replace(validation, estimates=estimates)
 
 

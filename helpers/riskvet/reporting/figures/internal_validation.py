@@ -89,7 +89,8 @@ def plot_optimism(result: InternalValidation, *, measures: Sequence[str] | None 
                     ax.plot(e.estimate_632plus, r, linestyle="none", marker="^", markersize=5.5, color=PALETTE[2])
             if ideal is not None:
                 ax.axvline(ideal, color=_REFERENCE, linestyle=":", linewidth=1.0)
-            ax.set_yticks(rows, [e.label for e in items])
+            # an unstable estimate is drawn without a corrected value, and says so
+            ax.set_yticks(rows, [e.label + (" (unstable: not corrected)" if getattr(e, "unstable", False) else "") for e in items])
             ax.set_ylim(-0.7, len(items) - 0.3)
             ax.set_title(name, loc="left")
             ax.grid(axis="y", visible=False)

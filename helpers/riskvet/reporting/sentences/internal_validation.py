@@ -62,7 +62,8 @@ def estimates_sentence(validation: Any) -> str:
     )
     unexpected = []
     for e in validation.estimates:
-        if judge_change(BASE_KEYS[e.kind], e.apparent, e.corrected) != "better":
+        # an unstable estimate is not read as a corrected value (the readability sentence names it)
+        if getattr(e, "unstable", False) or judge_change(BASE_KEYS[e.kind], e.apparent, e.corrected) != "better":
             continue
         low, high = -e.optimism_upper, -e.optimism_lower
         across = math.isfinite(low) and math.isfinite(high) and low <= 0 <= high
