@@ -21,6 +21,7 @@ from bs4 import BeautifulSoup
 
 from riskvet.chain.runner import run_study
 from riskvet.errors import StudyError
+from riskvet.reporting.publish import scan_text
 
 
 def _write_study(folder: Path, frame: pd.DataFrame, *, outcome: dict, candidates: dict, model: dict | None = None,
@@ -54,8 +55,11 @@ def _results(result, stage: str) -> dict:
 
 
 def _page_text(result, stage: str) -> str:
+    """A page's visible text; it must show no missing-value word, class name, path or scientific notation."""
     page = next((result.record_dir / "html").glob(f"*_{stage}.html"))
-    return " ".join(BeautifulSoup(page.read_text(), "html.parser").get_text(" ").split())
+    text = " ".join(BeautifulSoup(page.read_text(), "html.parser").get_text(" ").split())
+    assert scan_text(text) == [], scan_text(text)
+    return text
 
 
 def _separated_binary(n: int = 160, seed: int = 5) -> pd.DataFrame:
@@ -149,6 +153,9 @@ def test_a_fifteen_row_study_with_no_selected_term_runs_and_counts_its_failures(
     assert auc["apparent"] == 0.5
     text = _page_text(result, "internal_validation")
     assert "undefined:" in text
+    derivation_page = _page_text(result, "derivation")
+    assert "the calibration slope is undefined (shown as a dash)" in derivation_page
+    assert "Hosmer–Lemeshow test is not computed" in derivation_page
 
 
 def test_more_folds_than_people_in_a_level_is_refused_before_anything_runs(tmp_path):

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 from typing import Any, Mapping, Sequence
 
 from ..labels import cut_label
@@ -118,11 +120,7 @@ def derivation_texts(
             + f", Brier score {decimals(summary['brier'])}, Nagelkerke R² {decimals(summary['nagelkerke_r2'])}. "
             "Internal validation estimates how much of this is optimism."
         ),
-        "calibration": (
-            "On its own data a maximum-likelihood binary model has calibration-in-the-large 0 and slope 1 by construction "
-            "(for an ordered outcome each cut is close to, not exactly at, these values); "
-            "the curve shows whether the model's form (link, splines) fits across the range of risk."
-        ),
+        "calibration": apparent_calibration_sentence(getattr(fit, "estimation", "maximum likelihood"), n_terms=n_terms),
         "roc": "ROC curve for each outcome, with the operating points of the study's thresholds marked.",
     }
     summary_parts = [f"{cohort.n_analysed} people analysed; the final model has {n_terms} terms and {n_params} parameters."]
@@ -206,6 +204,24 @@ def events_per_parameter_sentence(smallest_level: int, n_candidate_parameters: i
     return head + f" That is at least {low}, a common rule of thumb." + guide
 
 
+def apparent_calibration_sentence(estimation: str, *, n_terms: int) -> str:
+    """What apparent calibration can show, given how the model was estimated and whether it has any term."""
+    if n_terms == 0:
+        return ("The model has no terms, so every person gets the same predicted risk (the observed proportion of each "
+                "level): the calibration slope is undefined (shown as a dash) and the C statistic is 0.5 by construction.")
+    if estimation == "penalized":
+        return ("Penalised estimates are shrunk towards zero on purpose, so on its own data the model's calibration slope is "
+                "above 1 by design (predictions more moderate than the data alone would give); the curve shows whether the "
+                "model's form fits across the range of risk.")
+    if estimation == "firth":
+        return ("Firth's estimates pull predictions slightly towards one half, so on its own data calibration-in-the-large "
+                "and slope are close to, not exactly at, 0 and 1; the curve shows whether the model's form (link, splines) "
+                "fits across the range of risk.")
+    return ("On its own data a maximum-likelihood binary model has calibration-in-the-large 0 and slope 1 by construction "
+            "(for an ordered outcome each cut is close to, not exactly at, these values); "
+            "the curve shows whether the model's form (link, splines) fits across the range of risk.")
+
+
 def hosmer_lemeshow_sentence(calibration: Any, *, n_levels: int) -> str:
     """The Hosmer–Lemeshow test and what its p-value means at this sample size.
 
@@ -221,6 +237,9 @@ def hosmer_lemeshow_sentence(calibration: Any, *, n_levels: int) -> str:
     """
     name = "Hosmer–Lemeshow test" if n_levels == 2 else "ordinal Hosmer–Lemeshow test"
     stat, df, p = calibration.hosmer_lemeshow, calibration.hosmer_lemeshow_df, calibration.hosmer_lemeshow_pvalue
+    if not (df > 0 and math.isfinite(stat) and math.isfinite(p)):
+        return (f"The {name} is not computed: it needs at least three groups of distinct predicted risk, and these "
+                f"predictions form {calibration.n_groups} (as when every person gets the same predicted risk).")
     p_text = "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
     return (
         f"The {name} on {calibration.n_groups} groups of predicted risk gives chi-square {stat:.2f} on {df:g} degrees of freedom, "

@@ -180,15 +180,15 @@ def tuning_sentence(validation: Any) -> str:
     pen = getattr(validation, "penalty_spread", None)
     slope = getattr(validation, "slope_spread", None)
     if pen is None:
-        if slope is None:
-            return "No replicate spread of the calibration slope could be computed."
+        if slope is None or not math.isfinite(slope.median):
+            return "No replicate spread of the calibration slope could be computed (no replicate model had one)."
         return (f"Over {slope.n_replicates} replicates the calibration slope of the derived models on the original data had median "
                 f"{slope.median:.2f} (central 95% {slope.lower:.2f} to {slope.upper:.2f}).")
     text = (
         f"Each replicate tuned its own penalty by cross-validation: on all data the penalty is {pen.apparent:.3g}; over "
         f"{pen.n_replicates} replicates its median was {pen.median:.3g} (central 95% {pen.lower:.3g} to {pen.upper:.3g})."
     )
-    if slope is not None:
+    if slope is not None and math.isfinite(slope.median):
         text += (f" The calibration slope of the replicate models on the original data had median {slope.median:.2f} "
                  f"(central 95% {slope.lower:.2f} to {slope.upper:.2f}).")
     return text + (
@@ -240,25 +240,41 @@ def shrinkage_sentence(shrinkage: Any) -> str:
 
 
 def internal_validation_summary(validation: Any) -> str:
-    """Two or three sentences summarising the internal validation: the headline measure, its optimism and the calibration slope."""
+    """Two or three sentences summarising the internal validation: the headline measure, its optimism and the calibration slope.
+
+    An estimate flagged unstable is not given as a corrected value, and an
+    undefined one (a model without terms has no calibration slope) says why.
+    """
     head = validation.estimate(validation.headline_measure)
     slope = validation.estimate("calibration_slope")
-    if slope.corrected < 1:
-        reading = " (below 1: predictions from a model derived this way are expected to be too extreme in new patients)"
-    elif slope.corrected > 1:
-        reading = " (above 1: predictions are expected to be too moderate in new patients)"
+    lead = (f"Across {validation.n_succeeded} bootstrap replicates that each repeated the whole derivation "
+            f"({_method_words(validation.stability.method)}, knot placement and fitting), the {_lower_first(head.label)} is "
+            f"{head.apparent:.3f} in the derivation data")
+    if getattr(head, "unstable", False) or not math.isfinite(head.corrected):
+        text = lead + f"; its value expected in new patients is not given ({readable_reason(head)})."
     else:
-        reading = ""
-    text = (
-        f"Across {validation.n_succeeded} bootstrap replicates that each repeated the whole derivation "
-        f"({_method_words(validation.stability.method)}, knot placement and fitting), the "
-        f"{_lower_first(head.label)} is {head.apparent:.3f} in the derivation data and {head.corrected:.3f} "
-        f"expected in new patients from the same population (optimism {head.optimism:.3f}); the .632+ estimate is "
-        f"{head.estimate_632plus:.3f}. The calibration slope of the linear predictor expected in new patients is "
-        f"{slope.corrected:.2f}{reading}."
-    )
-    text += " " + failure_sentence(validation)
-    return text
+        plus = f"; the .632+ estimate is {head.estimate_632plus:.3f}" if math.isfinite(head.estimate_632plus) else ""
+        text = (lead + f" and {head.corrected:.3f} expected in new patients from the same population (optimism "
+                f"{head.optimism:.3f}){plus}.")
+    if getattr(slope, "undefined_reason", "") or not math.isfinite(slope.corrected):
+        text += f" The calibration slope is undefined: {readable_reason(slope)}."
+    elif getattr(slope, "unstable", False):
+        text += f" The calibration slope expected in new patients is not given ({readable_reason(slope)})."
+    else:
+        reading = (" (below 1: predictions from a model derived this way are expected to be too extreme in new patients)"
+                   if slope.corrected < 1 else
+                   " (above 1: predictions are expected to be too moderate in new patients)" if slope.corrected > 1 else "")
+        text += f" The calibration slope of the linear predictor expected in new patients is {slope.corrected:.2f}{reading}."
+    return text + " " + failure_sentence(validation)
+
+
+def readable_reason(e: Any) -> str:
+    """Why an estimate's corrected value is not given: undefined, or unstable, with the reason recorded on it."""
+    if getattr(e, "undefined_reason", ""):
+        return e.undefined_reason
+    if getattr(e, "unstable", False):
+        return f"unstable: {e.unstable_reason}"
+    return "the replicates gave no value"
 
 
 def failure_sentence(validation: Any) -> str:
