@@ -149,3 +149,24 @@ def test_screen_flags_huge_standardised_coefficients_only():
     assert not _separation_screen(d, np.array([0.0, 1.0, -0.5]), P, True, False)
     assert _separation_screen(d, np.array([0.0, 12.0, -0.5]), P, True, False)
     assert _separation_screen(d, np.array([0.0, 1.0, -0.5]), P, False, False)
+
+
+def test_one_column_binary_separation_is_decided_exactly_without_the_programme():
+    """The shortcut for one column of a binary model (every calibration-slope fit) agrees with the linear programme
+    on overlapping, touching (quasi-complete) and apart (complete) data, in both directions (invented test data)."""
+    from riskvet.modelling.fitter import _make_design, _separated_columns, _separation_check
+
+    rng = np.random.default_rng(3)
+    for case in ("overlap", "touch", "apart", "reversed"):
+        x = np.sort(rng.normal(size=40))
+        y = (np.arange(40) >= 20).astype(np.int64)
+        if case == "overlap":
+            y[[3, 30]] = y[[30, 3]]
+        elif case == "touch":
+            x[20] = x[19]
+        elif case == "reversed":
+            y = 1 - y
+        order = np.argsort(y, kind="stable")
+        d = _make_design(x[order, None], y[order], 2, np.ones(40), None, "logit", True, True)
+        assert _separation_check(d) == _separated_columns(d), case
+        assert bool(_separation_check(d)) == (case != "overlap"), case
