@@ -52,7 +52,7 @@ class PredictionModel:
     coef : ndarray, shape (p,) or (p, K-1)
         beta, one per design column (one column per cut when not proportional).
     link : str
-        ``logit``, ``probit`` or ``cloglog``.
+        ``logit``, ``probit``, ``cloglog`` or ``loglog``.
     outcome : dict
         ``column``, ``type``, ``levels`` (coded 0..K-1) and ``labels``.
     provenance : dict

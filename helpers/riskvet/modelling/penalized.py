@@ -608,7 +608,7 @@ def fit_penalized(
         Penalty strength, >= 0 (0 is maximum likelihood).
     l1_ratio : float, keyword-only
         Share of the (group) lasso part, in [0, 1]: 0 ridge, 1 lasso.
-    link : {"logit", "probit", "cloglog"}, keyword-only
+    link : {"logit", "probit", "cloglog", "loglog"}, keyword-only
         Link distribution F.
     proportional : bool, keyword-only
         One coefficient vector for all cuts (default) or one per cut.

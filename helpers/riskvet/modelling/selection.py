@@ -458,7 +458,7 @@ def select_terms(
         Folds of the cross-validation choosing the forward model size.
     seed : int or numpy.random.Generator, keyword-only
         Source of the fold assignment.
-    link : {"logit", "probit", "cloglog"}, keyword-only
+    link : {"logit", "probit", "cloglog", "loglog"}, keyword-only
         Link of every fit.
     proportional : bool, keyword-only
         Model form of every fit.
