@@ -243,3 +243,16 @@ def test_the_lasso_page_shows_its_penalty_curve_table_and_figure(rare_level_lass
     # the optimism figure draws an unstable estimate without its corrected value, and says so
     svg = (result.record_dir / "figures" / "internal_validation" / "optimism.svg").read_text()
     assert "unstable: not corrected" in svg
+
+
+def test_a_binary_model_with_the_loglog_link_runs_and_writes_its_equation(tmp_path):
+    """link: loglog (the event-side complementary log-log model) from the study file to the model file and page."""
+    frame = _separated_binary()
+    frame.loc[frame.index[frame["site"] == "c"][:6], "outcome"] = "yes"  # no longer separated
+    path = _write_study(tmp_path / "loglog", frame, outcome=_BINARY, candidates=_SITE, model={"link": "loglog"},
+                        internal={"enabled": False})
+    result = _run(path)
+    assert result.ok, result.failed_stage and result.failed_stage.error
+    model = json.loads((result.record_dir / "models" / "model.json").read_text())
+    assert model["link"] == "loglog"
+    assert "H(t) = exp(-exp(-t))" in _page_text(result, "derivation")
