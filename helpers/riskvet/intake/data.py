@@ -6,7 +6,9 @@ row.  :func:`prepare_cohort` checks a frame against the study (columns exist,
 outcome and category values are the configured ones, numeric predictors are
 numbers, ids are unique), applies complete-case exclusions in a fixed order
 and records each step, and codes the outcome 0..K-1.  :func:`load_cohorts`
-does all of this for every file the study names.
+does all of this for every file the study names.  With ``data.weight_column``
+every cohort carries frequency weights (a row standing for w identical
+people); :func:`expand_cohort` writes such a cohort out one row per person.
 :func:`standardised_differences` compares two prepared cohorts; the
 descriptive table a record publishes is built, with its small counts
 suppressed, by :func:`riskvet.reporting.descriptive.descriptive_table`.
@@ -23,6 +25,7 @@ their counts (``'>90' (2 rows)``), never row numbers or ids.
 
 from __future__ import annotations
 
+import dataclasses
 import difflib
 import importlib
 import math
@@ -52,6 +55,7 @@ __all__ = [
     "audit_frame",
     "prepare_cohort",
     "load_cohorts",
+    "expand_cohort",
     "standardised_differences",
 ]
 
@@ -566,13 +570,19 @@ class PreparedCohort:
     subgroup_columns : tuple of str
     exclusions : DataFrame
         Sequential exclusion steps with columns ``reason``, ``column``,
-        ``excluded`` (rows removed at this step) and ``remaining``.  Steps:
+        ``excluded`` (rows removed at this step) and ``remaining`` (rows).
+        Steps: with frequency weights, rows of weight 0 (``"weight 0"``:
+        they stand for no one, and are counted, never dropped silently);
         missing outcome, then missing value of each predictor in study order.
-        Every step is listed, with 0 when nothing was removed.
+        Every step is listed, with 0 when nothing was removed.  With
+        frequency weights two more columns count people:
+        ``excluded_people`` and ``remaining_people``.
     n_screened, n_analysed : int
-        Rows received and rows kept.
+        Rows received and rows kept (rows of the file, not people).
     outcome_counts : dict
-        Analysed rows per outcome level.
+        Analysed PEOPLE per outcome level: with frequency weights the sum of
+        the weights of the level's rows, without them its rows.  Rows per
+        level are in ``outcome_rows``.
     category_mappings : tuple of CategoryMapping
         ``data.category_map`` entries applied (validation only), with counts.
     missing : str
@@ -580,6 +590,18 @@ class PreparedCohort:
     audit : FrameAudit
         Audit of the needed columns as received (before exclusions), the id
         column private.
+    weights : ndarray of int or None
+        Frequency weights of the analysed rows (each at least 1), aligned
+        with ``frame`` and ``y``: row i stands for ``weights[i]`` identical
+        people.  None without ``data.weight_column`` (every row is one person).
+    weight_column : str or None
+        ``data.weight_column``; the column is not carried in ``frame``.
+    n_people, n_people_screened : int
+        People analysed and screened: the sums of the weights, or the row
+        counts without weights.
+    outcome_rows : dict
+        Analysed rows per outcome level (equal to ``outcome_counts``
+        without weights).
     """
 
     role: str
@@ -602,6 +624,20 @@ class PreparedCohort:
     category_mappings: tuple[CategoryMapping, ...]
     missing: str
     audit: FrameAudit = field(repr=False)
+    weights: np.ndarray | None = field(default=None, repr=False)
+    weight_column: str | None = None
+    n_people: int | None = None
+    n_people_screened: int | None = None
+    outcome_rows: dict[str, int] | None = None
+
+    def __post_init__(self) -> None:
+        # without frequency weights a row is a person: the people counts are the row counts
+        if self.n_people is None:
+            object.__setattr__(self, "n_people", self.n_analysed)
+        if self.n_people_screened is None:
+            object.__setattr__(self, "n_people_screened", self.n_screened)
+        if self.outcome_rows is None:
+            object.__setattr__(self, "outcome_rows", dict(self.outcome_counts))
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready summary (no rows)."""
@@ -612,8 +648,12 @@ class PreparedCohort:
             "missing": self.missing,
             "n_screened": self.n_screened,
             "n_analysed": self.n_analysed,
+            "weight_column": self.weight_column,
+            "n_people_screened": self.n_people_screened,
+            "n_people": self.n_people,
             "outcome_levels": list(self.outcome_levels),
             "outcome_counts": self.outcome_counts,
+            "outcome_rows": self.outcome_rows,
             "predictors": list(self.predictors),
             "new_predictors": list(self.new_predictors),
             "forms": self.forms,
@@ -631,7 +671,10 @@ class PreparedCohort:
 
         Step 0 is the rows screened.
         """
-        head = pd.DataFrame([{"reason": "rows screened", "column": None, "excluded": 0, "remaining": self.n_screened}])
+        first = {"reason": "rows screened", "column": None, "excluded": 0, "remaining": self.n_screened}
+        if "remaining_people" in self.exclusions.columns:
+            first |= {"excluded_people": 0, "remaining_people": self.n_people_screened}
+        head = pd.DataFrame([first])
         table = pd.concat([head, self.exclusions], ignore_index=True)
         table.insert(0, "step", range(len(table)))
         table.insert(0, "cohort", self.label)
@@ -664,6 +707,8 @@ def _needs(study: Study, frame_columns: set[str], *, role: str, label: str) -> l
     if study.data.id_column is not None:
         needs.append(_Need(study.data.id_column, "data.id_column", True))
     needs.append(_Need(study.outcome.column, "outcome.column", True))
+    if study.data.weight_column is not None:
+        needs.append(_Need(study.data.weight_column, "data.weight_column, frequency weights", True))
     for name in study.predictors.in_analysis:
         form = study.predictors.candidates[name].form
         needs.append(_Need(name, f"predictor, form {form!r}", True))
@@ -743,7 +788,10 @@ def prepare_cohort(
         that are not the configured levels; numeric predictors with values that
         are not numbers; categorical values outside the predictor's ``levels``;
         validation categories unseen in the derivation data; existing-rule
-        values outside its levels; duplicated ids (counts only); no rows left.
+        values outside its levels; duplicated ids (counts only); frequency
+        weights (``data.weight_column``) that are missing, not numbers,
+        negative or not whole numbers (fractional case or sampling weights
+        are not supported); no rows left.
 
     Notes
     -----
@@ -788,15 +836,18 @@ def prepare_cohort(
     problems += found
     problems += _check_rule(study, raw, needed, out, source=where)
     problems += _check_subgroups(study, raw, needed, out, source=where)
+    screened_weights = _check_weights(study, raw, problems, source=where)
     if problems:
         _raise(where, problems)
 
-    keep, exclusions = _complete_cases(study, raw, out, where)
+    keep, exclusions = _complete_cases(study, raw, out, where, weights=screened_weights)
     kept = pd.DataFrame({c: s[keep.to_numpy()] for c, s in out.items()}).reset_index(drop=True)
     y = outcome_codes(study, kept[study.outcome.column], source=where)
     category_levels = _category_levels(specs, reference, kept)
     levels = study.outcome.ordered_levels
-    counts = np.bincount(y, minlength=len(levels))
+    rows = np.bincount(y, minlength=len(levels))
+    weights = None if screened_weights is None else screened_weights[keep.to_numpy()]
+    counts = rows if weights is None else np.bincount(y, weights=weights, minlength=len(levels)).astype(np.int64)
     return PreparedCohort(
         role=role,
         label=label,
@@ -818,6 +869,11 @@ def prepare_cohort(
         category_mappings=tuple(mappings),
         missing=missing,
         audit=audit,
+        weights=weights,
+        weight_column=study.data.weight_column,
+        n_people=int(keep.sum()) if weights is None else int(weights.sum()),
+        n_people_screened=int(len(raw)) if screened_weights is None else int(screened_weights.sum()),
+        outcome_rows={lv: int(n) for lv, n in zip(levels, rows)},
     )
 
 
@@ -1018,19 +1074,105 @@ def _check_subgroups(study: Study, raw: pd.DataFrame, needed: Mapping[str, _Need
     return problems
 
 
-def _complete_cases(study: Study, raw: pd.DataFrame, out: Mapping[str, pd.Series], where: str) -> tuple[pd.Series, pd.DataFrame]:
+_WEIGHT_ALLOWED = "frequency weights: whole numbers >= 0, each row standing for that many identical people"
+_WEIGHT_MEANING = (
+    f"{_WEIGHT_ALLOWED} (fractional case or sampling weights are not supported, because the model's standard errors "
+    "and the bootstrap assume each row is w identical people)"
+)
+
+
+def _check_weights(study: Study, raw: pd.DataFrame, problems: list[str], *, source: str | None = None) -> np.ndarray | None:
+    """The frequency weight of every screened row (int64), or None without ``data.weight_column``.
+
+    Missing values, values that are not numbers, negative and fractional
+    values are appended to ``problems`` (with the file lines holding them).
+    """
+    column = study.data.weight_column
+    if column is None:
+        return None
+    where = f"column {column!r} (data.weight_column)"
+    numbers, bad = _to_number(raw[column])
+    if len(bad):
+        problems.append(_bad_values(where, allowed=_WEIGHT_ALLOWED, bad=bad, limit=_SHOWN_VALUES, source=source))
+    absent = numbers.isna() & ~numbers.index.isin(bad.index)
+    if absent.any():
+        problems.append(f"{where}: expected {_WEIGHT_ALLOWED}; received {int(absent.sum())} missing value(s) "
+                        f"({_file_lines(np.flatnonzero(absent.to_numpy()), source)}); a row standing for no one has weight 0")
+    present = numbers.dropna()
+    checks = ((present < 0, "negative", _WEIGHT_ALLOWED),
+              ((present >= 0) & (present != np.floor(present)), "not whole numbers", _WEIGHT_MEANING))
+    for test, words, allowed in checks:
+        if test.any():
+            shown = _as_text(present[test])
+            problems.append(_bad_values(f"{where}, {words}", allowed=allowed, bad=shown, limit=_SHOWN_VALUES, source=source))
+    if numbers.notna().all() and (present >= 0).all() and (present == np.floor(present)).all():
+        if (present >= 2.0**62).any():
+            problems.append(problem(where, allowed="weights below 2^62", received=f"{float(present.max()):g}"))
+            return None
+        return present.to_numpy(dtype=np.int64)
+    return None
+
+
+def expand_cohort(cohort: "PreparedCohort") -> "PreparedCohort":
+    """The cohort written out one row per person: row i repeated ``weights[i]`` times.
+
+    Parameters
+    ----------
+    cohort : PreparedCohort
+        A cohort read with frequency weights (``data.weight_column``); a
+        cohort without weights is returned as it is.
+
+    Returns
+    -------
+    PreparedCohort
+        ``frame`` and ``y`` with every row repeated by its weight (in row
+        order, copies side by side), ``weights`` None, ``n_screened`` and
+        ``n_analysed`` in people, and the exclusion table in people.  What
+        is computed on it is what the same data written out row by row
+        would give; it is the view counts and descriptions of people are
+        taken from.
+    """
+    cohort = _check_cohort(cohort, "expand_cohort: cohort")
+    if cohort.weights is None:
+        return cohort
+    rows = np.repeat(np.arange(len(cohort.y)), cohort.weights)
+    exclusions = cohort.exclusions.drop(columns=["excluded", "remaining"]).rename(
+        columns={"excluded_people": "excluded", "remaining_people": "remaining"})
+    return dataclasses.replace(
+        cohort,
+        frame=cohort.frame.iloc[rows].reset_index(drop=True),
+        y=cohort.y[rows],
+        exclusions=exclusions,
+        n_screened=cohort.n_people_screened,
+        n_analysed=cohort.n_people,
+        weights=None,
+        outcome_rows=dict(cohort.outcome_counts),
+    )
+
+
+def _complete_cases(study: Study, raw: pd.DataFrame, out: Mapping[str, pd.Series], where: str, *,
+                    weights: np.ndarray | None = None) -> tuple[pd.Series, pd.DataFrame]:
     """The rows kept by complete-case exclusion, and the table of exclusion steps.
 
-    Steps run in a fixed order: the outcome, then each predictor in study
-    order.  Refuses a cohort with no row left.
+    Steps run in a fixed order: rows of weight 0 (with frequency weights),
+    the outcome, then each predictor in study order.  With ``weights`` the
+    table also counts people (``excluded_people``, ``remaining_people``).
+    Refuses a cohort with no row left.
     """
     keep = pd.Series(True, index=raw.index)
     steps = []
-    for reason, column in [("missing outcome", study.outcome.column)] + [("missing predictor", p) for p in study.predictors.in_analysis]:
-        gone = keep & out[column].isna()
+    order = [("missing outcome", study.outcome.column)] + [("missing predictor", p) for p in study.predictors.in_analysis]
+    if weights is not None:
+        order.insert(0, ("weight 0", study.data.weight_column))
+    for reason, column in order:
+        gone = keep & (pd.Series(weights == 0, index=raw.index) if reason == "weight 0" else out[column].isna())
         keep &= ~gone
-        steps.append({"reason": reason, "column": column, "excluded": int(gone.sum()), "remaining": int(keep.sum())})
-    exclusions = pd.DataFrame(steps, columns=["reason", "column", "excluded", "remaining"])
+        step = {"reason": reason, "column": column, "excluded": int(gone.sum()), "remaining": int(keep.sum())}
+        if weights is not None:
+            step |= {"excluded_people": int(weights[gone.to_numpy()].sum()), "remaining_people": int(weights[keep.to_numpy()].sum())}
+        steps.append(step)
+    columns = ["reason", "column", "excluded", "remaining"] + (["excluded_people", "remaining_people"] if weights is not None else [])
+    exclusions = pd.DataFrame(steps, columns=columns)
     if int(keep.sum()) == 0:
         flow = "; ".join(f"{s['reason']} {s['column']!r}: {s['excluded']}" for s in steps if s["excluded"])
         raise DataError(f"{where}: no rows remain after complete-case exclusions ({len(raw)} screened; {flow or 'the file has no rows'})")

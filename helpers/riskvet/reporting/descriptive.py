@@ -18,7 +18,7 @@ import pandas as pd
 
 from .._jsonable import to_jsonable
 from ..errors import DataError, problem
-from ..intake.data import PreparedCohort, _as_text, _check_cohort, _is_binary_number
+from ..intake.data import PreparedCohort, _as_text, _check_cohort, _is_binary_number, expand_cohort
 from .disclosure import complementary_suppression
 
 __all__ = ["DescriptiveTable", "descriptive_table"]
@@ -92,7 +92,9 @@ def descriptive_table(
         predictors and numeric predictors taking only 0 and 1: ``n (%)`` per
         level, the percentage of the column's rows (the count alone when the
         column's total is hidden).  The first row gives the number of rows
-        per column.
+        per column.  For a cohort with frequency weights every count and
+        summary is of people: the table of the cohort written out one row
+        per person (:func:`riskvet.intake.data.expand_cohort`).
 
     Notes
     -----
@@ -113,7 +115,8 @@ def descriptive_table(
     Hundepool A, Domingo-Ferrer J, Franconi L, Giessing S, Schulte Nordholt E,
     Spicer K, de Wolf P-P. Statistical Disclosure Control. Wiley, 2012.
     """
-    cohort = _check_cohort(cohort, "descriptive_table: cohort")
+    # with frequency weights the table describes people: the cohort written out one row per person
+    cohort = expand_cohort(_check_cohort(cohort, "descriptive_table: cohort"))
     levels, names, m = _checked_options(cohort, levels=levels, labels=labels, min_cell_count=min_cell_count, digits=digits)
     K = len(levels)
     groups = [cohort.y == k for k in range(K)] + [np.ones(len(cohort.y), dtype=bool)]

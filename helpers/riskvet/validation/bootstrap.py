@@ -10,6 +10,11 @@ optimism-corrected estimate, the .632 and .632+ estimates, the spread across
 replicates, the uniform shrinkage factor, and how stable the variable
 selection is.
 
+Frequency weights (a row standing for w identical people, from
+``data.weight_column``): the rows are resampled, each drawn row bringing
+all w of its people, and every measure is of people (see
+:func:`validate_internally`).
+
 Reproducibility: replicate ``i`` draws its rows and its selection seed from
 its own stream, ``numpy.random.SeedSequence(seed).spawn(n_boot)[i]``, and the
 results are combined in replicate order in the calling process, so the result
@@ -644,7 +649,8 @@ class InternalValidation:
     seed : int
         Seed of the replicate streams.
     n, n_levels : int
-        Rows of the derivation data and outcome levels.
+        People in the derivation data (its rows, without frequency weights;
+        the sum of the weights with them) and outcome levels.
     levels : tuple of str
         Outcome levels coded 0 .. K-1.
     max_failed_share : float
@@ -669,6 +675,10 @@ class InternalValidation:
         For a penalised derivation (``fit.estimation == "penalized"``), the
         penalty weight alpha chosen on all data and in each replicate; None
         otherwise.
+    n_rows : int or None
+        With frequency weights, the rows of the derivation data (the units
+        resampled: a drawn row brings all its people); None without weights,
+        when rows are people.
     """
 
     estimates: tuple[MeasureEstimate, ...]
@@ -688,6 +698,7 @@ class InternalValidation:
     selection_seeds: tuple[int, ...] = field(repr=False)
     slope_spread: ReplicateSpread | None = None
     penalty_spread: ReplicateSpread | None = None
+    n_rows: int | None = None
 
     @property
     def n_failed(self) -> int:
@@ -754,6 +765,7 @@ class InternalValidation:
                 "replicate_values": values,
                 "slope_spread": self.slope_spread.to_dict() if self.slope_spread is not None else None,
                 "penalty_spread": self.penalty_spread.to_dict() if self.penalty_spread is not None else None,
+                **({} if self.n_rows is None else {"counted": "people", "n_rows": self.n_rows}),
             }
         )
 
@@ -797,6 +809,38 @@ def _as_data(study, data: Any, func: str) -> tuple[pd.DataFrame, np.ndarray]:
     if y.ndim != 1 or y.shape[0] != len(frame) or y.dtype.kind not in "iu" or (y.size and (y.min() < 0 or y.max() >= K)):
         raise DataError(problem(f"{func}(data) y", allowed=f"{len(frame)} integer outcome codes 0..{K - 1}", received=f"shape {y.shape}, dtype {y.dtype}"))
     return frame[columns].reset_index(drop=True), y.astype(np.int64)
+
+
+def _as_weighted_data(study, data: Any, weights: Any, func: str) -> tuple[pd.DataFrame, np.ndarray, np.ndarray | None]:
+    """(frame, y, frequency weights or None): the weights of a PreparedCohort, or those passed beside the data.
+
+    Weights are whole numbers >= 0, one per row (row i stands for
+    ``weights[i]`` identical people).
+    """
+    from ..intake.data import PreparedCohort
+
+    frame, y = _as_data(study, data, func)
+    own = data.weights if isinstance(data, PreparedCohort) else None
+    if weights is not None and own is not None:
+        raise RiskvetError(problem(f"{func}(weights=)", allowed="None when the data are a PreparedCohort read with frequency weights (its own weights are used)", received="weights"))
+    weights = own if weights is None else weights
+    if weights is None:
+        return frame, y, None
+    w = np.asarray(weights)
+    if w.shape != (len(frame),) or w.dtype.kind not in "iuf" or not np.all(np.isfinite(w)) or np.any(w < 0) or np.any(w != np.floor(w)):
+        raise DataError(problem(f"{func}(weights=)", allowed=f"{len(frame)} frequency weights: whole numbers >= 0, one per row",
+                                received=f"shape {w.shape}, dtype {w.dtype}"))
+    return frame, y, w.astype(np.int64)
+
+
+def _people(n_rows: int, weights: np.ndarray | None, rows: np.ndarray | None = None) -> np.ndarray:
+    """The rows of ``rows`` (default every row) written out one per person: row i repeated ``weights[i]`` times.
+
+    Without weights it is ``rows`` itself, so that every array indexed by it
+    is the array an unweighted analysis measures.
+    """
+    rows = np.arange(n_rows) if rows is None else rows
+    return rows if weights is None else np.repeat(rows, weights[rows])
 
 
 def _check_count(value: Any, name: str, func: str, *, minimum: int = 1) -> int:
@@ -1188,6 +1232,7 @@ class _Payload:
     y: np.ndarray
     K: int
     link: str
+    weights: np.ndarray | None = None
 
 
 #: Reason of a failed replicate by the kind of error met, most specific kind first.
@@ -1337,22 +1382,28 @@ def _replicate(payload: _Payload, item: tuple[int, np.random.SeedSequence]) -> d
 def _replicate_values(payload: _Payload, idx: np.ndarray, sel_seed: int) -> dict[str, Any]:
     """The derivation on resample ``idx`` and its measures on the resample, the original data and out of bag."""
     n = len(payload.frame)
-    # the resample as counts: each drawn person is one weighted row, so the
-    # selection's cross-validation never splits a person's copies over folds
+    w = payload.weights
+    # the resample as counts: each drawn row is one weighted row, so the
+    # selection's cross-validation never splits its copies over folds; with
+    # frequency weights a drawn row brings all w of its people
     counts = np.bincount(idx, minlength=n)
-    y_b = payload.y[idx]
+    if w is not None:
+        counts = counts * w
     derivation, prob, lp, caught = _fit_and_predict(
         payload.study, payload.frame, payload.y, payload.frame, sel_seed, payload.K, weights=counts
     )
     y = payload.y
-    lp_b = lp[idx] if lp.ndim == 1 else None
-    boot, w1 = _measures(y_b, prob[idx], lp_b, K=payload.K, link=payload.link)
-    test, w2 = _measures(y, prob, lp if lp.ndim == 1 else None, K=payload.K, link=payload.link)
+    # every measure is of people: the resample, the original data and the rows out of bag written out one per person
+    boot_people, all_people = _people(n, w, idx), _people(n, w)
+    lp_b = lp[boot_people] if lp.ndim == 1 else None
+    boot, w1 = _measures(y[boot_people], prob[boot_people], lp_b, K=payload.K, link=payload.link)
+    test, w2 = _measures(y[all_people], prob[all_people], lp[all_people] if lp.ndim == 1 else None, K=payload.K, link=payload.link)
     inbag = np.zeros(n, dtype=bool)
     inbag[idx] = True
     oob_rows = np.flatnonzero(~inbag)
     if oob_rows.size:
-        oob, w3 = _measures(y[oob_rows], prob[oob_rows], lp[oob_rows] if lp.ndim == 1 else None, K=payload.K, link=payload.link)
+        oob_people = _people(n, w, oob_rows)
+        oob, w3 = _measures(y[oob_people], prob[oob_people], lp[oob_people] if lp.ndim == 1 else None, K=payload.K, link=payload.link)
     else:
         oob, w3 = {k: float("nan") for k in test}, {}
     brier_row, logp_row = _row_pieces(y[oob_rows], prob[oob_rows])
@@ -1414,7 +1465,8 @@ def _outcome_info(study) -> dict[str, Any]:
     }
 
 
-def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1, progress: bool = True) -> InternalValidation:
+def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1, progress: bool = True,
+                        weights: np.ndarray | None = None) -> InternalValidation:
     """Bootstrap internal validation of the study's whole derivation procedure.
 
     Parameters
@@ -1438,6 +1490,10 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
         a scheduler.  The result does not depend on it.
     progress : bool, default True
         Show a progress bar on standard error.
+    weights : array of int, optional
+        Frequency weights of a (frame, y) pair: row i stands for
+        ``weights[i]`` identical people.  A PreparedCohort read with
+        ``data.weight_column`` brings its own (then leave this None).
 
     Returns
     -------
@@ -1504,7 +1560,17 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
       memory or an interrupt) makes it a failed replicate with its reason,
       never a crash of the run; a derived fit with separation fails unless
       it is a Firth fit.  A model with no predictors is a valid result: its
-      calibration slopes are NaN with ``undefined_reason`` saying why.
+      calibration slopes are NaN with ``undefined_reason`` saying why;
+    * frequency weights (row i stands for w_i identical people): the
+      bootstrap resamples rows, so a drawn row brings all w_i of its people
+      and a person's copies are never split between the resample and the
+      rows out of bag; the resample passed to the derivation is the counts
+      c_i w_i (c_i the times row i was drawn), and every measure (apparent,
+      on the resample, on the original data, out of bag, the pooled
+      out-of-bag losses and the no-information values) is computed on the
+      rows written out one per person, so each equals the measure on the
+      data written out row by row.  With every w_i = 1 the result is the
+      unweighted one, bit for bit.
 
     References
     ----------
@@ -1536,7 +1602,7 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
     """
     func = "validate_internally"
     study = _check_study(study, func)
-    frame, y = _as_data(study, data, func)
+    frame, y, w = _as_weighted_data(study, data, weights, func)
     n_boot = _check_count(n_boot, "n_boot", func)
     seed = _check_seed(seed, func)
     n_jobs = _check_n_jobs(n_jobs, func)
@@ -1545,24 +1611,25 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
     link = study.model.link
     n = len(frame)
 
-    apparent_derivation, prob, lp, trouble = _derive_on_all_data(study, frame, y)
-    apparent_warnings = tuple(dict.fromkeys(f"{w.category.__name__}: {w.message}" for w in trouble))
-    for w in trouble:  # statistical trouble of the model on all data is shown as well as recorded
-        warnings.warn(str(w.message), w.category, stacklevel=2)
-    apparent, _ = _measures(y, prob, lp if lp.ndim == 1 else None, K=K, link=link)
+    apparent_derivation, prob, lp, trouble = _derive_on_all_data(study, frame, y, weights=w)
+    apparent_warnings = tuple(dict.fromkeys(f"{m.category.__name__}: {m.message}" for m in trouble))
+    for m in trouble:  # statistical trouble of the model on all data is shown as well as recorded
+        warnings.warn(str(m.message), m.category, stacklevel=2)
+    people = _people(n, w)
+    apparent, _ = _measures(y[people], prob[people], lp[people] if lp.ndim == 1 else None, K=K, link=link)
 
     specs = _measure_specs(levels)
     keys = [k for k, _, _ in specs]
     tally = _run_replicates(
-        _Payload(study=study, frame=frame, y=y, K=K, link=link), seed=seed, n_boot=n_boot, keys=keys,
+        _Payload(study=study, frame=frame, y=y, K=K, link=link, weights=w), seed=seed, n_boot=n_boot, keys=keys,
         n_jobs=n_jobs, scheduler=study.compute.scheduler, progress=progress,
     )
     max_failed = study.internal_validation.max_failed_share
     _check_failures(tally, n_boot=n_boot, max_failed=max_failed, func=func)
 
     arrays = {s: {k: np.asarray(v, dtype=float) for k, v in d.items()} for s, d in tally.values.items()}
-    estimates = _measure_estimates(specs, arrays, tally, apparent, y, prob, K=K)
-    estimates = _with_flags(estimates, y, K=K, n_succeeded=len(tally.ok_ids), constant_lp=_constant_lp(lp))
+    estimates = _measure_estimates(specs, arrays, tally, apparent, y, prob, K=K, people=people)
+    estimates = _with_flags(estimates, y[people], K=K, n_succeeded=len(tally.ok_ids), constant_lp=_constant_lp(lp))
     slopes, source = _shrinkage_slopes(arrays["original"], proportional_lp=lp.ndim == 1, K=K, link=link)
     shrinkage = _shrinkage(slopes, source, study, apparent_derivation, K=K)
     stability = _selection_stability(study, apparent_derivation, tally.terms)
@@ -1580,7 +1647,7 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
         n_boot=n_boot,
         n_succeeded=len(tally.ok_ids),
         seed=seed,
-        n=n,
+        n=int(people.size),
         n_levels=K,
         levels=levels,
         max_failed_share=float(max_failed),
@@ -1590,6 +1657,7 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
         selection_seeds=tuple(tally.seeds),
         slope_spread=slope_spread,
         penalty_spread=penalty_spread,
+        n_rows=None if w is None else n,
     )
 
 
@@ -1598,18 +1666,19 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
 # ---------------------------------------------------------------------------
 
 
-def _derive_on_all_data(study, frame: pd.DataFrame, y: np.ndarray) -> tuple[Any, np.ndarray, np.ndarray, list[warnings.WarningMessage]]:
-    """The derivation procedure on all data, as the derivation stage runs it.
+def _derive_on_all_data(study, frame: pd.DataFrame, y: np.ndarray, *, weights: np.ndarray | None = None
+                        ) -> tuple[Any, np.ndarray, np.ndarray, list[warnings.WarningMessage]]:
+    """The derivation procedure on all data (with its frequency ``weights``), as the derivation stage runs it.
 
     Returns the derivation, its probabilities and linear predictor on the
-    same data, and the statistical warnings met, which the caller issues
+    same rows, and the statistical warnings met, which the caller issues
     again so that they point at its own caller.
     """
     from ..modelling.derive import derive
 
     with warnings.catch_warnings(record=True) as seen:
         warnings.simplefilter("always")
-        derivation = derive(study, frame, y)
+        derivation = derive(study, frame, y) if weights is None else derive(study, frame, y, weights=weights)
         prob, lp = _predict(derivation, frame)
     return derivation, prob, lp, [w for w in seen if issubclass(w.category, RiskvetWarning)]
 
@@ -1693,8 +1762,18 @@ def _check_failures(tally: _Tally, *, n_boot: int, max_failed: float, func: str)
 
 
 def _measure_estimates(specs: Sequence[tuple[str, str, str]], arrays: dict[str, dict[str, np.ndarray]], tally: _Tally,
-                       apparent: dict[str, float], y: np.ndarray, prob: np.ndarray, *, K: int) -> list[MeasureEstimate]:
-    """Optimism-corrected, .632 and .632+ estimates and the replicate spread of every measure."""
+                       apparent: dict[str, float], y: np.ndarray, prob: np.ndarray, *, K: int,
+                       people: np.ndarray | None = None) -> list[MeasureEstimate]:
+    """Optimism-corrected, .632 and .632+ estimates and the replicate spread of every measure.
+
+    ``people`` writes the rows out one per person (frequency weights): the
+    pooled out-of-bag losses and the no-information values are then of
+    people, as on the data written out row by row.
+    """
+    if people is not None:
+        y, prob = y[people], prob[people]
+        tally = dataclasses.replace(tally, brier_sum=tally.brier_sum[people], logp_sum=tally.logp_sum[people],
+                                    oob_count=tally.oob_count[people])
     n = y.shape[0]
     seen = tally.oob_count > 0
     props = np.bincount(y, minlength=K) / n

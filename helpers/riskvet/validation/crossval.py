@@ -42,7 +42,7 @@ from .._jsonable import to_jsonable
 from .bootstrap import (
     _SEED_CEILING,
     ReplicateFailure,
-    _as_data,
+    _as_weighted_data,
     _check_count,
     _check_n_jobs,
     _check_seed,
@@ -55,6 +55,7 @@ from .bootstrap import (
     _mean,
     _measure_specs,
     _measures,
+    _people,
     _PROPAGATE,
     _ReplicateFailed,
     _spread,
@@ -116,7 +117,7 @@ class CrossValidation:
         reason; ``replicate`` is the fold number ``r * n_folds + f``
         (repeat r, fold f).
     n, n_levels : int
-        Rows and outcome levels.
+        People (rows without frequency weights) and outcome levels.
     levels : tuple of str
         Outcome levels coded 0 .. K-1.
     fold_warnings : dict
@@ -126,6 +127,9 @@ class CrossValidation:
         Statistical warnings of the derivation on all data (also issued).
     fold_values : DataFrame
         Per-fold measures: ``repeat``, ``fold``, ``measure``, ``value``.
+    n_rows : int or None
+        With frequency weights, the rows dealt to folds (``n`` is then the
+        people, the sum of the weights); None without weights.
     """
 
     estimates: tuple[CrossValidationEstimate, ...]
@@ -139,6 +143,7 @@ class CrossValidation:
     fold_warnings: dict[str, int]
     apparent_warnings: tuple[str, ...]
     fold_values: pd.DataFrame = field(repr=False)
+    n_rows: int | None = None
 
     def estimate(self, measure: str) -> CrossValidationEstimate:
         for e in self.estimates:
@@ -163,6 +168,7 @@ class CrossValidation:
                 "levels": self.levels,
                 "fold_warnings": self.fold_warnings,
                 "apparent_warnings": self.apparent_warnings,
+                **({} if self.n_rows is None else {"counted": "people", "n_rows": self.n_rows}),
             }
         )
 
@@ -192,6 +198,7 @@ class _CVPayload:
     K: int
     link: str
     folds: np.ndarray  # n_repeats x n
+    weights: np.ndarray | None = None
 
 
 def _fold(payload: _CVPayload, item: tuple[int, int, int]) -> dict[str, Any]:
@@ -216,6 +223,7 @@ def _fold(payload: _CVPayload, item: tuple[int, int, int]) -> dict[str, Any]:
 def _fold_values(payload: _CVPayload, r: int, f: int, sel_seed: int) -> dict[str, Any]:
     held = payload.folds[r] == f
     train, test = np.flatnonzero(~held), np.flatnonzero(held)
+    w = payload.weights
     _, prob, lp, caught = _fit_and_predict(
         payload.study,
         payload.frame.iloc[train].reset_index(drop=True),
@@ -223,13 +231,18 @@ def _fold_values(payload: _CVPayload, r: int, f: int, sel_seed: int) -> dict[str
         payload.frame.iloc[test].reset_index(drop=True),
         sel_seed,
         payload.K,
+        weights=None if w is None else w[train],
     )
-    values, measure_warnings = _measures(payload.y[test], prob, lp if lp.ndim == 1 else None, K=payload.K, link=payload.link)
+    # the held-out rows written out one per person (frequency weights); unchanged without weights
+    people = _people(test.size, None if w is None else w[test])
+    values, measure_warnings = _measures(payload.y[test][people], prob[people], lp[people] if lp.ndim == 1 else None,
+                                         K=payload.K, link=payload.link)
     caught.update({f"measure:{k}": v for k, v in measure_warnings.items()})
     return dict(status="ok", rows=test, prob=prob, lp=lp, values=values, warnings=dict(caught))
 
 
-def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, n_jobs: int = 1, progress: bool = True) -> CrossValidation:
+def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, n_jobs: int = 1, progress: bool = True,
+                   weights: np.ndarray | None = None) -> CrossValidation:
     """(Repeated) k-fold cross-validation of the study's whole derivation procedure.
 
     Parameters
@@ -249,6 +262,10 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
         Local worker processes (-1: every core); the result does not depend on it.
     progress : bool, default True
         Show a progress bar on standard error.
+    weights : array of int, optional
+        Frequency weights of a (frame, y) pair (row i stands for
+        ``weights[i]`` identical people); a PreparedCohort read with
+        ``data.weight_column`` brings its own.
 
     Returns
     -------
@@ -266,7 +283,11 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
     -----
     See the module notes for the averaged and pooled summaries.  Folds are
     stratified by outcome level (:func:`stratified_folds`).  Measures are those
-    of :func:`riskvet.bootstrap.validate_internally`.
+    of :func:`riskvet.bootstrap.validate_internally`.  With frequency weights
+    the folds are dealt over rows, so a person's copies are never split
+    between training and held-out data; each fold's model is derived on its
+    training rows with their weights, and every measure (apparent, per fold,
+    pooled) is computed on the rows written out one per person.
 
     References
     ----------
@@ -279,7 +300,7 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
     """
     func = "cross_validate"
     study = _check_study(study, func)
-    frame, y = _as_data(study, data, func)
+    frame, y, w = _as_weighted_data(study, data, weights, func)
     n_folds = _check_count(n_folds, "n_folds", func, minimum=2)
     n_repeats = _check_count(n_repeats, "n_repeats", func)
     seed = _check_seed(seed, func)
@@ -292,20 +313,21 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
 
     folds, items = _draw_folds(y, n_folds=n_folds, n_repeats=n_repeats, seed=seed)
 
-    _, prob_all, lp_all, trouble = _derive_on_all_data(study, frame, y)
-    apparent_warnings = tuple(dict.fromkeys(f"{w.category.__name__}: {w.message}" for w in trouble))
-    for w in trouble:
-        warnings.warn(str(w.message), w.category, stacklevel=2)
-    apparent, _ = _measures(y, prob_all, lp_all if lp_all.ndim == 1 else None, K=K, link=link)
+    _, prob_all, lp_all, trouble = _derive_on_all_data(study, frame, y, weights=w)
+    apparent_warnings = tuple(dict.fromkeys(f"{m.category.__name__}: {m.message}" for m in trouble))
+    for m in trouble:
+        warnings.warn(str(m.message), m.category, stacklevel=2)
+    people = _people(n, w)
+    apparent, _ = _measures(y[people], prob_all[people], lp_all[people] if lp_all.ndim == 1 else None, K=K, link=link)
 
     specs = _measure_specs(levels)
     keys = [k for k, _, _ in specs]
     tally = _run_folds(
-        _CVPayload(study=study, frame=frame, y=y, K=K, link=link, folds=folds), items, keys=keys, n_folds=n_folds,
+        _CVPayload(study=study, frame=frame, y=y, K=K, link=link, folds=folds, weights=w), items, keys=keys, n_folds=n_folds,
         n_repeats=n_repeats, pool_lp=lp_all.ndim == 1, n_jobs=n_jobs, scheduler=study.compute.scheduler, progress=progress,
     )
     _check_fold_failures(tally.failures, total=n_folds * n_repeats, max_failed=study.internal_validation.max_failed_share, func=func)
-    pooled = _pooled_values(tally, y, keys=keys, K=K, link=link)
+    pooled = _pooled_values(tally, y, keys=keys, K=K, link=link, weights=w)
 
     return CrossValidation(
         estimates=tuple(_cv_estimates(specs, apparent, tally.per_fold, pooled, n_repeats=n_repeats)),
@@ -313,12 +335,13 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
         n_repeats=n_repeats,
         seed=seed,
         failures=tally.failures,
-        n=n,
+        n=int(people.size),
         n_levels=K,
         levels=levels,
         fold_warnings=dict(sorted(tally.fold_warnings.items())),
         apparent_warnings=apparent_warnings,
         fold_values=pd.DataFrame(tally.fold_rows, columns=["repeat", "fold", "measure", "value"]),
+        n_rows=None if w is None else n,
     )
 
 
@@ -406,14 +429,16 @@ def _check_fold_failures(failures: Sequence[ReplicateFailure], *, total: int, ma
         )
 
 
-def _pooled_values(tally: _FoldTally, y: np.ndarray, *, keys: list[str], K: int, link: str) -> dict[str, list[float]]:
-    """Each repeat's measures on its pooled held-out predictions (rows of failed folds left out)."""
+def _pooled_values(tally: _FoldTally, y: np.ndarray, *, keys: list[str], K: int, link: str,
+                   weights: np.ndarray | None = None) -> dict[str, list[float]]:
+    """Each repeat's measures on its pooled held-out predictions (rows of failed folds left out), one per person."""
     pooled: dict[str, list[float]] = {k: [] for k in keys}
     for r in range(tally.pooled_prob.shape[0]):
         have = np.all(np.isfinite(tally.pooled_prob[r]), axis=1)
-        lp_r = tally.pooled_lp[r, have] if tally.pooled_lp is not None else None
+        rows = _people(y.shape[0], weights, np.flatnonzero(have)) if weights is not None else have
+        lp_r = tally.pooled_lp[r, rows] if tally.pooled_lp is not None else None
         try:
-            values, _ = _measures(y[have], tally.pooled_prob[r, have], lp_r, K=K, link=link)
+            values, _ = _measures(y[rows], tally.pooled_prob[r, rows], lp_r, K=K, link=link)
         except _PROPAGATE:
             raise
         except Exception:  # a repeat whose pooled predictions cannot be measured has no pooled value

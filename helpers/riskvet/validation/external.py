@@ -310,13 +310,16 @@ class _Replicate:
     """Picklable bootstrap replicate: the whole cohort and every subgroup."""
 
     def __init__(self, y: np.ndarray, prob: np.ndarray, masks: Mapping[tuple[str, str], np.ndarray],
-                 levels: Sequence[str] | None = None):
-        self.y, self.prob, self.masks, self.levels = y, prob, masks, levels
+                 levels: Sequence[str] | None = None, weights: np.ndarray | None = None):
+        self.y, self.prob, self.masks, self.levels, self.weights = y, prob, masks, levels, weights
 
     def __call__(self, stream: np.random.SeedSequence) -> dict[tuple[str, str], dict[str, float] | _Unmeasured]:
         rng = np.random.default_rng(stream)
         n = self.y.shape[0]
         idx = rng.integers(0, n, n)
+        if self.weights is not None:
+            # rows are resampled; a drawn row brings all its people, and the measures are of people
+            idx = np.repeat(idx, self.weights[idx])
         yb, pb = self.y[idx], self.prob[idx]
         K = self.prob.shape[1]
         out = {("", ""): _summary_or_reason(yb, pb, K, self.levels)}
@@ -387,7 +390,7 @@ class CohortValidation:
     levels : tuple of str
         Outcome levels coded 0..K-1.
     n : int
-        Patients.
+        Patients (people: the sum of the frequency weights when there are any).
     level_counts : dict
         Patients at each outcome level.
     discrimination : OrdinalDiscrimination
@@ -439,6 +442,10 @@ class CohortValidation:
     max_failed_share : float
         The share of failed replicates above which the whole-cohort
         intervals are not reported.
+    n_rows : int or None
+        With frequency weights, the cohort's rows of positive weight (the
+        units the bootstrap resamples; ``n``, ``level_counts`` and the
+        subgroup sizes are then people); None without weights.
     intervals_withheld : str
         Why the whole-cohort intervals of ``performance`` are NaN (more
         failed replicates than ``max_failed_share`` allows); empty when they
@@ -472,6 +479,7 @@ class CohortValidation:
     max_failed_share: float = 0.1
     intervals_withheld: str = ""
     interval_notes: Mapping[str, str] = field(default_factory=dict)
+    n_rows: int | None = None
 
     @property
     def failure_counts(self) -> dict[str, int]:
@@ -545,6 +553,7 @@ class CohortValidation:
                 "max_failed_share": self.max_failed_share,
                 "intervals_withheld": self.intervals_withheld,
                 "interval_notes": dict(self.interval_notes),
+                **({} if self.n_rows is None else {"counted": "people", "n_rows": self.n_rows}),
             }
         )
 
@@ -570,6 +579,7 @@ def validate_cohort(
     n_jobs: int = 1,
     scheduler: str | None = None,
     max_failed_share: float = 0.1,
+    weights: Any = None,
 ) -> CohortValidation:
     """Performance of a frozen model in one validation cohort, with bootstrap intervals.
 
@@ -614,6 +624,11 @@ def validate_cohort(
         undefined in more than this share of the replicates loses its
         interval alone (``interval_notes``).  The default, 0.1, is the
         default of ``internal_validation.max_failed_share``.
+    weights : array of int, optional, keyword-only
+        Frequency weights (``PreparedCohort.weights``): row i stands for
+        ``weights[i]`` identical people.  Every measure is then computed on
+        the rows written out one per person, and the bootstrap resamples
+        rows, a drawn row bringing all its people.
 
     Returns
     -------
@@ -667,6 +682,9 @@ def validate_cohort(
     levels = tuple(model.levels)
     K = len(levels)
     yy, counts = _check_outcome(y, n_rows=len(frame), levels=levels, label=label, func=func)
+    row_y, row_prob, w, frame, yy, prob, first = _written_out(frame, yy, prob, weights, func=func)
+    if w is not None:
+        yy, counts = _check_outcome(yy, n_rows=len(frame), levels=levels, label=label, func=func)
     thresholds = {int(k): tuple(v) for k, v in (thresholds or {}).items() if len(v)}
     bad = [k for k in thresholds if not 0 <= k < K - 1]
     if bad:
@@ -676,7 +694,9 @@ def validate_cohort(
     masks, sizes = _subgroup_groups(frame, yy, subgroups, K=K, limits=limits)
 
     apparent = performance_summary(yy, prob)
-    reps = run_replicates(_Replicate(yy, prob, masks, levels), n_boot=n_boot, seed=seed, n_jobs=n_jobs, scheduler=scheduler) if n_boot else []
+    row_masks = masks if w is None else {key: mask[first] for key, mask in masks.items()}
+    replicate = _Replicate(row_y, row_prob, row_masks, levels, weights=w)
+    reps = run_replicates(replicate, n_boot=n_boot, seed=seed, n_jobs=n_jobs, scheduler=scheduler) if n_boot else []
     keys = summary_keys(K)
     whole = [r[("", "")] for r in reps]
     failures = tuple(ReplicateFailure(i, r.reason, r.message) for i, r in enumerate(whole) if isinstance(r, _Unmeasured))
@@ -713,7 +733,30 @@ def validate_cohort(
         max_failed_share=float(max_failed_share),
         intervals_withheld=withheld,
         interval_notes=interval_notes,
+        n_rows=None if w is None else int(w.size),
     )
+
+
+def _written_out(frame: pd.DataFrame, yy: np.ndarray, prob: np.ndarray, weights: Any, *, func: str):
+    """The cohort's rows and, with frequency weights, the cohort written out one row per person.
+
+    Returns (row outcomes, row probabilities, weights of the rows kept,
+    frame, outcomes and probabilities one per person, the position of each
+    kept row's first person).  Rows of weight 0 stand for no one and are
+    left out.  Without weights the rows are the people and the weights None.
+    """
+    if weights is None:
+        return yy, prob, None, frame, yy, prob, None
+    w = np.asarray(weights)
+    if w.shape != (len(frame),) or w.dtype.kind not in "iuf" or not np.all(np.isfinite(w)) or np.any(w < 0) or np.any(w != np.floor(w)):
+        raise DataError(problem(f"{func}(weights=)", allowed=f"{len(frame)} frequency weights: whole numbers >= 0, one per row",
+                                received=f"shape {w.shape}, dtype {w.dtype}"))
+    keep = w > 0
+    w = w[keep].astype(np.int64)
+    frame, yy, prob = frame.loc[keep].reset_index(drop=True), yy[keep], prob[keep]
+    people = np.repeat(np.arange(w.size), w)
+    first = np.cumsum(w) - w
+    return yy, prob, w, frame.iloc[people].reset_index(drop=True), yy[people], prob[people], first
 
 
 def _withhold_intervals(performance: pd.DataFrame, failures: Sequence[ReplicateFailure], *, n_boot: int,

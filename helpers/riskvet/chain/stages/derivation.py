@@ -27,7 +27,7 @@ from ...reporting.classification import publish_thresholds
 from ...measures.discrimination import dichotomise, ordinal_discrimination, roc_curve
 from ...measures.overall import overall_accuracy
 from ...measures.summary import performance_summary
-from ...intake.data import load_cohorts
+from ...intake.data import expand_cohort, load_cohorts
 from ...reporting.descriptive import descriptive_table
 from ...modelling.derive import Derivation, candidate_parameters, derive
 from ...modelling.term_effects import TermEffects, column_label, term_effects, term_label
@@ -43,7 +43,7 @@ from ...planning.samplesize import data_support_notes
 from ...validation.external import measure_label
 from ..stagekit import StageContext
 
-__all__ = ["DerivationOutput", "run", "file_sha256", "creation_time"]
+__all__ = ["DerivationOutput", "PEOPLE_FLOW_WORDS", "run", "file_sha256", "creation_time"]
 
 
 def file_sha256(path: str | Path) -> str:
@@ -145,6 +145,10 @@ class DerivationOutput:
         return {c: column_label(design, c) for c in design.columns}
 
 
+#: Headers of the exclusion table of a cohort read with frequency weights, which counts rows and people.
+PEOPLE_FLOW_WORDS = {"excluded": "rows excluded", "remaining": "rows remaining",
+                     "excluded_people": "people excluded", "remaining_people": "people remaining"}
+
 #: Summary measures that only mean something for three or more levels.
 _ORDINAL_ONLY = {"average_cut_auc", "ordinal_c", "generalised_c"}
 
@@ -160,11 +164,14 @@ def run(ctx: StageContext) -> DerivationOutput:
     levels = study.outcome.ordered_levels
     K = len(levels)
     cohort = load_cohorts(study).derivation
-    frame, y = cohort.frame, np.asarray(cohort.y)
-    flow = cohort.exclusions.copy()
+    # With frequency weights the model is fitted on the weighted rows; everything said about people (counts,
+    # descriptions, measures, tests) is computed on the cohort written out one row per person.
+    people = expand_cohort(cohort)
+    frame, y = people.frame, np.asarray(people.y)
+    flow = cohort.exclusions.rename(columns=PEOPLE_FLOW_WORDS) if cohort.weights is not None else cohort.exclusions.copy()
     descriptive = descriptive_table(cohort, labels={lv: study.outcome.label(lv) for lv in levels}, min_cell_count=study.output.min_cell_count)
 
-    derivation = derive(study, frame, y)
+    derivation = derive(study, cohort.frame, np.asarray(cohort.y), weights=cohort.weights)
     separated = separated_terms(derivation)
     _stop_if_separated(study, derivation, separated)
     cut_labels = [cut_label(levels, j, binary=K == 2) for j in range(K - 1)]
@@ -176,7 +183,7 @@ def run(ctx: StageContext) -> DerivationOutput:
         raise RiskvetError(f"{ctx.model_path}: a model file already exists in this record; the derivation stage writes a new record's model only")
     save_model(model, ctx.model_path)
 
-    apparent, apparent_table, (rocs, threshold_tables), cal = _apparent(study, y, model.predict_proba(frame))
+    apparent, apparent_table, (rocs, threshold_tables), cal = _apparent(study, y, _per_person(model.predict_proba(cohort.frame), cohort.weights))
     smallest = int(min(np.bincount(y, minlength=K)))
     n_candidates = candidate_parameters(derivation.candidate_design, K)
     figures = _figures(ctx, derivation, parameters, rocs, threshold_tables, cal, cut_labels, po)
@@ -184,7 +191,7 @@ def run(ctx: StageContext) -> DerivationOutput:
                      apparent_table, po, threshold_tables, cut_labels)
     tables["calibration_statistics"] = calibration_statistics(cal, levels=levels)
     texts = derivation_texts(
-        cohort=cohort, selection=derivation.selection, n_terms=len(derivation.terms), n_params=derivation.fit.n_params,
+        cohort=people, selection=derivation.selection, n_terms=len(derivation.terms), n_params=derivation.fit.n_params,
         smallest_level=smallest, proportional_odds=po, summary=apparent["summary"],
         n_levels=K, min_cell_count=study.output.min_cell_count, levels=levels,
         n_candidate_parameters=n_candidates, calibration=cal, link=study.model.link,
@@ -218,6 +225,11 @@ def run(ctx: StageContext) -> DerivationOutput:
         guide_measures=tuple(apparent_table.attrs.get("keys", ())),
         proportional_odds=po,
     )
+
+
+def _per_person(values: np.ndarray, weights: np.ndarray | None) -> np.ndarray:
+    """Row values repeated by the rows' frequency weights (one per person); unchanged without weights."""
+    return values if weights is None else np.repeat(values, weights, axis=0)
 
 
 def separated_terms(derivation: Derivation) -> tuple[str, ...]:
@@ -312,7 +324,8 @@ def _frozen_model(study, cohort, derivation: Derivation) -> PredictionModel:
         "study_name": study.study.name,
         "study_sha256": study.digest(),
         "derivation_data_sha256": file_sha256(study.data.derivation),
-        "n_analysed": int(cohort.n_analysed),
+        "n_analysed": int(cohort.n_people),
+        **({} if cohort.weights is None else {"weight_column": cohort.weight_column, "n_rows_analysed": int(cohort.n_analysed)}),
         "selection": study.selection.method,
         "estimation": derivation.fit.estimation,
         "penalty": None if derivation.selection.penalty is None else {"alpha": derivation.selection.penalty.alpha,
@@ -492,7 +505,7 @@ def _results(ctx: StageContext, cohort, flow, derivation: Derivation, model: Pre
     fit = derivation.fit
     return {
         "stage": "derivation",
-        "cohort": {"n_screened": cohort.n_screened, "n_analysed": cohort.n_analysed, "outcome_counts": cohort.outcome_counts},
+        "cohort": _cohort_counts(cohort),
         "exclusions": flow,
         "selection": derivation.selection.to_dict(),
         "terms": list(derivation.terms),
@@ -504,6 +517,20 @@ def _results(ctx: StageContext, cohort, flow, derivation: Derivation, model: Pre
         "apparent": apparent,
         "descriptive_suppressed_cells": descriptive.n_suppressed,
     }
+
+
+def _cohort_counts(cohort) -> dict[str, Any]:
+    """The derivation cohort's counts for the results file: people screened and analysed, and people per outcome level.
+
+    Without frequency weights a row is a person.  With them the counts are
+    sums of the weights (``"counted": "people"``), and the rows of the file
+    are given beside them.
+    """
+    counts = {"n_screened": cohort.n_people_screened, "n_analysed": cohort.n_people, "outcome_counts": cohort.outcome_counts}
+    if cohort.weights is None:
+        return counts
+    return counts | {"counted": "people", "weight_column": cohort.weight_column, "n_rows_screened": cohort.n_screened,
+                     "n_rows_analysed": cohort.n_analysed, "outcome_rows": cohort.outcome_rows}
 
 
 def _small_counts_withheld(content: dict[str, Any], min_cell_count: int) -> dict[str, Any]:

@@ -27,8 +27,9 @@ import pandas as pd
 
 from ..._jsonable import to_jsonable
 from ...validation.casemix import CaseMix, case_mix
-from ...intake.data import Cohorts, load_cohorts
-from ...errors import StudyError, problem
+from ...intake.data import Cohorts, expand_cohort, load_cohorts
+from .derivation import PEOPLE_FLOW_WORDS
+from ...errors import RiskvetError, StudyError, problem
 from ...validation.external import CohortValidation, apply_model, calibration_label, validate_cohort
 from ...modelling.modelfile import PredictionModel, load_model
 from ...validation.rule import RuleComparison, compare_with_rule
@@ -388,6 +389,14 @@ def validate_external(study: Study, model: PredictionModel, cohorts: Cohorts) ->
         The study names no validation cohort.
     DesignError
         A cohort the model cannot encode (naming the cohort, column and values).
+    RiskvetError
+        Frequency weights (``data.weight_column``) with a comparison with
+        today's rule (``existing_rule``), which does not use weights yet.
+
+    Notes
+    -----
+    With frequency weights every count and measure is of people (the
+    cohorts written out one row per person); the bootstrap resamples rows.
     """
     if not cohorts.validation:
         raise StudyError(problem("data.validation", allowed="at least one validation cohort for external validation", received=[]))
@@ -395,15 +404,24 @@ def validate_external(study: Study, model: PredictionModel, cohorts: Cohorts) ->
     thresholds = _thresholds(study)
     rule = study.existing_rule
     results: dict[str, Any] = {"cohorts": {}, "case_mix": {}, "rule": {}, "data": {}}
+    if rule is not None and study.data.weight_column is not None:
+        raise RiskvetError(
+            f"data.weight_column is set ({study.data.weight_column!r}) and the study compares the model with today's rule "
+            "(existing_rule): the comparison with today's rule does not use frequency weights yet, so its counts and "
+            "intervals would be of rows, not people. Remove existing_rule, or write the data out one row per person "
+            "without data.weight_column"
+        )
     for label, cohort in cohorts.validation.items():
-        summary = cohort.to_dict()
-        results["data"][label] = {k: summary[k] for k in ("n_screened", "n_analysed", "outcome_counts", "exclusions", "category_mappings", "missing")}
+        results["data"][label] = _cohort_summary(cohort)
         prob = apply_model(model, cohort.frame, label=label)  # refuse early, naming the cohort
-        results["case_mix"][label] = case_mix(model, cohorts.derivation, cohort, outcome_labels=dict(study.outcome.labels), seed=ev.seed)
+        # case-mix is described for people: both cohorts written out one row per person
+        results["case_mix"][label] = case_mix(model, expand_cohort(cohorts.derivation), expand_cohort(cohort),
+                                              outcome_labels=dict(study.outcome.labels), seed=ev.seed)
         validated = validate_cohort(
             model, cohort.frame, cohort.y, label=label, thresholds=thresholds, subgroups=ev.subgroups,
             min_subgroup_size=ev.min_subgroup_size, n_boot=ev.n_boot, seed=ev.seed,
             n_jobs=study.compute.n_jobs, scheduler=study.compute.scheduler, max_failed_share=ev.max_failed_share,
+            weights=cohort.weights,
         )
         # Small classification counts (and the measures that give them back) never reach the record.
         published = {cut: publish_thresholds(t, min_cell_count=study.output.min_cell_count).table for cut, t in validated.threshold_tables.items()}
@@ -416,6 +434,22 @@ def validate_external(study: Study, model: PredictionModel, cohorts: Cohorts) ->
                 n_jobs=study.compute.n_jobs, scheduler=study.compute.scheduler,
             )
     return results
+
+
+def _cohort_summary(cohort) -> dict[str, Any]:
+    """A validation cohort's counts for the record: people screened and analysed, people per outcome level, the exclusions.
+
+    Without frequency weights a row is a person and the summary is the
+    cohort's own.  With them the counts are people (``"counted": "people"``),
+    the rows of the file beside them, and the exclusion table counts both.
+    """
+    summary = cohort.to_dict()
+    data = {k: summary[k] for k in ("n_screened", "n_analysed", "outcome_counts", "exclusions", "category_mappings", "missing")}
+    if cohort.weights is None:
+        return data
+    return data | {"n_screened": cohort.n_people_screened, "n_analysed": cohort.n_people, "counted": "people",
+                   "weight_column": cohort.weight_column, "n_rows_screened": cohort.n_screened,
+                   "n_rows_analysed": cohort.n_analysed, "outcome_rows": cohort.outcome_rows}
 
 
 def run(ctx) -> ExternalValidationOutput:
@@ -475,7 +509,8 @@ def run(ctx) -> ExternalValidationOutput:
         notes += [f"{label}: rule: {w}" for w in r.warnings]
     out = ExternalValidationOutput(
         model_sha256=model.digest(),
-        flow=pd.concat([c.to_frame() for c in cohorts.validation.values()], ignore_index=True),
+        flow=pd.concat([c.to_frame().rename(columns=PEOPLE_FLOW_WORDS) if c.weights is not None else c.to_frame()
+                        for c in cohorts.validation.values()], ignore_index=True),
         data=results["data"],
         cohorts=results["cohorts"],
         case_mix=results["case_mix"],

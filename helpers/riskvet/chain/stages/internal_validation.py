@@ -36,7 +36,7 @@ import pandas as pd
 from ..._jsonable import to_jsonable
 from ...validation.bootstrap import InternalValidation, validate_internally, write_shrunken_model
 from ...validation.crossval import CrossValidation, cross_validate
-from ...intake.data import load_cohorts
+from ...intake.data import expand_cohort, load_cohorts
 from ...modelling.modelfile import load_model
 from ...reporting.sentences.common import judge_change, measure_guide
 from ...reporting.sentences.internal_validation import BASE_KEYS, SHOWN_632PLUS, internal_validation_summary, internal_validation_texts
@@ -244,6 +244,7 @@ def run(ctx) -> InternalValidationOutput:
         ctx.new_path(ctx.results_path)  # raises: records are write-once, checked before any work
     study = ctx.study
     cfg = study.internal_validation
+    # with frequency weights the cohort brings them: rows are resampled and dealt to folds, measures are of people
     cohort = load_cohorts(study).derivation
     n_jobs = study.compute.n_jobs
     # A progress bar only on a terminal: inside a notebook it would become an
@@ -268,8 +269,9 @@ def run(ctx) -> InternalValidationOutput:
             notes.append("uniform shrinkage is written for proportional models only; the frozen model has a slope per cut")
         else:
             target = ctx.new_path(ctx.models_dir / f"{ctx.model_path.stem}_shrunk.json")
+            people = expand_cohort(cohort)  # the thresholds are re-estimated on people, one row each
             path = write_shrunken_model(
-                ctx.model_path, factor=factor, frame=cohort.frame, y=cohort.y, path=target,
+                ctx.model_path, factor=factor, frame=people.frame, y=people.y, path=target,
                 method=f"bootstrap calibration slope ({validation.n_succeeded} replicates, seed {validation.seed})",
             )
             shrunk = Path(path).resolve().relative_to(ctx.record_dir).as_posix()

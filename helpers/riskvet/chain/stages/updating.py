@@ -23,7 +23,7 @@ import pandas as pd
 
 from ..._jsonable import to_jsonable
 from ...intake.data import load_cohorts
-from ...errors import StudyError, problem
+from ...errors import RiskvetError, StudyError, problem
 from ...modelling.modelfile import load_model, save_model
 from ...intake.study import Study
 from ...validation.external import measure_label
@@ -34,7 +34,7 @@ from ...reporting.sentences.external_validation import outcome_words
 from ...reporting.sentences.updating import CORRECTED_COLUMN, step_decision, updating_texts
 from .external_validation import figure_name, label_slug
 
-__all__ = ["UpdatingOutput", "run", "update_study_model"]
+__all__ = ["UpdatingOutput", "refuse_weights", "run", "update_study_model"]
 
 @dataclass(frozen=True)
 class UpdatingOutput:
@@ -156,6 +156,22 @@ class UpdatingOutput:
         )
 
 
+def refuse_weights(study: Study) -> None:
+    """Stop the updating stage of a study with frequency weights: updating does not use them yet.
+
+    Refitting the updates on the weighted rows as if each were one person
+    would give wrong estimates, tests and intervals, so the stage refuses
+    before anything runs.
+    """
+    column = study.data.weight_column
+    if column is not None:
+        raise RiskvetError(
+            f"data.weight_column is set ({column!r}): the updating stage does not use frequency weights yet, so its "
+            "updates, likelihood-ratio tests and bootstrap would count rows, not people. Set updating.enabled: false, "
+            "or write the data out one row per person without data.weight_column"
+        )
+
+
 def update_study_model(study: Study, model, cohorts) -> UpdateResult:
     """Run :func:`riskvet.update.update_model` with the study's settings on its updating cohort."""
     label = study.updating_cohort
@@ -185,9 +201,13 @@ def run(ctx) -> UpdatingOutput:
     ------
     RecordError
         The record already holds this stage's results or one of its model files.
+    RiskvetError
+        The study reads frequency weights (``data.weight_column``), which
+        updating does not use yet.
     """
     from ...reporting.figures.external_validation import plot_update_calibration
 
+    refuse_weights(ctx.study)
     if ctx.results_path.exists():
         ctx.new_path(ctx.results_path)  # raises: records are write-once, checked before any work
     study = ctx.study
