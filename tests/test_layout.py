@@ -22,7 +22,7 @@ import riskvet
 ROOT = Path(riskvet.__file__).resolve().parent
 
 SUBPACKAGES = ("intake", "modelling", "measures", "validation", "planning", "reporting", "chain")
-STABLE_PATHS = ("models", "metrics", "agreement", "bootstrap", "study", "data")
+STABLE_PATHS = ("models", "metrics", "pooling", "agreement", "bootstrap", "study", "data")
 
 ALLOWED = {
     "core": set(),

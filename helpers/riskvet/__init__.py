@@ -33,6 +33,7 @@ MODULES = (
     "chain",
     "models",
     "metrics",
+    "pooling",
     "agreement",
     "bootstrap",
     "study",

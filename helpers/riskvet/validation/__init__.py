@@ -6,9 +6,11 @@ Holds internal validation by the whole-procedure bootstrap, with optimism,
 (:mod:`~riskvet.validation.crossval`); external validation of a frozen model
 on a later or different cohort (:mod:`~riskvet.validation.external`) and its
 case-mix comparison (:mod:`~riskvet.validation.casemix`); the comparison with
-the rule clinicians use today (:mod:`~riskvet.validation.rule`); and model
+the rule clinicians use today (:mod:`~riskvet.validation.rule`); model
 updating from recalibration in the large to extension
-(:mod:`~riskvet.validation.update`).  It may import the core,
+(:mod:`~riskvet.validation.update`); and the random-effects pooling of a
+measure across clusters, with the transformations used before pooling
+(:mod:`~riskvet.validation.pooling`).  It may import the core,
 :mod:`riskvet.intake`, :mod:`riskvet.modelling` and :mod:`riskvet.measures`,
 never planning, reporting or the chain.
 """
