@@ -81,7 +81,10 @@ def check_report(study_path: str | Path, *, out=None) -> int:
         print("\nexclusions (complete case):", file=out)
         _print_frame(cohort.exclusions, out=out)
         print("\noutcome:", file=out)
-        _print_frame(pd.DataFrame({"level": list(cohort.outcome_counts), "n": list(cohort.outcome_counts.values())}), out=out)
+        if getattr(cohort, "weights", None) is not None:
+            print(f"people (frequency weights in {cohort.weight_column!r}): screened {cohort.n_people_screened}, analysed {cohort.n_people}", file=out)
+        header = "people" if getattr(cohort, "weights", None) is not None else "n"
+        _print_frame(pd.DataFrame({"level": list(cohort.outcome_counts), header: list(cohort.outcome_counts.values())}), out=out)
         print("\ncolumns as received:", file=out)
         _print_frame(_readable_audit(cohort.audit.to_frame()), out=out)
         for note in suspect_codes(cohort):

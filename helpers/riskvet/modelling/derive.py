@@ -150,7 +150,8 @@ def _check_before_fitting(study: Study, cohort: Any) -> list[str]:
         candidate_design(study, cohort.frame)
     except DesignError as exc:
         raise StudyError(f"predictors: the design cannot be built on the derivation data ({cohort.source}): {exc}") from None
-    counts = {lv: int(n) for lv, n in cohort.outcome_counts.items()}
+    # folds are dealt over rows (a weighted row keeps its people together), so rows, not people, are compared
+    counts = {lv: int(n) for lv, n in (getattr(cohort, "outcome_rows", None) or cohort.outcome_counts).items()}
     cross_validated = study.selection.method == "forward" or study.selection.penalized
     small = {lv: n for lv, n in counts.items() if n < study.selection.folds}
     if cross_validated and small:

@@ -431,7 +431,7 @@ def validate_external(study: Study, model: PredictionModel, cohorts: Cohorts) ->
                 cohort.y, prob, cohort.frame[rule.column], kind=rule.kind, levels=rule.levels,
                 positive_from=rule.positive_from, thresholds=thresholds, outcome_levels=cohort.outcome_levels,
                 label=label, rule_column=rule.column, n_boot=ev.n_boot, seed=ev.seed,
-                n_jobs=study.compute.n_jobs, scheduler=study.compute.scheduler,
+                n_jobs=study.compute.n_jobs, scheduler=study.compute.scheduler, max_failed_share=ev.max_failed_share,
             )
     return results
 

@@ -182,6 +182,7 @@ def update_study_model(study: Study, model, cohorts) -> UpdateResult:
     return update_model(
         model, cohort.frame, cohort.y, alpha=study.updating.alpha, new_predictors=dict(study.updating.new_predictors),
         cohort=label, n_boot=ev.n_boot, seed=ev.seed, n_jobs=study.compute.n_jobs, scheduler=study.compute.scheduler,
+        max_failed_share=ev.max_failed_share,
     )
 
 
