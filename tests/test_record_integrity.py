@@ -139,7 +139,7 @@ def test_verify_refuses_a_nested_layout_even_when_listed(earlier, tmp_path, caps
 @pytest.mark.parametrize(
     "rel, fine",
     [
-        ("study.json", True), ("notebooks/02_derivation.ipynb", True), ("html/07_summary.html", True),
+        ("study.json", True), ("notebooks/02_derivation.ipynb", True), ("html/08_summary.html", True),
         ("results/updating.json", True), ("figures/derivation/roc.svg", True), ("models/model_shrunk.json", True),
         ("records/x/results/derivation.json", False), ("notebooks/09_derivation.ipynb", False),
         ("results/notes.json", False), ("figures/derivation/extra/roc.png", False), ("kernel.log", False),

@@ -174,7 +174,7 @@ def test_links_render_to_the_anchors_given(tmp_path):
     nbformat.write(nbformat.v4.new_notebook(cells=[nbformat.v4.new_markdown_cell(table.links_markdown())]), tmp_path / "n.ipynb")
     links = _parse(render_html(tmp_path / "n.ipynb", tmp_path / "n.html")).links
     assert links == [p["link"] for r in table.rows for p in r["places"]]
-    assert "05_external_validation.html#How-related-are-the-cohorts?" in links
+    assert "06_external_validation.html#How-related-are-the-cohorts?" in links
 
 
 def test_bad_arguments_are_named(tmp_path):

@@ -602,6 +602,12 @@ class PreparedCohort:
     outcome_rows : dict
         Analysed rows per outcome level (equal to ``outcome_counts``
         without weights).
+    clusters : ndarray of str or None
+        The cluster label of every analysed row (``data.cluster_column``, as
+        text), aligned with ``frame``; None without a cluster column or for a
+        validation cohort.  The column is not carried in ``frame``.
+    cluster_column, cluster_kind : str or None
+        ``data.cluster_column`` and ``data.cluster_kind`` (None without clusters).
     """
 
     role: str
@@ -629,6 +635,14 @@ class PreparedCohort:
     n_people: int | None = None
     n_people_screened: int | None = None
     outcome_rows: dict[str, int] | None = None
+    clusters: np.ndarray | None = field(default=None, repr=False)
+    cluster_column: str | None = None
+    cluster_kind: str | None = None
+
+    @property
+    def n_clusters(self) -> int | None:
+        """Distinct clusters among the analysed rows, or None without ``data.cluster_column``."""
+        return None if self.clusters is None else int(len(set(self.clusters.tolist())))
 
     def __post_init__(self) -> None:
         # without frequency weights a row is a person: the people counts are the row counts
@@ -649,6 +663,9 @@ class PreparedCohort:
             "n_screened": self.n_screened,
             "n_analysed": self.n_analysed,
             "weight_column": self.weight_column,
+            "cluster_column": self.cluster_column,
+            "cluster_kind": self.cluster_kind,
+            "n_clusters": self.n_clusters,
             "n_people_screened": self.n_people_screened,
             "n_people": self.n_people,
             "outcome_levels": list(self.outcome_levels),
@@ -709,6 +726,8 @@ def _needs(study: Study, frame_columns: set[str], *, role: str, label: str) -> l
     needs.append(_Need(study.outcome.column, "outcome.column", True))
     if study.data.weight_column is not None:
         needs.append(_Need(study.data.weight_column, "data.weight_column, frequency weights", True))
+    if study.data.cluster_column is not None and role == "derivation":
+        needs.append(_Need(study.data.cluster_column, f"data.cluster_column, clusters of kind {study.data.cluster_kind!r}", True))
     for name in study.predictors.in_analysis:
         form = study.predictors.candidates[name].form
         needs.append(_Need(name, f"predictor, form {form!r}", True))
@@ -818,7 +837,11 @@ def prepare_cohort(
     where = str(source) if source is not None else label
     needs, raw = _needed_frame(study, frame, role=role, label=label, where=where)
     id_column = study.data.id_column
-    audit = audit_frame(raw, name=where, private_columns=[id_column] if id_column else ())
+    private = [id_column] if id_column else []
+    cluster_column = study.data.cluster_column if role == "derivation" else None
+    if cluster_column is not None and study.data.cluster_kind == "person" and cluster_column not in private:
+        private.append(cluster_column)  # a person's cluster label identifies them like an id
+    audit = audit_frame(raw, name=where, private_columns=private)
     needed = {n.column: n for n in needs}
 
     specs: dict[str, PredictorSpec] = {name: study.predictors.candidates[name] for name in study.predictors.in_analysis}
@@ -837,6 +860,7 @@ def prepare_cohort(
     problems += _check_rule(study, raw, needed, out, source=where)
     problems += _check_subgroups(study, raw, needed, out, source=where)
     screened_weights = _check_weights(study, raw, problems, source=where)
+    screened_clusters = _check_clusters(cluster_column, raw, problems, source=where)
     if problems:
         _raise(where, problems)
 
@@ -848,6 +872,7 @@ def prepare_cohort(
     rows = np.bincount(y, minlength=len(levels))
     weights = None if screened_weights is None else screened_weights[keep.to_numpy()]
     counts = rows if weights is None else np.bincount(y, weights=weights, minlength=len(levels)).astype(np.int64)
+    clusters = None if screened_clusters is None else screened_clusters[keep.to_numpy()]
     return PreparedCohort(
         role=role,
         label=label,
@@ -874,6 +899,9 @@ def prepare_cohort(
         n_people=int(keep.sum()) if weights is None else int(weights.sum()),
         n_people_screened=int(len(raw)) if screened_weights is None else int(screened_weights.sum()),
         outcome_rows={lv: int(n) for lv, n in zip(levels, rows)},
+        clusters=clusters,
+        cluster_column=cluster_column,
+        cluster_kind=study.data.cluster_kind if cluster_column is not None else None,
     )
 
 
@@ -1113,6 +1141,26 @@ def _check_weights(study: Study, raw: pd.DataFrame, problems: list[str], *, sour
     return None
 
 
+def _check_clusters(column: str | None, raw: pd.DataFrame, problems: list[str], *, source: str | None = None) -> np.ndarray | None:
+    """The cluster label (text) of every screened row, or None without a cluster column.
+
+    A row without a cluster is a problem appended to ``problems`` (with its
+    file lines): which cluster it belongs to cannot be guessed, and dropping
+    it silently would change the analysis.
+    """
+    if column is None:
+        return None
+    labels = _as_text(raw[column])
+    absent = labels.isna().to_numpy()
+    if absent.any():
+        problems.append(
+            f"column {column!r} (data.cluster_column): expected the cluster of every row; received {int(absent.sum())} "
+            f"missing value(s) ({_file_lines(np.flatnonzero(absent), source)}); fill them in or remove those rows from the file"
+        )
+        return None
+    return labels.to_numpy(dtype=object).astype(str)
+
+
 def expand_cohort(cohort: "PreparedCohort") -> "PreparedCohort":
     """The cohort written out one row per person: row i repeated ``weights[i]`` times.
 
@@ -1136,6 +1184,7 @@ def expand_cohort(cohort: "PreparedCohort") -> "PreparedCohort":
     if cohort.weights is None:
         return cohort
     rows = np.repeat(np.arange(len(cohort.y)), cohort.weights)
+    clusters = None if cohort.clusters is None else cohort.clusters[rows]
     exclusions = cohort.exclusions.drop(columns=["excluded", "remaining"]).rename(
         columns={"excluded_people": "excluded", "remaining_people": "remaining"})
     return dataclasses.replace(
@@ -1147,6 +1196,7 @@ def expand_cohort(cohort: "PreparedCohort") -> "PreparedCohort":
         n_analysed=cohort.n_people,
         weights=None,
         outcome_rows=dict(cohort.outcome_counts),
+        clusters=clusters,
     )
 
 

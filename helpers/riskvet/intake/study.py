@@ -49,6 +49,7 @@ STAGES = (
     "derivation",
     "agreement",
     "internal_validation",
+    "internal_external",
     "external_validation",
     "updating",
     "summary",
@@ -145,6 +146,16 @@ class DataSection(_Section):
     weight_column: str | None = Field(
         default=None,
         description="Frequency weights: the column saying how many identical people each row stands for (whole numbers >= 0).",
+    )
+    cluster_column: str | None = Field(
+        default=None,
+        description="Rows that belong together (a site, a period, a person with several rows): resampled and split "
+        "whole by the bootstrap and every cross-validation; read from the derivation data.",
+    )
+    cluster_kind: Literal["site", "period", "person"] = Field(
+        default="site",
+        description="What a cluster is: a site or a period (its labels may be shown, and internal-external "
+        "cross-validation can leave one out), or a person (its labels are private and never shown).",
     )
     missing_values: tuple[str, ...] = ("", "NA", "N/A", "NaN", "nan", ".")
     category_map: dict[str, dict[str, str]] = Field(
@@ -380,6 +391,21 @@ class Subgroup(_Section):
         return value
 
 
+class InternalExternalSection(_Section):
+    """Internal-external cross-validation: leave one cluster (site or period) out, in turn."""
+
+    enabled: bool = True
+    pooling: Literal["reml", "dl"] = Field(
+        default="reml",
+        description="Between-cluster variance estimator of the random-effects pooling: reml (restricted maximum likelihood) or dl (DerSimonian-Laird).",
+    )
+    hartung_knapp: bool = Field(default=False, description="Hartung-Knapp intervals for the pooled measures (t on k - 1 df, rescaled variance).")
+    min_events: int = Field(
+        default=5, ge=1, le=1000,
+        description="A cluster's measure at a cut is estimated only with at least this many people on each side of the cut.",
+    )
+
+
 class ExternalValidationSection(_Section):
     """Validation of the frozen model in the validation cohorts."""
 
@@ -506,6 +532,7 @@ class Study(_Section):
     model: ModelSection = ModelSection()
     selection: SelectionSection = SelectionSection()
     internal_validation: InternalValidationSection = InternalValidationSection()
+    internal_external: InternalExternalSection | None = None
     external_validation: ExternalValidationSection = ExternalValidationSection()
     updating: UpdatingSection = UpdatingSection()
     thresholds: dict[str, tuple[float, ...]] = Field(
@@ -548,6 +575,18 @@ class Study(_Section):
         weight = self.data.weight_column
         if weight is not None and (weight in columns or weight in (self.outcome.column, self.data.id_column)):
             raise ValueError(f"data.weight_column: {weight!r} is also the outcome, the id column or a predictor; the weights need a column of their own")
+        cluster = self.data.cluster_column
+        if cluster is not None and (cluster in columns or cluster in (self.outcome.column, weight)):
+            raise ValueError(f"data.cluster_column: {cluster!r} is also the outcome, the weight column or a predictor; the clusters need a column of their own")
+        iecv = self.internal_external
+        if iecv is not None and iecv.enabled:
+            if cluster is None:
+                raise ValueError("internal_external: needs data.cluster_column, the column naming each row's site or period")
+            if self.data.cluster_kind == "person":
+                raise ValueError(
+                    "internal_external: leaves out one site or period at a time; data.cluster_kind is 'person', and leaving "
+                    "one person out is not internal-external validation (set cluster_kind: site or period, or internal_external.enabled: false)"
+                )
         if self.outcome.column in columns:
             raise ValueError(f"predictors: the outcome column {self.outcome.column!r} cannot also be a predictor")
         clash = sorted(set(self.predictors.candidates) & set(self.updating.new_predictors))
@@ -577,6 +616,8 @@ class Study(_Section):
             on.add("agreement")
         if self.internal_validation.enabled:
             on.add("internal_validation")
+        if self.internal_external is not None and self.internal_external.enabled:
+            on.add("internal_external")
         if self.data.validation and self.external_validation.enabled:
             on.add("external_validation")
         if self.data.validation and self.updating.enabled:

@@ -177,6 +177,7 @@ def derive(
     *,
     seed: int | None = None,
     weights: np.ndarray | None = None,
+    clusters: np.ndarray | None = None,
 ) -> Derivation:
     """Run the study's whole derivation procedure on one data set.
 
@@ -198,6 +199,10 @@ def derive(
         the fits equal the fits on the expanded rows; and the selection's
         cross-validation deals people, not copies, to folds, so no copy of a
         person is both in a training fold and in its held-out fold.
+    clusters : array of int, optional
+        Cluster code of every row (:func:`riskvet.modelling.folds.cluster_codes`;
+        ``data.cluster_column``): the selection's cross-validation then deals
+        whole clusters to folds.
 
     Returns
     -------
@@ -209,6 +214,7 @@ def derive(
             raise DataError(f"derive(weights=): expected {len(frame)} whole, non-negative counts; received shape {counts.shape}")
         keep = counts > 0
         frame, y, counts = frame.loc[keep], np.asarray(y)[keep], counts[keep].astype(np.int64)
+        clusters = None if clusters is None else np.asarray(clusters)[keep]
         design = candidate_design(study, frame.iloc[np.repeat(np.arange(len(frame)), counts)])
     else:
         counts = None
@@ -230,6 +236,7 @@ def derive(
         l1_ratio=study.selection.l1_ratio,
         n_penalties=study.selection.n_penalties,
         on_separation="firth" if study.model.on_separation == "firth" else "warn",
+        clusters=clusters,
     )
     chosen = set(result.terms)
     final = design.subset([t.name for t in design.terms if t.name in chosen])

@@ -56,6 +56,7 @@ from .fitter import (
     _to_natural,
     one_blas_thread,
 )
+from .folds import cluster_folds
 from .links import LINKS
 
 __all__ = ["fit_penalized", "penalty_path", "tune_penalty", "PenaltyPath", "PenaltyChoice"]
@@ -1156,6 +1157,7 @@ def tune_penalty(
     link: str = "logit",
     proportional: bool = True,
     weights=None,
+    clusters=None,
 ) -> PenaltyChoice:
     """Choose the penalty by k-fold cross-validated log-likelihood on standardised columns.
 
@@ -1174,6 +1176,10 @@ def tune_penalty(
     weights : array-like, optional, keyword-only
         Whole frequency counts (a bootstrap resample): rows, not copies, are
         dealt to folds, so a row's copies stay in one fold.
+    clusters : array of int, optional, keyword-only
+        Cluster code of every row: whole clusters are dealt to folds
+        (:func:`riskvet.modelling.folds.cluster_folds`).  Rows of weight 0
+        must already be removed.
 
     Returns
     -------
@@ -1233,7 +1239,13 @@ def tune_penalty(
     _check_tuning(n_folds, None if inp.unit else inp.w, inp.y.shape[0])
     spec = _penalty_spec(inp)
     rng = _rng(seed)
-    fold = _deal_folds(inp.y, inp.K, int(n_folds), rng, inp.levels)
+    if clusters is None:
+        fold = _deal_folds(inp.y, inp.K, int(n_folds), rng, inp.levels)
+    else:
+        codes = np.asarray(clusters, dtype=np.int64)
+        if codes.shape != inp.y.shape:
+            raise FitError(problem("clusters", allowed=f"{inp.y.shape[0]} cluster codes, one per row", received=f"shape {codes.shape}"))
+        fold = cluster_folds(codes, inp.y, int(n_folds), rng, inp.levels, where="selection.folds")
     mu, sd = _moments(inp.X, inp.w)
     full = inp._replace(X=(inp.X - mu) / sd)
     d_full = _design(full)

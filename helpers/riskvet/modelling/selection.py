@@ -52,6 +52,7 @@ from .fitter import (
     fit_cumulative,
     one_blas_thread,
 )
+from .folds import cluster_folds
 from .links import LINKS
 
 __all__ = ["select_terms", "SelectionResult", "METHODS"]
@@ -439,6 +440,7 @@ def select_terms(
     l1_ratio: float | None = None,
     n_penalties: int = 30,
     on_separation: str = "warn",
+    clusters=None,
 ) -> SelectionResult:
     """Select terms of a cumulative-link model.
 
@@ -468,6 +470,10 @@ def select_terms(
     firth : bool, keyword-only
         Fit every model of the procedure by Firth's bias-reduced likelihood
         (methods forward, backward and none).
+    clusters : array of int, optional, keyword-only
+        Cluster code of every row (:func:`riskvet.modelling.folds.cluster_codes`):
+        the cross-validation (forward size, penalty) then deals whole
+        clusters to folds (:func:`riskvet.modelling.folds.cluster_folds`).
     l1_ratio : float, optional, keyword-only
         ``"elastic_net"``: the lasso share of the penalty, in (0, 1); 0.5
         when omitted.  Not used by the other methods.
@@ -532,7 +538,7 @@ def select_terms(
         return _select_terms(
             X, y, groups=groups, forced=forced, method=method, n_folds=n_folds, seed=seed,
             link=link, proportional=proportional, weights=weights, firth=firth, l1_ratio=l1_ratio,
-            n_penalties=n_penalties, on_separation=on_separation,
+            n_penalties=n_penalties, on_separation=on_separation, clusters=clusters,
         )
 
 
@@ -589,8 +595,13 @@ class _Selected:
     size: int | None = None
 
 
-def _sorted_folds(prob: _Problem, codes: np.ndarray, keep: np.ndarray, order: np.ndarray, n_folds: int, rng: np.random.Generator, levels) -> np.ndarray:
-    """Fold of each sorted row, for the cross-validation of the forward path."""
+def _sorted_folds(prob: _Problem, codes: np.ndarray, keep: np.ndarray, order: np.ndarray, n_folds: int, rng: np.random.Generator, levels,
+                  *, clusters: np.ndarray | None = None) -> np.ndarray:
+    """Fold of each sorted row, for the cross-validation of the forward path (whole clusters per fold when given)."""
+    if clusters is not None:
+        fold_in = np.full(codes.shape[0], -1, dtype=np.int64)
+        fold_in[keep] = cluster_folds(clusters[keep], codes[keep], n_folds, rng, levels, where="selection.folds")
+        return fold_in[order]
     counts = np.bincount(prob.y, minlength=prob.K)
     if np.min(counts) < max(2, n_folds):
         # a level with fewer rows than folds leaves some held-out fold without it
@@ -710,6 +721,7 @@ def _select_terms(
     l1_ratio: float | None = None,
     n_penalties: int = 30,
     on_separation: str = "warn",
+    clusters=None,
 ) -> SelectionResult:
     """:func:`select_terms` itself, run by it with one BLAS thread."""
     _check_options(method, link, proportional, firth, l1_ratio, on_separation)
@@ -722,6 +734,10 @@ def _select_terms(
     if np.any(w < 0):
         raise FitError(problem("weights", allowed="non-negative weights", received=f"{int(np.sum(w < 0))} negative"))
     _check_levels(codes, K, w, levels)
+    if clusters is not None:
+        clusters = np.asarray(clusters, dtype=np.int64)
+        if clusters.shape != (n,) or (n and clusters.min() < 0):
+            raise DesignError(problem("clusters", allowed=f"{n} cluster codes >= 0 (riskvet.modelling.folds.cluster_codes), one per row", received=f"shape {clusters.shape}"))
     rng = None
     seed_used = None
     if method == "forward" or method in PENALIZED:
@@ -735,6 +751,7 @@ def _select_terms(
             pd.DataFrame(Xa[keep], columns=list(columns)), codes[keep], None if unit else w[keep], levels=levels,
             names=names, term_cols=term_cols, forced_idx=forced_idx, method=method, l1_ratio=share, n_folds=int(n_folds),
             rng=rng, seed_used=seed_used, n_penalties=int(n_penalties), link=link, proportional=bool(proportional),
+            clusters=None if clusters is None else clusters[keep],
         )
     order = keep[np.argsort(codes[keep], kind="stable")]
     Xs = np.ascontiguousarray(Xa[order])
@@ -745,7 +762,7 @@ def _select_terms(
     msgs: list[str] = []
 
     if method == "forward":
-        fold = _sorted_folds(prob, codes, keep, order, int(n_folds), rng, levels)
+        fold = _sorted_folds(prob, codes, keep, order, int(n_folds), rng, levels, clusters=clusters)
         chosen = _forward_selection(prob, fold, int(n_folds), forced_idx, free, msgs)
     elif method == "backward":
         chosen = _backward_elimination(prob, forced_idx, free)
@@ -798,7 +815,7 @@ def _final_fit(frame, y_cat, *, start, link, proportional, weights, firth, on_se
 
 
 def _penalized_selection(frame, codes, weights, *, levels, names, term_cols, forced_idx, method, l1_ratio, n_folds, rng,
-                         seed_used, n_penalties, link, proportional) -> SelectionResult:
+                         seed_used, n_penalties, link, proportional, clusters=None) -> SelectionResult:
     """Ridge, lasso or elastic net: one penalised fit, the penalty tuned by cross-validation; a term whose
     coefficients are all zero is left out (the forced terms are not penalised)."""
     from .penalized import tune_penalty
@@ -808,7 +825,7 @@ def _penalized_selection(frame, codes, weights, *, levels, names, term_cols, for
     unpenalized = [columns[c] for t in forced_idx for c in term_cols[t]]
     y_cat = pd.Categorical.from_codes(codes, categories=list(levels), ordered=True)
     choice = tune_penalty(frame, y_cat, l1_ratio=l1_ratio, groups=groups, unpenalized=unpenalized, n_folds=n_folds, seed=rng,
-                          n_alphas=n_penalties, link=link, proportional=proportional, weights=weights)
+                          n_alphas=n_penalties, link=link, proportional=proportional, weights=weights, clusters=clusters)
     fit = choice.fit
     coef = np.asarray(fit.coef, dtype=float).reshape(len(columns), -1)
     nonzero = np.any(coef != 0.0, axis=1)

@@ -53,6 +53,7 @@ import pandas as pd
 
 from .._jsonable import to_jsonable
 from ..errors import DataError, DesignError, FitError, RiskvetError, RiskvetWarning, StudyError, problem
+from ..modelling.folds import cluster_codes, cluster_members, draw_clusters
 
 __all__ = [
     "MeasureEstimate",
@@ -63,6 +64,7 @@ __all__ = [
     "InternalValidation",
     "validate_internally",
     "bootstrap_indices",
+    "cluster_bootstrap_indices",
     "heuristic_shrinkage",
     "shrink_model",
     "write_shrunken_model",
@@ -679,6 +681,12 @@ class InternalValidation:
         With frequency weights, the rows of the derivation data (the units
         resampled: a drawn row brings all its people); None without weights,
         when rows are people.
+    n_clusters : int or None
+        With a cluster column (``data.cluster_column``), the clusters of the
+        derivation data: the units resampled (a drawn cluster brings all its
+        rows); None when rows are resampled.
+    cluster_kind : str or None
+        ``data.cluster_kind`` (site, period or person) with clusters; None otherwise.
     """
 
     estimates: tuple[MeasureEstimate, ...]
@@ -699,6 +707,13 @@ class InternalValidation:
     slope_spread: ReplicateSpread | None = None
     penalty_spread: ReplicateSpread | None = None
     n_rows: int | None = None
+    n_clusters: int | None = None
+    cluster_kind: str | None = None
+
+    @property
+    def resampled(self) -> str:
+        """The units each replicate draws with replacement: ``"clusters"`` or ``"rows"``."""
+        return "rows" if self.n_clusters is None else "clusters"
 
     @property
     def n_failed(self) -> int:
@@ -766,6 +781,8 @@ class InternalValidation:
                 "slope_spread": self.slope_spread.to_dict() if self.slope_spread is not None else None,
                 "penalty_spread": self.penalty_spread.to_dict() if self.penalty_spread is not None else None,
                 **({} if self.n_rows is None else {"counted": "people", "n_rows": self.n_rows}),
+                "resampled": self.resampled,
+                **({} if self.n_clusters is None else {"n_clusters": self.n_clusters, "cluster_kind": self.cluster_kind}),
             }
         )
 
@@ -833,6 +850,23 @@ def _as_weighted_data(study, data: Any, weights: Any, func: str) -> tuple[pd.Dat
     return frame, y, w.astype(np.int64)
 
 
+def _as_clusters(data: Any, clusters: Any, n: int, func: str) -> tuple[np.ndarray | None, str | None]:
+    """(cluster codes 0..G-1 in order of first appearance, or None; the cluster kind): a PreparedCohort's own clusters, or those passed."""
+    from ..intake.data import PreparedCohort
+
+    own = data.clusters if isinstance(data, PreparedCohort) else None
+    kind = data.cluster_kind if isinstance(data, PreparedCohort) else None
+    if clusters is not None and own is not None:
+        raise RiskvetError(problem(f"{func}(clusters=)", allowed="None when the data are a PreparedCohort read with data.cluster_column (its own clusters are used)", received="clusters"))
+    labels = own if clusters is None else clusters
+    if labels is None:
+        return None, None
+    values = np.asarray(labels, dtype=object)
+    if values.shape != (n,) or any(v is None or (isinstance(v, float) and math.isnan(v)) for v in values.tolist()):
+        raise DataError(problem(f"{func}(clusters=)", allowed=f"{n} cluster labels, one per row, none missing", received=f"shape {values.shape}"))
+    return cluster_codes(values), kind
+
+
 def _people(n_rows: int, weights: np.ndarray | None, rows: np.ndarray | None = None) -> np.ndarray:
     """The rows of ``rows`` (default every row) written out one per person: row i repeated ``weights[i]`` times.
 
@@ -859,6 +893,33 @@ def _check_n_jobs(n_jobs: Any, func: str) -> int:
     if isinstance(n_jobs, bool) or not isinstance(n_jobs, (int, np.integer)) or n_jobs == 0 or n_jobs < -1:
         raise RiskvetError(problem(f"{func}(n_jobs=)", allowed="a positive number of workers, or -1 for every core", received=n_jobs))
     return int(os.cpu_count() or 1) if n_jobs == -1 else int(n_jobs)
+
+
+def cluster_bootstrap_indices(clusters: Any, *, n_boot: int, seed: int) -> list[np.ndarray]:
+    """The rows each cluster bootstrap replicate brings, exactly as :func:`validate_internally` draws them with clusters.
+
+    Parameters
+    ----------
+    clusters : array-like, shape (n_rows,)
+        The cluster label of every row.
+    n_boot : int
+        Replicates.
+    seed : int
+        Seed of the replicate streams.
+
+    Returns
+    -------
+    list of ndarray of int
+        Replicate i's rows: the G clusters it drew with replacement
+        (stream i of ``SeedSequence(seed).spawn(n_boot)``, G integers in
+        ``[0, G)``, clusters numbered in order of first appearance), each
+        bringing all its rows.  With one row per cluster this is
+        :func:`bootstrap_indices`, row for row.
+    """
+    members = cluster_members(cluster_codes(clusters))
+    n_boot = _check_count(n_boot, "n_boot", "cluster_bootstrap_indices")
+    seed = _check_seed(seed, "cluster_bootstrap_indices")
+    return [draw_clusters(np.random.default_rng(c), members) for c in np.random.SeedSequence(seed).spawn(n_boot)]
 
 
 def bootstrap_indices(n_rows: int, *, n_boot: int, seed: int) -> np.ndarray:
@@ -891,9 +952,10 @@ def bootstrap_indices(n_rows: int, *, n_boot: int, seed: int) -> np.ndarray:
     return np.vstack([np.random.default_rng(c).integers(0, n_rows, size=n_rows) for c in children])
 
 
-def _draw(child: np.random.SeedSequence, n: int) -> tuple[np.ndarray, int]:
+def _draw(child: np.random.SeedSequence, n: int, members: tuple[np.ndarray, np.ndarray] | None = None) -> tuple[np.ndarray, int]:
+    """A replicate's rows (n rows, or the rows of G clusters drawn with replacement) and its selection seed."""
     rng = np.random.default_rng(child)
-    idx = rng.integers(0, n, size=n)
+    idx = rng.integers(0, n, size=n) if members is None else draw_clusters(rng, members)
     return idx, int(rng.integers(0, _SEED_CEILING))
 
 
@@ -1233,6 +1295,9 @@ class _Payload:
     K: int
     link: str
     weights: np.ndarray | None = None
+    #: cluster code of every row, and the rows of each cluster (riskvet.modelling.folds); None to resample rows
+    clusters: np.ndarray | None = None
+    members: tuple[np.ndarray, np.ndarray] | None = None
 
 
 #: Reason of a failed replicate by the kind of error met, most specific kind first.
@@ -1276,7 +1341,7 @@ def _failure_message(exc: BaseException, where: str = "") -> str:
 
 
 def _fit_and_predict(study, frame_fit: pd.DataFrame, y_fit: np.ndarray, frame_new: pd.DataFrame, seed: int, K: int,
-                     *, weights: np.ndarray | None = None):
+                     *, weights: np.ndarray | None = None, clusters: np.ndarray | None = None):
     """derive() on (frame_fit, y_fit) (with frequency ``weights``), then probabilities and LP on frame_new.
 
     Returns (derivation, prob, lp, warning counts) or raises _ReplicateFailed.
@@ -1293,7 +1358,8 @@ def _fit_and_predict(study, frame_fit: pd.DataFrame, y_fit: np.ndarray, frame_ne
     with warnings.catch_warnings(record=True) as seen:
         warnings.simplefilter("always")
         try:
-            derivation = derive(study, frame_fit, y_fit, seed=seed, weights=weights)
+            derivation = (derive(study, frame_fit, y_fit, seed=seed, weights=weights) if clusters is None
+                          else derive(study, frame_fit, y_fit, seed=seed, weights=weights, clusters=clusters))
         except _PROPAGATE:
             raise
         except (RiskvetError, np.linalg.LinAlgError) as exc:
@@ -1366,7 +1432,7 @@ def _replicate(payload: _Payload, item: tuple[int, np.random.SeedSequence]) -> d
     interrupts) makes the replicate a counted failure with its reason.
     """
     i, child = item
-    idx, sel_seed = _draw(child, len(payload.frame))
+    idx, sel_seed = _draw(child, len(payload.frame), payload.members)
     record: dict[str, Any] = {"replicate": i, "selection_seed": sel_seed}
     try:
         record.update(_replicate_values(payload, idx, sel_seed))
@@ -1390,7 +1456,7 @@ def _replicate_values(payload: _Payload, idx: np.ndarray, sel_seed: int) -> dict
     if w is not None:
         counts = counts * w
     derivation, prob, lp, caught = _fit_and_predict(
-        payload.study, payload.frame, payload.y, payload.frame, sel_seed, payload.K, weights=counts
+        payload.study, payload.frame, payload.y, payload.frame, sel_seed, payload.K, weights=counts, clusters=payload.clusters
     )
     y = payload.y
     # every measure is of people: the resample, the original data and the rows out of bag written out one per person
@@ -1466,7 +1532,7 @@ def _outcome_info(study) -> dict[str, Any]:
 
 
 def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1, progress: bool = True,
-                        weights: np.ndarray | None = None) -> InternalValidation:
+                        weights: np.ndarray | None = None, clusters: Any = None) -> InternalValidation:
     """Bootstrap internal validation of the study's whole derivation procedure.
 
     Parameters
@@ -1494,6 +1560,10 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
         Frequency weights of a (frame, y) pair: row i stands for
         ``weights[i]`` identical people.  A PreparedCohort read with
         ``data.weight_column`` brings its own (then leave this None).
+    clusters : array-like, optional
+        The cluster label of every row of a (frame, y) pair: replicates then
+        draw whole clusters.  A PreparedCohort read with
+        ``data.cluster_column`` brings its own (then leave this None).
 
     Returns
     -------
@@ -1570,7 +1640,15 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
       out-of-bag losses and the no-information values) is computed on the
       rows written out one per person, so each equals the measure on the
       data written out row by row.  With every w_i = 1 the result is the
-      unweighted one, bit for bit.
+      unweighted one, bit for bit;
+    * clusters (``data.cluster_column``: a person's visits, a site's
+      patients): replicate b draws G of the G clusters with replacement,
+      each bringing all its rows (the cluster bootstrap, Davison & Hinkley
+      1997, section 3.8; Field & Welsh 2007), the rows of the clusters not
+      drawn are out of bag, and the selection's cross-validation inside the
+      replicate deals whole clusters to folds.  Clusters are numbered in
+      order of first appearance, so with one row per cluster every replicate
+      is the row bootstrap's, draw for draw.
 
     References
     ----------
@@ -1599,10 +1677,15 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
        resampling study. Statistics in Medicine 2016;35(2):214-226.
     .. [9] Heinze G, Schemper M. A solution to the problem of separation in
        logistic regression. Statistics in Medicine 2002;21(16):2409-2419.
+    .. [10] Davison AC, Hinkley DV. Bootstrap Methods and their Application.
+       Cambridge University Press, 1997.
+    .. [11] Field CA, Welsh AH. Bootstrapping clustered data. Journal of the
+       Royal Statistical Society, Series B 2007;69(3):369-390.
     """
     func = "validate_internally"
     study = _check_study(study, func)
     frame, y, w = _as_weighted_data(study, data, weights, func)
+    codes, cluster_kind = _as_clusters(data, clusters, len(frame), func)
     n_boot = _check_count(n_boot, "n_boot", func)
     seed = _check_seed(seed, func)
     n_jobs = _check_n_jobs(n_jobs, func)
@@ -1611,7 +1694,7 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
     link = study.model.link
     n = len(frame)
 
-    apparent_derivation, prob, lp, trouble = _derive_on_all_data(study, frame, y, weights=w)
+    apparent_derivation, prob, lp, trouble = _derive_on_all_data(study, frame, y, weights=w, clusters=codes)
     apparent_warnings = tuple(dict.fromkeys(f"{m.category.__name__}: {m.message}" for m in trouble))
     for m in trouble:  # statistical trouble of the model on all data is shown as well as recorded
         warnings.warn(str(m.message), m.category, stacklevel=2)
@@ -1621,7 +1704,8 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
     specs = _measure_specs(levels)
     keys = [k for k, _, _ in specs]
     tally = _run_replicates(
-        _Payload(study=study, frame=frame, y=y, K=K, link=link, weights=w), seed=seed, n_boot=n_boot, keys=keys,
+        _Payload(study=study, frame=frame, y=y, K=K, link=link, weights=w, clusters=codes,
+                 members=None if codes is None else cluster_members(codes)), seed=seed, n_boot=n_boot, keys=keys,
         n_jobs=n_jobs, scheduler=study.compute.scheduler, progress=progress,
     )
     max_failed = study.internal_validation.max_failed_share
@@ -1658,6 +1742,8 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
         slope_spread=slope_spread,
         penalty_spread=penalty_spread,
         n_rows=None if w is None else n,
+        n_clusters=None if codes is None else int(codes.max()) + 1,
+        cluster_kind=cluster_kind if codes is not None else None,
     )
 
 
@@ -1666,8 +1752,8 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
 # ---------------------------------------------------------------------------
 
 
-def _derive_on_all_data(study, frame: pd.DataFrame, y: np.ndarray, *, weights: np.ndarray | None = None
-                        ) -> tuple[Any, np.ndarray, np.ndarray, list[warnings.WarningMessage]]:
+def _derive_on_all_data(study, frame: pd.DataFrame, y: np.ndarray, *, weights: np.ndarray | None = None,
+                        clusters: np.ndarray | None = None) -> tuple[Any, np.ndarray, np.ndarray, list[warnings.WarningMessage]]:
     """The derivation procedure on all data (with its frequency ``weights``), as the derivation stage runs it.
 
     Returns the derivation, its probabilities and linear predictor on the
@@ -1678,7 +1764,8 @@ def _derive_on_all_data(study, frame: pd.DataFrame, y: np.ndarray, *, weights: n
 
     with warnings.catch_warnings(record=True) as seen:
         warnings.simplefilter("always")
-        derivation = derive(study, frame, y) if weights is None else derive(study, frame, y, weights=weights)
+        options = {k: v for k, v in (("weights", weights), ("clusters", clusters)) if v is not None}
+        derivation = derive(study, frame, y, **options)
         prob, lp = _predict(derivation, frame)
     return derivation, prob, lp, [w for w in seen if issubclass(w.category, RiskvetWarning)]
 

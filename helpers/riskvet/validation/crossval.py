@@ -42,6 +42,7 @@ from .._jsonable import to_jsonable
 from .bootstrap import (
     _SEED_CEILING,
     ReplicateFailure,
+    _as_clusters,
     _as_weighted_data,
     _check_count,
     _check_n_jobs,
@@ -61,6 +62,7 @@ from .bootstrap import (
     _spread,
 )
 from ..errors import DesignError, RiskvetError, problem
+from ..modelling.folds import cluster_folds
 
 __all__ = ["CrossValidationEstimate", "CrossValidation", "cross_validate", "stratified_folds"]
 
@@ -130,6 +132,8 @@ class CrossValidation:
     n_rows : int or None
         With frequency weights, the rows dealt to folds (``n`` is then the
         people, the sum of the weights); None without weights.
+    n_clusters : int or None
+        With clusters, the clusters dealt whole to folds; None otherwise.
     """
 
     estimates: tuple[CrossValidationEstimate, ...]
@@ -144,6 +148,7 @@ class CrossValidation:
     apparent_warnings: tuple[str, ...]
     fold_values: pd.DataFrame = field(repr=False)
     n_rows: int | None = None
+    n_clusters: int | None = None
 
     def estimate(self, measure: str) -> CrossValidationEstimate:
         for e in self.estimates:
@@ -169,6 +174,7 @@ class CrossValidation:
                 "fold_warnings": self.fold_warnings,
                 "apparent_warnings": self.apparent_warnings,
                 **({} if self.n_rows is None else {"counted": "people", "n_rows": self.n_rows}),
+                **({} if self.n_clusters is None else {"n_clusters": self.n_clusters}),
             }
         )
 
@@ -199,6 +205,7 @@ class _CVPayload:
     link: str
     folds: np.ndarray  # n_repeats x n
     weights: np.ndarray | None = None
+    clusters: np.ndarray | None = None  # cluster code of every row, or None
 
 
 def _fold(payload: _CVPayload, item: tuple[int, int, int]) -> dict[str, Any]:
@@ -232,6 +239,7 @@ def _fold_values(payload: _CVPayload, r: int, f: int, sel_seed: int) -> dict[str
         sel_seed,
         payload.K,
         weights=None if w is None else w[train],
+        clusters=None if payload.clusters is None else payload.clusters[train],
     )
     # the held-out rows written out one per person (frequency weights); unchanged without weights
     people = _people(test.size, None if w is None else w[test])
@@ -242,7 +250,7 @@ def _fold_values(payload: _CVPayload, r: int, f: int, sel_seed: int) -> dict[str
 
 
 def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, n_jobs: int = 1, progress: bool = True,
-                   weights: np.ndarray | None = None) -> CrossValidation:
+                   weights: np.ndarray | None = None, clusters: Any = None) -> CrossValidation:
     """(Repeated) k-fold cross-validation of the study's whole derivation procedure.
 
     Parameters
@@ -266,6 +274,10 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
         Frequency weights of a (frame, y) pair (row i stands for
         ``weights[i]`` identical people); a PreparedCohort read with
         ``data.weight_column`` brings its own.
+    clusters : array-like, optional
+        The cluster label of every row of a (frame, y) pair; a PreparedCohort
+        read with ``data.cluster_column`` brings its own.  Whole clusters are
+        then dealt to folds (:func:`riskvet.modelling.folds.cluster_folds`).
 
     Returns
     -------
@@ -287,7 +299,10 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
     the folds are dealt over rows, so a person's copies are never split
     between training and held-out data; each fold's model is derived on its
     training rows with their weights, and every measure (apparent, per fold,
-    pooled) is computed on the rows written out one per person.
+    pooled) is computed on the rows written out one per person.  With
+    clusters, whole clusters are dealt to folds (in random order, then by
+    their mean outcome, an approximate stratification), so a cluster is
+    never both in a fold's training data and in its held-out data.
 
     References
     ----------
@@ -301,6 +316,7 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
     func = "cross_validate"
     study = _check_study(study, func)
     frame, y, w = _as_weighted_data(study, data, weights, func)
+    codes, _ = _as_clusters(data, clusters, len(frame), func)
     n_folds = _check_count(n_folds, "n_folds", func, minimum=2)
     n_repeats = _check_count(n_repeats, "n_repeats", func)
     seed = _check_seed(seed, func)
@@ -311,9 +327,9 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
     link = study.model.link
     _check_folds_fit_levels(y, levels, n_folds=n_folds, func=func)
 
-    folds, items = _draw_folds(y, n_folds=n_folds, n_repeats=n_repeats, seed=seed)
+    folds, items = _draw_folds(y, n_folds=n_folds, n_repeats=n_repeats, seed=seed, clusters=codes, func=func)
 
-    _, prob_all, lp_all, trouble = _derive_on_all_data(study, frame, y, weights=w)
+    _, prob_all, lp_all, trouble = _derive_on_all_data(study, frame, y, weights=w, clusters=codes)
     apparent_warnings = tuple(dict.fromkeys(f"{m.category.__name__}: {m.message}" for m in trouble))
     for m in trouble:
         warnings.warn(str(m.message), m.category, stacklevel=2)
@@ -323,7 +339,7 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
     specs = _measure_specs(levels)
     keys = [k for k, _, _ in specs]
     tally = _run_folds(
-        _CVPayload(study=study, frame=frame, y=y, K=K, link=link, folds=folds, weights=w), items, keys=keys, n_folds=n_folds,
+        _CVPayload(study=study, frame=frame, y=y, K=K, link=link, folds=folds, weights=w, clusters=codes), items, keys=keys, n_folds=n_folds,
         n_repeats=n_repeats, pool_lp=lp_all.ndim == 1, n_jobs=n_jobs, scheduler=study.compute.scheduler, progress=progress,
     )
     _check_fold_failures(tally.failures, total=n_folds * n_repeats, max_failed=study.internal_validation.max_failed_share, func=func)
@@ -342,6 +358,7 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
         apparent_warnings=apparent_warnings,
         fold_values=pd.DataFrame(tally.fold_rows, columns=["repeat", "fold", "measure", "value"]),
         n_rows=None if w is None else n,
+        n_clusters=None if codes is None else int(codes.max()) + 1,
     )
 
 
@@ -357,13 +374,15 @@ def _check_folds_fit_levels(y: np.ndarray, levels: Sequence[str], *, n_folds: in
         ))
 
 
-def _draw_folds(y: np.ndarray, *, n_folds: int, n_repeats: int, seed: int) -> tuple[np.ndarray, list[tuple[int, int, int]]]:
-    """Every repeat's folds and the (repeat, fold, selection seed) of every fold, from the repeat's own stream."""
+def _draw_folds(y: np.ndarray, *, n_folds: int, n_repeats: int, seed: int, clusters: np.ndarray | None = None,
+                func: str = "cross_validate") -> tuple[np.ndarray, list[tuple[int, int, int]]]:
+    """Every repeat's folds and the (repeat, fold, selection seed) of every fold, from the repeat's own stream (whole clusters per fold when given)."""
     folds = np.empty((n_repeats, y.shape[0]), dtype=np.int64)
     items = []
     for r, child in enumerate(np.random.SeedSequence(seed).spawn(n_repeats)):
         rng = np.random.default_rng(child)
-        folds[r] = stratified_folds(y, n_folds=n_folds, rng=rng)
+        folds[r] = (stratified_folds(y, n_folds=n_folds, rng=rng) if clusters is None
+                    else cluster_folds(clusters, y, n_folds, rng, where=f"{func}(n_folds=)"))
         seeds = rng.integers(0, _SEED_CEILING, size=n_folds)
         items += [(r, f, int(seeds[f])) for f in range(n_folds)]
     return folds, items

@@ -30,6 +30,7 @@ from ...measures.summary import performance_summary
 from ...intake.data import expand_cohort, load_cohorts
 from ...reporting.descriptive import descriptive_table
 from ...modelling.derive import Derivation, candidate_parameters, derive
+from ...modelling.folds import cluster_codes
 from ...modelling.term_effects import TermEffects, column_label, term_effects, term_label
 from ...errors import RiskvetError, RiskvetWarning
 from ...modelling.modelfile import PredictionModel, model_from_fit, save_model
@@ -171,7 +172,8 @@ def run(ctx: StageContext) -> DerivationOutput:
     flow = cohort.exclusions.rename(columns=PEOPLE_FLOW_WORDS) if cohort.weights is not None else cohort.exclusions.copy()
     descriptive = descriptive_table(cohort, labels={lv: study.outcome.label(lv) for lv in levels}, min_cell_count=study.output.min_cell_count)
 
-    derivation = derive(study, cohort.frame, np.asarray(cohort.y), weights=cohort.weights)
+    codes = None if cohort.clusters is None else cluster_codes(cohort.clusters)
+    derivation = derive(study, cohort.frame, np.asarray(cohort.y), weights=cohort.weights, clusters=codes)
     separated = separated_terms(derivation)
     _stop_if_separated(study, derivation, separated)
     cut_labels = [cut_label(levels, j, binary=K == 2) for j in range(K - 1)]
