@@ -297,9 +297,9 @@ _POPULATIONS: dict[str, dict[str, Any]] = {
         "course": "Harbourfront",
         "id_prefix": "PC",
         "events": (
-            {"event": "Harbourfront 10K", "distance_km": 10.0, "share": 0.45, "wbgt_mean": 27.6},
-            {"event": "Harbourfront Half Marathon", "distance_km": 21.1, "share": 0.35, "wbgt_mean": 28.4},
-            {"event": "Harbourfront Marathon", "distance_km": 42.2, "share": 0.20, "wbgt_mean": 26.9},
+            {"event": "Harbourfront 10K", "tent": "10K", "distance_km": 10.0, "share": 0.45, "wbgt_mean": 27.6},
+            {"event": "Harbourfront Half Marathon", "tent": "half", "distance_km": 21.1, "share": 0.35, "wbgt_mean": 28.4},
+            {"event": "Harbourfront Marathon", "tent": "marathon", "distance_km": 42.2, "share": 0.20, "wbgt_mean": 26.9},
         ),
         "wbgt_sd": 1.3,
         "age_mean": 37.0,
@@ -311,9 +311,9 @@ _POPULATIONS: dict[str, dict[str, Any]] = {
         "course": "Greywater Reservoir",
         "id_prefix": "GW",
         "events": (
-            {"event": "Greywater 10K", "distance_km": 10.0, "share": 0.40, "wbgt_mean": 25.6},
-            {"event": "Greywater Half Marathon", "distance_km": 21.1, "share": 0.38, "wbgt_mean": 26.2},
-            {"event": "Greywater Marathon", "distance_km": 42.2, "share": 0.22, "wbgt_mean": 25.1},
+            {"event": "Greywater 10K", "tent": "10K", "distance_km": 10.0, "share": 0.40, "wbgt_mean": 25.6},
+            {"event": "Greywater Half Marathon", "tent": "half", "distance_km": 21.1, "share": 0.38, "wbgt_mean": 26.2},
+            {"event": "Greywater Marathon", "tent": "marathon", "distance_km": 42.2, "share": 0.22, "wbgt_mean": 25.1},
         ),
         "wbgt_sd": 1.3,
         "age_mean": 47.0,
@@ -347,6 +347,7 @@ _PREDICTOR_MODEL = {
     "age": "Normal(age_mean, age_sd), clipped to 16-85, whole years",
     "sex": "male with probability male_share",
     "distance_km": "event distance x 1 (40% finished) or x Uniform(0.2, 1), 0.1 km",
+    "tent": "no draw: the event's finish tent (finished), early-course tent (under 55% of the distance) or late-course tent",
     "wbgt": "Normal(event wbgt_mean, wbgt_sd), 0.1 degC",
     "prior_heat_illness": "Bernoulli(clip(0.06 + 0.001 (age - 40), 0.01, 0.2))",
     "core_temp": "36.7 + Gamma(2, 0.6) + 0.08 (wbgt - 26) + 0.15 prior_heat_illness, clipped 35.8-42.4, 0.1 degC",
@@ -581,6 +582,9 @@ def _simulate(n: int, season: str, rng: np.random.Generator) -> pd.DataFrame:
     finished = rng.random(n) < 0.4
     fraction = np.where(finished, 1.0, rng.uniform(0.2, 1.0, n))
     distance_km = _round(event_km * fraction, 1)
+    # the first-aid tent that saw the attendee: no random draw, so every other column is as before the tents
+    place = np.where(finished, "finish", np.where(fraction < 0.55, "early-course", "late-course"))
+    tent = np.char.add(np.char.add(np.array([e["tent"] for e in events])[k], " "), np.char.add(place, " tent"))
     wbgt = _round(rng.normal(wbgt_mean, pop["wbgt_sd"]), 1)
     prior = (rng.random(n) < np.clip(0.06 + 0.001 * (age - 40), 0.01, 0.2)).astype(np.int64)
 
@@ -607,6 +611,7 @@ def _simulate(n: int, season: str, rng: np.random.Generator) -> pd.DataFrame:
             "attendee_id": [f"{pop['id_prefix']}-{i:06d}" for i in range(1, n + 1)],
             "season": pop["season"],
             "event": pd.array(event, dtype="str"),
+            "tent": pd.array(tent.astype(object), dtype="str"),
             "age": age,
             "sex": sex,
             "distance_km": distance_km,
@@ -647,7 +652,9 @@ def draw(n: int, *, season: str = "derivation", seed: int | np.random.Generator)
     -------
     pandas.DataFrame
         One row per attendee, no missing values.  Columns: ``attendee_id``,
-        ``season``, ``event``, ``age`` (years), ``sex`` (``"female"`` /
+        ``season``, ``event``, ``tent`` (the first-aid tent that saw the
+        attendee: nine tents, each event's finish, early-course and
+        late-course tent, with different case-mix), ``age`` (years), ``sex`` (``"female"`` /
         ``"male"``), ``distance_km`` (distance completed), ``wbgt``
         (wet-bulb globe temperature at arrival, degC), ``core_temp`` (degC),
         ``heart_rate`` (beats/min), ``systolic_bp`` (mmHg), ``resp_rate``

@@ -948,6 +948,7 @@ def _first_manifest(
         "seeds": {
             "selection": study.selection.seed,
             "internal_validation": study.internal_validation.seed,
+            **({} if study.internal_external is None else {"internal_external": study.internal_external.seed}),
             "external_validation": study.external_validation.seed,
         },
         "inputs": inputs,

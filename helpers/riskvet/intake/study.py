@@ -404,6 +404,7 @@ class InternalExternalSection(_Section):
         default=5, ge=1, le=1000,
         description="A cluster's measure at a cut is estimated only with at least this many people on each side of the cut.",
     )
+    seed: int = Field(default=13, ge=0, description="Seed of the selection streams of the leave-one-cluster-out derivations.")
 
 
 class ExternalValidationSection(_Section):

@@ -167,7 +167,34 @@ def _check_before_fitting(study: Study, cohort: Any) -> list[str]:
             "internal_validation.cv_folds", allowed=f"at most {min(counts.values())}, the people in the smallest outcome level (or cv_repeats: 0)",
             received=f"{iv.cv_folds}, more than the people of outcome level(s) {small}",
         ))
+    _check_cluster_folds(study, cohort, cross_validated=cross_validated)
     return []
+
+
+def _check_cluster_folds(study: Study, cohort: Any, *, cross_validated: bool) -> None:
+    """With clusters, every fold is whole clusters: no more folds than clusters, and enough clusters to leave one out."""
+    clusters = getattr(cohort, "clusters", None)
+    if clusters is None:
+        return
+    G = int(cohort.n_clusters)
+    column, kind = study.data.cluster_column, study.data.cluster_kind
+    iv = study.internal_validation
+    if iv.enabled and iv.cv_repeats > 0 and iv.cv_folds > G:
+        raise StudyError(problem(
+            "internal_validation.cv_folds", allowed=f"at most {G}, the clusters of data.cluster_column {column!r}: whole clusters are dealt to folds (or cv_repeats: 0)",
+            received=iv.cv_folds,
+        ))
+    if kind == "person" and cross_validated and study.selection.folds > G:
+        raise StudyError(problem(
+            "selection.folds", allowed=f"at most {G}, the people of data.cluster_column {column!r}: a person's rows are kept in one fold",
+            received=study.selection.folds,
+        ))
+    section = study.internal_external
+    if section is not None and section.enabled and G < 3:
+        raise StudyError(problem(
+            "internal_external", allowed=f"at least 3 clusters in data.cluster_column {column!r} (one is left out, and pooling needs two or more)",
+            received=f"{G} cluster(s)",
+        ))
 
 
 def derive(
@@ -201,13 +228,22 @@ def derive(
         person is both in a training fold and in its held-out fold.
     clusters : array of int, optional
         Cluster code of every row (:func:`riskvet.modelling.folds.cluster_codes`;
-        ``data.cluster_column``): the selection's cross-validation then deals
-        whole clusters to folds.
+        ``data.cluster_column``).  With ``data.cluster_kind: person`` the
+        selection's (and the penalty's) cross-validation deals whole people
+        to folds, so no person's other visits are in the data that judge a
+        fit to them.  With sites or periods the procedure's own folds deal
+        rows, as without clusters: the model has no site term and pools the
+        patients of its sites, and a handful of sites could not fill ten
+        folds; the question whether the model carries to a new site is asked
+        by the validations around the procedure, which resample and leave
+        out whole sites (:func:`riskvet.validation.iecv.internal_external_validation`).
 
     Returns
     -------
     Derivation
     """
+    if clusters is not None and study.data.cluster_kind != "person":
+        clusters = None  # sites and periods: the procedure's own folds deal rows (see above)
     if weights is not None:
         counts = np.asarray(weights)
         if counts.shape != (len(frame),) or np.any(counts < 0) or not np.all(counts == np.round(counts)):

@@ -2,11 +2,13 @@
 
 A cluster is a set of rows that belong together: the visits of one person,
 the patients of one site, the admissions of one period.  When the study
-names a cluster column (``data.cluster_column``), every cross-validation of
-the chain (the selection's folds, the penalty's folds, the internal
-validation's k-fold cross-validation) deals whole clusters to folds, and the
-bootstrap draws whole clusters, so no cluster is both in a training set and
-in the data it is tested on.
+names a cluster column (``data.cluster_column``), the validations deal whole
+clusters to folds (the internal validation's k-fold cross-validation) and
+draw whole clusters (the bootstrap), so no cluster is both in a training set
+and in the data it is tested on.  Inside the derivation procedure (the
+selection's and the penalty's folds) whole clusters are dealt only when a
+cluster is a person (``data.cluster_kind: person``); sites and periods are
+split by rows there (see :func:`riskvet.modelling.derive.derive`).
 
 :func:`cluster_codes` numbers clusters in order of first appearance, so that
 data with one row per cluster get code i for row i: the cluster bootstrap of
@@ -18,6 +20,7 @@ from __future__ import annotations
 from typing import Any, Sequence
 
 import numpy as np
+import pandas as pd
 
 from ..errors import DesignError, problem
 
@@ -39,6 +42,10 @@ def cluster_codes(labels: Any) -> np.ndarray:
     values = np.asarray(labels, dtype=object)
     if values.ndim != 1:
         raise DesignError(problem("clusters", allowed="one label per row (a 1-d array)", received=f"shape {values.shape}"))
+    missing = np.flatnonzero(pd.isna(values)) if values.size else np.array([], dtype=np.int64)
+    if missing.size:
+        raise DesignError(problem("clusters", allowed="a cluster label for every row (none missing)",
+                                  received=f"{missing.size} missing, rows {(missing[:5] + 1).tolist()}"))
     seen: dict[Any, int] = {}
     return np.fromiter((seen.setdefault(v, len(seen)) for v in values.tolist()), dtype=np.int64, count=values.shape[0])
 

@@ -259,6 +259,25 @@ def _internal_validation(results: Mapping[str, Any], levels: tuple[str, ...]) ->
     return rows
 
 
+def _internal_external(results: Mapping[str, Any], levels: tuple[str, ...]) -> list[Row]:
+    """Pooled C, calibration-in-the-large, calibration slope and O/E over the clusters left out, with the prediction interval's ends."""
+    rows: list[Row] = []
+    iecv = results.get("internal_external") if isinstance(results.get("internal_external"), Mapping) else {}
+    words = {"c": "C (AUC)", "calibration_in_the_large": "calibration-in-the-large", "calibration_slope": "calibration slope",
+             "oe_ratio": "O/E"}
+    kind = str(iecv.get("cluster_kind") or "cluster")
+    for i, pooled in enumerate(_list(iecv.get("pooled"))):
+        if not isinstance(pooled, Mapping) or pooled.get("measure") not in words or not _number(pooled.get("estimate")):
+            continue
+        where = f"internal_external.pooled[{i}]"
+        name = f"{words[pooled['measure']]}, {_cut_name(pooled.get('cut'), levels)}, pooled over {kind}s left out"
+        rows.append((name, pooled["estimate"], pooled.get("lower"), pooled.get("upper"), f"{where}.estimate"))
+        if _number(pooled.get("prediction_lower")):
+            rows.append((f"{name}: prediction interval for a new {kind}", None, pooled["prediction_lower"],
+                         pooled.get("prediction_upper"), f"{where}.prediction_lower"))
+    return rows
+
+
 def _outcome(row: Mapping[str, Any], levels: tuple[str, ...]) -> str:
     """The outcome of a results row: its cut named as on every page, else the row's own words."""
     cut = row.get("cut")
@@ -311,6 +330,7 @@ _READERS: dict[str, Callable[[Mapping[str, Any], tuple[str, ...]], list[Row]]] =
     "agreement": _agreement,
     "derivation": _derivation,
     "internal_validation": _internal_validation,
+    "internal_external": _internal_external,
     "external_validation": _external_validation,
     "updating": _updating,
 }

@@ -26,6 +26,7 @@ STAGE_TITLES = {
     "derivation": "Derivation",
     "agreement": "Agreement between raters",
     "internal_validation": "Internal validation",
+    "internal_external": "Internal-external cross-validation",
     "external_validation": "External validation",
     "updating": "Model updating",
     "summary": "Summary of the record",

@@ -10,7 +10,9 @@ the rule clinicians use today (:mod:`~riskvet.validation.rule`); model
 updating from recalibration in the large to extension
 (:mod:`~riskvet.validation.update`); and the random-effects pooling of a
 measure across clusters, with the transformations used before pooling
-(:mod:`~riskvet.validation.pooling`).  It may import the core,
+(:mod:`~riskvet.validation.pooling`), used by internal-external
+cross-validation, which leaves one site or period out in turn
+(:mod:`~riskvet.validation.iecv`).  It may import the core,
 :mod:`riskvet.intake`, :mod:`riskvet.modelling` and :mod:`riskvet.measures`,
 never planning, reporting or the chain.
 """

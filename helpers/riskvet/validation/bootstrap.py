@@ -862,8 +862,12 @@ def _as_clusters(data: Any, clusters: Any, n: int, func: str) -> tuple[np.ndarra
     if labels is None:
         return None, None
     values = np.asarray(labels, dtype=object)
-    if values.shape != (n,) or any(v is None or (isinstance(v, float) and math.isnan(v)) for v in values.tolist()):
-        raise DataError(problem(f"{func}(clusters=)", allowed=f"{n} cluster labels, one per row, none missing", received=f"shape {values.shape}"))
+    if values.shape != (n,):
+        raise DataError(problem(f"{func}(clusters=)", allowed=f"{n} cluster labels, one per row", received=f"shape {values.shape}"))
+    missing = np.flatnonzero(pd.isna(values))
+    if missing.size:
+        raise DataError(problem(f"{func}(clusters=)", allowed="a cluster label for every row, none missing",
+                                received=f"{missing.size} missing, rows {(missing[:5] + 1).tolist()}"))
     return cluster_codes(values), kind
 
 
@@ -1645,8 +1649,10 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
       patients): replicate b draws G of the G clusters with replacement,
       each bringing all its rows (the cluster bootstrap, Davison & Hinkley
       1997, section 3.8; Field & Welsh 2007), the rows of the clusters not
-      drawn are out of bag, and the selection's cross-validation inside the
-      replicate deals whole clusters to folds.  Clusters are numbered in
+      drawn are out of bag, and when a cluster is a person
+      (``data.cluster_kind: person``) the selection's cross-validation
+      inside the replicate deals whole people to folds (sites and periods:
+      rows, see :func:`riskvet.modelling.derive.derive`).  Clusters are numbered in
       order of first appearance, so with one row per cluster every replicate
       is the row bootstrap's, draw for draw.
 

@@ -16,6 +16,7 @@ STAGE_TITLES = {
     "agreement": "rater agreement",
     "derivation": "derivation",
     "internal_validation": "internal validation",
+    "internal_external": "internal-external cross-validation",
     "external_validation": "external validation",
     "updating": "updating",
 }
