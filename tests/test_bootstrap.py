@@ -58,6 +58,9 @@ def folder(tmp_path_factory) -> Path:
 def make_study(folder: Path, name: str, **changes):
     """A variant of the demo study: ``changes`` maps 'section.key' to a value."""
     raw = yaml.safe_load((folder / "study.yaml").read_text(encoding="utf-8"))
+    # rows are resampled here (the cluster bootstrap has tests of its own, in test_clusters.py)
+    raw["data"].pop("cluster_column", None)
+    raw.pop("internal_external", None)
     for dotted, value in changes.items():
         section, key = dotted.split(".")
         raw.setdefault(section, {})[key] = value

@@ -37,6 +37,7 @@ def study():
     raw = yaml.safe_load(demo_study_text())
     raw["data"] = {"derivation": "d.csv", "validation": [{"label": "season-2026", "path": "v.csv"}]}
     raw.pop("agreement")
+    raw.pop("internal_external")  # no cluster column here
     return study_from_dict(raw, base_dir="/tmp")
 
 

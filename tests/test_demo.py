@@ -29,7 +29,7 @@ PREDICTORS = [
     "age", "sex", "distance_km", "wbgt", "core_temp", "heart_rate", "systolic_bp", "resp_rate",
     "confusion", "collapse", "vomiting", "dry_skin", "cramps", "prior_heat_illness",
 ]
-COLUMNS = ["attendee_id", "season", "event", *PREDICTORS, "triage_rule", "disposition"]
+COLUMNS = ["attendee_id", "season", "event", "tent", *PREDICTORS, "triage_rule", "disposition"]
 BIG = 20_000
 
 
@@ -487,7 +487,7 @@ def test_truth_to_dict_and_to_frame():
     assert (table["part"] == "coefficient").sum() == len(t.terms) == 16
     assert (table["part"] == "threshold").sum() == 4
     assert (table["part"] == "missing_rate").sum() == len(t.missingness)
-    assert set(t.predictor_model) == set(PREDICTORS) | {"event", "disposition"}
+    assert set(t.predictor_model) == set(PREDICTORS) | {"event", "tent", "disposition"}
     zero = {term.name for term in t.terms if term.coefficient == 0}
     assert zero == {"cramps", "distance_km"}
     with pytest.raises(dataclasses.FrozenInstanceError):

@@ -276,10 +276,10 @@ def test_interrupts_and_memory_errors_stop_the_run(plain_study, cohort, monkeypa
 def test_cross_validation_fold_errors_are_counted(plain_study, cohort, monkeypatch):
     real = derive_module.derive
 
-    def fake(study, frame, y, *, seed=None, weights=None):
+    def fake(study, frame, y, *, seed=None, weights=None, clusters=None):
         if seed is not None and seed % 2:
             raise IndexError("index 7 is out of bounds for axis 0 with size 7")
-        return real(study, frame, y, seed=seed, weights=weights)
+        return real(study, frame, y, seed=seed, weights=weights, clusters=clusters)
 
     monkeypatch.setattr(derive_module, "derive", fake)
     result = cross_validate(_with_share(plain_study, 1.0), cohort, n_folds=4, seed=5, progress=False)
@@ -308,8 +308,8 @@ def test_failed_replicates_are_identical_for_one_and_two_workers(plain_study, co
 def _separated_for_odd_seeds(estimation: str):
     real = derive_module.derive
 
-    def fake(study, frame, y, *, seed=None, weights=None):
-        d = real(study, frame, y, seed=seed, weights=weights)
+    def fake(study, frame, y, *, seed=None, weights=None, clusters=None):
+        d = real(study, frame, y, seed=seed, weights=weights, clusters=clusters)
         if seed is None or seed % 2 == 0:
             return d
         fit = dataclasses.replace(d.selection.fit, separation=("age",), estimation=estimation)
@@ -461,8 +461,8 @@ def test_rare_level_measures_are_flagged_unstable(plain_study, cohort):
 
 
 def _penalised(real):
-    def fake(study, frame, y, *, seed=None, weights=None):
-        d = real(study, frame, y, seed=seed, weights=weights)
+    def fake(study, frame, y, *, seed=None, weights=None, clusters=None):
+        d = real(study, frame, y, seed=seed, weights=weights, clusters=clusters)
         alpha = 0.01 * (1 + (study.selection.seed if seed is None else seed) % 97)  # invented: a penalty that depends on the resample's seed
         fit = dataclasses.replace(d.selection.fit, estimation="penalized", penalty={"alpha": alpha, "l1_ratio": 0.0})
         return dataclasses.replace(d, selection=dataclasses.replace(d.selection, fit=fit))

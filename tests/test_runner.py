@@ -176,7 +176,7 @@ def test_manifest_lists_hashes_versions_and_seeds(first, study, templates):
     assert manifest["numerical_libraries"] and all(set(lib) == {"user_api", "internal_api", "version", "architecture"} for lib in manifest["numerical_libraries"])
     assert "/" not in json.dumps(manifest["numerical_libraries"])
     assert re.fullmatch(r"[0-9a-f]{64}", manifest["riskvet_source"]["sha256"]) and manifest["riskvet_source"]["files"] > 20
-    assert manifest["seeds"] == {"selection": 2024, "internal_validation": 11, "external_validation": 12}  # demo study file values
+    assert manifest["seeds"] == {"selection": 2024, "internal_validation": 11, "internal_external": 13, "external_validation": 12}  # demo study file values
     assert [s["status"] for s in manifest["stages"]] == ["ok"] * len(STAGES_RUN)
     assert manifest["kernel"]["environment"]["PYTHONHASHSEED"] == "0"
     # no time reaches the stages unless the user sets one (the test environment does not)

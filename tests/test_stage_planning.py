@@ -50,6 +50,7 @@ def _binary_study(folder, tmp_path, planning=None):
     data.to_csv(tmp_path / "derivation.csv", index=False)
     raw = _raw(folder)
     raw["data"] = {"derivation": str(tmp_path / "derivation.csv")}
+    raw.pop("internal_external")  # no cluster column here
     raw["outcome"] = {"column": "transferred", "type": "binary", "levels": ["no", "yes"], "event": "yes"}
     raw["thresholds"] = {"yes": [0.1]}
     raw.pop("agreement")

@@ -416,6 +416,11 @@ class ExternalValidationSection(_Section):
     max_failed_share: float = Field(default=0.1, ge=0, le=1, description="Above this share of failed replicates the intervals are withheld.")
     subgroups: tuple[Subgroup, ...] = ()
     min_subgroup_size: int = Field(default=100, ge=1)
+    pooling: Literal["reml", "dl"] = Field(
+        default="reml",
+        description="With two or more validation cohorts: between-cohort variance estimator of the random-effects pooling (reml or dl).",
+    )
+    hartung_knapp: bool = Field(default=False, description="With two or more validation cohorts: Hartung-Knapp intervals for the pooled measures.")
 
 
 class UpdatingSection(_Section):

@@ -77,6 +77,7 @@ __all__ = [
     "InternalExternalValidation",
     "internal_external_validation",
     "cluster_measures",
+    "pool_measures",
     "MEASURES",
 ]
 
@@ -496,7 +497,15 @@ def _pool_one(rows: list[ClusterMeasure], *, method: str, hartung_knapp: bool, c
                          back.prediction_lower, back.prediction_upper, pooled.tau2, pooled.i2, left_out=left_out, pooled=pooled)
 
 
-def _pool_all(measures: Sequence[ClusterMeasure], *, method: str, hartung_knapp: bool, confidence: float) -> tuple[PooledMeasure, ...]:
+def pool_measures(measures: Sequence[ClusterMeasure], *, method: str = "reml", hartung_knapp: bool = False,
+                  confidence: float = 0.95) -> tuple[PooledMeasure, ...]:
+    """Pool every measure (and cut, and threshold) of :func:`cluster_measures` rows over their clusters or cohorts.
+
+    Each measure is pooled by :func:`riskvet.pooling.random_effects` on its
+    scale (:data:`MEASURES`: C on the logit scale, O/E on the log scale);
+    rows not estimated are named in ``left_out`` with their reasons, and a
+    measure estimated in fewer than two places is not pooled (``reason``).
+    """
     groups: dict[tuple[str, int, float], list[ClusterMeasure]] = {}
     for m in measures:
         key = (m.measure, m.cut, -1.0 if math.isnan(m.threshold) else m.threshold)
@@ -674,7 +683,7 @@ def internal_external_validation(study, data, *, seed: int | None = None, n_jobs
     effects, all_terms = _effect_spread(study, frame, y, w, codes, labels, confidence=confidence, method=method)
     return InternalExternalValidation(
         clusters=tuple(held), measures=tuple(measures),
-        pooled=_pool_all(measures, method=method, hartung_knapp=hartung_knapp, confidence=confidence),
+        pooled=pool_measures(measures, method=method, hartung_knapp=hartung_knapp, confidence=confidence),
         effects=effects, levels=levels, cluster_column=str(getattr(data, "cluster_column", None) or "clusters"),
         cluster_kind=str(kind or "site"), method=method, hartung_knapp=hartung_knapp, min_events=min_events,
         confidence=confidence, seed=seed, terms_on_all_data=all_terms,

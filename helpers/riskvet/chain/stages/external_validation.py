@@ -31,6 +31,8 @@ from ...intake.data import Cohorts, expand_cohort, load_cohorts
 from .derivation import PEOPLE_FLOW_WORDS
 from ...errors import RiskvetError, StudyError, problem
 from ...validation.external import CohortValidation, apply_model, calibration_label, validate_cohort
+from ...validation.iecv import MEASURES, PooledMeasure, cluster_measures, pool_measures
+from ...reporting.labels import cut_label
 from ...modelling.modelfile import PredictionModel, load_model
 from ...validation.rule import RuleComparison, compare_with_rule
 from ...intake.study import Study
@@ -39,11 +41,12 @@ from ...reporting.figures.external_validation import published_case_mix
 from ...reporting.figures.performance import published_calibration
 from ...reporting.disclosure import SUPPRESSED, complementary_suppression
 from ...reporting.sentences.common import INTERVAL_KINDS, interval_words, measure_guide
+from ...reporting.sentences.internal_external import cohorts_pooled_text
 from ...reporting.sentences.external_validation import (
     subgroup_shortfall, case_mix_sentence, cohort_summary, external_validation_texts, outcome_words, page_intervals, rule_summary,
 )
 
-__all__ = ["ExternalValidationOutput", "validate_external", "run", "figure_name", "label_slug"]
+__all__ = ["ExternalValidationOutput", "validate_external", "pool_cohorts", "run", "figure_name", "label_slug"]
 
 
 def label_slug(label: str) -> str:
@@ -91,6 +94,10 @@ class ExternalValidationOutput:
     min_cell_count : int
         ``output.min_cell_count``: subgroup counts from 1 to this minus 1 are
         suppressed on the page and in the results file.
+    pooled : tuple of PooledMeasure
+        With two or more validation cohorts: C, calibration-in-the-large,
+        calibration slope, O/E and net benefit pooled over the cohorts by
+        random-effects meta-analysis (:func:`pool_cohorts`); empty with one.
     """
 
     model_sha256: str
@@ -103,6 +110,24 @@ class ExternalValidationOutput:
     texts: Mapping[str, str]
     notes: tuple[str, ...]
     min_cell_count: int = 0
+    pooled: tuple[PooledMeasure, ...] = ()
+
+    def pooled_frame(self) -> pd.DataFrame | None:
+        """The measures pooled over the validation cohorts (headers in words), or None with one cohort."""
+        if not self.pooled:
+            return None
+        levels = next(iter(self.cohorts.values())).levels
+        rows = []
+        for p in self.pooled:
+            at = f" at {p.threshold:g}" if p.measure == "net_benefit" else ""
+            where = "" if len(levels) == 2 else f", {cut_label(levels, p.cut, binary=False)}"
+            rows.append({
+                "measure": MEASURES[p.measure][0] + at + where, "pooled": p.estimate, "pooled_lower": p.lower, "pooled_upper": p.upper,
+                "lower, 95% prediction interval for a new cohort": p.prediction_lower,
+                "upper, 95% prediction interval for a new cohort": p.prediction_upper,
+                "tau²": p.tau2, "I²": p.i2, "cohorts pooled": f"{p.n_clusters} of {p.n_clusters + len(p.left_out)}",
+            })
+        return pd.DataFrame(rows)
 
     # -- tables for the notebook ------------------------------------------------------
     def flow_frame(self) -> pd.DataFrame:
@@ -225,6 +250,7 @@ class ExternalValidationOutput:
                 "case_mix": {k: {**published_case_mix(v, min_cell_count=self.min_cell_count), "interpretation": case_mix_sentence(v)}
                              for k, v in self.case_mix.items()},
                 "rule": {k: {**v.to_dict(), "summary": rule_summary(v, outcome_levels=self.cohorts[k].levels)} for k, v in self.rule.items()},
+                "pooled": [p.to_dict() for p in self.pooled],
                 "figures": dict(self.figures),
                 "texts": dict(self.texts),
                 "notes": list(self.notes),
@@ -436,6 +462,40 @@ def validate_external(study: Study, model: PredictionModel, cohorts: Cohorts) ->
     return results
 
 
+def pool_cohorts(study: Study, model: PredictionModel, cohorts: Cohorts) -> tuple[PooledMeasure, ...]:
+    """With two or more validation cohorts, each measure pooled over them by random-effects meta-analysis.
+
+    Each cohort's C (DeLong standard error), calibration-in-the-large and
+    slope, O/E and net benefit at the study's thresholds are computed per
+    cut on its people (:func:`riskvet.validation.iecv.cluster_measures`) and
+    pooled by :func:`riskvet.validation.iecv.pool_measures` with
+    ``external_validation.pooling`` and ``hartung_knapp``: C on the logit
+    scale and O/E on the log scale (Debray et al. 2017), the prediction
+    interval on k - 2 degrees of freedom (Riley, Higgins & Deeks 2011;
+    undefined with two cohorts).  A cohort with fewer than
+    ``output.min_cell_count`` people on a side of a cut is left out of that
+    cut's pooling, with the reason.  Empty with one cohort.
+
+    References
+    ----------
+    Debray TPA, Damen JAAG, Snell KIE, et al. A guide to systematic review
+    and meta-analysis of prediction model performance. BMJ 2017;356:i6460.
+
+    Riley RD, Higgins JPT, Deeks JJ. Interpretation of random effects
+    meta-analyses. BMJ 2011;342:d549.
+    """
+    if len(cohorts.validation) < 2:
+        return ()
+    ev = study.external_validation
+    thresholds = _thresholds(study)
+    rows = []
+    for label, cohort in cohorts.validation.items():
+        people = expand_cohort(cohort)
+        prob = apply_model(model, people.frame, label=label)
+        rows += cluster_measures(label, people.y, prob, thresholds=thresholds, min_events=max(1, study.output.min_cell_count))
+    return pool_measures(rows, method=ev.pooling, hartung_knapp=ev.hartung_knapp)
+
+
 def _cohort_summary(cohort) -> dict[str, Any]:
     """A validation cohort's counts for the record: people screened and analysed, people per outcome level, the exclusions.
 
@@ -507,6 +567,7 @@ def run(ctx) -> ExternalValidationOutput:
         notes += [f"{label}: case-mix: {w}" for w in results["case_mix"][label].warnings]
     for label, r in results["rule"].items():
         notes += [f"{label}: rule: {w}" for w in r.warnings]
+    pooled = pool_cohorts(study, model, cohorts)
     out = ExternalValidationOutput(
         model_sha256=model.digest(),
         flow=pd.concat([c.to_frame().rename(columns=PEOPLE_FLOW_WORDS) if c.weights is not None else c.to_frame()
@@ -516,9 +577,12 @@ def run(ctx) -> ExternalValidationOutput:
         case_mix=results["case_mix"],
         rule=results["rule"],
         figures=figures,
-        texts=external_validation_texts(results, subgroups_named=bool(study.external_validation.subgroups)),
+        texts={**external_validation_texts(results, subgroups_named=bool(study.external_validation.subgroups)),
+               "pooled": cohorts_pooled_text(pooled, n_cohorts=len(cohorts.validation), method=study.external_validation.pooling,
+                                             hartung_knapp=study.external_validation.hartung_knapp)},
         notes=tuple(notes),
         min_cell_count=study.output.min_cell_count,
+        pooled=pooled,
     )
     ctx.write_results(out.to_dict())
     return out

@@ -28,7 +28,7 @@ import pandas as pd
 
 from ..._jsonable import to_jsonable
 from ...intake.data import load_cohorts
-from ...intake.outcome import cut_name
+from ...reporting.labels import cut_label
 from ...reporting.disclosure import SUPPRESSED, complementary_suppression
 from ...reporting.sentences.internal_external import internal_external_texts
 from ...validation.iecv import MEASURES, InternalExternalValidation, internal_external_validation
@@ -72,7 +72,7 @@ class InternalExternalOutput:
     def figure_captions(self) -> list[str]:
         """One caption per figure, in the order of :attr:`figures`: the cut of the outcome it draws."""
         kind = self.result.cluster_kind
-        return [f"Performance in each {kind} left out: {cut_name(self.result.levels, j)}" for j in range(len(self.figures))]
+        return [f"Performance in each {kind} left out: {_event(self.result.levels, j)}" for j in range(len(self.figures))]
 
     def pooled_frame(self) -> pd.DataFrame:
         """The pooled measures, headers in words, one row per measure, cut and threshold."""
@@ -80,7 +80,7 @@ class InternalExternalOutput:
         rows = []
         for p in self.result.pooled:
             at = f" at {p.threshold:g}" if p.measure == "net_benefit" else ""
-            where = "" if len(self.result.levels) == 2 else f", {cut_name(self.result.levels, p.cut)}"
+            where = "" if len(self.result.levels) == 2 else f", {_event(self.result.levels, p.cut)}"
             rows.append({
                 "measure": MEASURES[p.measure][0] + at + where,
                 "pooled": p.estimate, "pooled_lower": p.lower, "pooled_upper": p.upper,
@@ -130,6 +130,11 @@ class InternalExternalOutput:
             "figures": dict(self.figures),
             "texts": dict(self.texts),
         })
+
+
+def _event(levels, cut: int) -> str:
+    """The event of a cut in the user's words, as every page names it."""
+    return cut_label(levels, cut, binary=len(levels) == 2)
 
 
 def published_sizes(result: InternalExternalValidation, *, min_cell_count: int) -> pd.DataFrame:
@@ -199,7 +204,7 @@ def run(ctx) -> InternalExternalOutput:
     K = len(result.levels)
     for j in range(K - 1):
         name = f"clusters_cut{j + 1}" if K > 2 else "clusters"
-        ctx.save_figure(plot_cluster_performance(result, cut=j, cut_label=cut_name(result.levels, j)), name)
+        ctx.save_figure(plot_cluster_performance(result, cut=j, cut_label=_event(result.levels, j)), name)
         figures[name] = (ctx.figures_dir / f"{name}.png").relative_to(ctx.record_dir).as_posix()
     out = InternalExternalOutput(
         result=result, sizes=published_sizes(result, min_cell_count=m), min_events=min_events, notes=tuple(notes),

@@ -15,7 +15,7 @@ from ..labels import cut_label
 from ...validation.iecv import MEASURES, InternalExternalValidation, PooledMeasure
 from .common import decimals
 
-__all__ = ["internal_external_summary", "internal_external_texts", "pooled_sentence", "PLURAL"]
+__all__ = ["internal_external_summary", "internal_external_texts", "pooled_sentence", "cohorts_pooled_text", "PLURAL"]
 
 #: Plural words of each cluster kind.
 PLURAL = {"site": "sites", "period": "periods"}
@@ -150,3 +150,20 @@ def internal_external_texts(result: InternalExternalValidation, *, notes=()) -> 
         "failures": failures,
         "pooled": pooled,
     }
+
+
+def cohorts_pooled_text(pooled, *, n_cohorts: int, method: str, hartung_knapp: bool) -> str:
+    """The external validation page's sentence on the measures pooled over its cohorts."""
+    if n_cohorts < 2:
+        return "The study names one validation cohort, so there is nothing to pool across cohorts."
+    estimator = "restricted maximum likelihood" if method == "reml" else "DerSimonian and Laird's moment estimator"
+    text = (f"The {n_cohorts} validation cohorts' measures are pooled by a random-effects meta-analysis (between-cohort "
+            f"variance by {estimator}{', Hartung-Knapp intervals' if hartung_knapp else ''}): C on the logit scale, O/E "
+            "on the log scale, the others as they are. The pooled value describes cohorts like these on average; the "
+            "prediction interval says where a new cohort's value is expected to lie.")
+    if n_cohorts == 2:
+        text += " With two cohorts there is no prediction interval (it needs at least three) and the between-cohort variance is barely estimable."
+    not_pooled = [p for p in pooled if p.reason]
+    if not_pooled:
+        text += f" {len(not_pooled)} measure(s) could not be pooled (estimated in fewer than two cohorts)."
+    return text
