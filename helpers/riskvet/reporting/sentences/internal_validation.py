@@ -22,6 +22,7 @@ __all__ = [
     "shrinkage_sentence",
     "stability_sentence",
     "crossval_sentence",
+    "resampling_sentence",
 ]
 
 
@@ -265,7 +266,27 @@ def internal_validation_summary(validation: Any) -> str:
                    if slope.corrected < 1 else
                    " (above 1: predictions are expected to be too moderate in new patients)" if slope.corrected > 1 else "")
         text += f" The calibration slope of the linear predictor expected in new patients is {slope.corrected:.2f}{reading}."
-    return text + " " + failure_sentence(validation)
+    return text + " " + resampling_sentence(validation) + failure_sentence(validation)
+
+
+#: A cluster kind's plural, as the resampling sentences say it.
+_UNITS = {"site": "sites", "period": "periods", "person": "people"}
+
+
+def resampling_sentence(validation: Any) -> str:
+    """What each replicate resampled: rows, or whole clusters (sites, periods or people), and what that means."""
+    clusters = getattr(validation, "n_clusters", None)
+    if clusters is None:
+        return ""
+    kind = getattr(validation, "cluster_kind", None) or "site"
+    units = _UNITS.get(kind, "clusters")
+    text = (f"Each replicate drew whole {units} (the {clusters} {units} of data.cluster_column, with replacement, each "
+            "bringing all its rows), so the rows of one " + ("person" if kind == "person" else kind) +
+            " are never split between a replicate's data and the data it is tested on. ")
+    if kind != "person" and clusters < 20:  # project convention for "few": the cluster bootstrap's theory is for many clusters (Field & Welsh 2007)
+        text += (f"With {clusters} {units} the bootstrap rests on few independent units and its intervals and "
+                 "corrections are rough; the internal-external cross-validation asks the between-" + kind + " question directly. ")
+    return text
 
 
 def readable_reason(e: Any) -> str:
@@ -295,11 +316,14 @@ def crossval_sentence(crossval: Any) -> str:
     e = crossval.estimate(key)
     slope = crossval.estimate("calibration_slope")
     reps = f"{crossval.n_repeats} repeats of " if crossval.n_repeats > 1 else ""
+    clusters = getattr(crossval, "n_clusters", None)
     text = (
         f"In {reps}{crossval.n_folds}-fold cross-validation the {_lower_first(e.label)} of models derived without the "
         f"held-out patients is {e.pooled:.3f} on pooled held-out predictions ({e.averaged:.3f} averaged over "
         f"folds), against {e.apparent:.3f} apparent; the pooled calibration slope is {slope.pooled:.2f}."
     )
+    if clusters is not None:
+        text += f" Whole clusters of data.cluster_column ({clusters} of them) were dealt to folds, never split between training and held-out data."
     if crossval.failures:
         text += f" {len(crossval.failures)} fold(s) produced no model and are listed in the results."
     return text
