@@ -587,7 +587,8 @@ def exactly_recoverable(full: np.ndarray, shown: np.ndarray) -> list[tuple[int, 
                 row[index[(g, j)]] += sign
             else:
                 rhs -= sign * full[g, j]
-        A.append(row), b.append(rhs)
+        A.append(row)
+        b.append(rhs)
     for j in range(K1):  # clusters add up to the level's total (published on the derivation page)
         row, rhs = np.zeros(len(hidden)), float(full[:, j].sum())
         for g in range(G):
@@ -595,7 +596,8 @@ def exactly_recoverable(full: np.ndarray, shown: np.ndarray) -> list[tuple[int, 
                 row[index[(g, j)]] += 1.0
             else:
                 rhs -= full[g, j]
-        A.append(row), b.append(rhs)
+        A.append(row)
+        b.append(rhs)
     constraint = optimize.LinearConstraint(np.array(A), np.array(b), np.array(b))
     out = []
     for cell, i in index.items():

@@ -36,22 +36,31 @@ import pandas as pd
 from .._jsonable import to_jsonable
 from ..errors import DataError, problem
 
-__all__ = ["SUPPRESSED", "PublishedTable", "PublishedStatistics", "complementary_suppression", "publish_cross_table",
+__all__ = ["SUPPRESSED", "PublishedTable", "PublishedStatistics", "complementary_suppression", "determined_counts", "publish_cross_table",
            "publish_statistics", "consistent_tables"]
 
 #: A cell of a table: (row, column).
 Cell = tuple[int, int]
 
 
-def complementary_suppression(counts: Mapping[Cell, int], lines: Sequence[Sequence[Cell]], m: int) -> set[Cell]:
+def complementary_suppression(counts: Mapping[Cell, int], lines: Sequence[Sequence[Cell]], m: int,
+                              *, also: Sequence[Cell] = ()) -> set[Cell]:
     """Cells to hide: primary (1..m-1) and complementary ones.
 
     Each line is a list of cells whose last cell is the published total of the
     others.  If exactly one cell of a line is hidden it could be recovered by
-    subtraction, so the smallest other visible part (or the total) is hidden
-    too; this repeats until no line has exactly one hidden cell.
+    subtraction, so the smallest other visible part (or, when there is none,
+    the total) is hidden too; this repeats until no line has exactly one
+    hidden cell.  Beside a hidden zero the complement is never a zero:
+    counts are never negative, so hidden cells whose sum is known to be 0
+    are each known to be 0, and the other lines through them could then
+    give a small count away.  This is a heuristic; a table whose lines
+    cross in many ways is checked with :func:`determined_counts`.
+    ``also`` names further cells to hide from the start (a caller that has
+    found a count still fixed by the published equations, see
+    :func:`determined_counts`, hides more and asks again).
     """
-    hidden = {cell for cell, n in counts.items() if 0 < n < m}
+    hidden = {cell for cell, n in counts.items() if 0 < n < m} | set(also)
     if not hidden:
         return hidden
     changed = True
@@ -61,7 +70,8 @@ def complementary_suppression(counts: Mapping[Cell, int], lines: Sequence[Sequen
             inside = [c for c in line if c in hidden]
             if len(inside) != 1:
                 continue
-            parts = [c for c in line[:-1] if c not in hidden]
+            # beside a hidden zero the complement must not be a zero too: hidden cells summing to 0 are each known to be 0
+            parts = [c for c in line[:-1] if c not in hidden and (counts[c] > 0 or counts[inside[0]] > 0)]
             pick = min(parts, key=lambda c: (counts[c], c)) if parts else line[-1]
             if pick in hidden:
                 continue
@@ -210,6 +220,16 @@ def _determined(lines: list[list[tuple[int, int]]], hidden: set[tuple[int, int]]
         if not ends[0] < ends[1] - 0.5:  # also fixed when the programme fails: err on the side of hiding
             fixed.add(c)
     return fixed
+
+
+def determined_counts(counts: Mapping[Cell, int], lines: Sequence[Sequence[Cell]], hidden: set[Cell], *,
+                      known: Sequence[Cell] = ()) -> set[Cell]:
+    """Hidden non-zero counts that the published lines fix exactly (by integer programming, counts >= 0).
+
+    ``known`` are cells published elsewhere (a level's total on another
+    page): they count as visible whatever ``hidden`` says.
+    """
+    return _determined([list(line) for line in lines], set(hidden) - set(known), counts)
 
 
 def _check_table(table: Any, min_cell_count: Any) -> np.ndarray:

@@ -405,7 +405,8 @@ def _net_benefit_rows(cluster: str, event: np.ndarray, p: np.ndarray, cut: int, 
         odds = t / (1.0 - t)
         # var(a - odds b) with (a, b) multinomial shares: [a(1-a) + odds^2 b(1-b) + 2 odds a b] / n
         var = (a * (1.0 - a) + odds**2 * b * (1.0 - b) + 2.0 * odds * a * b) / n
-        reason = "" if var > 0 else f"no one in this cluster has a predicted risk at or above {t:g}, or everyone has"
+        # nobody at or above t: net benefit is exactly 0 with no sampling variance, so it cannot be weighted in the pooling
+        reason = "" if var > 0 else f"no one in this cluster has a predicted risk at or above {t:g}"
         rows.append(_row(cluster, "net_benefit", cut, a - odds * b, math.sqrt(var), z, threshold=float(t), reason=reason))
     return rows
 
@@ -542,7 +543,10 @@ def _left_out(payload: _IECVPayload, item: tuple[int, int]) -> dict[str, Any]:
             weights=None if w is None else w[train], clusters=payload.codes[train],
         )
     except _ReplicateFailed as exc:
-        return {"cluster": g, "status": "failed", "reason": exc.reason, "message": exc.message}
+        message = exc.message
+        if exc.reason == "empty outcome level":  # the tally of people by level would give the left-out cluster's counts away
+            message = message.split("; people by level")[0].replace("of the resample", "among the other clusters")
+        return {"cluster": g, "status": "failed", "reason": exc.reason, "message": message}
     except _PROPAGATE:
         raise
     except Exception as exc:
@@ -744,7 +748,8 @@ def _effect_spread(study, frame: pd.DataFrame, y: np.ndarray, w: np.ndarray | No
         rows, test = _vary_by_cluster(X, dummies, y, codes, labels, term, columns, base, fit_options)
         per_cluster += rows
         tests.append(test)
-    frame_pc = pd.DataFrame(per_cluster, columns=["cluster", "term", "estimate", "se", "reason"])
+    frame_pc = pd.DataFrame(per_cluster, columns=["cluster", "term", "estimate", "se", "reason"]).astype(
+        {"estimate": float, "se": float, "reason": str})
     fit = derivation.fit
     on_all = {t: float(fit.params[c[0]]) if len(c) == 1 and study.model.proportional else math.nan
               for t, c in derivation.design.term_columns.items()}
