@@ -83,3 +83,14 @@ def test_binary_record_has_one_forest_figure(binary_chain):
     assert (result.record_dir / "figures" / "internal_external" / "clusters.png").is_file()
     slope = next(p for p in found["pooled"] if p["measure"] == "calibration_slope")
     assert slope["reason"] or math.isfinite(slope["estimate"])
+
+
+def test_check_names_the_clusters(tmp_path, capsys):
+    from riskvet.chain.cli import main
+    from riskvet.chain.scaffold import new_study_folder
+
+    study = new_study_folder(tmp_path / "demo", n_derivation=300, n_validation=100, n_ratings=20, n_boot=2)
+    assert main(["check", str(study)]) == 0
+    printed = capsys.readouterr().out
+    assert "internal_external" in printed.splitlines()[1]  # the enabled stages
+    assert "clusters ('tent', kind site): 9 sites" in printed

@@ -78,6 +78,10 @@ def check_report(study_path: str | Path, *, out=None) -> int:
     for cohort in [cohorts.derivation, *cohorts.validation.values()]:
         print(f"\n== {cohort.label} ({cohort.source}) ==", file=out)
         print(f"rows screened {cohort.n_screened}, analysed {cohort.n_analysed}", file=out)
+        if getattr(cohort, "clusters", None) is not None:
+            unit = {"site": "sites", "period": "periods", "person": "people"}[cohort.cluster_kind]
+            print(f"clusters ({cohort.cluster_column!r}, kind {cohort.cluster_kind}): {cohort.n_clusters} {unit}, resampled and "
+                  "split whole by the bootstrap and the cross-validation", file=out)
         print("\nexclusions (complete case):", file=out)
         _print_frame(cohort.exclusions, out=out)
         print("\noutcome:", file=out)
