@@ -359,7 +359,7 @@ def test_external_validation_notebook_template():
             assert cell["outputs"] == [] and cell["execution_count"] is None
     # every text a cell shows is one the stage writes
     keys = {k for c in cells for k in re.findall(r'out\.texts\["(\w+)"\]', c["source"])}
-    assert keys <= {"summary", "flow", "case_mix", "membership", "linear_predictor", "performance", "calibration", "thresholds", "decision", "subgroups", "rule", "caution", "intervals"}
+    assert keys <= {"summary", "flow", "case_mix", "membership", "linear_predictor", "performance", "calibration", "thresholds", "decision", "subgroups", "rule", "caution", "intervals", "pooled"}
     # each text is shown once, and the caution only in the first cell's markdown
     shown = [k for c in cells if c["cell_type"] == "code" for k in re.findall(r'out\.texts\["(\w+)"\]', c["source"])]
     assert len(shown) == len(set(shown)) and "caution" not in shown

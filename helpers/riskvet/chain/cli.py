@@ -304,6 +304,73 @@ def _cmd_reproduce(args: argparse.Namespace) -> int:
     return result.exit_status
 
 
+def _free_port(start: int = 8890) -> int:
+    """The first port from ``start`` on the loopback address that nothing listens on."""
+    import socket
+
+    for port in range(start, start + 100):
+        with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as probe:
+            if probe.connect_ex(("127.0.0.1", port)) != 0:
+                return port
+    raise RiskvetError(f"no free port in {start}-{start + 99} on 127.0.0.1; pass --port")
+
+
+def _wait_for_server(port: int, token: str, proc, log: Path, timeout: float = 90.0) -> None:
+    import time
+    import urllib.request
+
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        if proc.poll() is not None:
+            tail = log.read_text(encoding="utf-8", errors="replace")[-1500:] if log.is_file() else ""
+            raise RiskvetError(f"JupyterLab stopped before it was ready (exit {proc.returncode}); its log {log} ends:\n{tail}")
+        try:
+            with urllib.request.urlopen(f"http://127.0.0.1:{port}/api/status?token={token}", timeout=2) as reply:
+                if reply.status == 200:
+                    return
+        except OSError:
+            time.sleep(0.3)
+    proc.terminate()
+    raise RiskvetError(f"JupyterLab did not answer on port {port} within {timeout:.0f} s; see {log}")
+
+
+def _cmd_lab(args: argparse.Namespace) -> int:
+    import secrets
+    import subprocess
+
+    from .workbench import lab_command, open_workbench
+
+    bench = open_workbench(args.study, templates_dir=args.templates)
+    kept = [p.stem for p in bench.notebooks if p.stem not in bench.written]
+    print(f"workbench {bench.folder}: notebooks in {bench.templates}"
+          + (f" (written now: {', '.join(bench.written)})" if bench.written else "")
+          + (f" (kept as you left them: {', '.join(kept)})" if kept else ""))
+    print(f"drafts go to {bench.draft}: a draft, never a record (riskvet verify refuses it)")
+    port = args.port if args.port is not None else _free_port()
+    token = secrets.token_hex(24)
+    log = bench.folder / "jupyterlab.log"
+    with open(log, "ab") as sink:
+        proc = subprocess.Popen(lab_command(bench.folder, port=port, token=token, open_browser=not args.no_browser),
+                                stdout=sink, stderr=subprocess.STDOUT, cwd=bench.folder)
+    try:
+        _wait_for_server(port, token, proc, log)
+        print(f"JupyterLab: http://127.0.0.1:{port}/lab/tree/templates?token={token}", flush=True)
+        print(f"when the notebooks are right, make the record from them with:\n  {bench.run_command}", flush=True)
+        print(f"stop JupyterLab with Ctrl-C. {CAUTION}", flush=True)
+        return int(proc.wait() or 0)
+    except KeyboardInterrupt:
+        proc.terminate()
+        try:
+            proc.wait(timeout=15)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+        print("JupyterLab stopped; the workbench and its drafts are kept", flush=True)
+        return 0
+    finally:
+        if proc.poll() is None:
+            proc.terminate()
+
+
 def _parser() -> argparse.ArgumentParser:
     from .. import __version__
 
@@ -332,6 +399,13 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--templates", type=Path, default=None, metavar="DIR", help="folder of stage templates to use")
     p.add_argument("--show-code", action="store_true", help="show code cells in the HTML renderings")
     p.set_defaults(func=_cmd_run)
+
+    p = sub.add_parser("lab", help="open a workbench of the study's stage notebooks in JupyterLab, writing to a draft folder")
+    p.add_argument("study", type=Path, help="the study file (study.yaml)")
+    p.add_argument("--templates", type=Path, default=None, metavar="DIR", help="copy the templates from this folder (default: the shipped ones)")
+    p.add_argument("--port", type=int, default=None, help="port on 127.0.0.1 (default: the first free one from 8890)")
+    p.add_argument("--no-browser", action="store_true", help="do not open a browser; the address with its token is printed")
+    p.set_defaults(func=_cmd_lab)
 
     p = sub.add_parser("plan", help="print the sample-size justification for a study's planning section")
     p.add_argument("study", type=Path, help="the study file (study.yaml)")

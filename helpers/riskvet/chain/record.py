@@ -107,7 +107,10 @@ def read_manifest(record_dir: str | Path) -> dict[str, Any]:
     Raises
     ------
     RecordError
-        The folder or its manifest is missing, or the manifest is not a JSON object.
+        The folder or its manifest is missing, or the manifest is not a JSON
+        object, or the folder is a workbench's draft (its manifest says
+        ``"draft": true``): a draft is never taken for a record, so verify,
+        compare, reproduce and ``run --from`` all refuse it here.
     """
     record = Path(record_dir)
     if not record.is_dir():
@@ -121,6 +124,10 @@ def read_manifest(record_dir: str | Path) -> dict[str, Any]:
         raise RecordError(f"{path}: not valid JSON ({exc})") from None
     if not isinstance(data, dict):
         raise RecordError(problem(str(path), allowed="a JSON object", received=type(data).__name__))
+    if data.get("draft") is True:
+        raise RecordError(
+            f"{record}: a DRAFT from a workbench (riskvet lab), not a record: nothing in it is hashed or checked. "
+            "Make a record with: riskvet run STUDY.yaml --templates <workbench>/templates")
     return data
 
 

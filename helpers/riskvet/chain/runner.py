@@ -84,6 +84,19 @@ _INJECTED_TAG = "injected-parameters"
 # -- templates --------------------------------------------------------------------------------
 
 
+def _changes_from_shipped(stage: str, template: Path) -> dict[str, Any] | None:
+    """Cells added, removed and changed against the shipped template (:func:`riskvet.chain.workbench.template_changes`).
+
+    None when no shipped template of the stage can be found to compare with.
+    """
+    from .workbench import template_changes
+
+    shipped = default_templates_dir() / f"{stage}.ipynb"
+    if not shipped.is_file():
+        return None
+    return template_changes(template, shipped)
+
+
 def default_templates_dir() -> Path:
     """The stage templates: the source tree's ``templates/`` (an editable install),
     else ``<prefix>/share/riskvet/templates`` where a regular install puts them."""
@@ -1032,7 +1045,8 @@ def _run_stage(
 
     Returns how the stage went, and the KeyboardInterrupt that stopped it (or None).
     """
-    manifest["templates"].append({"stage": stage, "path": str(template), "sha256": sha256_file(template)})
+    manifest["templates"].append({"stage": stage, "path": str(template), "sha256": sha256_file(template),
+                                  "changes_from_shipped": _changes_from_shipped(stage, template)})
     notebook = record / "notebooks" / f"{stage_stem(stage)}.ipynb"
     notebook.parent.mkdir(exist_ok=True)
     print(f"{label}: running", file=out, flush=True)

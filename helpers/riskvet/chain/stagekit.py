@@ -66,6 +66,10 @@ class StageContext:
         so the page's notes can show them in words
         (:func:`riskvet.reporting.publish.notes`) and no warning line with a
         file path or class name reaches a page.
+    draft : bool
+        Whether ``record_dir`` is a workbench's draft folder
+        (:mod:`riskvet.chain.workbench`): files there may be written again,
+        as an analyst reruns a cell; a record's files are written once.
     """
 
     stage: str
@@ -74,6 +78,7 @@ class StageContext:
     record_dir: Path
     model_path: Path
     warnings: list[str] = field(default_factory=list, compare=False, repr=False)
+    draft: bool = False
 
     def collect_warnings(self) -> None:
         """Collect warnings into :attr:`warnings` from now on, instead of printing them."""
@@ -99,8 +104,11 @@ class StageContext:
         return self.record_dir / "models"
 
     def new_path(self, path: Path) -> Path:
-        """``path``, after checking nothing is there yet (records are write-once)."""
+        """``path``, after checking nothing is there yet (records are write-once; a draft's file is replaced)."""
         if path.exists():
+            if self.draft and path.is_file():
+                path.unlink()  # a draft is work in progress: rerunning a cell writes its file again
+                return path
             raise RecordError(f"{path}: already exists; a record file is never overwritten")
         path.parent.mkdir(parents=True, exist_ok=True)
         return path
@@ -139,14 +147,30 @@ def stage_context(stage: str, *, study_path: str | Path, record_dir: str | Path,
     """Build a :class:`StageContext` from plain arguments (the runner and tests use this)."""
     if stage not in STAGES:
         raise RiskvetError(problem("stage", allowed=f"one of {list(STAGES)}", received=stage))
+    if not study_path and not record_dir:
+        raise RiskvetError(
+            f"{stage} notebook: this is a stage template with no study set; open it with `riskvet lab STUDY.yaml`, which "
+            "makes working copies with the study and a draft folder filled in, or run the chain with `riskvet run STUDY.yaml`")
     if not study_path:
         raise RiskvetError(problem(f"{stage} notebook: study_path", allowed="the path of a study file", received=study_path))
     if not record_dir:
         raise RiskvetError(problem(f"{stage} notebook: record_dir", allowed="the path of a record folder", received=record_dir))
+    from .workbench import is_draft
+
     study = load_study(study_path)
     record = Path(record_dir).resolve()
     model = Path(model_path).resolve() if model_path else record / "models" / "model.json"
-    return StageContext(stage=stage, study=study, study_path=Path(study_path).resolve(), record_dir=record, model_path=model)
+    draft = is_draft(record)
+    if draft and stage in _NEEDS_MODEL and not model.is_file():
+        raise RiskvetError(
+            f"{stage} notebook: the draft folder holds no frozen model yet ({model}); run the derivation notebook "
+            "(templates/derivation.ipynb) of this workbench first")
+    return StageContext(stage=stage, study=study, study_path=Path(study_path).resolve(), record_dir=record, model_path=model,
+                        draft=draft)
+
+
+#: Stages that cannot run without the frozen model (internal validation and the summary read it when it is there).
+_NEEDS_MODEL = ("external_validation", "updating")
 
 
 def _reviewer_display() -> None:

@@ -51,11 +51,11 @@ def complementary_suppression(counts: Mapping[Cell, int], lines: Sequence[Sequen
     others.  If exactly one cell of a line is hidden it could be recovered by
     subtraction, so the smallest other visible part (or, when there is none,
     the total) is hidden too; this repeats until no line has exactly one
-    hidden cell.  Beside a hidden zero the complement is never a zero:
-    counts are never negative, so hidden cells whose sum is known to be 0
-    are each known to be 0, and the other lines through them could then
-    give a small count away.  This is a heuristic; a table whose lines
-    cross in many ways is checked with :func:`determined_counts`.
+    hidden cell.  This is a heuristic: counts are never negative, so hidden
+    cells whose sum is known to be 0 are each known to be 0, and lines that
+    cross can then give a small count away; a table whose lines cross is
+    checked with :func:`determined_counts` (as the agreement tables and the
+    internal-external site sizes are).
     ``also`` names further cells to hide from the start (a caller that has
     found a count still fixed by the published equations, see
     :func:`determined_counts`, hides more and asks again).
@@ -70,8 +70,7 @@ def complementary_suppression(counts: Mapping[Cell, int], lines: Sequence[Sequen
             inside = [c for c in line if c in hidden]
             if len(inside) != 1:
                 continue
-            # beside a hidden zero the complement must not be a zero too: hidden cells summing to 0 are each known to be 0
-            parts = [c for c in line[:-1] if c not in hidden and (counts[c] > 0 or counts[inside[0]] > 0)]
+            parts = [c for c in line[:-1] if c not in hidden]
             pick = min(parts, key=lambda c: (counts[c], c)) if parts else line[-1]
             if pick in hidden:
                 continue
