@@ -41,7 +41,7 @@ def test_new_into_an_unwritable_place_says_so(capsys, tmp_path):
 
 def test_new_writes_a_gitignore_for_records(tmp_path):
     study = new_study_folder(tmp_path / "s", n_derivation=60, n_validation=40, n_ratings=20)
-    assert (study.parent / ".gitignore").read_text() == "records/\n"
+    assert (study.parent / ".gitignore").read_text() == "records/\nworkbench/draft/\nworkbench/jupyterlab.log\n"  # drafts stay out; adapted notebooks may be versioned
 
 
 def test_a_folder_given_for_a_study_file_suggests_the_file(capsys, tmp_path):

@@ -61,7 +61,7 @@ def new_study_folder(
     folder : path
         Created if absent; must not already hold a ``study.yaml``, ``data/``,
         ``README.md`` or ``.gitignore`` (nothing is overwritten).  The
-        ``.gitignore`` keeps ``records/`` out of version control.
+        ``.gitignore`` keeps ``records/`` and the workbench drafts (``riskvet lab``) out of version control.
     seed, n_derivation, n_validation, n_ratings
         Passed to :func:`riskvet.demo.write_demo_data`.
     n_boot : int, optional
@@ -88,7 +88,7 @@ def new_study_folder(
         study.write_text(demo_study_text(n_boot=n_boot), encoding="utf-8")
         (folder / "README.md").write_text(_FOLDER_README.format(name=folder.name, seed=seed), encoding="utf-8")
         # records are written once and kept; whether they go into version control is a deliberate choice
-        (folder / ".gitignore").write_text("records/\n", encoding="utf-8")
+        (folder / ".gitignore").write_text("records/\nworkbench/draft/\nworkbench/jupyterlab.log\n", encoding="utf-8")
     except OSError as exc:
         raise RiskvetError(f"{folder}: cannot write the study folder there ({exc.strerror or exc}); choose a folder you can write to") from None
     return study
