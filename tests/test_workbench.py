@@ -55,7 +55,7 @@ def test_workbench_holds_every_enabled_stage_with_its_parameters_set(study):
     params = _parameters(bench.templates / "derivation.ipynb")
     assert f'study_path = "{study.resolve()}"' in params and f'record_dir = "{bench.draft}"' in params
     assert is_draft(bench.draft)
-    readme = (bench.folder / "README.md").read_text(encoding="utf-8")
+    readme = (bench.templates / "README.md").read_text(encoding="utf-8")
     assert bench.run_command in readme and "not clearance for clinical use" in readme
 
 

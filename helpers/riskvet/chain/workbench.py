@@ -3,7 +3,7 @@
 ``riskvet lab STUDY.yaml`` makes (or reopens) the folder ``workbench/``
 beside the study file::
 
-    workbench/README.md            the order of the notebooks and the command that makes the record
+    workbench/templates/README.md  the order of the notebooks and the command that makes the record
     workbench/templates/<stage>.ipynb
                                    a working copy of each enabled stage's template, its parameters
                                    cell set to the study and to the draft folder
@@ -137,7 +137,7 @@ def _readme(bench: Workbench, stages: tuple[str, ...]) -> str:
     return (
         f"# Workbench of {bench.study_path.name}\n\n"
         "Working copies of the stage notebooks of this study, for JupyterLab. Run them in this order, top to "
-        "bottom or cell by cell; each writes its results, figures and model files into `draft/` (a draft, never a "
+        "bottom or cell by cell; each writes its results, figures and model files into `../draft/` (a draft, never a "
         "record: files there are overwritten as cells are rerun, and `riskvet verify` refuses it). A stage that uses "
         "the frozen model needs the draft derivation first.\n\n"
         f"{order}\n\n"
@@ -192,7 +192,7 @@ def open_workbench(study_path: str | Path, *, templates_dir: str | Path | None =
         notebooks.append(target)
     bench = Workbench(folder=folder, templates=bench.templates, draft=bench.draft, study_path=study_path,
                       notebooks=tuple(notebooks), written=tuple(written))
-    (folder / "README.md").write_text(_readme(bench, stages), encoding="utf-8")
+    (bench.templates / "README.md").write_text(_readme(bench, stages), encoding="utf-8")  # where JupyterLab opens
     return bench
 
 
