@@ -2,8 +2,9 @@
 
 :func:`descriptive_table` counts and summarises each predictor within each
 outcome level, then publishes the table through disclosure control
-(:func:`riskvet.reporting.disclosure.complementary_suppression`): small
-counts and the counts that would give them away are hidden, percentages that
+(:func:`riskvet.reporting.disclosure.suppress_until_safe`): small
+counts and the counts that would give them away are hidden (each shown as
+"suppressed", whether small or hidden to protect one), percentages that
 would reveal a hidden total are left out, and numeric summaries of groups
 smaller than ``min_cell_count`` are withheld.
 """
@@ -19,7 +20,7 @@ import pandas as pd
 from .._jsonable import to_jsonable
 from ..errors import DataError, problem
 from ..intake.data import PreparedCohort, _as_text, _check_cohort, _is_binary_number, expand_cohort
-from .disclosure import complementary_suppression
+from .disclosure import SUPPRESSED, suppress_until_safe
 
 __all__ = ["DescriptiveTable", "descriptive_table"]
 
@@ -123,7 +124,8 @@ def descriptive_table(
     group_n = [int(g.sum()) for g in groups]
     rows, count_blocks = _described_rows(cohort, groups, group_n, m=m, digits=digits)
     counts = {(r, c): n for r, row in enumerate(rows) if "counts" in row for c, n in enumerate(row["counts"])}
-    hidden = complementary_suppression(counts, _published_sums(rows, count_blocks, K), m)
+    # hidden until no count can be worked out from the row and column sums (integer programming), not only by one subtraction
+    hidden = suppress_until_safe(counts, _published_sums(rows, count_blocks, K), m)
     table_rows, n_summaries_hidden = _published_cells(rows, hidden, group_n, m=m, digits=digits)
     table = pd.DataFrame(table_rows, columns=["predictor", "level", "statistic", *names, "overall"])
     return DescriptiveTable(table=table, min_cell_count=m, n_suppressed=len(hidden), n_suppressed_summaries=n_summaries_hidden)
@@ -219,7 +221,8 @@ def _published_cells(rows: list[dict[str, Any]], hidden: set[tuple[int, int]], g
             if "counts" in row:
                 n = row["counts"][c]
                 if (r, c) in hidden:
-                    cells.append(f"<{m}")
+                    # one marker for every hidden count: a complementary one is not below the minimum, and "<5" would say it was
+                    cells.append(SUPPRESSED)
                 elif r == 0:
                     cells.append(str(n))
                 elif (0, c) in hidden or not group_n[c]:

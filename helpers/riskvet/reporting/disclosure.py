@@ -36,7 +36,7 @@ import pandas as pd
 from .._jsonable import to_jsonable
 from ..errors import DataError, problem
 
-__all__ = ["SUPPRESSED", "PublishedTable", "PublishedStatistics", "complementary_suppression", "determined_counts", "publish_cross_table",
+__all__ = ["SUPPRESSED", "PublishedTable", "PublishedStatistics", "complementary_suppression", "determined_counts", "suppress_until_safe", "publish_cross_table",
            "publish_statistics", "consistent_tables"]
 
 #: A cell of a table: (row, column).
@@ -229,6 +229,40 @@ def determined_counts(counts: Mapping[Cell, int], lines: Sequence[Sequence[Cell]
     page): they count as visible whatever ``hidden`` says.
     """
     return _determined([list(line) for line in lines], set(hidden) - set(known), counts)
+
+
+def suppress_until_safe(counts: Mapping[Cell, int], lines: Sequence[Sequence[Cell]], m: int, *,
+                        known: Sequence[Cell] = (), max_rounds: int = 50) -> set[Cell]:
+    """:func:`complementary_suppression`, then more cells until no hidden count is fixed by the published lines.
+
+    While :func:`determined_counts` finds a hidden count that the lines (and
+    the ``known`` cells, published elsewhere) fix, the smallest visible
+    non-zero part of a line through it is hidden as well (the line's total
+    when no part is left), and the suppression is redone.  Counts 1 to
+    ``m - 1`` are always hidden; with ``m <= 1`` nothing is.  When no
+    further cell can be hidden, every count of the table is.
+    """
+    if m <= 1:
+        return set()
+    known = set(known)
+    also: set[Cell] = set()
+    hidden = complementary_suppression(counts, lines, m)
+    for _ in range(max_rounds):
+        fixed = determined_counts(counts, lines, hidden, known=sorted(known))
+        if not fixed:
+            return hidden
+        before = len(also | hidden)
+        for cell in sorted(fixed):
+            through = [line for line in lines if cell in line]
+            parts = [c for line in through for c in line[:-1] if c not in hidden and c not in known and counts[c] > 0]
+            totals = [line[-1] for line in through if line[-1] not in hidden and line[-1] not in known]
+            if parts or totals:
+                also.add(min(parts, key=lambda c: (counts[c], c)) if parts else min(totals))
+        if len(also | hidden) == before:
+            break
+        hidden = complementary_suppression(counts, lines, m, also=sorted(also))
+    # nothing more to hide line by line: the table goes out with every count hidden (the page shows that it is)
+    return {c for line in lines for c in line if c not in known}
 
 
 def _check_table(table: Any, min_cell_count: Any) -> np.ndarray:

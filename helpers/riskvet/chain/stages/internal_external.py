@@ -13,7 +13,7 @@
 * writes ``results/internal_external.json`` (deterministic content).
 
 Disclosure control: the clusters' sizes by outcome level are published
-through :func:`riskvet.reporting.disclosure.complementary_suppression`
+through :func:`riskvet.reporting.disclosure.suppress_until_safe`
 (``output.min_cell_count``), and a cluster's measures at a cut need at least
 ``max(internal_external.min_events, output.min_cell_count)`` people on each
 side of it, so no estimate shown rests on a count the record may not show.
@@ -29,7 +29,7 @@ import pandas as pd
 from ..._jsonable import to_jsonable
 from ...intake.data import load_cohorts
 from ...reporting.labels import cut_label
-from ...reporting.disclosure import SUPPRESSED, complementary_suppression, determined_counts
+from ...reporting.disclosure import SUPPRESSED, suppress_until_safe
 from ...reporting.sentences.internal_external import internal_external_texts
 from ...validation.iecv import MEASURES, InternalExternalValidation, internal_external_validation
 
@@ -142,9 +142,9 @@ def published_sizes(result: InternalExternalValidation, *, min_cell_count: int) 
 
     The lines published are each cluster's row (its levels and its total)
     and each level's column (its clusters and the level's total, which the
-    derivation page shows); :func:`~riskvet.reporting.disclosure.complementary_suppression`
+    derivation page shows); :func:`~riskvet.reporting.disclosure.suppress_until_safe`
     hides counts from 1 to ``min_cell_count - 1`` and enough others that
-    none can be recovered by subtraction.
+    none can be worked out from the lines (checked by integer programming).
     """
     levels = list(result.levels)
     K, G = len(levels), len(result.clusters)
@@ -156,7 +156,8 @@ def published_sizes(result: InternalExternalValidation, *, min_cell_count: int) 
     for j in range(K + 1):
         counts[(G, j)] = sum(counts[(g, j)] for g in range(G))
     lines = [[(g, j) for j in range(K + 1)] for g in range(G)] + [[(g, j) for g in range(G + 1)] for j in range(K + 1)]
-    hidden = _suppressed(counts, lines, int(min_cell_count), totals=[(G, j) for j in range(K + 1)], levels=K)
+    # the level totals are on the derivation page: known to a reader whatever this table shows
+    hidden = suppress_until_safe(counts, lines, int(min_cell_count), known=[(G, j) for j in range(K + 1)])
     rows = []
     for g, c in enumerate(result.clusters):
         row: dict[str, Any] = {"cluster": c.label}
@@ -165,33 +166,6 @@ def published_sizes(result: InternalExternalValidation, *, min_cell_count: int) 
         row["model derived without it"] = "yes" if c.status == "ok" else f"no: {c.reason}"
         rows.append(row)
     return pd.DataFrame(rows)
-
-
-def _suppressed(counts: dict[tuple[int, int], int], lines: list[list[tuple[int, int]]], m: int, *,
-                totals: list[tuple[int, int]], levels: int) -> set[tuple[int, int]]:
-    """Complementary suppression, then more until no hidden count is fixed by the lines and the public totals.
-
-    The level totals (``totals``) are on the derivation page, so they count
-    as known.  While the integer-programming check
-    (:func:`~riskvet.reporting.disclosure.determined_counts`) finds a hidden
-    count that the published lines fix, the smallest visible non-zero level
-    count of that cluster is hidden too (and its row total once none is
-    left), and the suppression is redone.
-    """
-    if m <= 1:
-        return set()
-    also: set[tuple[int, int]] = set()
-    while True:
-        hidden = complementary_suppression(counts, lines, m, also=sorted(also))
-        fixed = determined_counts(counts, lines, hidden, known=totals)
-        if not fixed:
-            return hidden
-        before = len(also | hidden)
-        for g, _ in sorted(fixed):
-            visible = [(g, j) for j in range(levels) if (g, j) not in hidden and counts[(g, j)] > 0]
-            also.add(min(visible, key=lambda c: (counts[c], c)) if visible else (g, levels))
-        if len(also | hidden) == before:  # nothing left to hide beside them: the whole row of each such cluster goes
-            return hidden | {(g, j) for g, _ in fixed for j in range(levels + 1)}
 
 
 def run(ctx) -> InternalExternalOutput:
