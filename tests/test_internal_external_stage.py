@@ -94,3 +94,44 @@ def test_check_names_the_clusters(tmp_path, capsys):
     printed = capsys.readouterr().out
     assert "internal_external" in printed.splitlines()[1]  # the enabled stages
     assert "clusters ('tent', kind site): 9 sites" in printed
+
+
+def test_several_validation_cohorts_are_pooled_by_random_effects(chain, tmp_path):
+    import numpy as np
+    import yaml
+
+    from riskvet import demo
+    from riskvet.chain.stages.external_validation import pool_cohorts
+    from riskvet.intake.data import expand_cohort, load_cohorts
+    from riskvet.intake.study import load_study
+    from riskvet.modelling.modelfile import load_model
+    from riskvet.pooling import back_transform, logit_c, random_effects
+    from riskvet.validation.external import apply_model
+    from riskvet.validation.iecv import cluster_measures
+
+    record = chain.record_dir
+    raw = json.loads((record / "study.json").read_text(encoding="utf-8"))  # the resolved study: its paths are absolute
+    for seed, label in ((31, "later-a"), (32, "later-b")):
+        demo.validation_cohort(seed=seed, n=400).to_csv(tmp_path / f"{label}.csv", index=False)
+    raw["data"]["validation"] = [*raw["data"]["validation"], {"label": "later-a", "path": str(tmp_path / "later-a.csv")},
+                                 {"label": "later-b", "path": str(tmp_path / "later-b.csv")}]
+    raw["output"]["records"] = str(tmp_path / "records")
+    path = tmp_path / "three.yaml"
+    path.write_text(yaml.safe_dump(raw), encoding="utf-8")
+    study = load_study(path)
+    model = load_model(record / "models" / "model.json")
+    cohorts = load_cohorts(study)
+    pooled = pool_cohorts(study, model, cohorts)
+    c0 = next(p for p in pooled if p.measure == "c" and p.cut == 0)
+    assert c0.n_clusters == 3 and not c0.reason
+    # by hand: each cohort's C and DeLong SE, pooled on the logit scale by REML (the study's default)
+    est, se = [], []
+    for label, cohort in cohorts.validation.items():
+        people = expand_cohort(cohort)
+        rows = cluster_measures(label, people.y, apply_model(model, people.frame, label=label), thresholds={}, min_events=5)
+        c = next(r for r in rows if r.measure == "c" and r.cut == 0)
+        est.append(c.estimate)
+        se.append(c.se)
+    logit, var = logit_c(np.array(est), np.array(se) ** 2)
+    expected = back_transform(random_effects(logit, var, method="reml"), scale="logit")
+    assert c0.estimate == expected.estimate and c0.prediction_upper == expected.prediction_upper
