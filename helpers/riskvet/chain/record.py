@@ -14,6 +14,7 @@ side: study settings, input hashes, package versions and results.
 
 from __future__ import annotations
 
+import difflib
 import hashlib
 import json
 import math
@@ -36,6 +37,7 @@ __all__ = [
     "manifest_digest",
     "write_manifest",
     "read_manifest",
+    "template_changes",
     "record_files",
     "layout_problem",
     "enclosing_record",
@@ -626,3 +628,47 @@ def _missing(value: Any) -> bool:
         return value is None or bool(pd.isna(value))
     except (TypeError, ValueError):
         return False
+
+
+def _cell_text(cell: dict[str, Any]) -> str:
+    """A cell as compared: its kind and source; a parameters cell compares equal whatever its values."""
+    source = cell.get("source", "")
+    source = "".join(source) if isinstance(source, list) else str(source)
+    if "parameters" in (cell.get("metadata", {}).get("tags") or []):
+        source = "<parameters>"
+    return f"{cell.get('cell_type')}\n{source.strip()}"
+
+
+def template_changes(template: str | Path, shipped: str | Path) -> dict[str, Any]:
+    """How a template differs from the shipped one: cells added, removed and changed.
+
+    Cells are compared in order by kind and source (outputs, ids and the
+    values of the parameters cell are ignored), with
+    :class:`difflib.SequenceMatcher`: a replaced run of cells counts as
+    changed up to the shorter side's length, the rest as added or removed.
+
+    Returns
+    -------
+    dict
+        ``same_as_shipped``, ``cells_added``, ``cells_removed``,
+        ``cells_changed`` and ``changed_cells`` (the 1-based positions, in
+        the adapted template, of the cells added or changed).
+    """
+    ours = [_cell_text(c) for c in json.loads(Path(template).read_text(encoding="utf-8")).get("cells", [])]
+    theirs = [_cell_text(c) for c in json.loads(Path(shipped).read_text(encoding="utf-8")).get("cells", [])]
+    added = removed = changed = 0
+    touched: list[int] = []
+    for tag, i1, i2, j1, j2 in difflib.SequenceMatcher(a=theirs, b=ours, autojunk=False).get_opcodes():
+        if tag == "insert":
+            added += j2 - j1
+            touched += list(range(j1 + 1, j2 + 1))
+        elif tag == "delete":
+            removed += i2 - i1
+        elif tag == "replace":
+            common = min(i2 - i1, j2 - j1)
+            changed += common
+            added += max(0, (j2 - j1) - common)
+            removed += max(0, (i2 - i1) - common)
+            touched += list(range(j1 + 1, j2 + 1))
+    return {"same_as_shipped": added == removed == changed == 0, "cells_added": added, "cells_removed": removed,
+            "cells_changed": changed, "changed_cells": touched}

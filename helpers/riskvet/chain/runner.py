@@ -85,11 +85,11 @@ _INJECTED_TAG = "injected-parameters"
 
 
 def _changes_from_shipped(stage: str, template: Path) -> dict[str, Any] | None:
-    """Cells added, removed and changed against the shipped template (:func:`riskvet.chain.workbench.template_changes`).
+    """Cells added, removed and changed against the shipped template (:func:`riskvet.chain.record.template_changes`).
 
     None when no shipped template of the stage can be found to compare with.
     """
-    from .workbench import template_changes
+    from .record import template_changes
 
     shipped = default_templates_dir() / f"{stage}.ipynb"
     if not shipped.is_file():

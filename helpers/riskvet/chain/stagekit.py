@@ -30,7 +30,7 @@ from .._jsonable import positional_numbers, to_jsonable
 from ..errors import RecordError, RiskvetError, problem
 from ..intake.study import STAGES, Study, load_study
 
-__all__ = ["STAGE_PARAMETERS", "StageContext", "open_stage", "stage_context"]
+__all__ = ["STAGE_PARAMETERS", "StageContext", "open_stage", "stage_context", "is_draft"]
 
 #: The parameters every stage notebook takes, with their defaults.
 STAGE_PARAMETERS: dict[str, Any] = {
@@ -143,6 +143,18 @@ class StageContext:
         return figure
 
 
+def is_draft(folder: str | Path) -> bool:
+    """Whether ``folder`` is a workbench's draft folder (its manifest says so)."""
+    path = Path(folder) / "manifest.json"
+    if not path.is_file():
+        return False
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return False
+    return isinstance(data, dict) and data.get("draft") is True
+
+
 def stage_context(stage: str, *, study_path: str | Path, record_dir: str | Path, model_path: str | Path = "") -> StageContext:
     """Build a :class:`StageContext` from plain arguments (the runner and tests use this)."""
     if stage not in STAGES:
@@ -155,8 +167,6 @@ def stage_context(stage: str, *, study_path: str | Path, record_dir: str | Path,
         raise RiskvetError(problem(f"{stage} notebook: study_path", allowed="the path of a study file", received=study_path))
     if not record_dir:
         raise RiskvetError(problem(f"{stage} notebook: record_dir", allowed="the path of a record folder", received=record_dir))
-    from .workbench import is_draft
-
     study = load_study(study_path)
     record = Path(record_dir).resolve()
     model = Path(model_path).resolve() if model_path else record / "models" / "model.json"

@@ -25,7 +25,6 @@ is missing, and only its parameters cell is set again.
 
 from __future__ import annotations
 
-import difflib
 import json
 import os
 import sys
@@ -35,6 +34,8 @@ from typing import Any
 
 from ..errors import RiskvetError, problem
 from ..intake.study import STAGES, load_study
+from .record import template_changes
+from .stagekit import is_draft
 
 __all__ = [
     "WORKBENCH",
@@ -89,18 +90,6 @@ class Workbench:
 def _quoted(path: Path) -> str:
     text = str(path)
     return f'"{text}"' if any(ch.isspace() for ch in text) else text
-
-
-def is_draft(folder: str | Path) -> bool:
-    """Whether ``folder`` is a workbench's draft folder (its manifest says so)."""
-    path = Path(folder) / "manifest.json"
-    if not path.is_file():
-        return False
-    try:
-        data = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, ValueError):
-        return False
-    return isinstance(data, dict) and data.get("draft") is True
 
 
 def set_parameters(notebook: dict[str, Any], values: dict[str, str]) -> dict[str, Any]:
@@ -194,50 +183,6 @@ def open_workbench(study_path: str | Path, *, templates_dir: str | Path | None =
                       notebooks=tuple(notebooks), written=tuple(written))
     (bench.templates / "README.md").write_text(_readme(bench, stages), encoding="utf-8")  # where JupyterLab opens
     return bench
-
-
-def _cell_text(cell: dict[str, Any]) -> str:
-    """A cell as compared: its kind and source; a parameters cell compares equal whatever its values."""
-    source = cell.get("source", "")
-    source = "".join(source) if isinstance(source, list) else str(source)
-    if "parameters" in (cell.get("metadata", {}).get("tags") or []):
-        source = "<parameters>"
-    return f"{cell.get('cell_type')}\n{source.strip()}"
-
-
-def template_changes(template: str | Path, shipped: str | Path) -> dict[str, Any]:
-    """How a template differs from the shipped one: cells added, removed and changed.
-
-    Cells are compared in order by kind and source (outputs, ids and the
-    values of the parameters cell are ignored), with
-    :class:`difflib.SequenceMatcher`: a replaced run of cells counts as
-    changed up to the shorter side's length, the rest as added or removed.
-
-    Returns
-    -------
-    dict
-        ``same_as_shipped``, ``cells_added``, ``cells_removed``,
-        ``cells_changed`` and ``changed_cells`` (the 1-based positions, in
-        the adapted template, of the cells added or changed).
-    """
-    ours = [_cell_text(c) for c in json.loads(Path(template).read_text(encoding="utf-8")).get("cells", [])]
-    theirs = [_cell_text(c) for c in json.loads(Path(shipped).read_text(encoding="utf-8")).get("cells", [])]
-    added = removed = changed = 0
-    touched: list[int] = []
-    for tag, i1, i2, j1, j2 in difflib.SequenceMatcher(a=theirs, b=ours, autojunk=False).get_opcodes():
-        if tag == "insert":
-            added += j2 - j1
-            touched += list(range(j1 + 1, j2 + 1))
-        elif tag == "delete":
-            removed += i2 - i1
-        elif tag == "replace":
-            common = min(i2 - i1, j2 - j1)
-            changed += common
-            added += max(0, (j2 - j1) - common)
-            removed += max(0, (i2 - i1) - common)
-            touched += list(range(j1 + 1, j2 + 1))
-    return {"same_as_shipped": added == removed == changed == 0, "cells_added": added, "cells_removed": removed,
-            "cells_changed": changed, "changed_cells": touched}
 
 
 def lab_command(folder: str | Path, *, port: int, token: str, open_browser: bool) -> list[str]:

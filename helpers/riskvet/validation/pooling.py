@@ -372,20 +372,27 @@ def random_effects(
     y, v, confidence = _check_inputs(estimates, variances, method, hartung_knapp, confidence)
     names = _labels(labels, y.size)
     k = int(y.size)
-    q, tau2 = _fixed_effect(y, v)
+    # Every sum runs over the clusters in one canonical order (by estimate, then variance), so the
+    # result does not depend on the order the clusters were given in, to the last bit: otherwise
+    # rounding in another order can stop the REML iteration one step apart.
+    order = np.lexsort((v, y))
+    ys, vs = y[order], v[order]
+    q, tau2 = _fixed_effect(ys, vs)
     iterations, trouble = 0, ()
     if method == "reml":
-        tau2, iterations, converged = _reml_tau2(y, v, tau2)
+        tau2, iterations, converged = _reml_tau2(ys, vs, tau2)
         if not converged:
             trouble = (f"REML estimate of tau^2 did not converge in {_REML_MAX_ITER} iterations; the last value {tau2:.6g} is reported",)
             warnings.warn(trouble[0], ConvergenceWarning, stacklevel=2)
-    w = 1.0 / (v + tau2)
-    mu = float(np.sum(w * y) / np.sum(w))
+    ws = 1.0 / (vs + tau2)
+    mu = float(np.sum(ws * ys) / np.sum(ws))
+    w = np.empty_like(ws)
+    w[order] = ws / np.sum(ws)  # each cluster's share of the weight, in the order given
     if hartung_knapp:
-        se = math.sqrt(float(np.sum(w * (y - mu) ** 2)) / ((k - 1) * float(np.sum(w))))
+        se = math.sqrt(float(np.sum(ws * (ys - mu) ** 2)) / ((k - 1) * float(np.sum(ws))))
         crit = float(stats.t.ppf(0.5 + confidence / 2.0, k - 1))
     else:
-        se = math.sqrt(1.0 / float(np.sum(w)))
+        se = math.sqrt(1.0 / float(np.sum(ws)))
         crit = float(stats.norm.ppf(0.5 + confidence / 2.0))
     pred_lower, pred_upper, notes = _prediction_interval(mu, se, tau2, k, confidence)
     return PooledEstimate(
@@ -403,7 +410,7 @@ def random_effects(
         method=method,
         hartung_knapp=bool(hartung_knapp),
         confidence=confidence,
-        weights=_frozen(w / np.sum(w)),
+        weights=_frozen(w),
         estimates=_frozen(y),
         variances=_frozen(v),
         labels=names,
