@@ -21,7 +21,7 @@ import riskvet
 
 ROOT = Path(riskvet.__file__).resolve().parent
 
-SUBPACKAGES = ("intake", "modelling", "measures", "validation", "planning", "reporting", "chain")
+SUBPACKAGES = ("intake", "modelling", "imputation", "measures", "validation", "planning", "reporting", "chain")
 STABLE_PATHS = ("models", "metrics", "pooling", "agreement", "bootstrap", "study", "data")
 
 ALLOWED = {
@@ -29,12 +29,13 @@ ALLOWED = {
     "demo": {"core"},
     "intake": {"core"},
     "modelling": {"core", "intake"},
+    "imputation": {"core", "intake", "modelling"},
     "measures": {"core", "intake", "modelling"},
-    "validation": {"core", "intake", "modelling", "measures"},
+    "validation": {"core", "intake", "modelling", "imputation", "measures"},
     "planning": {"core"},
-    "reporting": {"core", "intake", "modelling", "measures", "validation", "planning"},
-    "chain": {"core", "demo", "intake", "modelling", "measures", "validation", "planning", "reporting"},
-    "stable": {"core", "intake", "modelling", "measures", "validation", "planning", "reporting"},
+    "reporting": {"core", "intake", "modelling", "imputation", "measures", "validation", "planning"},
+    "chain": {"core", "demo", "intake", "modelling", "imputation", "measures", "validation", "planning", "reporting"},
+    "stable": {"core", "intake", "modelling", "imputation", "measures", "validation", "planning", "reporting"},
 }
 
 
