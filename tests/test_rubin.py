@@ -148,6 +148,11 @@ def test_agrees_with_slow_plain_python_implementation(data, df_complete):
     # relative, and rtol 1e-9 leaves room for that.  Identical estimates (B = 0) are tested apart.
     q, u = data
     assume(np.all(np.ptp(q, axis=0) > 1e-4 * (1 + np.abs(q).max(axis=0))))
+    # and lambda at most 0.999: nearer 1, the reference's 1 - lambda loses digits to cancellation that
+    # pool avoids (it uses U-bar / T), and the tiny Barnard-Rubin df magnifies the difference
+    m = q.shape[0]
+    ubar, between = u.mean(axis=0), q.var(axis=0, ddof=1)
+    assume(np.all(ubar / (ubar + (1 + 1 / m) * between) > 1e-3))
     result = pool(q, u, df_complete=df_complete)
     for j in range(q.shape[1]):
         expected = by_hand(q[:, j].tolist(), u[:, j].tolist(), df_complete)
