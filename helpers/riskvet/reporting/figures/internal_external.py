@@ -35,19 +35,53 @@ _TITLES = {"c": "C (AUC)", "calibration_in_the_large": "calibration-\nin-the-lar
            "oe_ratio": "observed/\nexpected"}
 
 
+def _limits(rows: dict, pooled, log: bool) -> tuple[float, float] | None:
+    """The axis range: every estimate and the pooled intervals, with a margin; a cluster's wider interval is cut at it.
+
+    A single small site can have an interval many times wider than the
+    rest (a slope of 5 +- 10); drawing it whole would squeeze every other
+    row into a sliver, so an interval wider than three times the median
+    width stops at the edge with an arrowhead.
+    """
+    shown = [m for m in rows.values() if m.estimated]
+    scale = (lambda v: math.log(v)) if log else (lambda v: v)
+    widths = [scale(m.upper) - scale(m.lower) for m in shown]
+    typical = float(np.median(widths)) if widths else 0.0
+    points = [m.estimate for m in shown]
+    # every interval up to three times the typical width is drawn whole; only the outliers are cut
+    points += [v for m, w in zip(shown, widths) if w <= 3.0 * typical for v in (m.lower, m.upper)]
+    points += [v for v in (pooled.lower, pooled.upper, pooled.prediction_lower, pooled.prediction_upper) if math.isfinite(v)]
+    points = [scale(v) for v in points if math.isfinite(v) and (v > 0 or not log)]
+    if not points:
+        return None
+    low, high = min(points), max(points)
+    margin = max(0.06 * (high - low), 0.05 if log else 0.05 * max(1.0, abs(high)))
+    low, high = low - margin, high + margin
+    return (math.exp(low), math.exp(high)) if log else (low, high)
+
+
 def _panel(ax, result: InternalExternalValidation, measure: str, cut: int, sizes: dict[str, int], show_labels: bool) -> None:
     labels = [c.label for c in result.clusters]
     rows = {m.cluster: m for m in result.measures if m.measure == measure and m.cut == cut}
     pooled = result.pooled_measure(measure, cut)
     y_pos = np.arange(len(labels))[::-1] + 2.0
     biggest = max(max(sizes.values(), default=1), 1)
+    limits = _limits(rows, pooled, log=measure == "oe_ratio")
     for label, y in zip(labels, y_pos):
         m = rows.get(label)
         if m is None or not m.estimated:
             ax.text(0.5, y, "not estimated", transform=ax.get_yaxis_transform(), ha="center", va="center",
                     fontsize=8.5, color="#555555", style="italic")
             continue
-        ax.plot([m.lower, m.upper], [y, y], color=PALETTE[1], linewidth=1.4, solid_capstyle="butt")
+        lower, upper = m.lower, m.upper
+        if limits is not None:
+            if lower < limits[0]:
+                lower = limits[0]
+                ax.plot([lower], [y], marker="<", color=PALETTE[1], markersize=5, clip_on=False)
+            if upper > limits[1]:
+                upper = limits[1]
+                ax.plot([upper], [y], marker=">", color=PALETTE[1], markersize=5, clip_on=False)
+        ax.plot([lower, upper], [y, y], color=PALETTE[1], linewidth=1.4, solid_capstyle="butt")
         ax.scatter([m.estimate], [y], marker="s", s=18 + 70 * sizes.get(label, 0) / biggest, color=PALETTE[1], zorder=3,
                    edgecolors="white", linewidths=0.5)
     ax.axhline(1.0, color="#333333", linewidth=0.6)
@@ -67,6 +101,11 @@ def _panel(ax, result: InternalExternalValidation, measure: str, cut: int, sizes
         ax.set_xscale("log")
         ax.xaxis.set_major_formatter(mpl.ticker.FormatStrFormatter("%g"))
         ax.xaxis.set_minor_formatter(mpl.ticker.NullFormatter())
+    if limits is not None:
+        ax.set_xlim(*limits)
+        if measure == "oe_ratio":  # ratios read as halves and doubles
+            ticks = [t for t in (0.125, 0.25, 0.5, 1.0, 2.0, 4.0, 8.0) if limits[0] <= t <= limits[1]]
+            ax.set_xticks(ticks, [f"{t:g}" for t in ticks])
     ax.set_title(_TITLES[measure], fontsize=10.5)
     ax.set_ylim(-0.9, len(labels) + 2.6)
     ax.tick_params(axis="y", length=0, labelleft=show_labels)
@@ -92,7 +131,9 @@ def plot_cluster_performance(result: InternalExternalValidation, *, cut: int = 0
         the cluster's people); below the rule, the vermilion bar is the
         pooled confidence interval with a black tick at the pooled value,
         and the thin vermilion bracket the prediction interval for a new
-        cluster.  Dashed grey lines mark the ideal calibration (0 for
+        cluster.  Each axis spans the estimates and the pooled intervals; a
+        cluster's interval reaching beyond it ends in an arrowhead at the
+        edge (the table beside the figure gives its limits).  Dashed grey lines mark the ideal calibration (0 for
         calibration-in-the-large, 1 for the slope and O/E).
     """
     func = "plot_cluster_performance"
