@@ -135,3 +135,15 @@ def test_several_validation_cohorts_are_pooled_by_random_effects(chain, tmp_path
     logit, var = logit_c(np.array(est), np.array(se) ** 2)
     expected = back_transform(random_effects(logit, var, method="reml"), scale="logit")
     assert c0.estimate == expected.estimate and c0.prediction_upper == expected.prediction_upper
+
+
+def test_forest_axis_cuts_only_an_outlying_interval():
+    from riskvet.reporting.figures.internal_external import _limits
+    from riskvet.validation.iecv import ClusterMeasure, PooledMeasure
+
+    rows = {f"s{i}": ClusterMeasure(f"s{i}", "calibration_slope", 0, float("nan"), 1.0, 0.2, 0.6, 1.4) for i in range(5)}
+    rows["wide"] = ClusterMeasure("wide", "calibration_slope", 0, float("nan"), 5.0, 5.0, -5.0, 15.0)
+    pooled = PooledMeasure("calibration_slope", 0, float("nan"), "identity", 6, 1.0, 0.8, 1.2, 0.5, 1.5, 0.0, 0.0)
+    low, high = _limits(rows, pooled, log=False)
+    assert low <= 0.6 and high >= 5.0  # typical intervals and every estimate are drawn whole
+    assert low > -5.0 and high < 15.0  # the outlying interval is cut at the edge (drawn with arrowheads)
