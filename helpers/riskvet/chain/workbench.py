@@ -165,21 +165,21 @@ def open_workbench(study_path: str | Path, *, templates_dir: str | Path | None =
     study_path = Path(study_path).resolve()
     study = load_study(study_path)
     folder = study_path.parent / WORKBENCH
-    bench = Workbench(folder=folder, templates=folder / "templates", draft=folder / "draft", study_path=study_path, notebooks=())
+    templates, draft = folder / "templates", folder / "draft"
     stages = tuple(s for s in STAGES if s in study.enabled_stages)
-    bench.templates.mkdir(parents=True, exist_ok=True)
-    _draft_manifest(bench.draft, study_path)
-    values = {"study_path": str(study_path), "record_dir": str(bench.draft), "model_path": ""}
+    templates.mkdir(parents=True, exist_ok=True)
+    _draft_manifest(draft, study_path)
+    values = {"study_path": str(study_path), "record_dir": str(draft), "model_path": ""}
     written, notebooks = [], []
     for stage in stages:
-        target = bench.templates / f"{stage}.ipynb"
+        target = templates / f"{stage}.ipynb"
         source = target if target.is_file() else template_path(stage, templates_dir=templates_dir)
         if source != target:
             written.append(stage)
         notebook = json.loads(Path(source).read_text(encoding="utf-8"))
         target.write_text(json.dumps(set_parameters(notebook, values), indent=1, ensure_ascii=False) + "\n", encoding="utf-8")
         notebooks.append(target)
-    bench = Workbench(folder=folder, templates=bench.templates, draft=bench.draft, study_path=study_path,
+    bench = Workbench(folder=folder, templates=templates, draft=draft, study_path=study_path,
                       notebooks=tuple(notebooks), written=tuple(written))
     (bench.templates / "README.md").write_text(_readme(bench, stages), encoding="utf-8")  # where JupyterLab opens
     return bench

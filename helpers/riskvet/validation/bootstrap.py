@@ -1362,8 +1362,7 @@ def _fit_and_predict(study, frame_fit: pd.DataFrame, y_fit: np.ndarray, frame_ne
     with warnings.catch_warnings(record=True) as seen:
         warnings.simplefilter("always")
         try:
-            derivation = (derive(study, frame_fit, y_fit, seed=seed, weights=weights) if clusters is None
-                          else derive(study, frame_fit, y_fit, seed=seed, weights=weights, clusters=clusters))
+            derivation = derive(study, frame_fit, y_fit, seed=seed, weights=weights, clusters=clusters)
         except _PROPAGATE:
             raise
         except (RiskvetError, np.linalg.LinAlgError) as exc:

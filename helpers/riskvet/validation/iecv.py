@@ -50,7 +50,6 @@ from scipy import stats
 
 from .._jsonable import to_jsonable
 from ..errors import DataError, RiskvetError, StudyError, problem
-from ..modelling.folds import cluster_codes
 from .bootstrap import (
     _SEED_CEILING,
     _PROPAGATE,
@@ -396,18 +395,21 @@ def _row(cluster: str, measure: str, cut: int, estimate: float, se: float, z: fl
 def _net_benefit_rows(cluster: str, event: np.ndarray, p: np.ndarray, cut: int, thresholds: Sequence[float],
                       z: float) -> list[ClusterMeasure]:
     """Net benefit at each threshold with the multinomial standard error (positive: p >= t)."""
+    from ..measures.decision import net_benefit
+
+    if not len(thresholds):
+        return []
     n = event.size
+    curve = net_benefit(event.astype(int), p, thresholds=list(thresholds))  # its counts (positive: p >= t) and estimate
     rows = []
-    for t in thresholds:
-        positive = p >= t
-        a = float(np.count_nonzero(positive & event)) / n
-        b = float(np.count_nonzero(positive & ~event)) / n
+    for t, nb, tp, fp in zip(curve.threshold.tolist(), curve.net_benefit, curve.true_positives, curve.false_positives):
+        a, b = float(tp) / n, float(fp) / n
         odds = t / (1.0 - t)
         # var(a - odds b) with (a, b) multinomial shares: [a(1-a) + odds^2 b(1-b) + 2 odds a b] / n
         var = (a * (1.0 - a) + odds**2 * b * (1.0 - b) + 2.0 * odds * a * b) / n
         # nobody at or above t: net benefit is exactly 0 with no sampling variance, so it cannot be weighted in the pooling
         reason = "" if var > 0 else f"no one in this cluster has a predicted risk at or above {t:g}"
-        rows.append(_row(cluster, "net_benefit", cut, a - odds * b, math.sqrt(var), z, threshold=float(t), reason=reason))
+        rows.append(_row(cluster, "net_benefit", cut, float(nb), math.sqrt(var), z, threshold=float(t), reason=reason))
     return rows
 
 
@@ -576,7 +578,9 @@ def _labels_and_codes(data: Any, clusters: Any, n: int, func: str) -> tuple[np.n
         raise DataError(problem(f"{func}(clusters=)", allowed="the cluster of every row (data.cluster_column, or clusters=)", received=None))
     if kind == "person":
         raise StudyError(problem("data.cluster_kind", allowed="'site' or 'period' for internal-external cross-validation", received=kind))
-    labels = _labels_in_order(data.clusters if clusters is None else clusters)
+    labels: list[str] = [""] * (int(codes.max()) + 1)
+    for code, label in zip(codes.tolist(), np.asarray(data.clusters if clusters is None else clusters, dtype=object).tolist()):
+        labels[code] = str(label)  # codes number clusters in order of first appearance
     if len(labels) < 3:
         raise DataError(problem(f"{func}: clusters", allowed="at least 3 clusters (a site or period is left out, and the pooling needs two or more)",
                                 received=f"{len(labels)}: {labels}"))
@@ -839,13 +843,3 @@ def _effect_table(per_cluster: pd.DataFrame, tests: list[dict[str, Any]], on_all
             row.update(pooled=pooled.estimate, tau=math.sqrt(pooled.tau2), i2=pooled.i2)
         rows.append(row)
     return pd.DataFrame(rows)
-
-
-def _labels_in_order(labels: Any) -> list[str]:
-    """Distinct labels in order of first appearance (the order of :func:`cluster_codes`)."""
-    codes = cluster_codes(labels)
-    values = np.asarray(labels, dtype=object).tolist()
-    out: list[str] = [""] * (int(codes.max()) + 1 if codes.size else 0)
-    for c, v in zip(codes.tolist(), values):
-        out[c] = str(v)
-    return out
