@@ -271,9 +271,9 @@ def test_bootstrap_replicate_counts_are_multiples_of_the_row_weights(pair, monke
     seen = []
     real = derive_module.derive
 
-    def recording(study, frame, y, *, seed=None, weights=None):
+    def recording(study, frame, y, *, seed=None, weights=None, clusters=None):
         seen.append(None if weights is None else np.asarray(weights).copy())
-        return real(study, frame, y, seed=seed, weights=weights)
+        return real(study, frame, y, seed=seed, weights=weights, clusters=clusters)
 
     monkeypatch.setattr(derive_module, "derive", recording)
     with warnings.catch_warnings():
