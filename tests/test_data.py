@@ -447,7 +447,7 @@ def test_no_rows_left_is_an_error():
 
 @pytest.mark.parametrize("kwargs, fragment", [
     ({"role": "test"}, "prepare_cohort: role"),
-    ({"missing": "multiple_imputation"}, "prepare_cohort: missing: expected 'complete_case'"),
+    ({"missing": "pairwise"}, "prepare_cohort: missing: expected 'complete_case' or 'multiple_imputation'"),
 ])
 def test_prepare_cohort_rejects_bad_options(kwargs, fragment):
     with pytest.raises(DataError, match=fragment):

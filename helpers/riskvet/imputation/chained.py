@@ -58,7 +58,7 @@ from ..errors import (
     SeparationWarning,
     problem,
 )
-from ..modelling.fitter import fit_cumulative
+from ..modelling.fitter import fit_cumulative, one_blas_thread
 
 __all__ = ["METHODS", "Imputations", "impute"]
 
@@ -806,11 +806,14 @@ def impute(
 
     streams = np.random.SeedSequence(seed).spawn(m)
     values, chain_rows, fallbacks = [], [], []
-    for j, stream in enumerate(streams):
-        imputed, rows_j, fallbacks_j = _run_chain(predictors, visit, layout, iterations, donors, np.random.default_rng(stream), j)
-        values.append(imputed)
-        chain_rows.extend(rows_j)
-        fallbacks.extend(fallbacks_j)
+    # the least-squares and model fits are small (n x p, p in the tens): on one BLAS thread a PMM step takes
+    # about 1 ms instead of 50 ms on a busy 2-core machine (measured), with the same numbers
+    with one_blas_thread():
+        for j, stream in enumerate(streams):
+            imputed, rows_j, fallbacks_j = _run_chain(predictors, visit, layout, iterations, donors, np.random.default_rng(stream), j)
+            values.append(imputed)
+            chain_rows.extend(rows_j)
+            fallbacks.extend(fallbacks_j)
     if fallbacks:
         warnings.warn(
             f"impute: {len(fallbacks)} draw(s) of a category model fell back to the level frequencies of the bootstrap "

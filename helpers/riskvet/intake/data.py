@@ -74,7 +74,7 @@ SUFFIXES: dict[str, str] = {
 }
 
 _ROLES = ("derivation", "validation")
-_MISSING_METHODS = ("complete_case",)
+_MISSING_METHODS = ("complete_case", "multiple_imputation")
 _SHOWN_VALUES = 10  # distinct bad values quoted in an error message
 _SHOWN_OUTCOME_VALUES = 5
 _SHOWN_COLUMNS = 25
@@ -586,7 +586,9 @@ class PreparedCohort:
     category_mappings : tuple of CategoryMapping
         ``data.category_map`` entries applied (validation only), with counts.
     missing : str
-        The missing-data method (``"complete_case"``).
+        The missing-data method: ``"complete_case"`` (rows missing a
+        predictor are excluded) or ``"multiple_imputation"`` (only rows
+        missing the outcome are excluded; predictors may hold missing values).
     audit : FrameAudit
         Audit of the needed columns as received (before exclusions), the id
         column private.
@@ -608,6 +610,10 @@ class PreparedCohort:
         validation cohort.  The column is not carried in ``frame``.
     cluster_column, cluster_kind : str or None
         ``data.cluster_column`` and ``data.cluster_kind`` (None without clusters).
+    auxiliary : tuple of str
+        ``missing_data.auxiliary`` columns carried in ``frame`` (numbers, or
+        level text), used only by the imputation models; empty under
+        complete-case analysis.
     """
 
     role: str
@@ -638,6 +644,12 @@ class PreparedCohort:
     clusters: np.ndarray | None = field(default=None, repr=False)
     cluster_column: str | None = None
     cluster_kind: str | None = None
+    auxiliary: tuple[str, ...] = ()
+
+    @property
+    def n_incomplete(self) -> int:
+        """Analysed rows missing at least one predictor (always 0 under complete-case analysis)."""
+        return int(self.frame[list(self.predictors)].isna().any(axis=1).sum()) if self.predictors else 0
 
     @property
     def n_clusters(self) -> int | None:
@@ -660,6 +672,8 @@ class PreparedCohort:
             "label": self.label,
             "source": self.source,
             "missing": self.missing,
+            "n_incomplete": self.n_incomplete,
+            "auxiliary": list(self.auxiliary),
             "n_screened": self.n_screened,
             "n_analysed": self.n_analysed,
             "weight_column": self.weight_column,
@@ -736,6 +750,9 @@ def _needs(study: Study, frame_columns: set[str], *, role: str, label: str) -> l
         for name, spec in study.updating.new_predictors.items():
             if updating_here or name in frame_columns:
                 needs.append(_Need(name, f"updating.new_predictors, form {spec.form!r}", updating_here))
+    if study.imputing:
+        for name in study.missing_data.auxiliary:
+            needs.append(_Need(name, "missing_data.auxiliary, used only to impute", True))
     rule = study.existing_rule
     if rule is not None:
         compared_here = role == "validation" or not study.data.validation
@@ -789,10 +806,12 @@ def prepare_cohort(
         The prepared derivation cohort.  For a validation cohort, categories
         of a categorical predictor that do not occur in it are errors (unless
         ``data.category_map`` recodes them); without it that check is skipped.
-    missing : {"complete_case"}
-        Missing-data method.  Complete-case analysis is the only one so far:
-        rows missing the outcome or any predictor in analysis are excluded,
-        each step recorded.
+    missing : {"complete_case", "multiple_imputation"}
+        Missing-data method.  Complete-case analysis excludes the rows missing
+        the outcome or any predictor in analysis, each step recorded.  For
+        multiple imputation only rows missing the outcome are excluded; the
+        predictors keep their missing values and ``missing_data.auxiliary``
+        columns are carried, for :func:`riskvet.imputation.impute_cohort`.
 
     Returns
     -------
@@ -858,13 +877,14 @@ def prepare_cohort(
     found, mappings = _check_predictors(study, raw, specs, needed, role=role, reference=reference, out=out, source=where)
     problems += found
     problems += _check_rule(study, raw, needed, out, source=where)
+    auxiliary = _carry_auxiliary(study, raw, out) if missing == "multiple_imputation" else ()
     problems += _check_subgroups(study, raw, needed, out, source=where)
     screened_weights = _check_weights(study, raw, problems, source=where)
     screened_clusters = _check_clusters(cluster_column, raw, problems, source=where)
     if problems:
         _raise(where, problems)
 
-    keep, exclusions = _complete_cases(study, raw, out, where, weights=screened_weights)
+    keep, exclusions = _complete_cases(study, raw, out, where, weights=screened_weights, impute=missing == "multiple_imputation")
     kept = pd.DataFrame({c: s[keep.to_numpy()] for c, s in out.items()}).reset_index(drop=True)
     y = outcome_codes(study, kept[study.outcome.column], source=where)
     category_levels = _category_levels(specs, reference, kept)
@@ -902,7 +922,17 @@ def prepare_cohort(
         clusters=clusters,
         cluster_column=cluster_column,
         cluster_kind=study.data.cluster_kind if cluster_column is not None else None,
+        auxiliary=auxiliary,
     )
+
+
+def _carry_auxiliary(study: Study, raw: pd.DataFrame, out: dict[str, pd.Series]) -> tuple[str, ...]:
+    """Carry ``missing_data.auxiliary`` into ``out``: numbers when every value present is one, else level text."""
+    names = tuple(study.missing_data.auxiliary) if study.imputing else ()
+    for name in names:
+        numbers, bad = _to_number(raw[name])
+        out[name] = numbers if not len(bad) else _as_text(raw[name])
+    return names
 
 
 def _check_prepare_arguments(*, role: str, missing: str, frame: Any, reference: Any) -> None:
@@ -910,7 +940,7 @@ def _check_prepare_arguments(*, role: str, missing: str, frame: Any, reference: 
     if role not in _ROLES:
         raise DataError(problem("prepare_cohort: role", allowed="'derivation' or 'validation'", received=role))
     if missing not in _MISSING_METHODS:
-        raise DataError(problem("prepare_cohort: missing", allowed="'complete_case' (the only method available so far)", received=missing))
+        raise DataError(problem("prepare_cohort: missing", allowed="'complete_case' or 'multiple_imputation'", received=missing))
     if not isinstance(frame, pd.DataFrame):
         raise DataError(problem("prepare_cohort: frame", allowed="a pandas DataFrame", received=type(frame).__name__))
     if reference is not None:
@@ -1201,17 +1231,21 @@ def expand_cohort(cohort: "PreparedCohort") -> "PreparedCohort":
 
 
 def _complete_cases(study: Study, raw: pd.DataFrame, out: Mapping[str, pd.Series], where: str, *,
-                    weights: np.ndarray | None = None) -> tuple[pd.Series, pd.DataFrame]:
+                    weights: np.ndarray | None = None, impute: bool = False) -> tuple[pd.Series, pd.DataFrame]:
     """The rows kept by complete-case exclusion, and the table of exclusion steps.
 
     Steps run in a fixed order: rows of weight 0 (with frequency weights),
     the outcome, then each predictor in study order.  With ``weights`` the
     table also counts people (``excluded_people``, ``remaining_people``).
+    With ``impute`` (multiple imputation) only the outcome excludes: rows
+    missing a predictor are kept, their values imputed later.
     Refuses a cohort with no row left.
     """
     keep = pd.Series(True, index=raw.index)
     steps = []
-    order = [("missing outcome", study.outcome.column)] + [("missing predictor", p) for p in study.predictors.in_analysis]
+    order = [("missing outcome", study.outcome.column)]
+    if not impute:
+        order += [("missing predictor", p) for p in study.predictors.in_analysis]
     if weights is not None:
         order.insert(0, ("weight 0", study.data.weight_column))
     for reason, column in order:
@@ -1357,14 +1391,15 @@ def load_cohorts(study: Study) -> Cohorts:
     """
     study = _check_study(study, "load_cohorts")
     missing_values = study.data.missing_values
+    missing = "multiple_imputation" if study.imputing else "complete_case"
     path = study.data.derivation
     derivation = prepare_cohort(study, read_table(path, missing_values=missing_values),
-                                role="derivation", label="derivation", source=str(path))
+                                role="derivation", label="derivation", source=str(path), missing=missing)
     validation = {}
     for cohort in study.data.validation:
         validation[cohort.label] = prepare_cohort(
             study, read_table(cohort.path, missing_values=missing_values),
-            role="validation", label=cohort.label, source=str(cohort.path), reference=derivation,
+            role="validation", label=cohort.label, source=str(cohort.path), reference=derivation, missing=missing,
         )
     ratings = ratings_audit = None
     if study.data.ratings is not None:

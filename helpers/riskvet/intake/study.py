@@ -407,6 +407,42 @@ class InternalExternalSection(_Section):
     seed: int = Field(default=13, ge=0, description="Seed of the selection streams of the leave-one-cluster-out derivations.")
 
 
+class MissingDataSection(_Section):
+    """How missing predictor values are handled: complete cases, or multiple imputation by chained equations."""
+
+    method: Literal["complete_case", "multiple_imputation"] = "complete_case"
+    m: int | None = Field(
+        default=None, ge=2, le=200,
+        description="Imputations; when not given, the percentage of incomplete cases rounded up, at least 5 and at most 100.",
+    )
+    iterations: int = Field(default=10, ge=1, le=200, description="Cycles of the chained equations.")
+    seed: int = Field(default=17, ge=0, description="Seed of the imputations; imputation j draws from its own stream.")
+    donors: int = Field(default=5, ge=1, le=50, description="Candidate donors of predictive mean matching.")
+    auxiliary: tuple[str, ...] = Field(
+        default=(),
+        description="Columns of the data used only in the imputation models (imputed themselves when incomplete), never in the model.",
+    )
+    methods: dict[str, Literal["pmm", "logistic", "cumulative", "multinomial"]] = Field(
+        default_factory=dict,
+        description="Per column, the imputation method instead of the default (pmm for numbers, logistic for two levels, "
+        "multinomial for more).",
+    )
+    complete_case_sensitivity: bool = Field(
+        default=True, description="Also derive the model on the complete cases and show both, as a sensitivity analysis.",
+    )
+
+    @model_validator(mode="after")
+    def _only_with_imputation(self) -> "MissingDataSection":
+        if self.method == "complete_case":
+            given = [k for k in ("m", "auxiliary", "methods") if getattr(self, k)]
+            if given:
+                raise ValueError(f"{', '.join(given)}: only for method multiple_imputation; method is complete_case")
+        twice = _listed_twice(list(self.auxiliary))
+        if twice:
+            raise ValueError(f"auxiliary: each column once; listed more than once: {twice}")
+        return self
+
+
 class ExternalValidationSection(_Section):
     """Validation of the frozen model in the validation cohorts."""
 
@@ -539,6 +575,7 @@ class Study(_Section):
     selection: SelectionSection = SelectionSection()
     internal_validation: InternalValidationSection = InternalValidationSection()
     internal_external: InternalExternalSection | None = None
+    missing_data: MissingDataSection | None = None
     external_validation: ExternalValidationSection = ExternalValidationSection()
     updating: UpdatingSection = UpdatingSection()
     thresholds: dict[str, tuple[float, ...]] = Field(
@@ -593,6 +630,7 @@ class Study(_Section):
                     "internal_external: leaves out one site or period at a time; data.cluster_kind is 'person', and leaving "
                     "one person out is not internal-external validation (set cluster_kind: site or period, or internal_external.enabled: false)"
                 )
+        self._check_missing_data(columns, weight, cluster)
         if self.outcome.column in columns:
             raise ValueError(f"predictors: the outcome column {self.outcome.column!r} cannot also be a predictor")
         clash = sorted(set(self.predictors.candidates) & set(self.updating.new_predictors))
@@ -610,6 +648,37 @@ class Study(_Section):
         if self.agreement is not None and self.agreement.enabled and self.data.ratings is None:
             raise ValueError("agreement: needs data.ratings, the paired-ratings file")
         return self
+
+    def _check_missing_data(self, columns: set[str], weight: str | None, cluster: str | None) -> None:
+        """The missing-data section against the rest: auxiliary columns of their own, methods for known columns."""
+        section = self.missing_data
+        if section is None or section.method != "multiple_imputation":
+            return
+        taken = {self.outcome.column: "the outcome", weight: "data.weight_column", cluster: "data.cluster_column",
+                 self.data.id_column: "data.id_column"} | {c: "a predictor" for c in columns}
+        for name in section.auxiliary:
+            if name in taken:
+                raise ValueError(f"missing_data.auxiliary: {name!r} is {taken[name]}; auxiliary columns are other columns of the data, used only to impute")
+        known = list(self.predictors.in_analysis) + list(section.auxiliary)
+        for name, method in section.methods.items():
+            if name not in known:
+                raise ValueError(f"missing_data.methods: {name!r} is not a predictor in analysis or an auxiliary column; expected one of {known}")
+            spec = self.predictors.candidates.get(name)
+            if spec is not None and spec.form != "categorical" and method != "pmm":
+                raise ValueError(f"missing_data.methods.{name}: {name!r} is a number (form {spec.form!r}); expected pmm, received {method!r}")
+            if spec is not None and spec.form == "categorical" and method == "pmm":
+                raise ValueError(f"missing_data.methods.{name}: {name!r} is categorical; expected logistic, cumulative or multinomial, received 'pmm'")
+        if weight is not None:
+            raise ValueError("missing_data.method: multiple_imputation with data.weight_column is not supported; write the "
+                             "cohort out one row per person, or use method complete_case")
+        if self.selection.penalized:
+            raise ValueError(f"missing_data.method: multiple_imputation with selection.method {self.selection.method!r} is not "
+                             "supported (the penalised coefficients have no Rubin's-rules pooling); use none, forward or backward")
+
+    @property
+    def imputing(self) -> bool:
+        """Whether missing predictor values are multiply imputed (``missing_data.method: multiple_imputation``)."""
+        return self.missing_data is not None and self.missing_data.method == "multiple_imputation"
 
     # -- derived views ---------------------------------------------------------------
     @property

@@ -1,0 +1,323 @@
+"""The derivation procedure on multiply imputed data.
+
+:func:`impute_cohort` imputes a prepared cohort the way the study says
+(``missing_data``); :func:`derive_imputed` runs the study's derivation on the
+m completed data sets and returns one model whose coefficients are pooled by
+Rubin's rules.
+
+Variable selection respects the imputations by the *stacked* approach of
+Wood, White & Royston (2008): the m completed data sets are stacked into one
+of m n rows, each row weighted (1 - f) / m, with f the share of the
+candidate predictors' cells that were missing, so that the stacked data
+carry about the information of the observed data; the study's selection
+(forward with cross-validation, backward by AIC, or none) then runs once on
+the stacked rows.  The cross-validation folds keep the m copies of a person
+together, so no person's imputed copy judges a fit to their other copies.
+The design (spline knots, category levels) is learned on the stacked rows.
+The chosen terms are then fitted on each completed data set, and their
+estimates and covariances pooled (Rubin 1987): the mean of the estimates,
+and the total covariance ``W + (1 + 1/m) B``.  The model's overall test is
+the pooled Wald test D1 of Li, Raghunathan & Rubin (1991) with its F
+reference distribution.
+
+Splines, interactions and category codings are computed from the imputed
+raw values in every completed data set, never imputed themselves.
+
+References
+----------
+Rubin DB. Multiple Imputation for Nonresponse in Surveys. Wiley, 1987.
+
+Li KH, Raghunathan TE, Rubin DB. Large-sample significance levels from
+multiply imputed data using moment-based statistics and an F reference
+distribution. Journal of the American Statistical Association
+1991;86(416):1065-1073.
+
+Wood AM, White IR, Royston P. How should variable selection be performed
+with multiply imputed data? Statistics in Medicine 2008;27(17):3227-3246.
+
+White IR, Royston P, Wood AM. Multiple imputation using chained equations:
+issues and guidance for practice. Statistics in Medicine
+2011;30(4):377-399.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from .._jsonable import to_jsonable
+from ..errors import DataError, problem
+from ..modelling.derive import Derivation, candidate_design
+from ..modelling.fitter import CumulativeFit, LRTest, fit_cumulative
+from ..modelling.folds import cluster_codes
+from ..modelling.selection import select_terms
+from .chained import Imputations, impute
+from .rubin import PooledImputations, pool
+
+__all__ = ["ImputedDerivation", "derive_imputed", "impute_cohort", "impute_rows", "imputations_needed", "missing_cell_share",
+           "pool_fits"]
+
+#: Fewest and most imputations the rule of thumb gives.
+_FEWEST, _MOST = 5, 100
+
+
+def imputations_needed(complete_share: float, *, minimum: int = _FEWEST, maximum: int = _MOST) -> int:
+    """Imputations by the rule of thumb: at least the percentage of incomplete cases.
+
+    ``max(minimum, ceil(100 (1 - complete_share)))``, at most ``maximum``
+    (White, Royston & Wood 2011, section 7).
+    """
+    share = float(complete_share)
+    if not 0.0 <= share <= 1.0:
+        raise DataError(problem("imputations_needed: complete_share", allowed="a share from 0 to 1", received=complete_share))
+    return int(min(maximum, max(minimum, math.ceil(round(100.0 * (1.0 - share), 9)))))
+
+
+def missing_cell_share(frame: pd.DataFrame, columns: Sequence[str]) -> float:
+    """The share f of the cells of ``columns`` that are missing (the f of the stacked weights (1 - f) / m)."""
+    cells = frame[list(columns)]
+    return float(cells.isna().to_numpy().mean()) if cells.size else 0.0
+
+
+def _imputation_frame(study, frame: pd.DataFrame, y: np.ndarray) -> tuple[pd.DataFrame, dict]:
+    """Predictors, auxiliary columns and the outcome (as an ordered category), and the category methods."""
+    section = study.missing_data
+    columns = list(study.predictors.in_analysis) + [c for c in section.auxiliary if c not in study.predictors.in_analysis]
+    data = frame[columns].copy()
+    outcome = study.outcome.column
+    data[outcome] = pd.Categorical(np.asarray(y, dtype=np.int64), categories=range(len(study.outcome.ordered_levels)), ordered=True)
+    methods = {name: method for name, method in section.methods.items() if data[name].isna().any()}
+    return data, methods
+
+
+def impute_rows(study, frame: pd.DataFrame, y: np.ndarray, *, m: int, seed: int) -> Imputations:
+    """Impute the predictors and auxiliary columns of ``frame`` m times, the outcome ``y`` in every model.
+
+    Parameters
+    ----------
+    study : Study
+        With ``missing_data.method: multiple_imputation``: its iterations,
+        donors, auxiliary columns and per-column methods are used.
+    frame : DataFrame
+        Rows of a prepared cohort (predictors may be missing).
+    y : array of int
+        Outcome codes 0..K-1 (complete).
+    m, seed : int
+        Imputations and the seed of their streams.
+    """
+    if not study.imputing:
+        raise DataError("impute_rows: the study's missing_data.method is not multiple_imputation")
+    section = study.missing_data
+    data, methods = _imputation_frame(study, frame, y)
+    return impute(data, m=m, seed=seed, iterations=section.iterations, donors=section.donors, methods=methods or None,
+                  outcome=study.outcome.column)
+
+
+def impute_cohort(study, cohort, *, m: int | None = None, seed: int | None = None) -> Imputations:
+    """Multiply impute a prepared cohort as the study's ``missing_data`` section says.
+
+    Parameters
+    ----------
+    study : Study
+    cohort : PreparedCohort
+        Read with ``missing="multiple_imputation"`` (:func:`riskvet.intake.data.load_cohorts`
+        does so when the study imputes).
+    m : int, optional
+        Imputations; ``missing_data.m``, else :func:`imputations_needed` of
+        the cohort's share of complete cases.
+    seed : int, optional
+        ``missing_data.seed`` when omitted.
+
+    Returns
+    -------
+    Imputations
+    """
+    if getattr(cohort, "missing", None) != "multiple_imputation":
+        raise DataError(problem("impute_cohort: cohort", allowed="a cohort prepared with missing='multiple_imputation'",
+                                received=getattr(cohort, "missing", type(cohort).__name__)))
+    section = study.missing_data
+    if m is None:
+        m = section.m if section.m is not None else imputations_needed(1.0 - cohort.n_incomplete / max(len(cohort.y), 1))
+    return impute_rows(study, cohort.frame, np.asarray(cohort.y), m=int(m), seed=section.seed if seed is None else int(seed))
+
+
+def _pooled_wald(P: np.ndarray, U: np.ndarray, B: np.ndarray, T: np.ndarray, first: int) -> LRTest:
+    """The D1 test (Li, Raghunathan & Rubin 1991) that every coefficient (from column ``first``) is 0, as a chi-squared-like statistic k D1."""
+    m, k = P.shape[0], P.shape[1] - first
+    if k == 0:
+        return LRTest(statistic=0.0, df=0, p=math.nan)
+    q = P[:, first:].mean(axis=0)
+    Ts, Us, Bs = T[first:, first:], U[first:, first:], B[first:, first:]
+    try:
+        d1 = float(q @ np.linalg.solve(Ts, q)) / k
+        r1 = (1.0 + 1.0 / m) * float(np.trace(Bs @ np.linalg.inv(Us))) / k
+    except np.linalg.LinAlgError:
+        return LRTest(statistic=math.nan, df=k, p=math.nan)
+    t = k * (m - 1)
+    if r1 <= 0:
+        df2 = math.inf
+    elif t > 4:
+        df2 = 4.0 + (t - 4.0) * (1.0 + (1.0 - 2.0 / t) / r1) ** 2
+    else:
+        df2 = t * (1.0 + 1.0 / k) * (1.0 + 1.0 / r1) ** 2 / 2.0
+    p = float(stats.chi2.sf(k * d1, k)) if math.isinf(df2) else float(stats.f.sf(d1, k, df2))
+    return LRTest(statistic=k * d1, df=k, p=p)
+
+
+def pool_fits(fits: Sequence[CumulativeFit], *, df_complete: float | None = None) -> tuple[CumulativeFit, PooledImputations]:
+    """One fit from the fits of the same model on m completed data sets, by Rubin's rules.
+
+    The estimates are the means over the fits, the covariance the total
+    covariance ``W + (1 + 1/m) B`` (W the mean of the fits' covariances, B
+    the covariance of their estimates between imputations).  The
+    likelihood, AIC and BIC of a pooled model are not defined (NaN);
+    ``lr_test`` holds the pooled Wald test D1 of all coefficients.
+
+    Returns
+    -------
+    (CumulativeFit, PooledImputations)
+        The pooled fit (prediction, parameter table with intervals on the
+        total variance) and the per-parameter pooling (degrees of freedom,
+        relative increase in variance, fraction of missing information).
+    """
+    fits = list(fits)
+    if len(fits) < 2:
+        raise DataError(problem("pool_fits: fits", allowed="the fits of one model on two or more completed data sets", received=len(fits)))
+    first = fits[0]
+    index = first.params.index
+    if any(list(f.params.index) != list(index) for f in fits):
+        raise DataError("pool_fits: the fits have different parameters; fit the same terms on every completed data set")
+    m = len(fits)
+    P = np.vstack([f.params.to_numpy(dtype=float) for f in fits])
+    U = np.mean([f.cov.to_numpy(dtype=float) for f in fits], axis=0)
+    B = np.atleast_2d(np.cov(P, rowvar=False, ddof=1))
+    T = U + (1.0 + 1.0 / m) * B
+    rubin = pool(P, np.vstack([np.diag(f.cov.to_numpy(dtype=float)) for f in fits]), df_complete=df_complete)
+    est = P.mean(axis=0)
+    n_thresholds = first.thresholds.shape[0]
+    thresholds = pd.Series(est[:n_thresholds], index=first.thresholds.index)
+    if first.proportional:
+        coef = pd.Series(est[n_thresholds:], index=first.coef.index)
+    else:
+        coef = pd.DataFrame(est[n_thresholds:].reshape(first.coef.shape), index=first.coef.index, columns=first.coef.columns)
+    separation = tuple(c for c in first.columns if any(c in f.separation for f in fits))
+    messages = tuple(dict.fromkeys(w for f in fits for w in f.warnings))
+    pooled = dataclasses.replace(
+        first, thresholds=thresholds, coef=coef, params=pd.Series(est, index=index),
+        cov=pd.DataFrame(T, index=index, columns=index), se=pd.Series(np.sqrt(np.diag(T)), index=index),
+        loglik=math.nan, loglik_null=math.nan, aic=math.nan, bic=math.nan, lr_test=_pooled_wald(P, U, B, T, n_thresholds),
+        converged=all(f.converged for f in fits), iterations=max(f.iterations for f in fits),
+        n_crossing=max(f.n_crossing for f in fits), separation=separation, warnings=messages,
+        loglik_penalized=math.nan, profile=None, profile_confidence=math.nan,
+        interval_kind="none" if first.interval_kind == "none" else "Wald",
+    )
+    return pooled, rubin
+
+
+@dataclass(frozen=True)
+class ImputedDerivation(Derivation):
+    """A model derived by the study's procedure on m completed data sets.
+
+    Attributes (besides those of :class:`~riskvet.modelling.derive.Derivation`,
+    whose ``fit`` is the pooled fit)
+    ----------
+    fits : tuple of CumulativeFit
+        The chosen terms fitted on each completed data set.
+    pooling : PooledImputations
+        Rubin's rules per parameter (order of ``fit.params``).
+    m : int
+        Completed data sets.
+    missing_share : float
+        f, the share of the candidate predictors' cells that were missing.
+    stacked_weight : float
+        (1 - f) / m, the weight of every stacked row in the selection.
+    """
+
+    fits: tuple = ()
+    pooling: PooledImputations | None = None
+    m: int = 0
+    missing_share: float = 0.0
+    stacked_weight: float = 1.0
+
+    def to_dict(self) -> dict[str, Any]:
+        return to_jsonable(super().to_dict() | {
+            "imputations": self.m, "missing_share": self.missing_share, "stacked_weight": self.stacked_weight,
+            "pooling": None if self.pooling is None else self.pooling.to_dict(),
+        })
+
+
+def _fit_each(study, design, completed: Sequence[pd.DataFrame], y: np.ndarray, *, firth: bool) -> list[CumulativeFit]:
+    return [fit_cumulative(design.transform(frame), y, link=study.model.link, proportional=study.model.proportional,
+                           n_levels=len(study.outcome.ordered_levels), firth=firth) for frame in completed]
+
+
+def derive_imputed(
+    study,
+    completed: Sequence[pd.DataFrame],
+    y: np.ndarray,
+    *,
+    missing_share: float,
+    seed: int | None = None,
+    persons: np.ndarray | None = None,
+) -> ImputedDerivation:
+    """Run the study's derivation procedure on m completed data sets (see the module description).
+
+    Parameters
+    ----------
+    study : Study
+    completed : sequence of DataFrame
+        The m >= 2 completed data sets (the same rows in the same order).
+    y : array of int
+        Outcome codes 0..K-1 of those rows.
+    missing_share : float, keyword-only
+        f, the share of the candidate predictors' cells missing before
+        imputation (:func:`missing_cell_share`).
+    seed : int, optional, keyword-only
+        Seed of the selection's folds; ``selection.seed`` when omitted.
+    persons : array, optional, keyword-only
+        The person of every row (default: each row its own person).  A
+        bootstrap resample passes the original row of each drawn row, and a
+        study with ``data.cluster_kind: person`` the person's label, so that
+        every copy of a person falls in one fold.
+
+    Returns
+    -------
+    ImputedDerivation
+    """
+    completed = list(completed)
+    m = len(completed)
+    y = np.asarray(y, dtype=np.int64)
+    if m < 2 or any(len(frame) != y.shape[0] for frame in completed):
+        raise DataError(problem("derive_imputed: completed", allowed=f"two or more completed data sets of {y.shape[0]} rows each",
+                                received=[len(frame) for frame in completed]))
+    if not 0.0 <= float(missing_share) < 1.0:
+        raise DataError(problem("derive_imputed: missing_share", allowed="a share from 0 up to (not including) 1", received=missing_share))
+    stacked = pd.concat(completed, ignore_index=True)
+    design = candidate_design(study, stacked)
+    ids = np.arange(y.shape[0]) if persons is None else np.asarray(persons)
+    weight = (1.0 - float(missing_share)) / m
+    firth = study.model.estimation == "firth"
+    result = select_terms(
+        design.transform(stacked), np.tile(y, m), groups=design.term_columns,
+        forced=[t for t in study.predictors.forced if t in design.term_columns], method=study.selection.method,
+        n_folds=study.selection.folds, seed=study.selection.seed if seed is None else seed, link=study.model.link,
+        proportional=study.model.proportional, weights=np.full(m * y.shape[0], weight), firth=firth,
+        on_separation="warn", clusters=cluster_codes(np.tile(ids, m)),
+    )
+    chosen = set(result.terms)
+    final = design.subset([t.name for t in design.terms if t.name in chosen])
+    fits = _fit_each(study, final, completed, y, firth=firth)
+    refit = False
+    if not firth and study.model.on_separation == "firth" and any(f.separation for f in fits):
+        fits, refit = _fit_each(study, final, completed, y, firth=True), True
+    pooled, rubin = pool_fits(fits, df_complete=max(y.shape[0] - fits[0].n_params, 1))
+    selection = dataclasses.replace(result, fit=pooled, refit_with_firth=result.refit_with_firth or refit)
+    return ImputedDerivation(candidate_design=design, design=final, selection=selection, fits=tuple(fits), pooling=rubin,
+                             m=m, missing_share=float(missing_share), stacked_weight=weight)
