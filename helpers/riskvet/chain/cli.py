@@ -110,9 +110,12 @@ def support_notes(study, cohort) -> list[str]:
 
     from ..reporting.labels import cut_label
 
+    from ..intake.data import complete_rows
+
     planning = study.planning
     levels = study.outcome.ordered_levels
     counts = [int(cohort.outcome_counts.get(lv, 0)) for lv in levels]
+    cohort = complete_rows(cohort)  # under multiple imputation: separation and the design are judged on the complete rows
     notes = []
     separating = separating_terms(study, cohort.frame, cohort.y, weights=getattr(cohort, "weights", None))
     if separating:

@@ -61,8 +61,8 @@ from ..modelling.selection import select_terms
 from .chained import Imputations, impute
 from .rubin import PooledImputations, pool
 
-__all__ = ["ImputedDerivation", "derive_imputed", "impute_cohort", "impute_rows", "imputations_needed", "missing_cell_share",
-           "pool_fits"]
+__all__ = ["ImputedDerivation", "cohort_seed", "completed_cohort", "derive_imputed", "impute_cohort", "impute_rows", "imputations_needed",
+           "missing_cell_share", "pool_fits"]
 
 #: Fewest and most imputations the rule of thumb gives.
 _FEWEST, _MOST = 5, 100
@@ -80,6 +80,14 @@ def imputations_needed(complete_share: float, *, minimum: int = _FEWEST, maximum
     return int(min(maximum, max(minimum, math.ceil(round(100.0 * (1.0 - share), 9)))))
 
 
+def cohort_seed(study, position: int) -> int:
+    """The imputation seed of a study's cohort: ``missing_data.seed`` for the derivation cohort (position 0), and
+    for the k-th validation cohort a seed drawn from ``SeedSequence([missing_data.seed, k])``, so that each cohort
+    is imputed from a stream of its own and every stage imputes it alike."""
+    seed = study.missing_data.seed
+    return int(seed) if position == 0 else int(np.random.SeedSequence([int(seed), int(position)]).generate_state(1)[0])
+
+
 def missing_cell_share(frame: pd.DataFrame, columns: Sequence[str]) -> float:
     """The share f of the cells of ``columns`` that are missing (the f of the stacked weights (1 - f) / m)."""
     cells = frame[list(columns)]
@@ -90,6 +98,7 @@ def _imputation_frame(study, frame: pd.DataFrame, y: np.ndarray) -> tuple[pd.Dat
     """Predictors, auxiliary columns and the outcome (as an ordered category), and the category methods."""
     section = study.missing_data
     columns = list(study.predictors.in_analysis) + [c for c in section.auxiliary if c not in study.predictors.in_analysis]
+    columns += [c for c in study.updating.new_predictors if c in frame.columns and c not in columns]  # an updating cohort's
     data = frame[columns].copy()
     outcome = study.outcome.column
     data[outcome] = pd.Categorical(np.asarray(y, dtype=np.int64), categories=range(len(study.outcome.ordered_levels)), ordered=True)
@@ -321,3 +330,11 @@ def derive_imputed(
     selection = dataclasses.replace(result, fit=pooled, refit_with_firth=result.refit_with_firth or refit)
     return ImputedDerivation(candidate_design=design, design=final, selection=selection, fits=tuple(fits), pooling=rubin,
                              m=m, missing_share=float(missing_share), stacked_weight=weight)
+
+
+def completed_cohort(cohort, completed: pd.DataFrame):
+    """The cohort with its predictor and auxiliary columns taken from one completed data set (every other column kept)."""
+    frame = cohort.frame.copy()
+    for name in list(cohort.predictors) + list(getattr(cohort, "auxiliary", ())) + list(getattr(cohort, "new_predictors", ())):
+        frame[name] = completed[name].to_numpy()
+    return dataclasses.replace(cohort, frame=frame)

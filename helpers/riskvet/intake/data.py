@@ -1230,6 +1230,27 @@ def expand_cohort(cohort: "PreparedCohort") -> "PreparedCohort":
     )
 
 
+def complete_rows(cohort: "PreparedCohort") -> "PreparedCohort":
+    """The cohort's rows with every predictor recorded (the cohort itself when none is missing).
+
+    Under multiple imputation the checks made before anything is fitted
+    (the design, separation, folds) look at these rows: the completed data
+    sets do not exist yet.
+    """
+    cohort = _check_cohort(cohort, "complete_rows: cohort")
+    keep = ~cohort.frame[list(cohort.predictors)].isna().any(axis=1).to_numpy() if cohort.predictors else np.ones(len(cohort.y), bool)
+    if keep.all():
+        return cohort
+    return dataclasses.replace(
+        cohort, frame=cohort.frame.loc[keep].reset_index(drop=True), y=cohort.y[keep], n_analysed=int(keep.sum()),
+        weights=None if cohort.weights is None else cohort.weights[keep],
+        clusters=None if cohort.clusters is None else cohort.clusters[keep],
+        n_people=None if cohort.weights is None else int(cohort.weights[keep].sum()),
+        outcome_counts={lv: int(n) for lv, n in zip(cohort.outcome_levels, np.bincount(cohort.y[keep], minlength=len(cohort.outcome_levels)))},
+        outcome_rows=None,
+    )
+
+
 def _complete_cases(study: Study, raw: pd.DataFrame, out: Mapping[str, pd.Series], where: str, *,
                     weights: np.ndarray | None = None, impute: bool = False) -> tuple[pd.Series, pd.DataFrame]:
     """The rows kept by complete-case exclusion, and the table of exclusion steps.

@@ -136,6 +136,10 @@ def check_before_fitting(study: Study, cohort: Any, *, study_file: str | Path | 
 
 
 def _check_before_fitting(study: Study, cohort: Any) -> list[str]:
+    if getattr(cohort, "missing", "complete_case") == "multiple_imputation":
+        from ..intake.data import complete_rows
+
+        cohort = complete_rows(cohort)  # the completed data sets do not exist yet: the design is checked on complete rows
     spec = study.predictors
     for name in spec.in_analysis:
         p = spec.candidates[name]

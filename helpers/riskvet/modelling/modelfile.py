@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import math
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping
@@ -129,6 +130,13 @@ class PredictionModel:
         missing = [c for c in self.design.sources if c not in values]
         if missing:
             raise DesignError(problem("score_person(values)", allowed=f"a value for each of {list(self.design.sources)}", received=f"missing {missing}"))
+        absent = [c for c in self.design.sources if values[c] is None or (isinstance(values[c], float) and math.isnan(values[c]))
+                  or (isinstance(values[c], str) and not values[c].strip())]
+        if absent:
+            raise DesignError(problem(
+                "score_person(values)", allowed=f"a recorded value for each of {list(self.design.sources)}: a missing predictor "
+                "is never imputed or given a default for one person (imputation is for the analysis of a cohort)",
+                received=f"no value for {absent}"))
         frame = pd.DataFrame({c: [values[c]] for c in self.design.sources})
         prob = self.predict_proba(frame)[0]
         out = {lv: float(p) for lv, p in zip(self.levels, prob)}

@@ -687,6 +687,11 @@ class InternalValidation:
         rows); None when rows are resampled.
     cluster_kind : str or None
         ``data.cluster_kind`` (site, period or person) with clusters; None otherwise.
+    n_imputations : int or None
+        Under multiple imputation (``missing_data.method: multiple_imputation``)
+        the m completed data sets of the original data and of every
+        resample (each replicate resamples the incomplete rows, then imputes
+        them); None under complete cases.
     """
 
     estimates: tuple[MeasureEstimate, ...]
@@ -709,6 +714,7 @@ class InternalValidation:
     n_rows: int | None = None
     n_clusters: int | None = None
     cluster_kind: str | None = None
+    n_imputations: int | None = None
 
     @property
     def resampled(self) -> str:
@@ -783,6 +789,8 @@ class InternalValidation:
                 **({} if self.n_rows is None else {"counted": "people", "n_rows": self.n_rows}),
                 "resampled": self.resampled,
                 **({} if self.n_clusters is None else {"n_clusters": self.n_clusters, "cluster_kind": self.cluster_kind}),
+                **({} if self.n_imputations is None else {"n_imputations": self.n_imputations,
+                                                          "imputation_scheme": "resample, then impute each resample"}),
             }
         )
 
@@ -818,6 +826,8 @@ def _as_data(study, data: Any, func: str) -> tuple[pd.DataFrame, np.ndarray]:
     else:
         raise RiskvetError(problem(f"{func}(data)", allowed="a PreparedCohort (riskvet.data.load_cohorts(...).derivation), the analysis frame with its outcome column, or a (frame, y) pair", received=type(data).__name__))
     columns = list(study.predictors.in_analysis)
+    if study.imputing:  # the auxiliary columns of the imputation models travel with the predictors
+        columns += [c for c in study.missing_data.auxiliary if c not in columns]
     missing = [c for c in columns if c not in frame.columns]
     if missing:
         raise DataError(problem(f"{func}(data)", allowed=f"a frame holding every predictor in analysis {columns}", received=f"missing columns {missing}"))
@@ -1302,6 +1312,11 @@ class _Payload:
     #: cluster code of every row, and the rows of each cluster (riskvet.modelling.folds); None to resample rows
     clusters: np.ndarray | None = None
     members: tuple[np.ndarray, np.ndarray] | None = None
+    #: multiple imputation: the m completed data sets of the original data (each replicate imputes its own
+    #: resample m times), and the person of every row when a cluster is a person
+    completed: tuple[pd.DataFrame, ...] | None = None
+    m: int = 0
+    persons: np.ndarray | None = None
 
 
 #: Reason of a failed replicate by the kind of error met, most specific kind first.
@@ -1352,6 +1367,17 @@ def _fit_and_predict(study, frame_fit: pd.DataFrame, y_fit: np.ndarray, frame_ne
     """
     from ..modelling.derive import derive
 
+    derivation, caught = _guarded_derivation(
+        study, y_fit, K, weights, lambda: derive(study, frame_fit, y_fit, seed=seed, weights=weights, clusters=clusters))
+    prob, lp = _guarded_predict(derivation, frame_new)
+    return derivation, prob, lp, caught
+
+
+def _guarded_derivation(study, y_fit: np.ndarray, K: int, weights: np.ndarray | None, run: Callable[[], Any]):
+    """``run()`` (a derivation procedure), with every way it can fail turned into a _ReplicateFailed with its reason.
+
+    Returns (derivation, warning counts).
+    """
     counts = np.bincount(y_fit, weights=weights, minlength=K)
     if np.any(counts == 0):
         levels = list(study.outcome.ordered_levels) if len(study.outcome.ordered_levels) == K else list(range(K))
@@ -1362,7 +1388,7 @@ def _fit_and_predict(study, frame_fit: pd.DataFrame, y_fit: np.ndarray, frame_ne
     with warnings.catch_warnings(record=True) as seen:
         warnings.simplefilter("always")
         try:
-            derivation = derive(study, frame_fit, y_fit, seed=seed, weights=weights, clusters=clusters)
+            derivation = run()
         except _PROPAGATE:
             raise
         except (RiskvetError, np.linalg.LinAlgError) as exc:
@@ -1381,15 +1407,19 @@ def _fit_and_predict(study, frame_fit: pd.DataFrame, y_fit: np.ndarray, frame_ne
     # A Firth fit stays finite under separation (Heinze & Schemper 2002), so it is a model like any other.
     if fit.separation and getattr(fit, "estimation", "maximum likelihood") != "firth":
         raise _ReplicateFailed("separation", f"separated by {list(fit.separation)}")
+    return derivation, caught
+
+
+def _guarded_predict(derivation, frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_predict`, its failures a _ReplicateFailed with their reason."""
     try:
-        prob, lp = _predict(derivation, frame_new)
+        return _predict(derivation, frame)
     except _PROPAGATE:
         raise
     except RiskvetError as exc:
         raise _ReplicateFailed("cannot predict original data", _failure_message(exc)) from None
     except Exception as exc:
         raise _ReplicateFailed(_failure_reason(exc), _failure_message(exc, "predicting with the derived model")) from None
-    return derivation, prob, lp, caught
 
 
 def _predict(derivation, frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
@@ -1450,6 +1480,8 @@ def _replicate(payload: _Payload, item: tuple[int, np.random.SeedSequence]) -> d
 
 def _replicate_values(payload: _Payload, idx: np.ndarray, sel_seed: int) -> dict[str, Any]:
     """The derivation on resample ``idx`` and its measures on the resample, the original data and out of bag."""
+    if payload.completed is not None:
+        return _replicate_values_imputed(payload, idx, sel_seed)
     n = len(payload.frame)
     w = payload.weights
     # the resample as counts: each drawn row is one weighted row, so the
@@ -1490,6 +1522,67 @@ def _replicate_values(payload: _Payload, idx: np.ndarray, sel_seed: int) -> dict
         warnings=dict(caught),
         penalty_alpha=_chosen_penalty(derivation.fit),
     )
+
+
+def _mean_measures(dicts: Sequence[dict[str, float]]) -> dict[str, float]:
+    """Measures averaged over the completed data sets (Rubin's rule for a point estimate)."""
+    return {k: float(np.mean([d[k] for d in dicts])) for k in dicts[0]}
+
+
+def _imputed_measures(payload: _Payload, derivation, completed_b: Sequence[pd.DataFrame], y_b: np.ndarray,
+                      oob_rows: np.ndarray) -> tuple[dict, dict, dict, np.ndarray, np.ndarray, Counter]:
+    """The replicate model's measures on each completed resample, each completed original and its rows out of bag, averaged."""
+    K, link = payload.K, payload.link
+    boots, tests, oobs, briers, logps = [], [], [], [], []
+    caught: Counter[str] = Counter()
+    for j, original in enumerate(payload.completed):
+        prob_b, lp_b = _guarded_predict(derivation, completed_b[j])
+        prob, lp = _guarded_predict(derivation, original)
+        b, w1 = _measures(y_b, prob_b, lp_b if lp_b.ndim == 1 else None, K=K, link=link)
+        t, w2 = _measures(payload.y, prob, lp if lp.ndim == 1 else None, K=K, link=link)
+        if oob_rows.size:
+            o, w3 = _measures(payload.y[oob_rows], prob[oob_rows], lp[oob_rows] if lp.ndim == 1 else None, K=K, link=link)
+        else:
+            o, w3 = {k: float("nan") for k in t}, {}
+        brier, logp = _row_pieces(payload.y[oob_rows], prob[oob_rows])
+        boots.append(b), tests.append(t), oobs.append(o), briers.append(brier), logps.append(logp)
+        for c in (w1, w2, w3):
+            caught.update({f"measure:{k}": v for k, v in c.items()})
+    return (_mean_measures(boots), _mean_measures(tests), _mean_measures(oobs), np.mean(briers, axis=0),
+            np.mean(logps, axis=0), caught)
+
+
+def _replicate_values_imputed(payload: _Payload, idx: np.ndarray, sel_seed: int) -> dict[str, Any]:
+    """One replicate under multiple imputation: resample the incomplete rows, impute the resample m times, derive.
+
+    The resample is imputed on its own, so the rows the model is tested on
+    never inform the imputation of the rows it is derived from (Wahl et al.
+    2016).  The replicate's seed drives both its imputations and its
+    selection folds (separate generators).  Each measure is the mean over
+    the completed data sets.
+    """
+    from ..imputation.procedure import derive_imputed, impute_rows, missing_cell_share
+
+    study = payload.study
+    frame_b = payload.frame.iloc[idx].reset_index(drop=True)
+    y_b = payload.y[idx]
+    persons = idx if payload.persons is None else payload.persons[idx]
+    held: list[tuple[pd.DataFrame, ...]] = []
+
+    def run():
+        completed_b = tuple(impute_rows(study, frame_b, y_b, m=payload.m, seed=sel_seed))
+        held.append(completed_b)
+        return derive_imputed(study, completed_b, y_b, missing_share=missing_cell_share(frame_b, study.predictors.in_analysis),
+                              seed=sel_seed, persons=persons)
+
+    derivation, caught = _guarded_derivation(study, y_b, payload.K, None, run)
+    inbag = np.zeros(len(payload.frame), dtype=bool)
+    inbag[idx] = True
+    oob_rows = np.flatnonzero(~inbag)
+    boot, test, oob, brier_row, logp_row, measured = _imputed_measures(payload, derivation, held[0], y_b, oob_rows)
+    caught.update(measured)
+    return dict(status="ok", terms=derivation.terms, boot=boot, test=test, oob=oob, oob_rows=oob_rows.astype(np.int32),
+                brier_oob=brier_row, logp_oob=logp_row, warnings=dict(caught), penalty_alpha=None)
 
 
 # ---------------------------------------------------------------------------
@@ -1699,18 +1792,25 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
     link = study.model.link
     n = len(frame)
 
-    apparent_derivation, prob, lp, trouble = _derive_on_all_data(study, frame, y, weights=w, clusters=codes)
+    imputing = _imputed_original(study, frame, y, data) if study.imputing else None
+    apparent_derivation, prob, lp, trouble = _derive_on_all_data(study, frame, y, weights=w, clusters=codes, imputing=imputing)
     apparent_warnings = tuple(dict.fromkeys(f"{m.category.__name__}: {m.message}" for m in trouble))
     for m in trouble:  # statistical trouble of the model on all data is shown as well as recorded
         warnings.warn(str(m.message), m.category, stacklevel=2)
     people = _people(n, w)
-    apparent, _ = _measures(y[people], prob[people], lp[people] if lp.ndim == 1 else None, K=K, link=link)
+    if imputing is None:
+        apparent, _ = _measures(y[people], prob[people], lp[people] if lp.ndim == 1 else None, K=K, link=link)
+    else:  # the measures in each completed data set, averaged; prob and lp below are the averages over them
+        apparent = _mean_measures([_measures(y, pj, lj if lj.ndim == 1 else None, K=K, link=link)[0] for pj, lj in zip(prob, lp)])
+        prob, lp = prob.mean(axis=0), lp.mean(axis=0)
 
     specs = _measure_specs(levels)
     keys = [k for k, _, _ in specs]
     tally = _run_replicates(
         _Payload(study=study, frame=frame, y=y, K=K, link=link, weights=w, clusters=codes,
-                 members=None if codes is None else cluster_members(codes)), seed=seed, n_boot=n_boot, keys=keys,
+                 members=None if codes is None else cluster_members(codes),
+                 **({} if imputing is None else {"completed": imputing["completed"], "m": len(imputing["completed"]),
+                                                 "persons": imputing["persons"]})), seed=seed, n_boot=n_boot, keys=keys,
         n_jobs=n_jobs, scheduler=study.compute.scheduler, progress=progress,
     )
     max_failed = study.internal_validation.max_failed_share
@@ -1749,6 +1849,7 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
         n_rows=None if w is None else n,
         n_clusters=None if codes is None else int(codes.max()) + 1,
         cluster_kind=cluster_kind if codes is not None else None,
+        n_imputations=None if imputing is None else len(imputing["completed"]),
     )
 
 
@@ -1758,21 +1859,47 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
 
 
 def _derive_on_all_data(study, frame: pd.DataFrame, y: np.ndarray, *, weights: np.ndarray | None = None,
-                        clusters: np.ndarray | None = None) -> tuple[Any, np.ndarray, np.ndarray, list[warnings.WarningMessage]]:
+                        clusters: np.ndarray | None = None, imputing: dict[str, Any] | None = None,
+                        ) -> tuple[Any, np.ndarray, np.ndarray, list[warnings.WarningMessage]]:
     """The derivation procedure on all data (with its frequency ``weights``), as the derivation stage runs it.
 
     Returns the derivation, its probabilities and linear predictor on the
     same rows, and the statistical warnings met, which the caller issues
-    again so that they point at its own caller.
+    again so that they point at its own caller.  Under multiple imputation
+    (``imputing``) the probabilities and linear predictors are stacked, one
+    per completed data set.
     """
     from ..modelling.derive import derive
 
     with warnings.catch_warnings(record=True) as seen:
         warnings.simplefilter("always")
-        options = {k: v for k, v in (("weights", weights), ("clusters", clusters)) if v is not None}
-        derivation = derive(study, frame, y, **options)
-        prob, lp = _predict(derivation, frame)
+        if imputing is None:
+            options = {k: v for k, v in (("weights", weights), ("clusters", clusters)) if v is not None}
+            derivation = derive(study, frame, y, **options)
+            prob, lp = _predict(derivation, frame)
+        else:
+            from ..imputation.procedure import derive_imputed, missing_cell_share
+
+            derivation = derive_imputed(study, imputing["completed"], y, persons=imputing["persons"],
+                                        missing_share=missing_cell_share(frame, study.predictors.in_analysis))
+            predicted = [_predict(derivation, c) for c in imputing["completed"]]
+            prob, lp = np.stack([p for p, _ in predicted]), np.stack([q for _, q in predicted])
     return derivation, prob, lp, [w for w in seen if issubclass(w.category, RiskvetWarning)]
+
+
+def _imputed_original(study, frame: pd.DataFrame, y: np.ndarray, data: Any) -> dict[str, Any]:
+    """The original data imputed as the derivation stage imputes them (same m and seed, so the same model)."""
+    from ..imputation.procedure import imputations_needed, impute_rows
+
+    if study.data.weight_column is not None or (getattr(data, "weights", None) is not None):
+        raise RiskvetError("validate_internally: multiple imputation with frequency weights is not supported")
+    section = study.missing_data
+    incomplete = float(frame[list(study.predictors.in_analysis)].isna().any(axis=1).mean()) if len(frame) else 0.0
+    m = section.m if section.m is not None else imputations_needed(1.0 - incomplete)
+    completed = tuple(impute_rows(study, frame, y, m=m, seed=section.seed))
+    kind = getattr(data, "cluster_kind", None)
+    persons = data.clusters if kind == "person" and getattr(data, "clusters", None) is not None else None
+    return {"completed": completed, "persons": None if persons is None else cluster_codes(persons)}
 
 
 @dataclass(frozen=True)

@@ -29,8 +29,9 @@ from ...measures.overall import overall_accuracy
 from ...measures.summary import performance_summary
 from ...intake.data import expand_cohort, load_cohorts
 from ...reporting.descriptive import descriptive_table
-from ...modelling.derive import Derivation, candidate_parameters, derive
-from ...modelling.folds import cluster_codes
+from ...modelling.derive import Derivation, candidate_parameters
+from .imputed import (complete_case_comparison, complete_case_sentence, complete_case_words, derive_cohort, imputation_settings,
+                      imputed_model_words, imputed_texts, missing_data_section, pooled_apparent, pooled_parameter_columns)
 from ...modelling.term_effects import TermEffects, column_label, term_effects, term_label
 from ...errors import RiskvetError, RiskvetWarning
 from ...modelling.modelfile import PredictionModel, model_from_fit, save_model
@@ -110,6 +111,10 @@ class DerivationOutput:
         Keys of the measures of the apparent table, for the guide of what good looks like.
     proportional_odds : dict
         ``{"brant": BrantTest, "lr": ProportionalOddsLRTest}``; empty when not checked.
+    missing : dict
+        Under multiple imputation, the missing-data section of the page
+        (``tables``, ``figures``, ``texts``; :func:`riskvet.chain.stages.imputed.page_items`
+        shows it); empty under complete cases.
     """
 
     derivation: Derivation
@@ -126,6 +131,7 @@ class DerivationOutput:
     low_events_per_parameter: bool
     guide_measures: tuple[str, ...]
     proportional_odds: dict[str, Any] = field(repr=False)
+    missing: dict[str, Any] = field(default_factory=dict, repr=False)
 
     def to_dict(self) -> dict[str, Any]:
         return to_jsonable({"tables": self.tables, "figures": self.figures, "texts": self.texts, "equation": self.equation,
@@ -172,25 +178,31 @@ def run(ctx: StageContext) -> DerivationOutput:
     flow = cohort.exclusions.rename(columns=PEOPLE_FLOW_WORDS) if cohort.weights is not None else cohort.exclusions.copy()
     descriptive = descriptive_table(cohort, labels={lv: study.outcome.label(lv) for lv in levels}, min_cell_count=study.output.min_cell_count)
 
-    codes = None if cohort.clusters is None else cluster_codes(cohort.clusters)
-    derivation = derive(study, cohort.frame, np.asarray(cohort.y), weights=cohort.weights, clusters=codes)
+    derivation, imputed = derive_cohort(study, cohort)
     separated = separated_terms(derivation)
     _stop_if_separated(study, derivation, separated)
     cut_labels = [cut_label(levels, j, binary=K == 2) for j in range(K - 1)]
     parameters = _parameter_table(derivation.fit, levels)
-    effects = term_effects(derivation.fit, derivation.design, frame, cut_names=cut_labels)
-    po = _proportional_odds_checks(study, derivation, frame, y)
-    model = _frozen_model(study, cohort, derivation)
+    # under imputation, contrasts come from the stacked completed data and the proportional-odds checks (a
+    # diagnostic) run on the first completed data set
+    effects = term_effects(derivation.fit, derivation.design, frame if imputed is None else imputed.stacked, cut_names=cut_labels)
+    po = _proportional_odds_checks(study, derivation, frame if imputed is None else imputed.completed[0], y)
+    settings = None if imputed is None else imputation_settings(study, imputed, derivation)
+    model = _frozen_model(study, cohort, derivation, settings)
     if ctx.model_path.exists():
         raise RiskvetError(f"{ctx.model_path}: a model file already exists in this record; the derivation stage writes a new record's model only")
     save_model(model, ctx.model_path)
 
-    apparent, apparent_table, (rocs, threshold_tables), cal = _apparent(study, y, _per_person(model.predict_proba(cohort.frame), cohort.weights))
+    if imputed is None:
+        prob, pooled_summary = _per_person(model.predict_proba(cohort.frame), cohort.weights), None
+    else:
+        prob, pooled_summary = pooled_apparent(model, imputed, y)
+    apparent, apparent_table, (rocs, threshold_tables), cal = _apparent(study, y, prob, summary=pooled_summary)
     smallest = int(min(np.bincount(y, minlength=K)))
     n_candidates = candidate_parameters(derivation.candidate_design, K)
     figures = _figures(ctx, derivation, parameters, rocs, threshold_tables, cal, cut_labels, po)
-    tables = _tables(flow, descriptive, derivation, _model_frame(parameters, derivation, cut_labels), effects,
-                     apparent_table, po, threshold_tables, cut_labels)
+    tables = _tables(flow, descriptive, derivation, pooled_parameter_columns(_model_frame(parameters, derivation, cut_labels), derivation),
+                     effects, apparent_table, po, threshold_tables, cut_labels)
     tables["calibration_statistics"] = calibration_statistics(cal, levels=levels)
     texts = derivation_texts(
         cohort=people, selection=derivation.selection, n_terms=len(derivation.terms), n_params=derivation.fit.n_params,
@@ -199,6 +211,7 @@ def run(ctx: StageContext) -> DerivationOutput:
         n_candidate_parameters=n_candidates, calibration=cal, link=study.model.link,
         fit=derivation.fit, separated_terms=separated,
     )
+    texts = imputed_texts(texts, derivation)
     texts["data_support"] = data_support_notes(
         level_counts=np.bincount(y, minlength=K).tolist(), n_parameters=len(derivation.candidate_design.columns),
         anticipated_c=None if study.planning is None else study.planning.anticipated_c,
@@ -206,11 +219,16 @@ def run(ctx: StageContext) -> DerivationOutput:
         shrinkage=0.9 if study.planning is None else study.planning.shrinkage, penalized=study.selection.penalized,
         cut_names=cut_labels, events_per_parameter=False,
     )
+    missing = _missing_data_parts(ctx, cohort, derivation, imputed, levels)
+    tables.update(missing["tables"])
+    figures.update(missing["figures"])
+    texts.update(missing["texts"])
     epp = smallest / max(n_candidates, 1)
     judged = {"events_per_candidate_parameter": epp, "low_events_per_parameter": epp < LOW_EVENTS_PER_PARAMETER,
               "inference_caution": texts["inference"], "separated_terms": list(separated),
               "estimation": derivation.fit.estimation, "refit_with_firth": derivation.selection.refit_with_firth}
-    ctx.write_results(_results(ctx, cohort, flow, derivation, model, parameters, po, apparent, descriptive) | {"term_effects": effects.to_dict(), "texts": texts, **judged})
+    ctx.write_results(_results(ctx, cohort, flow, derivation, model, parameters, po, apparent, descriptive)
+                      | {"term_effects": effects.to_dict(), "texts": texts, **judged, "missing_data": missing["results"]})
     return DerivationOutput(
         derivation=derivation,
         model=model,
@@ -226,7 +244,31 @@ def run(ctx: StageContext) -> DerivationOutput:
         low_events_per_parameter=epp < LOW_EVENTS_PER_PARAMETER,
         guide_measures=tuple(apparent_table.attrs.get("keys", ())),
         proportional_odds=po,
+        missing=missing.get("section", {}),
     )
+
+
+def _missing_data_parts(ctx: StageContext, cohort, derivation: Derivation, imputed, levels) -> dict[str, Any]:
+    """Tables, figures, sentences and results of the missing-data section (a sentence only under complete cases)."""
+    study = ctx.study
+    parts: dict[str, Any] = {"tables": {}, "figures": {}, "texts": {}, "results": {"method": cohort.missing}}
+    if imputed is None:
+        parts["texts"]["missing_data"] = complete_case_words(cohort)
+        return parts
+    settings = imputation_settings(study, imputed, derivation)
+    parts["results"] |= {"settings": settings, "pooling": derivation.pooling.to_dict()}
+    section_parts = missing_data_section(ctx, imputed.imputations, cohort=cohort, label="derivation")
+    parts["section"] = section_parts
+    parts["figures"].update(section_parts["figures"])
+    parts["results"]["report"] = section_parts["results"]
+    parts["texts"]["missing_data"] = imputed_model_words(settings, derivation)
+    if study.missing_data.complete_case_sensitivity:
+        table, info = complete_case_comparison(study, cohort, derivation, parameter_table=lambda fit: _parameter_table(fit, levels))
+        if table is not None:
+            parts["tables"]["complete_case_comparison"] = table.reset_index(drop=True)
+        parts["texts"]["complete_case_comparison"] = complete_case_sentence(info, min_cell_count=study.output.min_cell_count)
+        parts["results"]["complete_case_sensitivity"] = info
+    return parts
 
 
 def _per_person(values: np.ndarray, weights: np.ndarray | None) -> np.ndarray:
@@ -312,7 +354,7 @@ def _proportional_odds_checks(study, derivation: Derivation, frame: pd.DataFrame
     return {"brant": brant, "lr": lr}
 
 
-def _frozen_model(study, cohort, derivation: Derivation) -> PredictionModel:
+def _frozen_model(study, cohort, derivation: Derivation, imputation: dict[str, Any] | None = None) -> PredictionModel:
     """The model file's content: the fit and design, the outcome, and where they came from."""
     levels = study.outcome.ordered_levels
     outcome = {
@@ -334,12 +376,18 @@ def _frozen_model(study, cohort, derivation: Derivation) -> PredictionModel:
                                                                          "l1_ratio": derivation.selection.penalty.l1_ratio},
         "parent_model_sha256": None,
         "update_method": None,
+        **({} if imputation is None else {"missing_data": imputation}),
     }
     return model_from_fit(derivation.fit, derivation.design, outcome=outcome, provenance=provenance)
 
 
-def _apparent(study, y: np.ndarray, prob: np.ndarray) -> tuple[dict[str, Any], pd.DataFrame, list, Any]:
-    """Apparent discrimination, calibration and accuracy on the derivation data."""
+def _apparent(study, y: np.ndarray, prob: np.ndarray, *, summary: dict[str, float] | None = None) -> tuple[dict[str, Any], pd.DataFrame, list, Any]:
+    """Apparent discrimination, calibration and accuracy on the derivation data.
+
+    ``summary`` replaces the summary measures computed from ``prob`` (under
+    imputation: the measures averaged over the completed data sets, while
+    ``prob`` is each person's prediction averaged over them).
+    """
     K = prob.shape[1]
     disc = ordinal_discrimination(y, prob)
     # the development-data degrees of freedom of the Hosmer-Lemeshow tests were
@@ -351,7 +399,7 @@ def _apparent(study, y: np.ndarray, prob: np.ndarray) -> tuple[dict[str, Any], p
     else:
         cal = ordinal_calibration(y, prob, development=logit_fit)
     acc = overall_accuracy(y, prob)
-    summary = performance_summary(y, prob)
+    summary = performance_summary(y, prob) if summary is None else summary
     keys = [k for k in summary if k != "n_fit_warnings" and (K > 2 or k not in _ORDINAL_ONLY)]
     table = pd.DataFrame({"measure": [_measure_words(k, study.outcome.ordered_levels) for k in keys],
                           "apparent (derivation data)": [summary[k] for k in keys]})

@@ -23,6 +23,7 @@ import re
 from dataclasses import dataclass, field
 from typing import Any, Mapping
 
+import numpy as np
 import pandas as pd
 
 from ..._jsonable import to_jsonable
@@ -111,6 +112,24 @@ class ExternalValidationOutput:
     notes: tuple[str, ...]
     min_cell_count: int = 0
     pooled: tuple[PooledMeasure, ...] = ()
+    imputed: Mapping[str, Any] = field(default_factory=dict, repr=False)
+    missing: Mapping[str, Any] = field(default_factory=dict, repr=False)
+
+    def imputed_frame(self) -> pd.DataFrame | None:
+        """Under multiple imputation: each cohort's measures pooled over its completed data sets (headers in words), or None."""
+        if not self.imputed:
+            return None
+        rows = []
+        for label, result in self.imputed.items():
+            levels = self.cohorts[label].levels
+            for r, info in zip(result.measures, result.pooling.itertuples()):
+                at = f" at {r.threshold:g}" if r.measure == "net_benefit" else ""
+                where = "" if len(levels) == 2 else f", {cut_label(levels, r.cut, binary=False)}"
+                rows.append({"cohort": label, "measure": MEASURES[r.measure][0] + at + where, "estimate": r.estimate,
+                             "lower (95%, Rubin's rules)": r.lower, "upper (95%, Rubin's rules)": r.upper,
+                             "degrees of freedom": info.df, "fraction of missing information": info.fmi,
+                             "not estimated because": r.reason})
+        return pd.DataFrame(rows)
 
     def pooled_frame(self) -> pd.DataFrame | None:
         """The measures pooled over the validation cohorts (headers in words), or None with one cohort."""
@@ -251,6 +270,8 @@ class ExternalValidationOutput:
                              for k, v in self.case_mix.items()},
                 "rule": {k: {**v.to_dict(), "summary": rule_summary(v, outcome_levels=self.cohorts[k].levels)} for k, v in self.rule.items()},
                 "pooled": [p.to_dict() for p in self.pooled],
+                "imputed": {k: v.to_dict() for k, v in self.imputed.items()},
+                "missing_data": {k: v["results"] for k, v in self.missing.items()},
                 "figures": dict(self.figures),
                 "texts": dict(self.texts),
                 "notes": list(self.notes),
@@ -512,6 +533,54 @@ def _cohort_summary(cohort) -> dict[str, Any]:
                    "n_rows_analysed": cohort.n_analysed, "outcome_rows": cohort.outcome_rows}
 
 
+def _impute_cohorts(study: Study, cohorts: Cohorts) -> dict[str, dict[str, Any]]:
+    """Every cohort imputed on its own, the outcome in its imputation models: the derivation cohort as the
+    derivation stage imputes it, each validation cohort with its own m (``missing_data.m`` or the rule of thumb)
+    and its own seed."""
+    from ...imputation.procedure import cohort_seed, completed_cohort, impute_cohort
+
+    out = {}
+    for k, (label, cohort) in enumerate([("derivation", cohorts.derivation), *cohorts.validation.items()]):
+        imputations = impute_cohort(study, cohort, seed=cohort_seed(study, k))
+        completed = list(imputations)
+        out[label] = {"imputations": imputations, "completed": completed, "cohort": cohort,
+                      "first": completed_cohort(cohort, completed[0])}
+    return out
+
+
+def _imputed_parts(ctx, model: PredictionModel, cohorts: Cohorts, imputed: dict[str, dict[str, Any]]):
+    """Under multiple imputation: each validation cohort's measures pooled over its completed data sets, its
+    missing-data section, and the sentences saying what the page's other tables are computed on."""
+    from ...imputation.procedure import completed_cohort
+    from ...validation.imputed_measures import imputed_cohort_measures
+    from .imputed import missing_data_section
+
+    if not imputed:
+        return {}, {}, {}
+    study = ctx.study
+    pooled, missing = {}, {}
+    for label in cohorts.validation:
+        part = imputed[label]
+        probs = [apply_model(model, completed_cohort(part["cohort"], c).frame, label=label) for c in part["completed"]]
+        pooled[label] = imputed_cohort_measures(label, np.asarray(part["cohort"].y), probs, thresholds=_thresholds(study),
+                                                min_events=max(1, study.output.min_cell_count))
+        missing[label] = missing_data_section(ctx, part["imputations"], cohort=part["cohort"], label=label)
+    m = {label: imputed[label]["imputations"].m for label in cohorts.validation}
+    texts = {"imputed": (
+        "Missing predictor values of each validation cohort were multiply imputed on that cohort alone, with the outcome in "
+        f"every imputation model ({', '.join(f'{label}: {n} completed data sets' for label, n in m.items())}). The table "
+        "'Pooled over the imputations' is the primary estimate: each measure was computed in every completed data set "
+        "and pooled by Rubin's rules, C on the logit scale and O/E on the log scale (Marshall et al. 2009; Debray et al. "
+        "2017), with t intervals on Rubin's degrees of freedom. The other tables and figures of this page, with their "
+        "bootstrap intervals, the case-mix comparison and the comparison with today's rule, are computed on each cohort's "
+        "first completed data set: they show the shape of the results, and their intervals do not include the "
+        "uncertainty of the imputation."
+    )}
+    for label, part in missing.items():
+        texts.update({f"{k}": v for k, v in part["texts"].items()})
+    return pooled, missing, texts
+
+
 def run(ctx) -> ExternalValidationOutput:
     """Run the external validation stage: results JSON and figures.
 
@@ -538,6 +607,10 @@ def run(ctx) -> ExternalValidationOutput:
     study = ctx.study
     model = load_model(ctx.model_path)
     cohorts = load_cohorts(study)
+    imputed = _impute_cohorts(study, cohorts) if study.imputing else {}
+    if imputed:  # tables, figures and the rule comparison on each cohort's first completed data set
+        cohorts = dataclasses.replace(cohorts, derivation=imputed["derivation"]["first"],
+                                      validation={label: imputed[label]["first"] for label in cohorts.validation})
     results = validate_external(study, model, cohorts)
 
     figures: dict[str, str] = {}
@@ -568,6 +641,8 @@ def run(ctx) -> ExternalValidationOutput:
     for label, r in results["rule"].items():
         notes += [f"{label}: rule: {w}" for w in r.warnings]
     pooled = pool_cohorts(study, model, cohorts)
+    pooled_imputed, missing, extra_texts = _imputed_parts(ctx, model, cohorts, imputed)
+    figures.update({k: v for part in missing.values() for k, v in part["figures"].items()})
     out = ExternalValidationOutput(
         model_sha256=model.digest(),
         flow=pd.concat([c.to_frame().rename(columns=PEOPLE_FLOW_WORDS) if c.weights is not None else c.to_frame()
@@ -579,10 +654,12 @@ def run(ctx) -> ExternalValidationOutput:
         figures=figures,
         texts={**external_validation_texts(results, subgroups_named=bool(study.external_validation.subgroups)),
                "pooled": cohorts_pooled_text(pooled, n_cohorts=len(cohorts.validation), method=study.external_validation.pooling,
-                                             hartung_knapp=study.external_validation.hartung_knapp)},
+                                             hartung_knapp=study.external_validation.hartung_knapp), **extra_texts},
         notes=tuple(notes),
         min_cell_count=study.output.min_cell_count,
         pooled=pooled,
+        imputed=pooled_imputed,
+        missing=missing,
     )
     ctx.write_results(out.to_dict())
     return out

@@ -168,6 +168,17 @@ def published_sizes(result: InternalExternalValidation, *, min_cell_count: int) 
     return pd.DataFrame(rows)
 
 
+def _imputation_words() -> dict[str, str]:
+    """How the leave-one-cluster-out derivations met multiple imputation."""
+    return {"imputed": (
+        "Missing predictor values were multiply imputed within each split: the clusters a model was derived on were imputed "
+        "together and the derivation repeated on their completed data sets, and the cluster left out was imputed on its own "
+        "(outcome included), as a new site's data would be. Each cluster's measures were computed in each of its completed "
+        "data sets and pooled by Rubin's rules (C on the logit scale, O/E on the log scale) before the pooling over clusters. "
+        "The predictor-effect diagnostic is fitted on the first completed data set."
+    )}
+
+
 def run(ctx) -> InternalExternalOutput:
     """Run the internal-external stage: results JSON and figures.
 
@@ -209,7 +220,7 @@ def run(ctx) -> InternalExternalOutput:
         figures[name] = (ctx.figures_dir / f"{name}.png").relative_to(ctx.record_dir).as_posix()
     out = InternalExternalOutput(
         result=result, sizes=published_sizes(result, min_cell_count=m), min_events=min_events, notes=tuple(notes),
-        figures=figures, texts=internal_external_texts(result),
+        figures=figures, texts=internal_external_texts(result) | (_imputation_words() if study.imputing else {}),
     )
     ctx.write_results(out.to_dict())
     return out

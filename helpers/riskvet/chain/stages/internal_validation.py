@@ -214,6 +214,18 @@ def _as_shown(validation: InternalValidation) -> InternalValidation:
     return dataclasses.replace(validation, estimates=estimates)
 
 
+def _threshold_data(study, cohort) -> tuple[pd.DataFrame, np.ndarray]:
+    """The rows the shrunken model's thresholds are re-estimated on: people one row each, or under multiple
+    imputation the stacked completed data sets (the same imputations as the derivation's)."""
+    if not study.imputing:
+        people = expand_cohort(cohort)
+        return people.frame, people.y
+    from ...imputation.procedure import impute_cohort
+
+    completed = list(impute_cohort(study, cohort))
+    return pd.concat(completed, ignore_index=True), np.tile(np.asarray(cohort.y), len(completed))
+
+
 def _on_terminal() -> bool:
     """Whether standard error is an interactive terminal (False in a notebook kernel, a pipe or a log file)."""
     return bool(getattr(sys.stderr, "isatty", lambda: False)())
@@ -253,11 +265,14 @@ def run(ctx) -> InternalValidationOutput:
     progress = _on_terminal()
     validation = validate_internally(study, cohort, n_boot=cfg.n_boot, seed=cfg.seed, n_jobs=n_jobs, progress=progress)
     crossval = None
-    if cfg.cv_repeats > 0:
+    notes: list[str] = []
+    if cfg.cv_repeats > 0 and study.imputing:
+        notes.append("cross-validation (internal_validation.cv_repeats) is not run under multiple imputation: the bootstrap, "
+                     "which resamples the incomplete rows and imputes each resample, estimates the optimism")
+    elif cfg.cv_repeats > 0:
         crossval = cross_validate(study, cohort, n_folds=cfg.cv_folds, n_repeats=cfg.cv_repeats,
                                   seed=crossval_seed(cfg.seed), n_jobs=n_jobs, progress=progress)
 
-    notes: list[str] = []
     shrunk: str | None = None
     if cfg.shrink:
         factor = validation.shrinkage.bootstrap
@@ -269,9 +284,9 @@ def run(ctx) -> InternalValidationOutput:
             notes.append("uniform shrinkage is written for proportional models only; the frozen model has a slope per cut")
         else:
             target = ctx.new_path(ctx.models_dir / f"{ctx.model_path.stem}_shrunk.json")
-            people = expand_cohort(cohort)  # the thresholds are re-estimated on people, one row each
+            frame, y = _threshold_data(study, cohort)
             path = write_shrunken_model(
-                ctx.model_path, factor=factor, frame=people.frame, y=people.y, path=target,
+                ctx.model_path, factor=factor, frame=frame, y=y, path=target,
                 method=f"bootstrap calibration slope ({validation.n_succeeded} replicates, seed {validation.seed})",
             )
             shrunk = Path(path).resolve().relative_to(ctx.record_dir).as_posix()

@@ -178,6 +178,11 @@ def update_study_model(study: Study, model, cohorts) -> UpdateResult:
     if label is None or label not in cohorts.validation:
         raise StudyError(problem("updating.cohort", allowed=f"a validation cohort label among {list(cohorts.validation)}", received=label))
     cohort = cohorts.validation[label]
+    if study.imputing:  # the cohort's first completed data set, imputed as the external validation stage imputes it
+        from ...imputation.procedure import cohort_seed, completed_cohort, impute_cohort
+
+        position = 1 + list(cohorts.validation).index(label)
+        cohort = completed_cohort(cohort, impute_cohort(study, cohort, seed=cohort_seed(study, position)).completed(0))
     ev = study.external_validation
     return update_model(
         model, cohort.frame, cohort.y, alpha=study.updating.alpha, new_predictors=dict(study.updating.new_predictors),
@@ -234,6 +239,13 @@ def run(ctx) -> UpdatingOutput:
     ctx.save_figure(plot_update_calibration(result), name)
     figures[name] = (ctx.figures_dir / f"{name}.png").relative_to(ctx.record_dir).as_posix()
 
-    out = UpdatingOutput(result=result, model_files=files, figures=figures, texts=updating_texts(result, files))
+    texts = updating_texts(result, files)
+    if study.imputing:
+        texts["imputed"] = (
+            "The updating cohort's missing predictor values were multiply imputed (see the external validation page), and the "
+            "updates were fitted on its first completed data set: their estimates and tests do not include the uncertainty of "
+            "the imputation, so read close calls between update methods with that in mind."
+        )
+    out = UpdatingOutput(result=result, model_files=files, figures=figures, texts=texts)
     ctx.write_results(out.to_dict())
     return out

@@ -125,11 +125,14 @@ def internal_validation_texts(validation: Any, crossval: Any, shrunk: str | None
         "readability": readability_sentence(validation),
         "tuning": tuning_sentence(validation),
     }
+    texts["imputation"] = imputation_scheme_sentence(validation)
     if crossval is not None:
         texts["crossval"] = crossval_sentence(crossval) + (
             " Cross-validation and the bootstrap estimate the same thing by different routes; close agreement "
             "makes either figure more credible."
         )
+    elif getattr(validation, "n_imputations", None) is not None and notes:
+        texts["crossval"] = "Cross-validation was not run: " + notes[0] + "."
     else:
         texts["crossval"] = "Cross-validation was not requested (internal_validation.cv_repeats is 0)."
     if shrunk is not None:
@@ -143,6 +146,21 @@ def internal_validation_texts(validation: Any, crossval: Any, shrunk: str | None
         texts["shrunken_model"] = "No shrunken model was written" + (f": {notes[-1]}." if notes else ".")
     texts["shrunken_model"] += f" Model check: {model_check}."
     return texts
+
+
+def imputation_scheme_sentence(validation: Any) -> str:
+    """How resampling and multiple imputation were combined (empty under complete cases)."""
+    m = getattr(validation, "n_imputations", None)
+    if m is None:
+        return ""
+    return (
+        f"Missing predictor values were multiply imputed ({m} completed data sets). Each replicate drew its resample from "
+        f"the incomplete rows and imputed that resample {m} times on its own before the whole procedure ran on it (resample "
+        "first, then impute: the scheme the comparison of Wahl et al. 2016 recommends), so the rows a replicate's model is "
+        "tested on never informed the imputation of the rows it was derived from. The replicate model was then measured in each "
+        "completed data set of its resample and of the original data, and each measure averaged over them; the values in the "
+        "derivation data are averages over the original data's completed data sets in the same way."
+    )
 
 
 def readability_sentence(validation: Any) -> str:
