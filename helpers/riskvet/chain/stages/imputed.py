@@ -191,7 +191,8 @@ def missing_data_section(ctx, imputations: Imputations, *, cohort, label: str) -
     study = ctx.study
     min_cell = study.output.min_cell_count
     columns = list(cohort.predictors) + [c for c in cohort.auxiliary if c not in cohort.predictors]
-    report = missing_data_report(imputations, columns=columns, min_cell_count=min_cell, cohort_label=label)
+    report = missing_data_report(imputations, columns=columns, min_cell_count=min_cell, cohort_label=label,
+                                 auxiliary=tuple(cohort.auxiliary))
     suffix = "" if label == "derivation" else f"_{_safe(label)}"
     figures = {}
     withhold = tuple(report.withheld_columns)
