@@ -1,8 +1,9 @@
 """Records shared by several test modules: the chain run once per test session.
 
 Two small records of the real stage notebooks: the invented demo study
-(ordered outcome, every stage) and the same study recoded to a binary
-outcome.  Small data and few replicates keep them fast; the modules that use
+(ordered outcome, every stage, missing values multiply imputed) and the same
+study recoded to a binary outcome and analysed on complete cases, so that
+both ways of handling missing values run through every page test.  Small data and few replicates keep them fast; the modules that use
 them check the chain, the pages in a browser and the disclosure control.
 """
 
@@ -28,7 +29,7 @@ def _missing_templates() -> list[str]:
 
 def binary_study(folder):
     """The demo study recoded to a binary outcome: transferred against not (observed joins released)."""
-    study = new_study_folder(folder, n_derivation=500, n_validation=400, n_ratings=40, n_boot=4)
+    study = new_study_folder(folder, n_derivation=500, n_validation=400, n_ratings=40, n_boot=4, missing_data="complete_case")
     for name in ("derivation.csv", "validation.csv"):
         path = folder / "data" / name
         frame = pd.read_csv(path, dtype=str, keep_default_na=False)

@@ -51,7 +51,7 @@ RARE = ["confusion", "collapse", "prior_heat_illness"]
 @pytest.fixture(scope="module")
 def folder(tmp_path_factory) -> Path:
     path = tmp_path_factory.mktemp("iv")
-    new_study_folder(path, n_derivation=400, n_validation=60, n_ratings=20, n_boot=10)
+    new_study_folder(path, n_derivation=400, n_validation=60, n_ratings=20, n_boot=10, missing_data="complete_case")
     return path
 
 
@@ -455,7 +455,7 @@ def test_bad_input(small_study):
 @pytest.fixture(scope="module")
 def stage_folder(tmp_path_factory):
     path = tmp_path_factory.mktemp("stage")
-    study_path = new_study_folder(path, n_derivation=300, n_validation=60, n_ratings=20, n_boot=6)
+    study_path = new_study_folder(path, n_derivation=300, n_validation=60, n_ratings=20, n_boot=6, missing_data="complete_case")
     raw = yaml.safe_load(study_path.read_text(encoding="utf-8"))
     raw["selection"]["method"] = "none"
     raw["predictors"]["exclude"] = RARE

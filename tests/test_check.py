@@ -18,7 +18,7 @@ from test_runner import SMALL, run_quietly, write_fake_templates
 
 @pytest.fixture()
 def study(tmp_path):
-    return new_study_folder(tmp_path / "demo", **SMALL)
+    return new_study_folder(tmp_path / "demo", **SMALL, missing_data="complete_case")
 
 
 def _edit(study, change):

@@ -87,7 +87,7 @@ LAYOUTS = {
 @pytest.fixture(scope="module")
 def folder(tmp_path_factory) -> Path:
     path = tmp_path_factory.mktemp("clusters")
-    new_study_folder(path, n_derivation=300, n_validation=60, n_ratings=20, n_boot=5)
+    new_study_folder(path, n_derivation=300, n_validation=60, n_ratings=20, n_boot=5, missing_data="complete_case")
     return path
 
 

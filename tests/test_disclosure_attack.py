@@ -46,7 +46,7 @@ STATISTICS = ("uninformative_reason", "observed_agreement", "kappa", "kappa_lowe
 def record(tmp_path_factory):
     """A record of the derivation and agreement stages: (study, record folder)."""
     folder = tmp_path_factory.mktemp("attack") / "demo"
-    study_path = new_study_folder(folder, n_derivation=400, n_validation=300, n_ratings=150, n_boot=2)
+    study_path = new_study_folder(folder, n_derivation=400, n_validation=300, n_ratings=150, n_boot=2, missing_data="complete_case")
     text = study_path.read_text(encoding="utf-8")
     assert "  method: forward " in text
     study_path.write_text(text.replace("  method: forward ", "  method: none "), encoding="utf-8")

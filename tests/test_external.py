@@ -299,7 +299,7 @@ def record(tmp_path_factory):
     from riskvet.intake.study import load_study
 
     folder = tmp_path_factory.mktemp("study")
-    study_path = new_study_folder(folder, n_derivation=1500, n_validation=900, n_ratings=40, n_boot=5)
+    study_path = new_study_folder(folder, n_derivation=1500, n_validation=900, n_ratings=40, n_boot=5, missing_data="complete_case")
     study_path.write_text(study_path.read_text().replace("n_jobs: 2", "n_jobs: 1"))
     cohort = load_cohorts(load_study(study_path)).derivation
     record_dir = folder / "records" / "r1"

@@ -148,7 +148,7 @@ def numbers_in(text: str) -> set[int]:
 @pytest.fixture(scope="module")
 def demo_folder(tmp_path_factory) -> Path:
     folder = tmp_path_factory.mktemp("iecv-demo")
-    new_study_folder(folder, n_derivation=600, n_validation=60, n_ratings=20, n_boot=5)
+    new_study_folder(folder, n_derivation=600, n_validation=60, n_ratings=20, n_boot=5, missing_data="complete_case")
     return folder
 
 

@@ -89,7 +89,7 @@ def test_check_names_the_clusters(tmp_path, capsys):
     from riskvet.chain.cli import main
     from riskvet.chain.scaffold import new_study_folder
 
-    study = new_study_folder(tmp_path / "demo", n_derivation=300, n_validation=100, n_ratings=20, n_boot=2)
+    study = new_study_folder(tmp_path / "demo", n_derivation=300, n_validation=100, n_ratings=20, n_boot=2, missing_data="complete_case")
     assert main(["check", str(study)]) == 0
     printed = capsys.readouterr().out
     assert "internal_external" in printed.splitlines()[1]  # the enabled stages
@@ -116,6 +116,7 @@ def test_several_validation_cohorts_are_pooled_by_random_effects(chain, tmp_path
     raw["data"]["validation"] = [*raw["data"]["validation"], {"label": "later-a", "path": str(tmp_path / "later-a.csv")},
                                  {"label": "later-b", "path": str(tmp_path / "later-b.csv")}]
     raw["output"]["records"] = str(tmp_path / "records")
+    raw["missing_data"] = {"method": "complete_case"}  # the cohorts' own rows, as the by-hand pooling below takes them
     path = tmp_path / "three.yaml"
     path.write_text(yaml.safe_dump(raw), encoding="utf-8")
     study = load_study(path)

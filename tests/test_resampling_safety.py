@@ -59,7 +59,7 @@ LINEAR = {"age": "linear", "heart_rate": "linear", "wbgt": "linear"}
 @pytest.fixture(scope="module")
 def folder(tmp_path_factory) -> Path:
     path = tmp_path_factory.mktemp("safety")
-    new_study_folder(path, n_derivation=240, n_validation=120, n_ratings=20, n_boot=5)  # invented demo data
+    new_study_folder(path, n_derivation=240, n_validation=120, n_ratings=20, n_boot=5, missing_data="complete_case")  # invented demo data
     return path
 
 

@@ -29,7 +29,7 @@ from riskvet.intake.study import load_study, study_from_dict
 @pytest.fixture(scope="module")
 def folder(tmp_path_factory):
     root = tmp_path_factory.mktemp("agreement_study")
-    new_study_folder(root, n_derivation=300, n_validation=200, n_ratings=40, n_boot=2)
+    new_study_folder(root, n_derivation=300, n_validation=200, n_ratings=40, n_boot=2, missing_data="complete_case")
     return root
 
 

@@ -20,7 +20,7 @@ from riskvet.chain.stages import derivation
 @pytest.fixture(scope="module")
 def stage_run(tmp_path_factory):
     folder = tmp_path_factory.mktemp("study")
-    study_path = new_study_folder(folder, n_derivation=500, n_validation=300, n_ratings=40, n_boot=5)
+    study_path = new_study_folder(folder, n_derivation=500, n_validation=300, n_ratings=40, n_boot=5, missing_data="complete_case")
     ctx = stage_context("derivation", study_path=study_path, record_dir=folder / "records" / "r1")
     return ctx, derivation.run(ctx)
 

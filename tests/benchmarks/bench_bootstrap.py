@@ -54,7 +54,7 @@ def _study_and_data(folder: Path, n_boot: int, n_jobs: int):
     from riskvet.chain.scaffold import new_study_folder
     from riskvet.intake.study import load_study
 
-    path = new_study_folder(folder, n_derivation=100, n_validation=50, n_ratings=10, n_boot=n_boot)
+    path = new_study_folder(folder, n_derivation=100, n_validation=50, n_ratings=10, n_boot=n_boot, missing_data="complete_case")
     raw = yaml.safe_load(path.read_text(encoding="utf-8"))
     for name in NOISE:
         raw["predictors"]["candidates"][name] = "linear"

@@ -35,9 +35,20 @@ governance and licensed clinical judgement decide.
 """
 
 
-def demo_study_text(*, n_boot: int | None = None) -> str:
-    """The commented demo study file, optionally with fewer bootstrap replicates."""
+#: The missing-data section of the demo study written for a complete-case analysis.
+_COMPLETE_CASE_SECTION = """missing_data:
+  method: complete_case            # complete_case | multiple_imputation (chained equations, the outcome in every model)
+
+"""
+
+
+def demo_study_text(*, n_boot: int | None = None, missing_data: str = "multiple_imputation") -> str:
+    """The commented demo study file, optionally with fewer bootstrap replicates or a complete-case analysis."""
     text = resources.files("riskvet").joinpath("resources/demo_study.yaml").read_text(encoding="utf-8")
+    if missing_data not in ("multiple_imputation", "complete_case"):
+        raise RiskvetError(f"missing_data: expected 'multiple_imputation' or 'complete_case'; received {missing_data!r}")
+    if missing_data == "complete_case":
+        text = re.sub(r"(?ms)^missing_data:\n.*?\n\n", _COMPLETE_CASE_SECTION, text, count=1)
     if n_boot is not None:
         if n_boot < 1:
             raise RiskvetError(f"n_boot: expected a whole number of at least 1; received {n_boot!r}")
@@ -53,6 +64,7 @@ def new_study_folder(
     n_validation: int = 1500,
     n_ratings: int = 150,
     n_boot: int | None = None,
+    missing_data: str = "multiple_imputation",
 ) -> Path:
     """Write a study folder: ``study.yaml``, ``data/`` and ``README.md``.
 
@@ -67,6 +79,9 @@ def new_study_folder(
     n_boot : int, optional
         Bootstrap replicates written into the study file (default as in the
         demo study, 200).
+    missing_data : {"multiple_imputation", "complete_case"}
+        The study's ``missing_data.method``: the demo study imputes; with
+        ``"complete_case"`` its section says complete-case analysis instead.
 
     Returns
     -------
@@ -85,7 +100,7 @@ def new_study_folder(
         folder.mkdir(parents=True, exist_ok=True)
         demo.write_demo_data(folder / "data", seed=seed, n_derivation=n_derivation, n_validation=n_validation, n_ratings=n_ratings)
         study = folder / "study.yaml"
-        study.write_text(demo_study_text(n_boot=n_boot), encoding="utf-8")
+        study.write_text(demo_study_text(n_boot=n_boot, missing_data=missing_data), encoding="utf-8")
         (folder / "README.md").write_text(_FOLDER_README.format(name=folder.name, seed=seed), encoding="utf-8")
         # records are written once and kept; whether they go into version control is a deliberate choice
         (folder / ".gitignore").write_text("records/\nworkbench/draft/\nworkbench/jupyterlab.log\n", encoding="utf-8")

@@ -11,9 +11,11 @@ core, :mod:`riskvet.intake` and :mod:`riskvet.modelling`, never measures,
 validation, planning, reporting or the chain.
 
 Public names: :func:`impute` with its :class:`Imputations`, and :func:`pool`
-with its :class:`PooledImputations`.  The chain does not use them yet: every
-stage analyses complete cases (with the exclusion table); the study file's
-``missing_data`` section and the imputed path through the stages are to come.
+with its :class:`PooledImputations`.  :mod:`~riskvet.imputation.procedure`
+joins them to the study: a cohort imputed as the study file's
+``missing_data`` section says (:func:`~riskvet.imputation.procedure.impute_cohort`)
+and the derivation procedure run on the completed data sets with the model
+pooled by Rubin's rules (:func:`~riskvet.imputation.procedure.derive_imputed`).
 """
 
 from .chained import METHODS, Imputations, impute

@@ -483,7 +483,8 @@ def validate_external(study: Study, model: PredictionModel, cohorts: Cohorts) ->
     return results
 
 
-def pool_cohorts(study: Study, model: PredictionModel, cohorts: Cohorts) -> tuple[PooledMeasure, ...]:
+def pool_cohorts(study: Study, model: PredictionModel, cohorts: Cohorts, *, imputed: Mapping[str, Any] | None = None,
+                 ) -> tuple[PooledMeasure, ...]:
     """With two or more validation cohorts, each measure pooled over them by random-effects meta-analysis.
 
     Each cohort's C (DeLong standard error), calibration-in-the-large and
@@ -495,7 +496,11 @@ def pool_cohorts(study: Study, model: PredictionModel, cohorts: Cohorts) -> tupl
     interval on k - 2 degrees of freedom (Riley, Higgins & Deeks 2011;
     undefined with two cohorts).  A cohort with fewer than
     ``output.min_cell_count`` people on a side of a cut is left out of that
-    cut's pooling, with the reason.  Empty with one cohort.
+    cut's pooling, with the reason.  Empty with one cohort.  Under multiple
+    imputation (``imputed``: each cohort's
+    :class:`~riskvet.validation.imputed_measures.ImputedMeasures`) a
+    cohort's measures are first pooled over its completed data sets by
+    Rubin's rules, and those are pooled over the cohorts.
 
     References
     ----------
@@ -510,6 +515,9 @@ def pool_cohorts(study: Study, model: PredictionModel, cohorts: Cohorts) -> tupl
     ev = study.external_validation
     thresholds = _thresholds(study)
     rows = []
+    if imputed:
+        rows = [row for label in cohorts.validation for row in imputed[label].measures]
+        return pool_measures(rows, method=ev.pooling, hartung_knapp=ev.hartung_knapp)
     for label, cohort in cohorts.validation.items():
         people = expand_cohort(cohort)
         prob = apply_model(model, people.frame, label=label)
@@ -571,7 +579,8 @@ def _imputed_parts(ctx, model: PredictionModel, cohorts: Cohorts, imputed: dict[
         f"every imputation model ({', '.join(f'{label}: {n} completed data sets' for label, n in m.items())}). The table "
         "'Pooled over the imputations' is the primary estimate: each measure was computed in every completed data set "
         "and pooled by Rubin's rules, C on the logit scale and O/E on the log scale (Marshall et al. 2009; Debray et al. "
-        "2017), with t intervals on Rubin's degrees of freedom. The other tables and figures of this page, with their "
+        "2017), with t intervals on Rubin's degrees of freedom; with several cohorts, the pooling over them starts from "
+        "these. The other tables and figures of this page, with their "
         "bootstrap intervals, the case-mix comparison and the comparison with today's rule, are computed on each cohort's "
         "first completed data set: they show the shape of the results, and their intervals do not include the "
         "uncertainty of the imputation."
@@ -640,8 +649,8 @@ def run(ctx) -> ExternalValidationOutput:
         notes += [f"{label}: case-mix: {w}" for w in results["case_mix"][label].warnings]
     for label, r in results["rule"].items():
         notes += [f"{label}: rule: {w}" for w in r.warnings]
-    pooled = pool_cohorts(study, model, cohorts)
     pooled_imputed, missing, extra_texts = _imputed_parts(ctx, model, cohorts, imputed)
+    pooled = pool_cohorts(study, model, cohorts, imputed=pooled_imputed)
     figures.update({k: v for part in missing.values() for k, v in part["figures"].items()})
     out = ExternalValidationOutput(
         model_sha256=model.digest(),
