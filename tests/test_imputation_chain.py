@@ -195,6 +195,8 @@ def test_internal_validation_resampled_then_imputed(chain):
     assert content["bootstrap"]["n_imputations"] == 5
     assert content["bootstrap"]["imputation_scheme"] == "resample, then impute each resample"
     assert "Wahl et al. 2016" in content["texts"]["imputation"]
+    # the cross-validation (the demo's cv_repeats: 1) imputes inside every fold as well
+    assert content["crossval"] is not None and "held-out fold was imputed on its own" in content["texts"]["crossval"]
 
 
 def test_validation_c_is_pooled_on_the_logit_scale_as_computed_by_hand(chain, study):
@@ -229,6 +231,8 @@ def test_pages_show_the_missing_data_sections(chain):
     external = (chain.record_dir / "html" / "06_external_validation.html").read_text(encoding="utf-8")
     assert "Pooled over the imputations" in external
     assert "resample first, then impute" in (chain.record_dir / "html" / "04_internal_validation.html").read_text(encoding="utf-8")
+    summary = (chain.record_dir / "html" / "08_summary.html").read_text(encoding="utf-8")
+    assert "rows analysed (missing predictor values multiply imputed)" in summary and "(complete cases)" not in summary
     cc = _results(chain, "derivation")["missing_data"]["complete_case_sensitivity"]
     assert cc["n_complete"] < cc["n_analysed"] and cc["terms_complete_case"] is not None
 
@@ -259,3 +263,17 @@ def test_prepare_cohort_under_imputation_keeps_rows_a_complete_case_analysis_dro
     cc = prepare_cohort(study, frame, missing="complete_case")
     mi = prepare_cohort(study, frame, missing="multiple_imputation")
     assert mi.n_analysed - cc.n_analysed == mi.n_incomplete > 0
+
+
+def test_check_says_what_the_imputation_will_do(tmp_path, capsys):
+    from riskvet.chain.cli import main
+
+    path = _study_with(tmp_path, {"method": "multiple_imputation"})
+    assert main(["check", str(path)]) == 0
+    printed = capsys.readouterr().out
+    line = next(row for row in printed.splitlines() if row.startswith("multiple imputation:"))
+    cohort = load_cohorts(load_study(path)).derivation
+    share = cohort.n_incomplete / cohort.n_analysed
+    # White, Royston & Wood 2011: m at least the percentage of incomplete cases (at least 5)
+    assert f"{share:.1%}" in line and f"m = {imputations_needed(1 - share)} by the rule of thumb" in line
+    assert "exclusions (missing outcome only: predictors are imputed)" in printed

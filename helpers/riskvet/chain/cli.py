@@ -82,7 +82,9 @@ def check_report(study_path: str | Path, *, out=None) -> int:
             unit = {"site": "sites", "period": "periods", "person": "people"}[cohort.cluster_kind]
             print(f"clusters ({cohort.cluster_column!r}, kind {cohort.cluster_kind}): {cohort.n_clusters} {unit}, resampled and "
                   "split whole by the bootstrap and the cross-validation", file=out)
-        print("\nexclusions (complete case):", file=out)
+        if cohort.missing == "multiple_imputation":
+            print(_imputation_line(study, cohort), file=out)
+        print(f"\nexclusions ({'missing outcome only: predictors are imputed' if cohort.missing == 'multiple_imputation' else 'complete case'}):", file=out)
         _print_frame(cohort.exclusions, out=out)
         print("\noutcome:", file=out)
         if getattr(cohort, "weights", None) is not None:
@@ -101,6 +103,19 @@ def check_report(study_path: str | Path, *, out=None) -> int:
         print(f"warning: {note}", file=out)
     print(f"\nusable. {CAUTION}", file=out)
     return 0
+
+
+def _imputation_line(study, cohort) -> str:
+    """What multiple imputation will do with a cohort, for ``riskvet check``."""
+    from ..imputation.procedure import imputations_needed
+
+    n = max(len(cohort.y), 1)
+    share = cohort.n_incomplete / n
+    m = study.missing_data.m
+    rule = imputations_needed(1.0 - share)
+    said = f"m = {m} (missing_data.m; the rule of thumb gives {rule})" if m is not None else f"m = {rule} by the rule of thumb"
+    return (f"multiple imputation: {share:.1%} of the analysed rows miss at least one predictor; {said}, "
+            f"{study.missing_data.iterations} cycles, seed {study.missing_data.seed}")
 
 
 def support_notes(study, cohort) -> list[str]:

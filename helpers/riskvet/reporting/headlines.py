@@ -218,9 +218,14 @@ def _headline_measure(key: str) -> bool:
 def _derivation(results: Mapping[str, Any], levels: tuple[str, ...]) -> list[Row]:
     rows: list[Row] = []
     cohort = results.get("cohort") if isinstance(results.get("cohort"), Mapping) else {}
-    for key, words in (("n_screened", "rows in the derivation file"), ("n_analysed", "rows analysed (complete cases)")):
+    imputed = _get(results, "missing_data", "method") == "multiple_imputation"
+    analysed = "rows analysed (missing predictor values multiply imputed)" if imputed else "rows analysed (complete cases)"
+    for key, words in (("n_screened", "rows in the derivation file"), ("n_analysed", analysed)):
         if _number(cohort.get(key)):
             rows.append((words, cohort[key], None, None, f"cohort.{key}"))
+    m = _get(results, "missing_data", "settings", "m")
+    if imputed and _number(m):
+        rows.append(("imputations (completed data sets)", m, None, None, "missing_data.settings.m"))
     counts = _mapping(cohort.get("outcome_counts"))
     for level in sorted(counts, key=lambda lv: levels.index(lv) if lv in levels else len(levels)):
         if _number(counts[level]):

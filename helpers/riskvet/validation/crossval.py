@@ -53,7 +53,11 @@ from .bootstrap import (
     _failure_message,
     _failure_reason,
     _fit_and_predict,
+    _guarded_derivation,
+    _guarded_predict,
+    _imputed_original,
     _mean,
+    _mean_measures,
     _measure_specs,
     _measures,
     _people,
@@ -206,6 +210,7 @@ class _CVPayload:
     folds: np.ndarray  # n_repeats x n
     weights: np.ndarray | None = None
     clusters: np.ndarray | None = None  # cluster code of every row, or None
+    m: int = 0  # multiple imputation: completed data sets of each fold's training rows and of its held-out rows
 
 
 def _fold(payload: _CVPayload, item: tuple[int, int, int]) -> dict[str, Any]:
@@ -227,9 +232,37 @@ def _fold(payload: _CVPayload, item: tuple[int, int, int]) -> dict[str, Any]:
     return record
 
 
+def _imputed_fold_values(payload: _CVPayload, train: np.ndarray, test: np.ndarray, sel_seed: int) -> dict[str, Any]:
+    """One fold under multiple imputation: the training rows imputed and the procedure run on their completed data
+    sets, the held-out rows imputed on their own (outcome included), and the measures in each of the held-out rows'
+    completed data sets averaged.  The pooled held-out predictions are each person's averaged over them."""
+    from ..imputation.procedure import derive_imputed, impute_rows, missing_cell_share
+
+    study = payload.study
+    frame_t, y_t = payload.frame.iloc[train].reset_index(drop=True), payload.y[train]
+    frame_h, y_h = payload.frame.iloc[test].reset_index(drop=True), payload.y[test]
+
+    def run():
+        completed = tuple(impute_rows(study, frame_t, y_t, m=payload.m, seed=sel_seed))
+        return derive_imputed(study, completed, y_t, missing_share=missing_cell_share(frame_t, study.predictors.in_analysis), seed=sel_seed)
+
+    derivation, caught = _guarded_derivation(study, y_t, payload.K, None, run)
+    held_seed = int(np.random.SeedSequence([sel_seed, 1]).generate_state(1)[0])
+    predicted = [_guarded_predict(derivation, c) for c in impute_rows(study, frame_h, y_h, m=payload.m, seed=held_seed)]
+    values = []
+    for prob, lp in predicted:
+        v, measure_warnings = _measures(y_h, prob, lp if lp.ndim == 1 else None, K=payload.K, link=payload.link)
+        values.append(v)
+        caught.update({f"measure:{k}": n for k, n in measure_warnings.items()})
+    return dict(status="ok", rows=test, prob=np.mean([p for p, _ in predicted], axis=0), lp=np.mean([q for _, q in predicted], axis=0),
+                values=_mean_measures(values), warnings=dict(caught))
+
+
 def _fold_values(payload: _CVPayload, r: int, f: int, sel_seed: int) -> dict[str, Any]:
     held = payload.folds[r] == f
     train, test = np.flatnonzero(~held), np.flatnonzero(held)
+    if payload.m:
+        return _imputed_fold_values(payload, train, test, sel_seed)
     w = payload.weights
     _, prob, lp, caught = _fit_and_predict(
         payload.study,
@@ -329,17 +362,23 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
 
     folds, items = _draw_folds(y, n_folds=n_folds, n_repeats=n_repeats, seed=seed, clusters=codes, func=func)
 
-    _, prob_all, lp_all, trouble = _derive_on_all_data(study, frame, y, weights=w, clusters=codes)
+    imputing = _imputed_original(study, frame, y, data) if study.imputing else None
+    _, prob_all, lp_all, trouble = _derive_on_all_data(study, frame, y, weights=w, clusters=codes, imputing=imputing)
     apparent_warnings = tuple(dict.fromkeys(f"{m.category.__name__}: {m.message}" for m in trouble))
     for m in trouble:
         warnings.warn(str(m.message), m.category, stacklevel=2)
     people = _people(n, w)
-    apparent, _ = _measures(y[people], prob_all[people], lp_all[people] if lp_all.ndim == 1 else None, K=K, link=link)
+    if imputing is None:
+        apparent, _ = _measures(y[people], prob_all[people], lp_all[people] if lp_all.ndim == 1 else None, K=K, link=link)
+    else:  # measured in each completed data set of the original data and averaged, as the bootstrap does
+        apparent = _mean_measures([_measures(y, pj, lj if lj.ndim == 1 else None, K=K, link=link)[0] for pj, lj in zip(prob_all, lp_all)])
+        lp_all = lp_all[0]
 
     specs = _measure_specs(levels)
     keys = [k for k, _, _ in specs]
     tally = _run_folds(
-        _CVPayload(study=study, frame=frame, y=y, K=K, link=link, folds=folds, weights=w, clusters=codes), items, keys=keys, n_folds=n_folds,
+        _CVPayload(study=study, frame=frame, y=y, K=K, link=link, folds=folds, weights=w, clusters=codes,
+                   m=0 if imputing is None else len(imputing["completed"])), items, keys=keys, n_folds=n_folds,
         n_repeats=n_repeats, pool_lp=lp_all.ndim == 1, n_jobs=n_jobs, scheduler=study.compute.scheduler, progress=progress,
     )
     _check_fold_failures(tally.failures, total=n_folds * n_repeats, max_failed=study.internal_validation.max_failed_share, func=func)

@@ -608,7 +608,7 @@ def _measure_clusters(results: list[dict[str, Any]], codes: np.ndarray, labels: 
         held.append(HeldOutCluster(status="ok", terms=r["terms"], **info))
         if "probs" in r:  # imputed: the cluster's measures in each completed data set, pooled by Rubin's rules
             per = [cluster_measures(label, y_g, p, thresholds=thresholds, min_events=min_events, confidence=confidence) for p in r["probs"]]
-            measures += pool_measure_rows(per, confidence=confidence)[0]
+            measures += pool_measure_rows(per, confidence=confidence, df_complete=max(y_g.size - 1, 1))[0]
             continue
         measures += cluster_measures(label, y_g, r["prob"][people], thresholds=thresholds, min_events=min_events,
                                      confidence=confidence)

@@ -8,12 +8,16 @@ data set and the m estimates pooled by Rubin's rules on a scale where the
 measure is close to normal: C on the logit scale (Marshall et al. 2009;
 Debray et al. 2017), O/E on the log scale (Debray et al. 2017), the
 calibration intercept and slope and net benefit as they are.  The interval
-is t on Rubin's (1987) degrees of freedom, built on that scale and
-returned to the measure's own.
+is t on Barnard and Rubin's (1999) degrees of freedom with n - 1
+complete-data degrees of freedom (n the people of the cohort), built on
+that scale and returned to the measure's own.
 
 References
 ----------
 Rubin DB. Multiple Imputation for Nonresponse in Surveys. Wiley, 1987.
+
+Barnard J, Rubin DB. Small-sample degrees of freedom with multiple
+imputation. Biometrika 1999;86(4):948-955.
 
 Marshall A, Altman DG, Holder RL, Royston P. Combining estimates of interest
 in prognostic modelling studies after multiple imputation: current practice
@@ -41,7 +45,8 @@ from .cluster_rows import MEASURES, ClusterMeasure, cluster_measures
 __all__ = ["ImputedMeasures", "imputed_cohort_measures", "pool_measure_rows"]
 
 #: What the interval of a pooled measure is, in words.
-INTERVAL_KIND = "Rubin's rules over the completed data sets: t on Rubin's degrees of freedom (C on the logit scale, O/E on the log scale)"
+INTERVAL_KIND = ("Rubin's rules over the completed data sets: t on Barnard-Rubin degrees of freedom (C on the logit scale, "
+                 "O/E on the log scale)")
 
 
 def _to_scale(estimate: float, se: float, scale: str) -> tuple[float, float]:
@@ -63,7 +68,7 @@ def _from_scale(value: float, scale: str) -> float:
     return value
 
 
-def _pool_one(rows: Sequence[ClusterMeasure], confidence: float) -> tuple[ClusterMeasure, dict[str, Any]]:
+def _pool_one(rows: Sequence[ClusterMeasure], confidence: float, df_complete: float | None) -> tuple[ClusterMeasure, dict[str, Any]]:
     first = rows[0]
     scale = MEASURES[first.measure][1]
     reason = next((r.reason for r in rows if r.reason), "")
@@ -78,7 +83,7 @@ def _pool_one(rows: Sequence[ClusterMeasure], confidence: float) -> tuple[Cluste
         return (ClusterMeasure(first.cluster, first.measure, first.cut, first.threshold, math.nan, math.nan, math.nan, math.nan, why),
                 info | {"df": math.nan, "fmi": math.nan, "riv": math.nan})
     moved = [_to_scale(r.estimate, r.se, scale) for r in rows]
-    pooled = pool(np.array([q for q, _ in moved]), np.array([s * s for _, s in moved]), confidence=confidence)
+    pooled = pool(np.array([q for q, _ in moved]), np.array([s * s for _, s in moved]), confidence=confidence, df_complete=df_complete)
     centre = float(pooled.estimate)
     estimate = _from_scale(centre, scale)
     slope = {"logit": estimate * (1.0 - estimate), "log": estimate}.get(scale, 1.0)
@@ -88,7 +93,7 @@ def _pool_one(rows: Sequence[ClusterMeasure], confidence: float) -> tuple[Cluste
 
 
 def pool_measure_rows(per_imputation: Sequence[Sequence[ClusterMeasure]], *, confidence: float = 0.95,
-                      ) -> tuple[list[ClusterMeasure], pd.DataFrame]:
+                      df_complete: float | None = None) -> tuple[list[ClusterMeasure], pd.DataFrame]:
     """Pool the same measures computed in each of m completed data sets.
 
     Parameters
@@ -99,6 +104,9 @@ def pool_measure_rows(per_imputation: Sequence[Sequence[ClusterMeasure]], *, con
         the same order).
     confidence : float
         Level of the pooled intervals.
+    df_complete : float, optional
+        Complete-data degrees of freedom for Barnard and Rubin's degrees of
+        freedom (the people of the group less 1); Rubin's without it.
 
     Returns
     -------
@@ -115,7 +123,7 @@ def pool_measure_rows(per_imputation: Sequence[Sequence[ClusterMeasure]], *, con
     for rows in zip(*sets):
         if len({(r.measure, r.cut, r.threshold if math.isfinite(r.threshold) else None) for r in rows}) != 1:
             raise DataError("pool_measure_rows: the completed data sets' measures are not in the same order")
-    pooled, info = zip(*(_pool_one(rows, confidence) for rows in zip(*sets))) if sets[0] else ((), ())
+    pooled, info = zip(*(_pool_one(rows, confidence, df_complete) for rows in zip(*sets))) if sets[0] else ((), ())
     return list(pooled), pd.DataFrame(list(info), columns=["measure", "cut", "threshold", "scale", "m", "df", "fmi", "riv"])
 
 
@@ -177,5 +185,5 @@ def imputed_cohort_measures(label: str, y: np.ndarray, probs: Sequence[np.ndarra
     """
     per = [cluster_measures(label, np.asarray(y), np.asarray(p), thresholds=thresholds, min_events=min_events, confidence=confidence)
            for p in probs]
-    pooled, info = pool_measure_rows(per, confidence=confidence)
+    pooled, info = pool_measure_rows(per, confidence=confidence, df_complete=max(len(np.asarray(y)) - 1, 1))
     return ImputedMeasures(label=label, measures=tuple(pooled), pooling=info, m=len(per), confidence=confidence)

@@ -579,7 +579,7 @@ def _imputed_parts(ctx, model: PredictionModel, cohorts: Cohorts, imputed: dict[
         f"every imputation model ({', '.join(f'{label}: {n} completed data sets' for label, n in m.items())}). The table "
         "'Pooled over the imputations' is the primary estimate: each measure was computed in every completed data set "
         "and pooled by Rubin's rules, C on the logit scale and O/E on the log scale (Marshall et al. 2009; Debray et al. "
-        "2017), with t intervals on Rubin's degrees of freedom; with several cohorts, the pooling over them starts from "
+        "2017), with t intervals on Barnard-Rubin degrees of freedom; with several cohorts, the pooling over them starts from "
         "these. The other tables and figures of this page, with their "
         "bootstrap intervals, the case-mix comparison and the comparison with today's rule, are computed on each cohort's "
         "first completed data set: they show the shape of the results, and their intervals do not include the "

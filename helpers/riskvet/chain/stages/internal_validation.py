@@ -266,10 +266,7 @@ def run(ctx) -> InternalValidationOutput:
     validation = validate_internally(study, cohort, n_boot=cfg.n_boot, seed=cfg.seed, n_jobs=n_jobs, progress=progress)
     crossval = None
     notes: list[str] = []
-    if cfg.cv_repeats > 0 and study.imputing:
-        notes.append("cross-validation (internal_validation.cv_repeats) is not run under multiple imputation: the bootstrap, "
-                     "which resamples the incomplete rows and imputes each resample, estimates the optimism")
-    elif cfg.cv_repeats > 0:
+    if cfg.cv_repeats > 0:
         crossval = cross_validate(study, cohort, n_folds=cfg.cv_folds, n_repeats=cfg.cv_repeats,
                                   seed=crossval_seed(cfg.seed), n_jobs=n_jobs, progress=progress)
 

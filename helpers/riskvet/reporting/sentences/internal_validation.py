@@ -127,12 +127,14 @@ def internal_validation_texts(validation: Any, crossval: Any, shrunk: str | None
     }
     texts["imputation"] = imputation_scheme_sentence(validation)
     if crossval is not None:
+        imputed = getattr(validation, "n_imputations", None) is not None
         texts["crossval"] = crossval_sentence(crossval) + (
+            " Under multiple imputation each fold's training rows were imputed and the procedure run on their completed data "
+            "sets, and the held-out fold was imputed on its own (outcome included); a fold's measures are averages over its "
+            "completed data sets, and the pooled held-out predictions are each person's averaged over them." if imputed else "") + (
             " Cross-validation and the bootstrap estimate the same thing by different routes; close agreement "
             "makes either figure more credible."
         )
-    elif getattr(validation, "n_imputations", None) is not None and notes:
-        texts["crossval"] = "Cross-validation was not run: " + notes[0] + "."
     else:
         texts["crossval"] = "Cross-validation was not requested (internal_validation.cv_repeats is 0)."
     if shrunk is not None:

@@ -92,6 +92,10 @@ def _suppression_text(report: MissingDataReport) -> str:
     m = report.min_cell_count
     if m <= 1:
         return "No count is suppressed (the minimum count shown is not set above 1)."
+    if not report.n_suppressed:
+        return (f"No count in these tables is from 1 to {m - 1}, and none could be worked out by adding and subtracting "
+                "the totals (rare combinations of missing values are counted together as other patterns), so nothing is "
+                "suppressed.")
     text = (f"Counts from 1 to {m - 1} are shown as suppressed, and so are further counts from which one could be worked "
             f"out (by adding and subtracting the totals); {report.n_suppressed} count(s) in these tables are suppressed.")
     if report.withheld_columns:
