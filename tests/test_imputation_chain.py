@@ -228,6 +228,8 @@ def test_pages_show_the_missing_data_sections(chain):
     for words in ("Missing data", "Complete cases, as a sensitivity analysis", "Rubin's rules", "Wood, White &amp; Royston 2008"):
         assert words in page, words
     assert (chain.record_dir / "figures" / "derivation" / "imputation_chains.png").is_file()
+    assert "excluded for a missing outcome (missing predictor values were multiply imputed" in page
+    assert "complete-case analysis)" not in page.split("Missing data")[0]
     external = (chain.record_dir / "html" / "06_external_validation.html").read_text(encoding="utf-8")
     assert "Pooled over the imputations" in external
     assert "resample first, then impute" in (chain.record_dir / "html" / "04_internal_validation.html").read_text(encoding="utf-8")

@@ -152,7 +152,8 @@ def test_a_section_missing_from_the_page_is_not_claimed(tmp_path):
     rows = {r["item"]: r for r in tripod_table(tmp_path, results={"derivation": {}}, enabled=STAGES).rows}
     assert [p["section"] for p in rows["15a"]["places"]] == ["Final model"]
     assert rows["9"]["status"] == "for the authors to write"
-    assert rows["9"]["missing"] == "external validation did not run in this record; the derivation page lacks the section \u201cData flow\u201d"
+    assert rows["9"]["missing"] == ("external validation did not run in this record; the derivation page lacks the section "
+                                    "\u201cMissing data\u201d; the derivation page lacks the section \u201cData flow\u201d")
 
 
 def test_frames_and_dicts_are_for_reading(tmp_path):

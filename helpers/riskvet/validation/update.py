@@ -38,7 +38,7 @@ import hashlib
 import math
 import warnings
 from dataclasses import dataclass, field
-from typing import Any, Mapping, Sequence
+from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -865,11 +865,17 @@ def closed_test(fits: Mapping[str, UpdateFit] | Sequence[UpdateFit], *, alpha: f
     by_method = {f.method: f for f in items}
     if "original" not in by_method or len(by_method) < 2:
         raise RiskvetError(problem(f"{func}(fits=)", allowed="the original model and at least one update", received=sorted(by_method)))
+    return _closed_test_by(by_method, a, lambda simpler, extensive, reached: _compare(simpler, extensive, a, reached))
+
+
+def _closed_test_by(by_method: Mapping[str, UpdateFit], a: float, compare: Callable[[UpdateFit, UpdateFit, bool], LRComparison]) -> ClosedTest:
+    """The closed test of :func:`closed_test` with each comparison made by ``compare(simpler, extensive, reached)``
+    (the likelihood-ratio test of one data set, or its pooling over imputations)."""
     ordered = [by_method[m] for m in METHODS if m in by_method]
     original, most = ordered[0], ordered[-1]
     binary = len(original.model.levels) == 2
     most_name = _phrase(most.method, binary)
-    tests = [_compare(original, most, a, True)]
+    tests = [compare(original, most, True)]
     chosen: str | None = None
     if not tests[0].significant:
         chosen = "original"
@@ -878,7 +884,7 @@ def closed_test(fits: Mapping[str, UpdateFit] | Sequence[UpdateFit], *, alpha: f
             f"(LR {tests[0].statistic:.2f}, df {tests[0].df}, {_p_text(tests[0].p)}), so the original model is kept."
         )
     for simpler in ordered[1:-1]:
-        t = _compare(simpler, most, a, chosen is None)
+        t = compare(simpler, most, chosen is None)
         tests.append(t)
         if chosen is None and not t.significant:
             chosen = simpler.method

@@ -178,12 +178,18 @@ def update_study_model(study: Study, model, cohorts) -> UpdateResult:
     if label is None or label not in cohorts.validation:
         raise StudyError(problem("updating.cohort", allowed=f"a validation cohort label among {list(cohorts.validation)}", received=label))
     cohort = cohorts.validation[label]
-    if study.imputing:  # the cohort's first completed data set, imputed as the external validation stage imputes it
+    ev = study.external_validation
+    if study.imputing:  # every completed data set, imputed as the external validation stage imputes the cohort
         from ...imputation.procedure import cohort_seed, completed_cohort, impute_cohort
+        from ...validation.update_imputed import update_model_imputed
 
         position = 1 + list(cohorts.validation).index(label)
-        cohort = completed_cohort(cohort, impute_cohort(study, cohort, seed=cohort_seed(study, position)).completed(0))
-    ev = study.external_validation
+        frames = [completed_cohort(cohort, c).frame for c in impute_cohort(study, cohort, seed=cohort_seed(study, position))]
+        return update_model_imputed(
+            model, frames, cohort.y, alpha=study.updating.alpha, new_predictors=dict(study.updating.new_predictors),
+            cohort=label, n_boot=ev.n_boot, seed=ev.seed, n_jobs=study.compute.n_jobs, scheduler=study.compute.scheduler,
+            max_failed_share=ev.max_failed_share,
+        )
     return update_model(
         model, cohort.frame, cohort.y, alpha=study.updating.alpha, new_predictors=dict(study.updating.new_predictors),
         cohort=label, n_boot=ev.n_boot, seed=ev.seed, n_jobs=study.compute.n_jobs, scheduler=study.compute.scheduler,
@@ -241,10 +247,14 @@ def run(ctx) -> UpdatingOutput:
 
     texts = updating_texts(result, files)
     if study.imputing:
+        m = next((f.model.provenance.get("missing_data", {}).get("m") for f in result.fits.values() if f.method != "original"), None)
         texts["imputed"] = (
-            "The updating cohort's missing predictor values were multiply imputed (see the external validation page), and the "
-            "updates were fitted on its first completed data set: their estimates and tests do not include the uncertainty of "
-            "the imputation, so read close calls between update methods with that in mind."
+            f"The updating cohort's missing predictor values were multiply imputed (see the external validation page), and every "
+            f"update was fitted in each of its completed data sets{f' ({m})' if m else ''}. Each update's model file holds the mean "
+            "of its thresholds and coefficients over them (Rubin's rules), the likelihood-ratio tests of the closed test pool the "
+            "statistics of the completed data sets by the D2 rule (Li, Meng, Raghunathan & Rubin 1991; the statistic shown is k "
+            "times D2), and the apparent performance is the mean over them. The optimism correction is a bootstrap of the first "
+            "completed data set, so it does not include the uncertainty of the imputation."
         )
     out = UpdatingOutput(result=result, model_files=files, figures=figures, texts=texts)
     ctx.write_results(out.to_dict())

@@ -83,7 +83,9 @@ def derivation_texts(
     texts = {
         "flow": (
             f"{cohort.n_screened} people were screened and {cohort.n_analysed} analysed; "
-            f"{cohort.n_screened - cohort.n_analysed} were excluded (complete-case analysis), each counted under the first reason that applied."
+            + (f"{cohort.n_screened - cohort.n_analysed} were excluded for a missing outcome (missing predictor values were "
+               "multiply imputed, so no one was excluded for them)." if getattr(cohort, "missing", "") == "multiple_imputation" else
+               f"{cohort.n_screened - cohort.n_analysed} were excluded (complete-case analysis), each counted under the first reason that applied.")
         ),
         "descriptive": (
             f"Predictors by outcome level; counts below {min_cell_count} are suppressed."

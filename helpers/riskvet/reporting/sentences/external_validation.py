@@ -98,7 +98,9 @@ def external_validation_texts(out: Mapping[str, Any], *, subgroups_named: bool) 
     for label, d in out["data"].items():
         dropped = d["n_screened"] - d["n_analysed"]
         flow.append(
-            f"{label}: {d['n_screened']} rows screened, {dropped} excluded by complete-case analysis, {d['n_analysed']} analysed "
+            f"{label}: {d['n_screened']} rows screened, {dropped} excluded "
+            f"{'for a missing outcome (missing predictor values imputed)' if d.get('missing') == 'multiple_imputation' else 'by complete-case analysis'}, "
+            f"{d['n_analysed']} analysed "
             f"({', '.join(f'{k} {v}' for k, v in d['outcome_counts'].items())})."
         )
     n_cohorts = len(out["data"])
