@@ -279,3 +279,26 @@ def test_check_says_what_the_imputation_will_do(tmp_path, capsys):
     # White, Royston & Wood 2011: m at least the percentage of incomplete cases (at least 5)
     assert f"{share:.1%}" in line and f"m = {imputations_needed(1 - share)} by the rule of thumb" in line
     assert "exclusions (missing outcome only: predictors are imputed)" in printed
+
+
+def test_rows_alike_in_every_completed_data_set_are_kept_once_with_the_same_result(study):
+    # the weighted likelihood of m identical rows of weight w is that of one row of weight m w (common practice)
+    from riskvet.modelling.derive import candidate_design
+    from riskvet.modelling.folds import cluster_codes
+    from riskvet.modelling.selection import select_terms
+
+    cohort = load_cohorts(study).derivation
+    completed = list(impute_cohort(study, cohort, m=3))
+    f = missing_cell_share(cohort.frame, cohort.predictors)
+    derivation = derive_imputed(study, completed, cohort.y, missing_share=f)
+    stacked = pd.concat(completed, ignore_index=True)
+    design = candidate_design(study, stacked)
+    n = len(cohort.y)
+    full = select_terms(design.transform(stacked), np.tile(cohort.y, 3), groups=design.term_columns,
+                        forced=[t for t in study.predictors.forced if t in design.term_columns], method=study.selection.method,
+                        n_folds=study.selection.folds, seed=study.selection.seed, link=study.model.link,
+                        proportional=study.model.proportional, weights=np.full(3 * n, (1 - f) / 3),
+                        clusters=cluster_codes(np.tile(np.arange(n), 3)))
+    assert full.terms == derivation.selection.terms
+    np.testing.assert_allclose(derivation.selection.cv["mean_test_loglik"].to_numpy(), full.cv["mean_test_loglik"].to_numpy(),
+                               rtol=1e-10, atol=1e-12)

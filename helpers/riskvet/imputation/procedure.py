@@ -7,7 +7,8 @@ Rubin's rules.
 
 Variable selection respects the imputations by the *stacked* approach of
 Wood, White & Royston (2008): the m completed data sets are stacked into one
-of m n rows, each row weighted (1 - f) / m, with f the share of the
+of m n rows (a row the same in every completed data set kept once, with m
+times the weight), each row weighted (1 - f) / m, with f the share of the
 candidate predictors' cells that were missing, so that the stacked data
 carry about the information of the observed data; the study's selection
 (forward with cross-validation, backward by AIC, or none) then runs once on
@@ -304,6 +305,30 @@ def _fit_each(study, design, completed: Sequence[pd.DataFrame], y: np.ndarray, *
                            n_levels=len(study.outcome.ordered_levels), firth=firth) for frame in completed]
 
 
+def _stacked_rows(designs: Sequence[pd.DataFrame], y: np.ndarray, ids: np.ndarray, weight: float):
+    """The stacked design rows with their weights, a row the same in every completed data set kept once.
+
+    A person with nothing imputed (or imputed alike every time) has m
+    identical stacked rows of weight (1 - f)/m; one row of weight m times
+    that has the same likelihood, score and information, and the same
+    fold (folds are dealt by person).  With 13% of people incomplete and
+    m = 5 the selection runs on 3,052 rows instead of 9,920 (measured on
+    the demo data), about three times faster.  Returns the rows, outcome
+    codes, weights and the person of each row.
+    """
+    m = len(designs)
+    first = designs[0].to_numpy(dtype=float)
+    same = np.ones(first.shape[0], dtype=bool)
+    for other in designs[1:]:
+        same &= np.all(other.to_numpy(dtype=float) == first, axis=1)
+    parts = [first[same]] + [d.to_numpy(dtype=float)[~same] for d in designs]
+    X = pd.DataFrame(np.vstack(parts), columns=designs[0].columns)
+    y_stacked = np.concatenate([y[same]] + [y[~same]] * m)
+    w = np.concatenate([np.full(int(same.sum()), m * weight), np.full(m * int((~same).sum()), weight)])
+    who = np.concatenate([ids[same]] + [ids[~same]] * m)
+    return X, y_stacked, w, who
+
+
 def derive_imputed(
     study,
     completed: Sequence[pd.DataFrame],
@@ -345,17 +370,17 @@ def derive_imputed(
                                 received=[len(frame) for frame in completed]))
     if not 0.0 <= float(missing_share) < 1.0:
         raise DataError(problem("derive_imputed: missing_share", allowed="a share from 0 up to (not including) 1", received=missing_share))
-    stacked = pd.concat(completed, ignore_index=True)
-    design = candidate_design(study, stacked)
+    design = candidate_design(study, pd.concat(completed, ignore_index=True))  # knots at quantiles of the stacked rows
     ids = np.arange(y.shape[0]) if persons is None else np.asarray(persons)
     weight = (1.0 - float(missing_share)) / m
     firth = study.model.estimation == "firth"
+    # persons numbered in order of first appearance in one data set, so the folds are those of the full stacking
+    X, y_stacked, w, who = _stacked_rows([design.transform(frame) for frame in completed], y, cluster_codes(ids), weight)
     result = select_terms(
-        design.transform(stacked), np.tile(y, m), groups=design.term_columns,
+        X, y_stacked, groups=design.term_columns,
         forced=[t for t in study.predictors.forced if t in design.term_columns], method=study.selection.method,
         n_folds=study.selection.folds, seed=study.selection.seed if seed is None else seed, link=study.model.link,
-        proportional=study.model.proportional, weights=np.full(m * y.shape[0], weight), firth=firth,
-        on_separation="warn", clusters=cluster_codes(np.tile(ids, m)),
+        proportional=study.model.proportional, weights=w, firth=firth, on_separation="warn", clusters=who,
     )
     chosen = set(result.terms)
     final = design.subset([t.name for t in design.terms if t.name in chosen])
