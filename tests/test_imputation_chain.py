@@ -166,10 +166,10 @@ def test_pool_fits_by_hand_and_the_d1_test():
     T = W + 1.25 * B
     assert np.allclose(pooled.params.to_numpy(), P.mean(axis=0)) and np.allclose(pooled.cov.to_numpy(), T)
     assert math.isnan(pooled.loglik) and math.isnan(pooled.aic)
-    # Li, Raghunathan & Rubin 1991 (D1): Wald statistic on T over k, r1 = (1 + 1/m) tr(B W^-1)/k, F(k, v1)
+    # Li, Raghunathan & Rubin 1991 (D1): q' W^-1 q / (k (1 + r1)), r1 = (1 + 1/m) tr(B W^-1)/k, F(k, v1)
     q, k, m = P.mean(axis=0)[1:], 2, 4
-    d1 = q @ np.linalg.solve(T[1:, 1:], q) / k
     r1 = 1.25 * np.trace(B[1:, 1:] @ np.linalg.inv(W[1:, 1:])) / k
+    d1 = q @ np.linalg.solve(W[1:, 1:], q) / (k * (1 + r1))
     t = k * (m - 1)
     v1 = 4 + (t - 4) * (1 + (1 - 2 / t) / r1) ** 2
     assert pooled.lr_test.df == 2 and math.isclose(pooled.lr_test.statistic, k * d1, rel_tol=1e-10)
@@ -302,3 +302,23 @@ def test_rows_alike_in_every_completed_data_set_are_kept_once_with_the_same_resu
     assert full.terms == derivation.selection.terms
     np.testing.assert_allclose(derivation.selection.cv["mean_test_loglik"].to_numpy(), full.cv["mean_test_loglik"].to_numpy(),
                                rtol=1e-10, atol=1e-12)
+
+
+def test_the_complete_case_counts_never_show_a_small_number():
+    from riskvet.chain.stages.imputed import complete_case_sentence, published_counts
+
+    # 996 of 1,000 complete would give away 4 incomplete people (common practice: a count below 5 is not published)
+    info = {"n_complete": 996, "n_analysed": 1000, "terms_imputed": ["age"], "terms_complete_case": ["age"]}
+    shown = published_counts(info, min_cell_count=5)
+    assert shown["n_complete"] == shown["n_analysed"] == "suppressed"
+    text = complete_case_sentence(info, min_cell_count=5)
+    assert "996" not in text and "1,000" not in text and "withheld" in text
+    assert published_counts(info | {"n_complete": 700}, min_cell_count=5)["n_complete"] == 700
+
+
+def test_the_share_of_missing_cells_is_rounded_or_withheld():
+    from riskvet.chain.stages.imputed import _share_words
+
+    # f n p is the number of missing cells: 3 of 8,000 would show a small count, so f is not shown
+    assert "not shown" in _share_words(3 / 8000, cells=3, min_cell_count=5)
+    assert _share_words(0.012345, cells=98.8, min_cell_count=5) == "f = 0.012"

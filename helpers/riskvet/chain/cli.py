@@ -107,10 +107,9 @@ def check_report(study_path: str | Path, *, out=None) -> int:
 
 def _imputation_line(study, cohort) -> str:
     """What multiple imputation will do with a cohort, for ``riskvet check``."""
-    from ..imputation.procedure import imputations_needed
+    from ..imputation.procedure import imputations_needed, incomplete_share
 
-    n = max(len(cohort.y), 1)
-    share = cohort.n_incomplete / n
+    share = incomplete_share(study, cohort.frame)
     m = study.missing_data.m
     rule = imputations_needed(1.0 - share)
     said = f"m = {m} (missing_data.m; the rule of thumb gives {rule})" if m is not None else f"m = {rule} by the rule of thumb"

@@ -62,7 +62,7 @@ from ..modelling.selection import select_terms
 from .chained import Imputations, impute
 from .rubin import PooledImputations, pool
 
-__all__ = ["ImputedDerivation", "cohort_seed", "completed_cohort", "derive_imputed", "impute_cohort", "impute_rows", "imputations_needed",
+__all__ = ["ImputedDerivation", "cohort_seed", "completed_cohort", "incomplete_share", "derive_imputed", "impute_cohort", "impute_rows", "imputations_needed",
            "missing_cell_share", "pool_fits"]
 
 #: Fewest and most imputations the rule of thumb gives.
@@ -126,6 +126,13 @@ def cohort_seed(study, position: int) -> int:
     return int(seed) if position == 0 else int(np.random.SeedSequence([int(seed), int(position)]).generate_state(1)[0])
 
 
+def incomplete_share(study, frame: pd.DataFrame) -> float:
+    """The share of rows missing any column of the imputation models other than the outcome (predictors and auxiliary
+    columns): the share the rule of thumb for m is applied to."""
+    columns = list(study.predictors.in_analysis) + [c for c in study.missing_data.auxiliary if c in frame.columns]
+    return float(frame[columns].isna().any(axis=1).mean()) if len(frame) else 0.0
+
+
 def missing_cell_share(frame: pd.DataFrame, columns: Sequence[str]) -> float:
     """The share f of the cells of ``columns`` that are missing (the f of the stacked weights (1 - f) / m)."""
     cells = frame[list(columns)]
@@ -142,6 +149,16 @@ def _imputation_frame(study, frame: pd.DataFrame, y: np.ndarray) -> tuple[pd.Dat
     data[outcome] = pd.Categorical(np.asarray(y, dtype=np.int64), categories=range(len(study.outcome.ordered_levels)), ordered=True)
     methods = {name: method for name, method in section.methods.items() if data[name].isna().any()}
     return data, methods
+
+
+def _ordered_levels(study, data: pd.DataFrame, methods: dict) -> dict:
+    """Level order of each category imputed by the cumulative model: the study's ``levels`` when listed, else as sorted text."""
+    out = {}
+    for name, method in methods.items():
+        spec = study.predictors.candidates.get(name)
+        if method == "cumulative" and not pd.api.types.is_numeric_dtype(data[name]):
+            out[name] = list(spec.levels) if spec is not None and spec.levels else sorted(data[name].dropna().astype(str).unique())
+    return out
 
 
 def impute_rows(study, frame: pd.DataFrame, y: np.ndarray, *, m: int, seed: int) -> Imputations:
@@ -164,7 +181,7 @@ def impute_rows(study, frame: pd.DataFrame, y: np.ndarray, *, m: int, seed: int)
     section = study.missing_data
     data, methods = _imputation_frame(study, frame, y)
     return impute(data, m=m, seed=seed, iterations=section.iterations, donors=section.donors, methods=methods or None,
-                  outcome=study.outcome.column)
+                  outcome=study.outcome.column, ordered=_ordered_levels(study, data, methods) or None)
 
 
 def impute_cohort(study, cohort, *, m: int | None = None, seed: int | None = None) -> Imputations:
@@ -191,20 +208,28 @@ def impute_cohort(study, cohort, *, m: int | None = None, seed: int | None = Non
                                 received=getattr(cohort, "missing", type(cohort).__name__)))
     section = study.missing_data
     if m is None:
-        m = section.m if section.m is not None else imputations_needed(1.0 - cohort.n_incomplete / max(len(cohort.y), 1))
-    return impute_rows(study, cohort.frame, np.asarray(cohort.y), m=int(m), seed=section.seed if seed is None else int(seed))
+        m = section.m if section.m is not None else imputations_needed(1.0 - incomplete_share(study, cohort.frame))
+    try:
+        return impute_rows(study, cohort.frame, np.asarray(cohort.y), m=int(m), seed=section.seed if seed is None else int(seed))
+    except DataError as exc:
+        raise DataError(f"{cohort.source} ({cohort.label} cohort): cannot impute: {exc}") from None
 
 
-def _pooled_wald(P: np.ndarray, U: np.ndarray, B: np.ndarray, T: np.ndarray, first: int) -> LRTest:
-    """The D1 test (Li, Raghunathan & Rubin 1991) that every coefficient (from column ``first``) is 0, as a chi-squared-like statistic k D1."""
+def _pooled_wald(P: np.ndarray, U: np.ndarray, B: np.ndarray, first: int) -> LRTest:
+    """The D1 test (Li, Raghunathan & Rubin 1991) that every coefficient (from column ``first``) is 0, as a chi-squared-like statistic k D1.
+
+    ``D1 = q' W^-1 q / (k (1 + r1))`` with ``r1 = (1 + 1/m) tr(B W^-1) / k``
+    (W the mean within-imputation covariance, B the between-imputation
+    covariance), referred to ``F(k, v1)``.
+    """
     m, k = P.shape[0], P.shape[1] - first
     if k == 0:
         return LRTest(statistic=0.0, df=0, p=math.nan)
     q = P[:, first:].mean(axis=0)
-    Ts, Us, Bs = T[first:, first:], U[first:, first:], B[first:, first:]
+    Us, Bs = U[first:, first:], B[first:, first:]
     try:
-        d1 = float(q @ np.linalg.solve(Ts, q)) / k
         r1 = (1.0 + 1.0 / m) * float(np.trace(Bs @ np.linalg.inv(Us))) / k
+        d1 = float(q @ np.linalg.solve(Us, q)) / (k * (1.0 + r1))
     except np.linalg.LinAlgError:
         return LRTest(statistic=math.nan, df=k, p=math.nan)
     t = k * (m - 1)
@@ -259,7 +284,7 @@ def pool_fits(fits: Sequence[CumulativeFit], *, df_complete: float | None = None
     pooled = dataclasses.replace(
         first, thresholds=thresholds, coef=coef, params=pd.Series(est, index=index),
         cov=pd.DataFrame(T, index=index, columns=index), se=pd.Series(np.sqrt(np.diag(T)), index=index),
-        loglik=math.nan, loglik_null=math.nan, aic=math.nan, bic=math.nan, lr_test=_pooled_wald(P, U, B, T, n_thresholds),
+        loglik=math.nan, loglik_null=math.nan, aic=math.nan, bic=math.nan, lr_test=_pooled_wald(P, U, B, n_thresholds),
         converged=all(f.converged for f in fits), iterations=max(f.iterations for f in fits),
         n_crossing=max(f.n_crossing for f in fits), separation=separation, warnings=messages,
         loglik_penalized=math.nan, profile=None, profile_confidence=math.nan,

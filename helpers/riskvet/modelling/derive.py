@@ -136,10 +136,13 @@ def check_before_fitting(study: Study, cohort: Any, *, study_file: str | Path | 
 
 
 def _check_before_fitting(study: Study, cohort: Any) -> list[str]:
+    design_rows = cohort
     if getattr(cohort, "missing", "complete_case") == "multiple_imputation":
         from ..intake.data import complete_rows
 
-        cohort = complete_rows(cohort)  # the completed data sets do not exist yet: the design is checked on complete rows
+        # the completed data sets do not exist yet: the design is checked on the complete rows (when there are any);
+        # the folds are checked on every analysed row, as every one is imputed and analysed
+        design_rows = complete_rows(cohort)
     spec = study.predictors
     for name in spec.in_analysis:
         p = spec.candidates[name]
@@ -151,7 +154,8 @@ def _check_before_fitting(study: Study, cohort: Any) -> list[str]:
             hint = f" (the data write it {same[0]!r}; levels are compared exactly, case included)" if same else ""
             raise StudyError(problem(f"predictors.candidates.{name}.reference", allowed=f"one of the levels in the data {seen}", received=p.reference) + hint)
     try:
-        candidate_design(study, cohort.frame)
+        if len(design_rows.y):
+            candidate_design(study, design_rows.frame)
     except DesignError as exc:
         raise StudyError(f"predictors: the design cannot be built on the derivation data ({cohort.source}): {exc}") from None
     # folds are dealt over rows (a weighted row keeps its people together), so rows, not people, are compared

@@ -1889,13 +1889,12 @@ def _derive_on_all_data(study, frame: pd.DataFrame, y: np.ndarray, *, weights: n
 
 def _imputed_original(study, frame: pd.DataFrame, y: np.ndarray, data: Any) -> dict[str, Any]:
     """The original data imputed as the derivation stage imputes them (same m and seed, so the same model)."""
-    from ..imputation.procedure import imputations_needed, impute_rows
+    from ..imputation.procedure import imputations_needed, impute_rows, incomplete_share
 
     if study.data.weight_column is not None or (getattr(data, "weights", None) is not None):
         raise RiskvetError("validate_internally: multiple imputation with frequency weights is not supported")
     section = study.missing_data
-    incomplete = float(frame[list(study.predictors.in_analysis)].isna().any(axis=1).mean()) if len(frame) else 0.0
-    m = section.m if section.m is not None else imputations_needed(1.0 - incomplete)
+    m = section.m if section.m is not None else imputations_needed(1.0 - incomplete_share(study, frame))
     completed = tuple(impute_rows(study, frame, y, m=m, seed=section.seed))
     kind = getattr(data, "cluster_kind", None)
     persons = data.clusters if kind == "person" and getattr(data, "clusters", None) is not None else None

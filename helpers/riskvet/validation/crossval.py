@@ -242,9 +242,13 @@ def _imputed_fold_values(payload: _CVPayload, train: np.ndarray, test: np.ndarra
     frame_t, y_t = payload.frame.iloc[train].reset_index(drop=True), payload.y[train]
     frame_h, y_h = payload.frame.iloc[test].reset_index(drop=True), payload.y[test]
 
+    # a person's visits stay in one fold of the procedure's own cross-validation (data.cluster_kind: person)
+    persons = payload.clusters[train] if payload.clusters is not None and study.data.cluster_kind == "person" else None
+
     def run():
         completed = tuple(impute_rows(study, frame_t, y_t, m=payload.m, seed=sel_seed))
-        return derive_imputed(study, completed, y_t, missing_share=missing_cell_share(frame_t, study.predictors.in_analysis), seed=sel_seed)
+        return derive_imputed(study, completed, y_t, missing_share=missing_cell_share(frame_t, study.predictors.in_analysis),
+                              seed=sel_seed, persons=persons)
 
     derivation, caught = _guarded_derivation(study, y_t, payload.K, None, run)
     held_seed = int(np.random.SeedSequence([sel_seed, 1]).generate_state(1)[0])

@@ -31,7 +31,7 @@ from ...intake.data import expand_cohort, load_cohorts
 from ...reporting.descriptive import descriptive_table
 from ...modelling.derive import Derivation, candidate_parameters
 from .imputed import (complete_case_comparison, complete_case_sentence, complete_case_words, derive_cohort, imputation_settings,
-                      imputed_model_words, imputed_texts, missing_data_section, pooled_apparent, pooled_parameter_columns)
+                      imputed_model_words, imputed_texts, missing_data_section, published_counts, pooled_apparent, pooled_parameter_columns)
 from ...modelling.term_effects import TermEffects, column_label, term_effects, term_label
 from ...errors import RiskvetError, RiskvetWarning
 from ...modelling.modelfile import PredictionModel, model_from_fit, save_model
@@ -261,13 +261,13 @@ def _missing_data_parts(ctx: StageContext, cohort, derivation: Derivation, imput
     parts["section"] = section_parts
     parts["figures"].update(section_parts["figures"])
     parts["results"]["report"] = section_parts["results"]
-    parts["texts"]["missing_data"] = imputed_model_words(settings, derivation)
+    parts["texts"]["missing_data"] = imputed_model_words(settings, derivation, selection_method=study.selection.method)
     if study.missing_data.complete_case_sensitivity:
         table, info = complete_case_comparison(study, cohort, derivation, parameter_table=lambda fit: _parameter_table(fit, levels))
         if table is not None:
             parts["tables"]["complete_case_comparison"] = table.reset_index(drop=True)
         parts["texts"]["complete_case_comparison"] = complete_case_sentence(info, min_cell_count=study.output.min_cell_count)
-        parts["results"]["complete_case_sensitivity"] = info
+        parts["results"]["complete_case_sensitivity"] = published_counts(info, min_cell_count=study.output.min_cell_count)
     return parts
 
 

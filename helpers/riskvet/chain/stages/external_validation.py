@@ -573,10 +573,11 @@ def _imputed_parts(ctx, model: PredictionModel, cohorts: Cohorts, imputed: dict[
         pooled[label] = imputed_cohort_measures(label, np.asarray(part["cohort"].y), probs, thresholds=_thresholds(study),
                                                 min_events=max(1, study.output.min_cell_count))
         missing[label] = missing_data_section(ctx, part["imputations"], cohort=part["cohort"], label=label)
-    m = {label: imputed[label]["imputations"].m for label in cohorts.validation}
+    m = {label: (f"{imputed[label]['imputations'].m} completed data sets" if imputed[label]["cohort"].n_incomplete
+                 else "nothing was missing, so its completed data sets are the data as recorded") for label in cohorts.validation}
     texts = {"imputed": (
         "Missing predictor values of each validation cohort were multiply imputed on that cohort alone, with the outcome in "
-        f"every imputation model ({', '.join(f'{label}: {n} completed data sets' for label, n in m.items())}). The table "
+        f"every imputation model ({'; '.join(f'{label}: {words}' for label, words in m.items())}). The table "
         "'Pooled over the imputations' is the primary estimate: each measure was computed in every completed data set "
         "and pooled by Rubin's rules, C on the logit scale and O/E on the log scale (Marshall et al. 2009; Debray et al. "
         "2017), with t intervals on Barnard-Rubin degrees of freedom; with several cohorts, the pooling over them starts from "

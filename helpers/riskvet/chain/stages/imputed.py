@@ -38,7 +38,7 @@ from ...modelling.term_effects import column_label
 
 __all__ = ["ImputedData", "imputed_texts", "complete_case_comparison", "complete_case_sentence", "complete_case_words", "derive_cohort",
            "imputation_settings", "imputed_model_words", "missing_data_section", "page_items", "pooled_apparent",
-           "pooled_parameter_columns"]
+           "pooled_parameter_columns", "published_counts"]
 
 
 @dataclass(frozen=True)
@@ -77,8 +77,10 @@ def imputation_settings(study, imputed: ImputedData, derivation) -> dict[str, An
         "iterations": imp.iterations, "seed": imp.seed, "donors": imp.donors,
         "methods": {str(k): v for k, v in imp.methods.items()}, "auxiliary": list(section.auxiliary),
         "outcome_in_imputation_models": True,
-        "selection": f"stacked completed data sets, each row weighted (1 - f) / m = {derivation.stacked_weight:.6g} "
-                     f"(f = {derivation.missing_share:.6g}, the share of missing predictor cells)",
+        "selection": "stacked completed data sets, each row weighted (1 - f) / m, f the share of missing predictor cells",
+        "missing_share_words": _share_words(
+            derivation.missing_share, cells=derivation.missing_share * len(imputed.imputations.frame) * len(study.predictors.in_analysis),
+            min_cell_count=study.output.min_cell_count),
         "pooling": "Rubin's rules: mean estimate, total covariance W + (1 + 1/m) B",
     }
 
@@ -124,10 +126,12 @@ def complete_case_comparison(study, cohort, derivation, *, parameter_table: Call
     """
     keep = cohort.frame[list(cohort.predictors)].notna().all(axis=1).to_numpy()
     info: dict[str, Any] = {"n_complete": int(keep.sum()), "n_analysed": int(len(keep)), "terms_imputed": list(derivation.terms)}
+    person = cohort.clusters is not None and cohort.cluster_kind == "person"
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RiskvetWarning)
-            cc = derive(study, cohort.frame.loc[keep].reset_index(drop=True), np.asarray(cohort.y)[keep])
+            cc = derive(study, cohort.frame.loc[keep].reset_index(drop=True), np.asarray(cohort.y)[keep],
+                        clusters=cluster_codes(cohort.clusters[keep]) if person else None)
     except RiskvetError as exc:
         return None, info | {"terms_complete_case": None, "reason": str(exc).splitlines()[0]}
     info["terms_complete_case"] = list(cc.terms)
@@ -164,10 +168,21 @@ def complete_case_words(cohort) -> str:
     )
 
 
-def complete_case_sentence(info: dict[str, Any], *, min_cell_count: int) -> str:
-    """The sensitivity analysis on the complete cases, in words."""
+def published_counts(info: dict[str, Any], *, min_cell_count: int) -> dict[str, Any]:
+    """The complete-case counts as the record may show them: both withheld when either the complete or the incomplete
+    people number from 1 to ``min_cell_count - 1`` (one gives the other away by subtraction)."""
     n, total = info["n_complete"], info["n_analysed"]
-    people = "fewer than the minimum cell count of people" if 0 < n < min_cell_count else f"{n:,} of the {total:,} people analysed"
+    if 0 < n < min_cell_count or 0 < total - n < min_cell_count:
+        return info | {"n_complete": "suppressed", "n_analysed": "suppressed"}
+    return info
+
+
+def complete_case_sentence(info: dict[str, Any], *, min_cell_count: int) -> str:
+    """The sensitivity analysis on the complete cases, in words (counts that would show a small number withheld)."""
+    shown = published_counts(info, min_cell_count=min_cell_count)
+    n, total = shown["n_complete"], shown["n_analysed"]
+    people = ("the people with every predictor recorded; their number is withheld, as it would show a count below the "
+              "minimum cell count" if n == "suppressed" else f"{n:,} of the {total:,} people analysed")
     if info.get("terms_complete_case") is None:
         return (f"As a sensitivity analysis the procedure was to run again on the complete cases ({people}), but it could not: "
                 f"{info.get('reason', 'no reason was given')}.")
@@ -175,8 +190,8 @@ def complete_case_sentence(info: dict[str, Any], *, min_cell_count: int) -> str:
     chosen = ("it chose the same terms as the imputed analysis" if same else
               f"it chose {', '.join(info['terms_complete_case']) or 'no term'} (the imputed analysis: {', '.join(info['terms_imputed']) or 'no term'})")
     return (
-        f"As a sensitivity analysis the whole procedure ran again on the complete cases alone ({people} with every predictor "
-        f"recorded); {chosen}. The table sets the estimates side by side (an empty cell: the term was not chosen there). The "
+        f"As a sensitivity analysis the whole procedure ran again on the complete cases alone ({people}"
+        f"{'' if n == 'suppressed' else ' with every predictor recorded'}); {chosen}. The table sets the estimates side by side (an empty cell: the term was not chosen there). The "
         "imputed analysis is the primary one: complete cases are fewer, and are a biased sample unless values are missing "
         "completely at random; large differences between the two say that the way values went missing matters."
     )
@@ -191,6 +206,7 @@ def missing_data_section(ctx, imputations: Imputations, *, cohort, label: str) -
     study = ctx.study
     min_cell = study.output.min_cell_count
     columns = list(cohort.predictors) + [c for c in cohort.auxiliary if c not in cohort.predictors]
+    columns += [c for c in getattr(cohort, "new_predictors", ()) if c in imputations.frame.columns and c not in columns]
     report = missing_data_report(imputations, columns=columns, min_cell_count=min_cell, cohort_label=label,
                                  auxiliary=tuple(cohort.auxiliary))
     suffix = "" if label == "derivation" else f"_{_safe(label)}"
@@ -215,21 +231,32 @@ def _safe(label: str) -> str:
     return "".join(c if c.isalnum() or c in "-_" else "_" for c in label)
 
 
-def imputed_model_words(settings: dict[str, Any], derivation) -> str:
+def _share_words(share: float, *, cells: float, min_cell_count: int) -> str:
+    """The share of missing predictor cells in words, to two significant figures, or withheld when the number of
+    missing cells it stands for is from 1 to ``min_cell_count - 1``."""
+    count = int(round(cells))
+    if 0 < count < min_cell_count:
+        return "fewer than the minimum cell count of values were missing, so f is not shown"
+    return f"f = {float(f'{share:.2g}'):g}"
+
+
+def imputed_model_words(settings: dict[str, Any], derivation, *, selection_method: str) -> str:
     """How the model was derived on the imputed data, for the derivation page."""
     m = settings["m"]
-    rule = ("the number of imputations is the percentage of people with a missing predictor value, at least 5 (White, Royston "
+    rule = ("the number of imputations is the percentage of people with a missing value, at least 5 (White, Royston "
             "& Wood 2011)" if settings["m_rule"] != "given in the study" else "the number of imputations is the study file's missing_data.m")
+    folds = (", with the cross-validation folds keeping a person's copies together" if selection_method == "forward" else "")
+    how = {"forward": "Forward selection ran once", "backward": "Backward elimination by AIC ran once"}.get(selection_method)
+    selection = (f"{how} on the {m} completed data sets stacked, every row weighted (1 - f)/m, f the share of the candidate "
+                 f"predictors' values that were missing ({settings['missing_share_words']}; Wood, White & Royston 2008){folds}. "
+                 "The chosen terms were then" if how else "Every candidate term is in the model (selection.method: none); the terms were")
     return (
         f"Missing predictor values were multiply imputed by chained equations ({m} completed data sets, {settings['iterations']} "
-        f"cycles, seed {settings['seed']}; {rule}). Variable selection ran once on the {m} completed data sets stacked, every row "
-        f"weighted (1 - f)/m = {derivation.stacked_weight:.3g}, where f = {derivation.missing_share:.3f} is the share of the "
-        "candidate predictors' values that were missing (Wood, White & Royston 2008), with the cross-validation folds keeping a "
-        "person's copies together. The chosen terms were then fitted in each completed data set and the estimates pooled by "
+        f"cycles, seed {settings['seed']}; {rule}). {selection} fitted in each completed data set and the estimates pooled by "
         "Rubin's rules: the mean estimate, and a variance adding the spread between imputations to the mean variance within "
         "them. Spline bases and category codes were computed from the imputed values in each completed data set, never imputed "
         "themselves. Apparent measures are averages over the completed data sets; the figures show each person's predicted "
-        "risks averaged over them."
+        "risks averaged over them; the proportional-odds checks (a diagnostic) ran on the first completed data set."
     )
 
 

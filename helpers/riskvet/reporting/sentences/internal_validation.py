@@ -157,9 +157,10 @@ def imputation_scheme_sentence(validation: Any) -> str:
         return ""
     return (
         f"Missing predictor values were multiply imputed ({m} completed data sets). Each replicate drew its resample from "
-        f"the incomplete rows and imputed that resample {m} times on its own before the whole procedure ran on it (resample "
-        "first, then impute: the scheme the comparison of Wahl et al. 2016 recommends), so the rows a replicate's model is "
-        "tested on never informed the imputation of the rows it was derived from. The replicate model was then measured in each "
+        f"all the rows as recorded, missing values included, and imputed that resample {m} times on its own before the whole "
+        "procedure ran on it (resample first, then impute: the scheme the comparison of Wahl et al. 2016 recommends), so the "
+        "imputation of the rows a replicate's model is derived from uses those rows only; the original data it is tested on "
+        "were imputed separately, once for the whole analysis. The replicate model was then measured in each "
         "completed data set of its resample and of the original data, and each measure averaged over them; the values in the "
         "derivation data are averages over the original data's completed data sets in the same way."
     )
