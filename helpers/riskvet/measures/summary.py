@@ -13,6 +13,7 @@ needs raise :class:`riskvet.errors.DataError`, everywhere.
 
 from __future__ import annotations
 
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
@@ -31,7 +32,7 @@ from .discrimination import (
 from ..errors import DataError, problem
 from .overall import _brier_parts, _log_likelihoods, _r2, _scaled
 
-__all__ = ["performance_summary", "summary_keys"]
+__all__ = ["average_summaries", "performance_summary", "summary_keys"]
 
 
 def summary_keys(n_levels: int) -> tuple[str, ...]:
@@ -144,3 +145,16 @@ def performance_summary(y: Any, prob: Any) -> dict[str, float]:
         out[f"ici_cut{j}"] = icis[j]
     out["n_fit_warnings"] = float(n_warn)
     return out
+
+
+def average_summaries(summaries: Sequence[Mapping[str, float]]) -> dict[str, float]:
+    """Measures computed in each of several completed data sets, averaged key by key (Rubin's rule for a point estimate).
+
+    Every summary must hold the same keys; a measure undefined (NaN) in one
+    completed data set is undefined in the average.
+    """
+    summaries = list(summaries)
+    if not summaries or any(set(s) != set(summaries[0]) for s in summaries):
+        raise DataError(problem("average_summaries(summaries=)", allowed="one or more summaries with the same measures",
+                                received=[sorted(s) for s in summaries][:2]))
+    return {key: float(np.mean([s[key] for s in summaries])) for key in summaries[0]}

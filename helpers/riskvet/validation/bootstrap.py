@@ -54,6 +54,7 @@ import pandas as pd
 from .._jsonable import to_jsonable
 from ..errors import DataError, DesignError, FitError, RiskvetError, RiskvetWarning, StudyError, problem
 from ..modelling.folds import cluster_codes, cluster_members, draw_clusters
+from ..measures.summary import average_summaries
 
 __all__ = [
     "MeasureEstimate",
@@ -1524,11 +1525,6 @@ def _replicate_values(payload: _Payload, idx: np.ndarray, sel_seed: int) -> dict
     )
 
 
-def _mean_measures(dicts: Sequence[dict[str, float]]) -> dict[str, float]:
-    """Measures averaged over the completed data sets (Rubin's rule for a point estimate)."""
-    return {k: float(np.mean([d[k] for d in dicts])) for k in dicts[0]}
-
-
 def _imputed_measures(payload: _Payload, derivation, completed_b: Sequence[pd.DataFrame], y_b: np.ndarray,
                       oob_rows: np.ndarray) -> tuple[dict, dict, dict, np.ndarray, np.ndarray, Counter]:
     """The replicate model's measures on each completed resample, each completed original and its rows out of bag, averaged."""
@@ -1548,8 +1544,30 @@ def _imputed_measures(payload: _Payload, derivation, completed_b: Sequence[pd.Da
         boots.append(b), tests.append(t), oobs.append(o), briers.append(brier), logps.append(logp)
         for c in (w1, w2, w3):
             caught.update({f"measure:{k}": v for k, v in c.items()})
-    return (_mean_measures(boots), _mean_measures(tests), _mean_measures(oobs), np.mean(briers, axis=0),
+    return (average_summaries(boots), average_summaries(tests), average_summaries(oobs), np.mean(briers, axis=0),
             np.mean(logps, axis=0), caught)
+
+
+def _imputed_split(study, frame: pd.DataFrame, y: np.ndarray, train: np.ndarray, test: np.ndarray, *, m: int, K: int,
+                   sel_seed: int, persons: np.ndarray | None = None):
+    """One split under multiple imputation (a cross-validation fold, a left-out cluster): the training rows imputed and
+    the procedure run on their m completed data sets, then the held-out rows imputed on their own (outcome included,
+    as new data would be) and predicted in each of theirs.  The training imputation and the selection folds draw from
+    ``sel_seed``, the held-out imputation from a stream of its own.  Returns (derivation, warning counts, list of
+    (probabilities, linear predictor) per held-out completed data set); failures are _ReplicateFailed."""
+    from ..imputation.procedure import derive_imputed, impute_rows, missing_cell_share
+
+    frame_t, y_t = frame.iloc[train].reset_index(drop=True), y[train]
+    frame_h, y_h = frame.iloc[test].reset_index(drop=True), y[test]
+
+    def run():
+        completed = tuple(impute_rows(study, frame_t, y_t, m=m, seed=sel_seed))
+        return derive_imputed(study, completed, y_t, missing_share=missing_cell_share(frame_t, study.predictors.in_analysis),
+                              seed=sel_seed, persons=persons)
+
+    derivation, caught = _guarded_derivation(study, y_t, K, None, run)
+    held_seed = int(np.random.SeedSequence([sel_seed, 1]).generate_state(1)[0])
+    return derivation, caught, [_guarded_predict(derivation, c) for c in impute_rows(study, frame_h, y_h, m=m, seed=held_seed)]
 
 
 def _replicate_values_imputed(payload: _Payload, idx: np.ndarray, sel_seed: int) -> dict[str, Any]:
@@ -1792,7 +1810,7 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
     link = study.model.link
     n = len(frame)
 
-    imputing = _imputed_original(study, frame, y, data) if study.imputing else None
+    imputing = _imputed_original(study, frame, y, data, w, func) if study.imputing else None
     apparent_derivation, prob, lp, trouble = _derive_on_all_data(study, frame, y, weights=w, clusters=codes, imputing=imputing)
     apparent_warnings = tuple(dict.fromkeys(f"{m.category.__name__}: {m.message}" for m in trouble))
     for m in trouble:  # statistical trouble of the model on all data is shown as well as recorded
@@ -1801,7 +1819,7 @@ def validate_internally(study, data, *, n_boot: int, seed: int, n_jobs: int = 1,
     if imputing is None:
         apparent, _ = _measures(y[people], prob[people], lp[people] if lp.ndim == 1 else None, K=K, link=link)
     else:  # the measures in each completed data set, averaged; prob and lp below are the averages over them
-        apparent = _mean_measures([_measures(y, pj, lj if lj.ndim == 1 else None, K=K, link=link)[0] for pj, lj in zip(prob, lp)])
+        apparent = average_summaries([_measures(y, pj, lj if lj.ndim == 1 else None, K=K, link=link)[0] for pj, lj in zip(prob, lp)])
         prob, lp = prob.mean(axis=0), lp.mean(axis=0)
 
     specs = _measure_specs(levels)
@@ -1887,12 +1905,13 @@ def _derive_on_all_data(study, frame: pd.DataFrame, y: np.ndarray, *, weights: n
     return derivation, prob, lp, [w for w in seen if issubclass(w.category, RiskvetWarning)]
 
 
-def _imputed_original(study, frame: pd.DataFrame, y: np.ndarray, data: Any) -> dict[str, Any]:
+def _imputed_original(study, frame: pd.DataFrame, y: np.ndarray, data: Any, weights: np.ndarray | None, func: str) -> dict[str, Any]:
     """The original data imputed as the derivation stage imputes them (same m and seed, so the same model)."""
     from ..imputation.procedure import imputations_needed, impute_rows, incomplete_share
 
-    if study.data.weight_column is not None or (getattr(data, "weights", None) is not None):
-        raise RiskvetError("validate_internally: multiple imputation with frequency weights is not supported")
+    if weights is not None:  # a study file refuses the pair; weights passed beside a (frame, y) pair are refused here
+        raise RiskvetError(problem(f"{func}(weights=)", allowed="None under multiple imputation (frequency weights are not supported with it)",
+                                   received="weights"))
     section = study.missing_data
     m = section.m if section.m is not None else imputations_needed(1.0 - incomplete_share(study, frame))
     completed = tuple(impute_rows(study, frame, y, m=m, seed=section.seed))

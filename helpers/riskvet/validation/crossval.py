@@ -53,11 +53,9 @@ from .bootstrap import (
     _failure_message,
     _failure_reason,
     _fit_and_predict,
-    _guarded_derivation,
-    _guarded_predict,
     _imputed_original,
+    _imputed_split,
     _mean,
-    _mean_measures,
     _measure_specs,
     _measures,
     _people,
@@ -66,6 +64,7 @@ from .bootstrap import (
     _spread,
 )
 from ..errors import DesignError, RiskvetError, problem
+from ..measures.summary import average_summaries
 from ..modelling.folds import cluster_folds
 
 __all__ = ["CrossValidationEstimate", "CrossValidation", "cross_validate", "stratified_folds"]
@@ -233,33 +232,21 @@ def _fold(payload: _CVPayload, item: tuple[int, int, int]) -> dict[str, Any]:
 
 
 def _imputed_fold_values(payload: _CVPayload, train: np.ndarray, test: np.ndarray, sel_seed: int) -> dict[str, Any]:
-    """One fold under multiple imputation: the training rows imputed and the procedure run on their completed data
-    sets, the held-out rows imputed on their own (outcome included), and the measures in each of the held-out rows'
-    completed data sets averaged.  The pooled held-out predictions are each person's averaged over them."""
-    from ..imputation.procedure import derive_imputed, impute_rows, missing_cell_share
-
+    """One fold under multiple imputation (:func:`riskvet.validation.bootstrap._imputed_split`): the measures in each of
+    the held-out rows' completed data sets averaged; the pooled held-out predictions are each person's averaged over them."""
     study = payload.study
-    frame_t, y_t = payload.frame.iloc[train].reset_index(drop=True), payload.y[train]
-    frame_h, y_h = payload.frame.iloc[test].reset_index(drop=True), payload.y[test]
-
     # a person's visits stay in one fold of the procedure's own cross-validation (data.cluster_kind: person)
     persons = payload.clusters[train] if payload.clusters is not None and study.data.cluster_kind == "person" else None
-
-    def run():
-        completed = tuple(impute_rows(study, frame_t, y_t, m=payload.m, seed=sel_seed))
-        return derive_imputed(study, completed, y_t, missing_share=missing_cell_share(frame_t, study.predictors.in_analysis),
-                              seed=sel_seed, persons=persons)
-
-    derivation, caught = _guarded_derivation(study, y_t, payload.K, None, run)
-    held_seed = int(np.random.SeedSequence([sel_seed, 1]).generate_state(1)[0])
-    predicted = [_guarded_predict(derivation, c) for c in impute_rows(study, frame_h, y_h, m=payload.m, seed=held_seed)]
+    _, caught, predicted = _imputed_split(study, payload.frame, payload.y, train, test, m=payload.m, K=payload.K,
+                                          sel_seed=sel_seed, persons=persons)
+    y_h = payload.y[test]
     values = []
     for prob, lp in predicted:
         v, measure_warnings = _measures(y_h, prob, lp if lp.ndim == 1 else None, K=payload.K, link=payload.link)
         values.append(v)
         caught.update({f"measure:{k}": n for k, n in measure_warnings.items()})
     return dict(status="ok", rows=test, prob=np.mean([p for p, _ in predicted], axis=0), lp=np.mean([q for _, q in predicted], axis=0),
-                values=_mean_measures(values), warnings=dict(caught))
+                values=average_summaries(values), warnings=dict(caught))
 
 
 def _fold_values(payload: _CVPayload, r: int, f: int, sel_seed: int) -> dict[str, Any]:
@@ -366,7 +353,7 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
 
     folds, items = _draw_folds(y, n_folds=n_folds, n_repeats=n_repeats, seed=seed, clusters=codes, func=func)
 
-    imputing = _imputed_original(study, frame, y, data) if study.imputing else None
+    imputing = _imputed_original(study, frame, y, data, w, func) if study.imputing else None
     _, prob_all, lp_all, trouble = _derive_on_all_data(study, frame, y, weights=w, clusters=codes, imputing=imputing)
     apparent_warnings = tuple(dict.fromkeys(f"{m.category.__name__}: {m.message}" for m in trouble))
     for m in trouble:
@@ -375,7 +362,7 @@ def cross_validate(study, data, *, n_folds: int, n_repeats: int = 1, seed: int, 
     if imputing is None:
         apparent, _ = _measures(y[people], prob_all[people], lp_all[people] if lp_all.ndim == 1 else None, K=K, link=link)
     else:  # measured in each completed data set of the original data and averaged, as the bootstrap does
-        apparent = _mean_measures([_measures(y, pj, lj if lj.ndim == 1 else None, K=K, link=link)[0] for pj, lj in zip(prob_all, lp_all)])
+        apparent = average_summaries([_measures(y, pj, lj if lj.ndim == 1 else None, K=K, link=link)[0] for pj, lj in zip(prob_all, lp_all)])
         lp_all = lp_all[0]
 
     specs = _measure_specs(levels)

@@ -63,9 +63,8 @@ from .bootstrap import (
     _failure_message,
     _failure_reason,
     _fit_and_predict,
-    _guarded_derivation,
-    _guarded_predict,
     _imputed_original,
+    _imputed_split,
     _people,
     _ReplicateFailed,
 )
@@ -387,25 +386,6 @@ class _IECVPayload:
     m: int = 0
 
 
-def _imputed_left_out(payload: _IECVPayload, train: np.ndarray, test: np.ndarray, sel_seed: int):
-    """Under multiple imputation: the other clusters imputed and the model derived on them, then the left-out
-    cluster imputed on its own (outcome included, as a new site's data would be) and predicted in each of its
-    completed data sets.  Returns (derivation, list of probabilities)."""
-    from ..imputation.procedure import derive_imputed, impute_rows, missing_cell_share
-
-    study = payload.study
-    frame_t, y_t = payload.frame.iloc[train].reset_index(drop=True), payload.y[train]
-    frame_g, y_g = payload.frame.iloc[test].reset_index(drop=True), payload.y[test]
-
-    def run():
-        completed = tuple(impute_rows(study, frame_t, y_t, m=payload.m, seed=sel_seed))
-        return derive_imputed(study, completed, y_t, missing_share=missing_cell_share(frame_t, study.predictors.in_analysis), seed=sel_seed)
-
-    derivation, _ = _guarded_derivation(study, y_t, payload.K, None, run)
-    held_seed = int(np.random.SeedSequence([sel_seed, 1]).generate_state(1)[0])
-    return derivation, [_guarded_predict(derivation, c)[0] for c in impute_rows(study, frame_g, y_g, m=payload.m, seed=held_seed)]
-
-
 def _left_out(payload: _IECVPayload, item: tuple[int, int]) -> dict[str, Any]:
     """Derive on every cluster but g; predict g.  Any error is the cluster's counted failure, with its reason."""
     g, sel_seed = item
@@ -414,8 +394,9 @@ def _left_out(payload: _IECVPayload, item: tuple[int, int]) -> dict[str, Any]:
     w = payload.weights
     try:
         if payload.m:
-            derivation, probs = _imputed_left_out(payload, train, test, sel_seed)
-            return {"cluster": g, "status": "ok", "probs": probs, "terms": tuple(derivation.terms)}
+            derivation, _, predicted = _imputed_split(payload.study, payload.frame, payload.y, train, test, m=payload.m,
+                                                      K=payload.K, sel_seed=sel_seed)
+            return {"cluster": g, "status": "ok", "probs": [p for p, _ in predicted], "terms": tuple(derivation.terms)}
         derivation, prob, _, _ = _fit_and_predict(
             payload.study, payload.frame.iloc[train].reset_index(drop=True), payload.y[train],
             payload.frame.iloc[test].reset_index(drop=True), sel_seed, payload.K,
@@ -556,7 +537,7 @@ def internal_external_validation(study, data, *, seed: int | None = None, n_jobs
     G = len(labels)
     items = [(g, int(np.random.default_rng(child).integers(0, _SEED_CEILING)))
              for g, child in enumerate(np.random.SeedSequence(seed).spawn(G))]
-    imputing = _imputed_original(study, frame, y, data) if study.imputing else None
+    imputing = _imputed_original(study, frame, y, data, w, func) if study.imputing else None
     payload = _IECVPayload(study=study, frame=frame, y=y, K=K, codes=codes, weights=w,
                            m=0 if imputing is None else len(imputing["completed"]))
     results = list(_execute(_left_out, payload, items, n_jobs=n_jobs, scheduler=study.compute.scheduler,

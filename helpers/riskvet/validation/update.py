@@ -485,6 +485,17 @@ def _check_alpha(alpha: Any, func: str) -> float:
     return float(alpha)
 
 
+def _check_boot_options(n_boot: Any, seed: Any, max_failed_share: Any, func: str) -> None:
+    """Refuse bootstrap settings :func:`update_model` cannot use: a negative or fractional ``n_boot``, no seed for a
+    bootstrap, a failure share outside 0 to 1."""
+    if isinstance(n_boot, bool) or not isinstance(n_boot, (int, np.integer)) or n_boot < 0:
+        raise RiskvetError(problem(f"{func}(n_boot=)", allowed="a whole number >= 0", received=n_boot))
+    if n_boot > 0 and (seed is None or isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0):
+        raise RiskvetError(problem(f"{func}(seed=)", allowed="a non-negative integer when n_boot > 0", received=seed))
+    if isinstance(max_failed_share, bool) or not isinstance(max_failed_share, (int, float, np.floating)) or not 0.0 <= float(max_failed_share) <= 1.0:
+        raise RiskvetError(problem(f"{func}(max_failed_share=)", allowed="a share between 0 and 1", received=max_failed_share))
+
+
 def _loglik(model: PredictionModel, lp: np.ndarray, y: np.ndarray) -> float:
     prob = model.proba_from_lp(lp)
     with np.errstate(divide="ignore"):
@@ -918,6 +929,15 @@ def _summary(y: np.ndarray, prob: np.ndarray) -> dict[str, float]:
     return performance_summary(y, prob)
 
 
+def _performance_table(rows: Sequence[Mapping[str, Any]]) -> pd.DataFrame:
+    """The apparent performance of every update, with its optimism and corrected columns still empty."""
+    table = pd.DataFrame(list(rows), columns=["method", "measure", "cut", "apparent"])
+    table["cut"] = table["cut"].astype("Int64")
+    table["optimism"] = np.nan
+    table["corrected"] = np.nan
+    return table
+
+
 def _summary_rows(method: str, values: Mapping[str, float]) -> list[dict[str, Any]]:
     rows = []
     for key, value in values.items():
@@ -1084,12 +1104,7 @@ def update_model(
     a = _check_alpha(alpha, func)
     if not isinstance(frame, pd.DataFrame):
         raise DataError(problem(f"{func}(frame=)", allowed="a pandas DataFrame", received=type(frame).__name__))
-    if isinstance(n_boot, bool) or not isinstance(n_boot, (int, np.integer)) or n_boot < 0:
-        raise RiskvetError(problem(f"{func}(n_boot=)", allowed="a whole number >= 0", received=n_boot))
-    if n_boot > 0 and (seed is None or isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0):
-        raise RiskvetError(problem(f"{func}(seed=)", allowed="a non-negative integer when n_boot > 0", received=seed))
-    if isinstance(max_failed_share, bool) or not isinstance(max_failed_share, (int, float, np.floating)) or not 0.0 <= float(max_failed_share) <= 1.0:
-        raise RiskvetError(problem(f"{func}(max_failed_share=)", allowed="a share between 0 and 1", received=max_failed_share))
+    _check_boot_options(n_boot, seed, max_failed_share, func)
     new_predictors = dict(new_predictors or {})
     missing_cols = [c for c in new_predictors if c not in frame.columns]
     if missing_cols:
@@ -1113,10 +1128,7 @@ def update_model(
     rows: list[dict[str, Any]] = []
     for method, fit in fits.items():
         rows += _summary_rows(method, _summary(yy, fit.model.predict_proba(frame_used)))
-    table = pd.DataFrame(rows, columns=["method", "measure", "cut", "apparent"])
-    table["cut"] = table["cut"].astype("Int64")
-    table["optimism"] = np.nan
-    table["corrected"] = np.nan
+    table = _performance_table(rows)
     performance, boot_notes = _bootstrap_correction(
         _UpdateReplicate(model, frame_used, yy, new_predictors, a, cohort), table, chosen=test.chosen, methods=list(fits),
         n_boot=int(n_boot), seed=seed, n_jobs=n_jobs, scheduler=scheduler, max_failed_share=float(max_failed_share),

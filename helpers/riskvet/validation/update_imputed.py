@@ -37,7 +37,9 @@ import pandas as pd
 from scipy import stats
 
 from ..errors import DataError, RiskvetError, RiskvetWarning, problem
+from ..imputation.rubin import pool
 from ..measures.calibration import ordinal_calibration
+from ..measures.summary import average_summaries
 from .update import (
     _OPTIMISM_NOTE,
     LRComparison,
@@ -45,10 +47,12 @@ from .update import (
     UpdateResult,
     _bootstrap_correction,
     _check_alpha,
+    _check_boot_options,
     _check_model,
     _check_y,
     _closed_test_by,
     _fit_all,
+    _performance_table,
     _replace,
     _summary,
     _summary_rows,
@@ -114,21 +118,23 @@ def _pool_fit(method: str, fits: Sequence[UpdateFit], m: int) -> UpdateFit:
     provenance = dict(first.provenance) | {"missing_data": {
         "m": m, "pooling": "Rubin's rules: the mean of the update's thresholds and coefficients over the completed data sets"}}
     model = first if method == "original" else _replace(first, thresholds=thresholds, coef=coef, provenance=provenance)
-    numeric = {k: float(np.mean([f.parameters[k] for f in fits])) for k, v in fits[0].parameters.items()
-               if isinstance(v, (int, float, np.floating)) and not isinstance(v, bool)}
-    for key in [k for k in numeric if k.endswith("_se") and k[:-3] in numeric]:
-        # Rubin's total variance: the mean within-imputation variance plus (1 + 1/m) times the between-imputation one
-        estimates = [float(f.parameters[key[:-3]]) for f in fits]
-        within = float(np.mean([float(f.parameters[key]) ** 2 for f in fits]))
-        numeric[key] = math.sqrt(within + (1.0 + 1.0 / len(fits)) * float(np.var(estimates, ddof=1)))
-    listed = {k: np.mean([np.asarray(f.parameters[k], dtype=float) for f in fits], axis=0).tolist()
-              for k, v in fits[0].parameters.items() if isinstance(v, (list, tuple, np.ndarray))}
-    for key in [k for k in listed if k.endswith("_se") and k[:-3] in listed]:
-        estimates = np.array([np.asarray(f.parameters[key[:-3]], dtype=float) for f in fits])
-        within = np.mean([np.asarray(f.parameters[key], dtype=float) ** 2 for f in fits], axis=0)
-        listed[key] = np.sqrt(within + (1.0 + 1.0 / len(fits)) * np.var(estimates, axis=0, ddof=1)).tolist()
-    return UpdateFit(method, model, fits[0].n_params, float(np.mean([f.loglik for f in fits])), numeric | listed,
+    return UpdateFit(method, model, fits[0].n_params, float(np.mean([f.loglik for f in fits])), _pooled_parameters(fits),
                      all(f.converged for f in fits), tuple(dict.fromkeys(w for f in fits for w in f.warnings)))
+
+
+def _pooled_parameters(fits: Sequence[UpdateFit]) -> dict[str, Any]:
+    """An update's own parameters (a shift, a slope, thresholds) pooled by Rubin's rules: the mean estimate, and for an
+    estimate given with its standard error (``shift`` and ``shift_se``) the standard error of the total variance."""
+    first = fits[0].parameters
+    numeric = [k for k, v in first.items() if not isinstance(v, bool) and isinstance(v, (int, float, np.floating, list, tuple, np.ndarray))]
+    values = {k: np.array([np.asarray(f.parameters[k], dtype=float) for f in fits]) for k in numeric}
+    out: dict[str, Any] = {}
+    for key, draws in values.items():
+        if key.endswith("_se") and key[:-3] in values:
+            out[key] = np.asarray(pool(values[key[:-3]], draws ** 2).se).tolist()
+        else:
+            out[key] = draws.mean(axis=0).tolist()
+    return out
 
 
 def update_model_imputed(
@@ -165,6 +171,7 @@ def update_model_imputed(
     func = "update_model_imputed"
     model = _check_model(model, func)
     a = _check_alpha(alpha, func)
+    _check_boot_options(n_boot, seed, max_failed_share, func)
     frames = list(frames)
     if len(frames) < 2 or any(not isinstance(f, pd.DataFrame) or len(f) != len(frames[0]) for f in frames):
         raise DataError(problem(f"{func}(frames=)", allowed="two or more completed data sets with the same rows",
@@ -177,12 +184,8 @@ def update_model_imputed(
     test = _closed_test_by(fits, a, _pooled_compare(per, a))
     rows: list[dict[str, Any]] = []
     for method in fits:
-        summaries = [_summary(yy, p[method].model.predict_proba(f)) for p, f in zip(per, frames)]
-        rows += _summary_rows(method, {k: float(np.mean([s[k] for s in summaries])) for k in summaries[0]})
-    table = pd.DataFrame(rows, columns=["method", "measure", "cut", "apparent"])
-    table["cut"] = table["cut"].astype("Int64")
-    table["optimism"] = np.nan
-    table["corrected"] = np.nan
+        rows += _summary_rows(method, average_summaries(_summary(yy, p[method].model.predict_proba(f)) for p, f in zip(per, frames)))
+    table = _performance_table(rows)
     performance, boot_notes = _bootstrap_correction(
         _UpdateReplicate(model, frames[0], yy, new_predictors, a, cohort), table, chosen=test.chosen, methods=list(fits),
         n_boot=int(n_boot), seed=seed, n_jobs=n_jobs, scheduler=scheduler, max_failed_share=float(max_failed_share),

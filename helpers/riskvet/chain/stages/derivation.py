@@ -31,7 +31,7 @@ from ...intake.data import expand_cohort, load_cohorts
 from ...reporting.descriptive import descriptive_table
 from ...modelling.derive import Derivation, candidate_parameters
 from .imputed import (complete_case_comparison, complete_case_sentence, complete_case_words, derive_cohort, imputation_settings,
-                      imputed_model_words, imputed_texts, missing_data_section, published_counts, pooled_apparent, pooled_parameter_columns)
+                      imputed_model_words, missing_data_section, published_counts, pooled_apparent, pooled_parameter_columns)
 from ...modelling.term_effects import TermEffects, column_label, term_effects, term_label
 from ...errors import RiskvetError, RiskvetWarning
 from ...modelling.modelfile import PredictionModel, model_from_fit, save_model
@@ -209,9 +209,8 @@ def run(ctx: StageContext) -> DerivationOutput:
         smallest_level=smallest, proportional_odds=po, summary=apparent["summary"],
         n_levels=K, min_cell_count=study.output.min_cell_count, levels=levels,
         n_candidate_parameters=n_candidates, calibration=cal, link=study.model.link,
-        fit=derivation.fit, separated_terms=separated,
+        fit=derivation.fit, separated_terms=separated, n_imputations=getattr(derivation, "m", None) or None,
     )
-    texts = imputed_texts(texts, derivation)
     texts["data_support"] = data_support_notes(
         level_counts=np.bincount(y, minlength=K).tolist(), n_parameters=len(derivation.candidate_design.columns),
         anticipated_c=None if study.planning is None else study.planning.anticipated_c,
@@ -219,7 +218,7 @@ def run(ctx: StageContext) -> DerivationOutput:
         shrinkage=0.9 if study.planning is None else study.planning.shrinkage, penalized=study.selection.penalized,
         cut_names=cut_labels, events_per_parameter=False,
     )
-    missing = _missing_data_parts(ctx, cohort, derivation, imputed, levels)
+    missing = _missing_data_parts(ctx, cohort, derivation, imputed, levels, settings)
     tables.update(missing["tables"])
     figures.update(missing["figures"])
     texts.update(missing["texts"])
@@ -248,14 +247,13 @@ def run(ctx: StageContext) -> DerivationOutput:
     )
 
 
-def _missing_data_parts(ctx: StageContext, cohort, derivation: Derivation, imputed, levels) -> dict[str, Any]:
+def _missing_data_parts(ctx: StageContext, cohort, derivation: Derivation, imputed, levels, settings) -> dict[str, Any]:
     """Tables, figures, sentences and results of the missing-data section (a sentence only under complete cases)."""
     study = ctx.study
     parts: dict[str, Any] = {"tables": {}, "figures": {}, "texts": {}, "results": {"method": cohort.missing}}
     if imputed is None:
         parts["texts"]["missing_data"] = complete_case_words(cohort)
         return parts
-    settings = imputation_settings(study, imputed, derivation)
     parts["results"] |= {"settings": settings, "pooling": derivation.pooling.to_dict()}
     section_parts = missing_data_section(ctx, imputed.imputations, cohort=cohort, label="derivation")
     parts["section"] = section_parts

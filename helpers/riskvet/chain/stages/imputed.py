@@ -31,12 +31,12 @@ from scipy import stats
 from ...errors import RiskvetError, RiskvetWarning
 from ...imputation.chained import Imputations
 from ...imputation.procedure import derive_imputed, impute_cohort, missing_cell_share
-from ...measures.summary import performance_summary
+from ...measures.summary import average_summaries, performance_summary
 from ...modelling.derive import Derivation, derive
 from ...modelling.folds import cluster_codes
 from ...modelling.term_effects import column_label
 
-__all__ = ["ImputedData", "imputed_texts", "complete_case_comparison", "complete_case_sentence", "complete_case_words", "derive_cohort",
+__all__ = ["ImputedData", "complete_case_comparison", "complete_case_sentence", "complete_case_words", "derive_cohort",
            "imputation_settings", "imputed_model_words", "missing_data_section", "page_items", "pooled_apparent",
            "pooled_parameter_columns", "published_counts"]
 
@@ -88,9 +88,7 @@ def imputation_settings(study, imputed: ImputedData, derivation) -> dict[str, An
 def pooled_apparent(model, imputed: ImputedData, y: np.ndarray) -> tuple[np.ndarray, dict[str, float]]:
     """Each person's predicted risks averaged over the completed data sets, and the measures averaged over them."""
     probs = np.stack([model.predict_proba(frame) for frame in imputed.completed])
-    summaries = [performance_summary(y, p) for p in probs]
-    summary = {key: float(np.mean([s[key] for s in summaries])) for key in summaries[0]}
-    return probs.mean(axis=0), summary
+    return probs.mean(axis=0), average_summaries(performance_summary(y, p) for p in probs)
 
 
 def pooled_parameter_columns(frame: pd.DataFrame, derivation, *, confidence: float = 0.95) -> pd.DataFrame:
@@ -286,22 +284,3 @@ def page_items(ctx, part: dict[str, Any], *, heading: str | None = None) -> list
     items += [publish.table(frame, caption=_caption(name)) for name, frame in part["tables"].items()]
     items += [publish.figure(ctx.record_dir, path, caption=_caption(name)) for name, path in part["figures"].items()]
     return items
-
-
-def imputed_texts(texts: dict[str, str], derivation) -> dict[str, str]:
-    """The derivation page's sentences about the final model, said of a model pooled over imputations."""
-    m = getattr(derivation, "m", 0)
-    if not m:
-        return texts
-    out = dict(texts)
-    out["estimation"] = texts.get("estimation", "") + (
-        f" Each is the mean of the estimates in the {m} completed data sets (Rubin's rules); its standard error adds the "
-        "spread between the imputations to the mean variance within them.")
-    for key in ("model", "inference"):
-        if key in out:
-            out[key] = (out[key].replace("z statistics", "t statistics")
-                        .replace("95% Wald interval", "95% interval by Rubin's rules (t on Barnard-Rubin degrees of freedom)")
-                        .replace("Wald intervals", "intervals"))
-    if "effects" in out:
-        out["effects"] = out["effects"].replace("95% Wald interval", "95% Wald interval on the pooled (Rubin's rules) variance")
-    return out

@@ -188,6 +188,8 @@ INTERVAL_KINDS = {
     "wald_log": "Wald interval on the log scale",
     "profile": "profile-likelihood interval",
     "profile_penalised": "profile penalised-likelihood interval",
+    "rubin": "interval by Rubin's rules (t on Barnard-Rubin degrees of freedom)",
+    "wald_pooled": "Wald interval on the pooled (Rubin's rules) variance",
     "delong": "DeLong interval",
     "wilson": "Wilson interval",
     "replicates": "range of the central replicates",

@@ -40,6 +40,7 @@ def derivation_texts(
     link: str = "logit",
     fit: Any = None,
     separated_terms: Sequence[str] = (),
+    n_imputations: int | None = None,
 ) -> dict[str, str]:
     """One interpreting sentence per table and figure of the derivation stage.
 
@@ -75,6 +76,10 @@ def derivation_texts(
         penalised) and what its intervals are.
     separated_terms : sequence of str
         Terms, in words, that separate the derivation data (empty if none).
+    n_imputations : int, optional
+        Under multiple imputation, the completed data sets the model was
+        pooled over (Rubin's rules): the sentences then say t statistics
+        and intervals by Rubin's rules.
     """
     K = n_levels
     fit_interval_kind = getattr(fit, "interval_kind", "Wald")
@@ -92,18 +97,20 @@ def derivation_texts(
             if min_cell_count > 1 else "Predictors by outcome level."
         ),
         "selection": selection_sentence(selection),
-        "inference": post_selection_sentence(selection),
+        "inference": post_selection_sentence(selection, pooled=n_imputations is not None),
         "model": (
             f"The final model has {n_terms} terms and {n_params} parameters "
             f"({smallest_level} people in the smallest outcome level, {smallest_level / max(n_params, 1):.1f} per parameter). "
-            + coefficient_interval_words(fit_interval_kind)
+            + coefficient_interval_words(fit_interval_kind, pooled=n_imputations is not None)
             + ("a single-column term also shows its odds ratio per unit (above 1: risk shifts towards higher levels). "
                if link == "logit" else "")
             + "A spline, a categorical predictor or an interaction has several coefficients that are read together, "
             "not one by one: its effect over stated values and its joint test are in the next two tables."
         ),
-        "effects": effects_sentence(link, interval_kind=fit_interval_kind),
-        "estimation": estimation_sentence(fit, selection),
+        "effects": effects_sentence(link, interval_kind=fit_interval_kind, pooled=n_imputations is not None),
+        "estimation": estimation_sentence(fit, selection) + ("" if n_imputations is None else (
+            f" Each is the mean of the estimates in the {n_imputations} completed data sets (Rubin's rules); its standard "
+            "error adds the spread between the imputations to the mean variance within them.")),
         "separation": separation_sentence(separated_terms, refit=getattr(selection, "refit_with_firth", False),
                                           firth=getattr(fit, "estimation", "") == "firth"),
         "term_tests": (
@@ -143,8 +150,11 @@ def derivation_texts(
     return texts
 
 
-def post_selection_sentence(selection: Any) -> str:
+def post_selection_sentence(selection: Any, *, pooled: bool = False) -> str:
     """What the model's z statistics, p-values and Wald intervals mean after (or without) variable selection.
+
+    ``pooled``: the model is pooled over imputations, so its statistics are
+    t statistics and its intervals those of Rubin's rules.
 
     References
     ----------
@@ -161,14 +171,15 @@ def post_selection_sentence(selection: Any) -> str:
             "same data. Penalised estimates have no valid standard errors, z statistics or p-values, so none are shown; how "
             "stable the chosen penalty and the calibration slope are over bootstrap replicates is on the internal-validation page."
         )
+    statistics = "t statistics, p-values and intervals" if pooled else "z statistics, p-values and Wald intervals"
     if getattr(selection, "method", "none") == "none":
         return (
-            "No variable selection was done, so the z statistics, p-values and Wald intervals are those of the "
+            f"No variable selection was done, so the {statistics} are those of the "
             "pre-specified model; they still assume its form (link, splines, interactions) is right."
         )
     how = {"forward": "forward selection", "backward": "backward elimination"}.get(selection.method, "variable selection")
     return (
-        f"Caution: the terms were chosen by {how} on these same data. The z statistics, p-values and Wald intervals "
+        f"Caution: the terms were chosen by {how} on these same data. The {statistics} "
         "below are those of the selected model as if it had been fixed in advance: they ignore the selection, so the "
         "intervals are too narrow, the p-values too small, and the coefficients of the selected terms tend to be too far "
         "from zero (Harrell, Regression Modeling Strategies, 2015, chapter 4; Heinze, Wallisch & Dunkler, Biometrical "
@@ -252,10 +263,10 @@ def hosmer_lemeshow_sentence(calibration: Any, *, n_levels: int) -> str:
     )
 
 
-def effects_sentence(link: str, *, interval_kind: str = "Wald") -> str:
-    """How to read the table of term effects over stated contrasts."""
+def effects_sentence(link: str, *, interval_kind: str = "Wald", pooled: bool = False) -> str:
+    """How to read the table of term effects over stated contrasts (``pooled``: a model pooled over imputations)."""
     effect = "odds ratio of a higher outcome level" if link == "logit" else "change in the linear predictor"
-    with_interval = "" if interval_kind == "none" else f", with its {interval_words('wald')}"
+    with_interval = "" if interval_kind == "none" else f", with its {interval_words('wald_pooled' if pooled else 'wald')}"
     return (
         f"The effect of each term as the {effect} between two stated values of its predictor{with_interval}: for a numeric predictor the 75th against the 25th percentile of the derivation data "
         "(the same contrast for every numeric predictor, so their effects can be compared), for a categorical one each "
@@ -291,11 +302,11 @@ def selection_sentence(selection: Any) -> str:
 PENALIZED_WORDS = {"ridge": "ridge", "lasso": "lasso", "elastic_net": "elastic-net"}
 
 
-def coefficient_interval_words(interval_kind: str) -> str:
-    """How each row of the coefficient table is qualified, by the kind of its interval."""
+def coefficient_interval_words(interval_kind: str, *, pooled: bool = False) -> str:
+    """How each row of the coefficient table is qualified, by the kind of its interval (``pooled``: Rubin's rules)."""
     if interval_kind == "none":
         return "Each row is one coefficient; penalised estimates have no standard errors or intervals. "
-    kind = "profile_penalised" if interval_kind == "profile penalised likelihood" else "wald"
+    kind = "rubin" if pooled else "profile_penalised" if interval_kind == "profile penalised likelihood" else "wald"
     return f"Each row is one coefficient with its {interval_words(kind)}; "
 
 
