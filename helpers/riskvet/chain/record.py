@@ -560,6 +560,7 @@ def compare_records(record_a: str | Path, record_b: str | Path, *, rtol: float =
             "python": m.get("python"),
             "platform": m.get("platform"),
             "numerical_libraries": m.get("numerical_libraries"),
+            "fitter_kernels": m.get("fitter_kernels"),
             "seeds": m.get("seeds"),
             "git_commit": (m.get("git") or {}).get("commit"),
             "study_sha256": (m.get("study") or {}).get("sha256"),

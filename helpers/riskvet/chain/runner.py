@@ -70,7 +70,7 @@ __all__ = [
 #: Packages whose versions every manifest records.
 KEY_PACKAGES = (
     "numpy", "scipy", "pandas", "statsmodels", "scikit-learn", "matplotlib", "papermill", "nbconvert",
-    "nbclient", "nbformat", "ipykernel", "jupyter_client", "joblib", "pydantic", "pyyaml", "dask",
+    "nbclient", "nbformat", "ipykernel", "jupyter_client", "joblib", "pydantic", "pyyaml", "dask", "numba", "llvmlite",
 )
 
 #: Stages that use the frozen model: they need the derivation stage in the same run or ``from_record``.
@@ -182,7 +182,15 @@ def environment() -> dict[str, Any]:
         "machine": platform.machine(),
         "packages": {name: _version(name) for name in KEY_PACKAGES},
         "numerical_libraries": numerical_libraries(),
+        "fitter_kernels": _fitter_kernels(),
     }
+
+
+def _fitter_kernels() -> str:
+    """Which row loops the fitter runs on (:mod:`riskvet.modelling.kernels`); results agree to rounding."""
+    from ..modelling import kernels
+
+    return "compiled (numba)" if kernels.enabled() else "numpy"
 
 
 def numerical_libraries() -> list[dict[str, Any]]:

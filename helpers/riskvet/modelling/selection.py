@@ -34,6 +34,7 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 import pandas as pd
 from scipy import special
+from scipy.linalg import lapack
 
 from .._jsonable import to_jsonable
 from ..errors import ConvergenceWarning, DesignError, FitError, RiskvetWarning, SeparationWarning, problem
@@ -43,12 +44,20 @@ from .fitter import (
     _as_matrix,
     _as_outcome,
     _as_vector,
+    DEFAULT_MAX_ITER,
+    DEFAULT_TOL,
     _check_levels,
+    _chol_scaled,
+    _chol_solve,
+    _column_screen,
+    _Design,
     _evaluate,
-    _fit_arrays,
+    _fit_design,
     _grad_hess,
-    _make_design,
+    _level_layout,
+    _raise_if_collinear,
     _separated_columns,
+    _sorted_design,
     fit_cumulative,
     one_blas_thread,
 )
@@ -184,12 +193,22 @@ def _log_chi2_sf(stat: float, df: int) -> float:
     return (s - 1.0) * math.log(x) - x - special.gammaln(s) + math.log1p((s - 1.0) / x)
 
 
+def _log_chi2_sf_many(stats: np.ndarray, df: np.ndarray) -> np.ndarray:
+    """:func:`_log_chi2_sf` of each statistic (0 where the statistic is not positive or NaN)."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        sf = special.chdtrc(df, stats)
+        out = np.where(stats > 0, np.log(sf), 0.0)
+    for i in np.flatnonzero((stats > 0) & ~(sf > 1e-300)):
+        out[i] = _log_chi2_sf(float(stats[i]), int(df[i]))
+    return out
+
+
 class _Problem:
     """The data of one selection, rows sorted by outcome level."""
 
     def __init__(self, X, y, K, w, unit, link, proportional, term_cols, names, term_names, firth=False):
-        # Columns are taken from the transposed copy, so that sub-matrices are
-        # Fortran-ordered and the fitter's own transposed copy is free.
+        # Columns are taken from the transposed copy: a design's columns are
+        # then C-ordered rows of it, and the fitter's transposed copy is free.
         self.XT = np.ascontiguousarray(X.T)
         self.y = y
         self.K = K
@@ -201,35 +220,116 @@ class _Problem:
         self.names = names  # column names
         self.term_names = term_names
         self.m = K - 1
-        # Firth's fits only when asked: the keyword is passed only then.
-        self.fit_options = {"firth": True} if firth else {}
+        self.firth = bool(firth)
+        self._all_rows = None
 
     def per_col(self) -> int:
         return 1 if self.proportional else self.m
 
-    def columns(self, rows, cols) -> np.ndarray:
-        """Rows x columns sub-matrix (Fortran-ordered)."""
-        return (self.XT[np.ix_(cols, rows)] if rows is not None else self.XT[cols]).T
+    def rows(self, rows) -> "_Rows":
+        """The fit set of ``rows`` (None: all rows, kept for every later call)."""
+        if rows is not None:
+            return _Rows(self, rows)
+        if self._all_rows is None:
+            self._all_rows = _Rows(self, None)
+        return self._all_rows
 
     def fit(self, rows, cols, start=None):
-        Xs = self.columns(rows, cols)
-        y = self.y if rows is None else self.y[rows]
-        w = None if self.unit else (self.w if rows is None else self.w[rows])
-        return _fit_arrays(
-            Xs, y, self.K, proportional=self.proportional, link=self.link, weights=w, start=start,
-            names=[self.names[c] for c in cols], need_cov=False, **self.fit_options,
+        return self.rows(rows).fit(cols, start)
+
+
+class _Rows:
+    """The rows of one fit set (all rows, or a fold's training rows), prepared once for all its fits.
+
+    A forward path fits the same rows again and again, one term more each
+    time.  What depends on the rows alone is computed here once: the level
+    layout, the columns centred at their weighted means (the fitter's own
+    parameterisation, see :func:`riskvet.modelling.fitter._fit_arrays`) and
+    the separation screen's column summaries.  Building the design at every
+    fit took about 0.17 ms and the screen's passes over the columns about
+    0.12 ms, of about 1 ms for a warm-started fit (1,800 rows, 15 columns,
+    measured on the project's 2-core machine).
+
+    Centring all columns at once gives each column the centre it gets when
+    centred alone: its weighted mean over these rows.
+    """
+
+    def __init__(self, prob: _Problem, rows):
+        self.prob = prob
+        self.y = prob.y if rows is None else prob.y[rows]
+        self.w = prob.w if rows is None else prob.w[rows]
+        _check_levels(self.y, prob.K, self.w, None)
+        self.XT = prob.XT if rows is None else np.ascontiguousarray(prob.XT[:, rows])  # natural scale
+        self.mu = (self.XT @ self.w) / float(self.w.sum())
+        self.XTc = self.XT - self.mu[:, None]
+        self.layout = _level_layout(self.y, prob.K)
+        self.screen = _column_screen(self.XTc, self.layout[0], prob.K, prob.proportional)
+
+    def design(self, cols) -> _Design:
+        """The centred design of ``cols`` on these rows."""
+        p = self.prob
+        if not cols:
+            return _sorted_design(np.empty((0, self.y.shape[0])), self.y, p.K, self.w, None, None, p.link, p.proportional,
+                                  p.unit, None, self.layout)
+        return _sorted_design(self.XTc[cols], self.y, p.K, self.w, None, None, p.link, p.proportional, p.unit, self.mu[cols],
+                              self.layout)
+
+    def fit(self, cols, start=None, extends=None):
+        """Fit ``cols`` from ``start``; ``extends`` is ``(raw, term)`` when ``start`` is the fit ``raw``
+        with ``term`` added at zero (its log-likelihood and pieces are then those at ``start``, and
+        :meth:`first_step` may hold the first step)."""
+        p = self.prob
+        names = [p.names[c] for c in cols]
+        seed = None
+        if extends is not None:
+            raw, term = extends
+            step = self.first_step(raw, term)
+            if step is not None:
+                seed = ((raw.loglik, raw.pieces), step)
+        return _fit_design(
+            self.design(cols), start=start, max_iter=DEFAULT_MAX_ITER, tol=DEFAULT_TOL, need_cov=False, firth=p.firth,
+            check_collinear=lambda: _raise_if_collinear(self.XT[cols].T, self.w, names),
+            screen=(self.screen[0][cols], self.screen[1][cols]), seed=seed,
         )
 
-    def test_loglik(self, rows, cols, params) -> float:
-        """Weighted mean log-probability of the observed levels of ``rows``."""
-        Xt = self.columns(rows, cols)
-        yt = self.y[rows]
-        wt = np.ones(len(rows)) if self.unit else self.w[rows]
-        d = _make_design(Xt, yt, self.K, wt, None, self.link, self.proportional, self.unit)
-        ll = _evaluate(d, params)[0]
-        return ll / float(wt.sum()) if np.isfinite(ll) else -math.inf
+    def first_step(self, raw, term) -> np.ndarray | None:
+        """Newton's first step for the model of ``raw`` with ``term`` added, from the last score tests.
 
-    def score_tests(self, raw, rows, cols, candidates):
+        Notes
+        -----
+        Started at the current estimates with the new coefficients zero,
+        Newton's first step solves ``I d = U`` with the score and
+        information of the larger model at that point, which the score
+        tests have just computed (for every candidate at once).  Handing the
+        step to the fit saves it one evaluation, one gradient and Hessian and
+        one factorisation: about 0.2 ms of a 0.65 ms fit at 1,800 rows and
+        15 columns (measured on the project's 2-core machine).  The step is
+        the one the fit would compute, to rounding (Newton steps do not
+        depend on the centring of the columns).  None when the tests were
+        for another model, under Firth's likelihood, or when the block is
+        not positive definite (the fit then computes its own step).
+        """
+        last = getattr(self, "last_scores", None)
+        if last is None or last[0] is not raw or self.prob.firth:
+            return None
+        _, g, info, offsets = last
+        q = raw.params.shape[0]
+        width = len(self.prob.term_cols[term]) * self.prob.per_col()
+        idx = np.concatenate([np.arange(q), np.arange(offsets[term], offsets[term] + width)])
+        fac = _chol_scaled(info[idx][:, idx])
+        if fac is None:
+            return None
+        return _chol_solve(fac, g[idx])
+
+    def test_loglik(self, test_rows, cols, params) -> float:
+        """Weighted mean log-probability of the observed levels of ``test_rows`` (a :class:`_Held`)."""
+        p = self.prob
+        d = _sorted_design(test_rows.XT[cols], test_rows.y, p.K, test_rows.w, None, None, p.link, p.proportional, p.unit,
+                           None, test_rows.layout)
+        ll = _evaluate(d, params)[0]
+        return ll / test_rows.total if np.isfinite(ll) else -math.inf
+
+    def score_tests(self, raw, cols, candidates):
         """Score statistic, df and log p-value of adding each candidate term.
 
         Notes
@@ -243,48 +343,58 @@ class _Problem:
         non-proportional) df.  A candidate whose adjusted information is
         numerically zero (a column collinear with the model, in this subset
         of rows) cannot enter.
+
+        The score and information are kept (``self.last_scores``): they are
+        also the first Newton step of the model with the chosen term added
+        (:meth:`first_step`).
         """
-        cand_cols = [c for t in candidates for c in self.term_cols[t]]
-        Xs = self.columns(rows, cols + cand_cols)
+        term_cols = self.prob.term_cols
+        cand_cols = [c for t in candidates for c in term_cols[t]]
+        Xs = self.XT[cols + cand_cols].T
         g, H = _grad_hess(raw.design, raw.pieces, X=Xs)
         info = -H
         q = raw.params.shape[0]
-        Icc = info[:q, :q]
-        Icn = info[:q, q:]
-        try:
-            L = np.linalg.cholesky(Icc)
-            Z = np.linalg.solve(L, Icn)
-            S = info[q:, q:] - Z.T @ Z
-        except np.linalg.LinAlgError:
+        # LAPACK's Cholesky and triangular solve directly: the same factor and
+        # solution as np.linalg.cholesky and a general solve, in fewer calls.
+        L, status = lapack.dpotrf(info[:q, :q], lower=1, clean=1)
+        if status != 0:
             return [(t, math.nan, 0, math.nan) for t in candidates]
+        Z = lapack.dtrtrs(L, info[:q, q:], lower=1)[0]
+        S = info[q:, q:] - Z.T @ Z
         U = g[q:]
-        k = self.per_col()
-        s_diag = np.diag(S)
+        k = self.prob.per_col()
+        widths = np.array([len(term_cols[t]) * k for t in candidates], dtype=np.int64)
+        begins = np.cumsum(widths) - widths
+        self.last_scores = (raw, g, info, dict(zip(candidates, (q + begins).tolist())))
+        s_diag = S.diagonal()
         # Adjusted information numerically zero relative to the unadjusted one:
         # the column is (in these rows) a combination of the model's columns.
-        degenerate = s_diag <= 1e-10 * np.maximum(np.diag(info)[q:], 1e-300)
+        degenerate = np.logical_or.reduceat(s_diag <= 1e-10 * np.maximum(info.diagonal()[q:], 1e-300), begins)
+        # Single-column terms all at once (the statistic U^2 / S); the loop
+        # over candidates cost more than the arithmetic.
         with np.errstate(divide="ignore", invalid="ignore"):
-            single = U * U / s_diag
-        out = []
-        pos = 0
-        for t in candidates:
-            width = len(self.term_cols[t]) * k
-            sl = slice(pos, pos + width)
-            pos += width
-            if np.any(degenerate[sl]):
-                out.append((t, math.nan, width, math.nan))
-                continue
-            if width == 1:
-                stat = float(single[pos - 1])
-            else:
-                try:
-                    stat = float(U[sl] @ np.linalg.solve(S[sl, sl], U[sl]))
-                except np.linalg.LinAlgError:
-                    out.append((t, math.nan, width, math.nan))
-                    continue
-            stat = max(stat, 0.0)
-            out.append((t, stat, width, _log_chi2_sf(stat, width) if stat > 0 else 0.0))
-        return out
+            stats = np.where(widths == 1, U[begins] * U[begins] / s_diag[begins], math.nan)
+        for i in np.flatnonzero((widths > 1) & ~degenerate):
+            sl = slice(begins[i], begins[i] + widths[i])
+            try:
+                stats[i] = U[sl] @ np.linalg.solve(S[sl, sl], U[sl])
+            except np.linalg.LinAlgError:
+                degenerate[i] = True
+        stats = np.maximum(stats, 0.0)
+        logp = _log_chi2_sf_many(stats, widths)
+        return [(t, math.nan, int(wd), math.nan) if bad else (t, float(st), int(wd), float(lp))
+                for t, st, wd, lp, bad in zip(candidates, stats, widths, logp, degenerate)]
+
+
+class _Held:
+    """Held-out rows of a fold, prepared once for the test log-likelihood of every model on its path."""
+
+    def __init__(self, prob: _Problem, rows):
+        self.y = prob.y[rows]
+        self.w = np.ones(len(rows)) if prob.unit else prob.w[rows]
+        self.total = float(self.w.sum())
+        self.XT = np.ascontiguousarray(prob.XT[:, rows])
+        self.layout = _level_layout(self.y, prob.K)
 
 
 def _aic(raw) -> float:
@@ -315,15 +425,17 @@ def _forward(prob: _Problem, rows, forced, free, max_size, test_rows=None):
     """Forward path from the forced terms; returns steps, test log-likelihoods, trouble."""
     terms = list(forced)
     cols = [c for t in terms for c in prob.term_cols[t]]
-    raw = prob.fit(rows, cols)
+    fitset = prob.rows(rows)
+    held = _Held(prob, test_rows) if test_rows is not None else None
+    raw = fitset.fit(cols)
     steps = [("start", None, math.nan, 0, math.nan, raw)]
-    tests = [prob.test_loglik(test_rows, cols, raw.params)] if test_rows is not None else []
+    tests = [fitset.test_loglik(held, cols, raw.params)] if held is not None else []
     known_separations: list[frozenset] = []
     trouble = np.array(_trouble(raw, cols, known_separations))
     stop_reason = None
     remaining = list(free)
     while len(terms) - len(forced) < max_size and remaining:
-        scores = [s for s in prob.score_tests(raw, rows, cols, remaining) if not math.isnan(s[1])]
+        scores = [s for s in fitset.score_tests(raw, cols, remaining) if not math.isnan(s[1])]
         if not scores:
             stop_reason = "no remaining term could enter (collinear with the model)"
             break
@@ -334,7 +446,7 @@ def _forward(prob: _Problem, rows, forced, free, max_size, test_rows=None):
         new_cols = cols + list(prob.term_cols[t])
         start = np.r_[raw.params, np.zeros(len(prob.term_cols[t]) * prob.per_col())]
         try:
-            new_raw = prob.fit(rows, new_cols, start=start)
+            new_raw = fitset.fit(new_cols, start=start, extends=(raw, t))
         except FitError as exc:
             stop_reason = f"fit after adding {prob.term_names[t]!r} failed: {exc}"
             break
@@ -343,8 +455,8 @@ def _forward(prob: _Problem, rows, forced, free, max_size, test_rows=None):
         remaining.remove(t)
         trouble += _trouble(raw, cols, known_separations)
         steps.append(("add", t, best[1], best[2], best[3], raw))
-        if test_rows is not None:
-            tests.append(prob.test_loglik(test_rows, cols, raw.params))
+        if held is not None:
+            tests.append(fitset.test_loglik(held, cols, raw.params))
     return terms, cols, raw, steps, tests, trouble, stop_reason
 
 

@@ -1,0 +1,212 @@
+"""Compiled row loops of the proportional cumulative-logit fitter.
+
+The fitter's Newton iterations on a few thousand rows spend most of their
+time not on arithmetic but on the fixed cost of numpy calls on small arrays:
+the log-likelihood and its per-row derivative pieces take about 30 numpy
+calls (:func:`riskvet.modelling.fitter._evaluate`), the threshold part of
+the gradient and Hessian another 15 (:func:`riskvet.modelling.fitter._grad_hess`).
+The loops here do the same arithmetic in one pass over the rows each,
+compiled by numba.  They are used only when numba is installed and the
+model is the proportional one (the logit link for :func:`logit_pieces`);
+everything else, and every test's reference, is the numpy path, selected
+for a whole process with the environment variable ``RISKVET_KERNELS=numpy``.
+
+Each loop computes the same formulas as the numpy code, in the same order
+within a row, so the pieces agree to rounding: the exponential comes from
+the C library rather than numpy's own, and the log-likelihood is summed
+row by row rather than pairwise.  ``tests/test_kernels.py`` checks both
+paths against each other and the whole fit against statsmodels.
+
+Measured on the project's 2-core machine (1,800 rows, 3 levels, 15 columns,
+one BLAS thread): the pieces in 28 us against 97 us, the gradient and
+Hessian in 75 us against 116 us, the gradient alone in 6 us against 17 us.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+
+import numpy as np
+
+__all__ = ["enabled"]
+
+try:  # numba is a dependency; without it (or with RISKVET_KERNELS=numpy) the numpy path runs
+    import numba
+except ImportError:  # pragma: no cover - numba is installed with the package
+    numba = None
+
+_ENABLED = numba is not None and os.environ.get("RISKVET_KERNELS", "").strip().lower() != "numpy"
+
+
+def enabled() -> bool:
+    """True when the compiled loops are in use in this process."""
+    return _ENABLED
+
+
+def _jit(func):
+    if numba is None:
+        return func
+    # error_model="numpy": a zero probability gives -inf and nan as numpy
+    # does (the caller rejects the point), never an exception.
+    return numba.njit(cache=True, error_model="numpy", nogil=True)(func)
+
+
+@_jit
+def _logit_at(t):  # pragma: no cover - compiled
+    # as fitter._logit_parts: clipping at +-700 keeps exp finite and moves no value
+    if t > 700.0:
+        t = 700.0
+    elif t < -700.0:
+        t = -700.0
+    e = math.exp(-t)
+    F = 1.0 / (1.0 + e)
+    S = e * F
+    f = F * S
+    return F, S, f, f * (S - F)
+
+
+@_jit
+def logit_pieces(eta, theta, y, n_a, s1, w, unit):  # pragma: no cover - compiled
+    """Log-likelihood and the compact pieces of :func:`riskvet.modelling.fitter._evaluate` (logit link).
+
+    ``eta`` holds each sorted row's linear predictor (offset included),
+    ``theta`` the thresholds, ``y`` the sorted levels; a row has an upper
+    argument ``theta[y] - eta`` when it is among the first ``n_a`` and a
+    lower one ``theta[y - 1] - eta`` from ``s1`` on.
+    """
+    n = y.shape[0]
+    n_mid = n_a - s1
+    la = np.empty(n_a)
+    laa = np.empty(n_a)
+    lb = np.empty(n - s1)
+    lbb = np.empty(n - s1)
+    lab = np.empty(max(n_mid, 0))
+    P = np.empty(n)
+    ll = 0.0
+    for i in range(n):
+        k = y[i]
+        ra = qa = rb = qb = 0.0
+        Fa = Sa = Fb = Sb = 0.0
+        fa = dfa = fb = dfb = 0.0
+        tb = 0.0
+        if i < n_a:
+            Fa, Sa, fa, dfa = _logit_at(theta[k] - eta[i])
+        if i >= s1:
+            tb = theta[k - 1] - eta[i]
+            Fb, Sb, fb, dfb = _logit_at(tb)
+        if i < s1:
+            p = Fa
+        elif i >= n_a:
+            p = Sb
+        elif tb > 0.0:
+            p = Sb - Sa
+        else:
+            p = Fa - Fb
+        P[i] = p
+        wi = 1.0 if unit else w[i]
+        ll += np.log(p) if unit else wi * np.log(p)
+        if i < n_a:
+            ra = fa / p
+            qa = dfa / p
+            la[i] = ra * wi
+            laa[i] = (qa - ra * ra) * wi
+        if i >= s1:
+            rb = fb / p
+            qb = dfb / p
+            lb[i - s1] = -rb * wi
+            lbb[i - s1] = (-qb - rb * rb) * wi
+        if s1 <= i < n_a:
+            lab[i - s1] = ra * rb * wi
+    return ll, la, lb, laa, lbb, lab, P
+
+
+@_jit
+def threshold_rows(la, lb, laa, lbb, lab, starts, n, m, out):  # pragma: no cover - compiled
+    """Threshold parts of the proportional model's gradient and Hessian, and the row weights of the rest.
+
+    Fills ``out`` (``(m + 1) x n``, zeroed here) with, per threshold ``j``, the
+    weights of the threshold-coefficient block, then the weights ``l_a +
+    l_b`` of the coefficients' gradient; returns the threshold gradient,
+    the threshold block of the Hessian and the weights ``h`` of ``X' diag(h) X``
+    (see :func:`riskvet.modelling.fitter._grad_hess`, Notes).
+    """
+    s1 = starts[1]
+    n_a = starts[m]
+    gt = np.zeros(m)
+    Ht = np.zeros((m, m))
+    h = np.zeros(n)
+    out[:, :] = 0.0
+    for i in range(n):
+        # level of row i: the rows of level k are starts[k] .. starts[k + 1]
+        u = 0.0
+        v = 0.0
+        if i < n_a:
+            u = laa[i]
+            if i >= s1:
+                u += lab[i - s1]
+        if i >= s1:
+            v = lbb[i - s1]
+            if i < n_a:
+                v += lab[i - s1]
+        h[i] = u + v
+        g = 0.0
+        if i < n_a:
+            g += la[i]
+        if i >= s1:
+            g += lb[i - s1]
+        out[m, i] = g
+    for j in range(m):
+        # rows of level j carry threshold j as their upper one, rows of level j + 1 as their lower one
+        a = 0.0
+        aa = 0.0
+        for i in range(starts[j], starts[j + 1]):
+            a += la[i]
+            aa += laa[i]
+            uu = laa[i]
+            if i >= s1:
+                uu += lab[i - s1]
+            out[j, i] = uu
+        b = 0.0
+        bb = 0.0
+        for i in range(starts[j + 1], starts[j + 2]):
+            b += lb[i - s1]
+            bb += lbb[i - s1]
+            vv = lbb[i - s1]
+            if i < n_a:
+                vv += lab[i - s1]
+            out[j, i] = vv
+        gt[j] = a + b
+        Ht[j, j] = aa + bb
+        if j + 1 < m:
+            c = 0.0
+            for i in range(starts[j + 1], starts[j + 2]):
+                c += lab[i - s1]
+            Ht[j, j + 1] = c
+            Ht[j + 1, j] = c
+    return gt, Ht, h
+
+
+@_jit
+def threshold_gradient(la, lb, starts, n, m):  # pragma: no cover - compiled
+    """Threshold gradient and the coefficients' row weights ``l_a + l_b`` (see :func:`threshold_rows`)."""
+    s1 = starts[1]
+    n_a = starts[m]
+    gt = np.zeros(m)
+    gs = np.zeros(n)
+    for i in range(n):
+        g = 0.0
+        if i < n_a:
+            g += la[i]
+        if i >= s1:
+            g += lb[i - s1]
+        gs[i] = g
+    for j in range(m):
+        a = 0.0
+        for i in range(starts[j], starts[j + 1]):
+            a += la[i]
+        b = 0.0
+        for i in range(starts[j + 1], starts[j + 2]):
+            b += lb[i - s1]
+        gt[j] = a + b
+    return gt, gs
