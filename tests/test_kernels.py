@@ -23,7 +23,7 @@ import pytest
 from riskvet.modelling import fitter, kernels
 from riskvet.modelling.selection import select_terms
 
-needs_numba = pytest.mark.skipif(kernels.numba is None, reason="numba is not installed")
+needs_numba = pytest.mark.skipif(not kernels.available(), reason="numba is not installed")
 
 
 @pytest.fixture
@@ -31,7 +31,7 @@ def numpy_path(monkeypatch):
     """Run the numpy reference path inside the block."""
 
     def switch(on: bool):
-        monkeypatch.setattr(kernels, "_ENABLED", bool(on) and kernels.numba is not None)
+        monkeypatch.setattr(kernels, "_ENABLED", bool(on) and kernels.available())
 
     return switch
 
