@@ -28,12 +28,22 @@ needs_numba = pytest.mark.skipif(not kernels.available(), reason="numba is not i
 
 @pytest.fixture
 def numpy_path(monkeypatch):
-    """Run the numpy reference path inside the block."""
+    """``numpy_path(False)`` runs the numpy reference path from here on, ``numpy_path(True)`` the compiled loops."""
 
     def switch(on: bool):
         monkeypatch.setattr(kernels, "_ENABLED", bool(on) and kernels.available())
 
     return switch
+
+
+def test_compiled_loops_run_only_inside_their_blocks():
+    assert not kernels.enabled()
+    with kernels.compiled():
+        assert kernels.enabled() == (kernels.available() and os.environ.get("RISKVET_KERNELS", "") != "numpy")
+        with kernels.compiled():
+            pass
+        assert kernels.enabled() == (kernels.available() and os.environ.get("RISKVET_KERNELS", "") != "numpy")
+    assert not kernels.enabled()
 
 
 def _data(n, p, K, seed, weights=False, offset=False):
@@ -132,6 +142,46 @@ def test_forward_selection_is_the_same_on_both_paths(numpy_path):
 
 def test_the_environment_variable_selects_the_numpy_path():
     env = {**os.environ, "RISKVET_KERNELS": "numpy"}
-    out = subprocess.run([sys.executable, "-c", "from riskvet.modelling import kernels; print(kernels.enabled())"],
-                         env=env, capture_output=True, text=True, check=True)
-    assert out.stdout.strip() == "False"
+    code = "from riskvet.modelling import kernels\nwith kernels.compiled(): print(kernels.enabled(), kernels.mode())"
+    out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "False numpy everywhere (RISKVET_KERNELS=numpy)"
+
+
+@needs_numba
+def test_bootstrap_replicates_run_compiled_and_match_the_numpy_path(monkeypatch, tmp_path):
+    """One whole-procedure replicate of the demo study (forward selection with 5-fold CV, measures) on each path."""
+    from riskvet import demo
+    from riskvet.chain.scaffold import new_study_folder
+    from riskvet.intake.outcome import outcome_codes
+    from riskvet.intake.study import load_study
+    from riskvet.validation import bootstrap
+
+    path = new_study_folder(tmp_path, n_derivation=100, n_validation=50, n_ratings=10, n_boot=4, missing_data="complete_case")
+    study = load_study(path)
+    frame = demo.draw(500, seed=31)  # invented demo data
+    y = outcome_codes(study, frame[study.outcome.column])
+    seen = []
+    real = bootstrap._replicate_values
+
+    def spy(*args, **kwargs):
+        seen.append(kernels.enabled())
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(bootstrap, "_replicate_values", spy)
+    payload = bootstrap._Payload(study=study, frame=frame[list(study.predictors.in_analysis)], y=y, K=3, link="logit")
+    child = np.random.SeedSequence(5)
+    on = bootstrap._replicate(payload, (0, child))
+    monkeypatch.setattr(kernels, "_ALLOWED", False)
+    off = bootstrap._replicate(payload, (0, child))
+    assert seen == [True, False]
+    assert not kernels.enabled()
+    assert on["status"] == off["status"] == "ok"
+    assert on.keys() == off.keys() and on["terms"] == off["terms"]
+    compared = 0
+    for part in ("boot", "test", "oob"):
+        for key, value in on[part].items():
+            if np.isfinite(value):
+                assert value == pytest.approx(off[part][key], rel=1e-10, abs=1e-12), (part, key)
+                compared += 1
+    np.testing.assert_allclose(on["logp_oob"], off["logp_oob"], rtol=1e-10)
+    assert compared > 10

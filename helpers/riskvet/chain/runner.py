@@ -190,7 +190,7 @@ def _fitter_kernels() -> str:
     """Which row loops the fitter runs on (:mod:`riskvet.modelling.kernels`); results agree to rounding."""
     from ..modelling import kernels
 
-    return "compiled (numba)" if kernels.enabled() else "numpy"
+    return kernels.mode()
 
 
 def numerical_libraries() -> list[dict[str, Any]]:

@@ -1,4 +1,4 @@
-"""Compiled row loops of the proportional cumulative-logit fitter.
+"""Compiled row loops of the proportional cumulative-logit fitter, for resampling.
 
 The fitter's Newton iterations on a few thousand rows spend most of their
 time not on arithmetic but on the fixed cost of numpy calls on small arrays:
@@ -6,37 +6,48 @@ the log-likelihood and its per-row derivative pieces take about 30 numpy
 calls (:func:`riskvet.modelling.fitter._evaluate`), the threshold part of
 the gradient and Hessian another 15 (:func:`riskvet.modelling.fitter._grad_hess`).
 The loops here do the same arithmetic in one pass over the rows each,
-compiled by numba.  They are used only when numba is installed and the
-model is the proportional one (the logit link for :func:`logit_pieces`);
-everything else, and every test's reference, is the numpy path, selected
-for a whole process with the environment variable ``RISKVET_KERNELS=numpy``.
+compiled by numba.
+
+They run only inside :func:`compiled` blocks: the bootstrap replicates of
+:func:`riskvet.validation.bootstrap.validate_internally`, thousands of small
+fits in each worker process.  Everywhere else the numpy code runs.  The
+reason is measured: importing numba and reading the compiled loops from its
+cache costs 0.5-0.7 s in every new process, more than a record stage that
+fits a handful of models saves, while a bootstrap replicate of the
+benchmark's forward selection takes 0.29 s instead of 0.35 s (17 % less;
+``tests/benchmarks/bench_bootstrap.py`` prints both).  Every replicate runs
+on the same path whatever the number of workers, so results stay identical
+across worker counts and the Dask cluster.  ``RISKVET_KERNELS=numpy`` in the
+environment keeps the numpy path everywhere (the reference).
 
 Each loop computes the same formulas as the numpy code, in the same order
-within a row, so the pieces agree to rounding: the exponential comes from
-the C library rather than numpy's own, and the log-likelihood is summed
-row by row rather than pairwise.  ``tests/test_kernels.py`` checks both
-paths against each other and the whole fit against statsmodels.
+within a row, so the pieces agree to rounding (they are identical in
+practice: both exponentials are correctly rounded to the last bit on the
+values met); sums over rows are taken row by row rather than pairwise.
+``tests/test_kernels.py`` checks both paths against each other and the fit
+against statsmodels.
 
 Measured on the project's 2-core machine (1,800 rows, 3 levels, 15 columns,
-one BLAS thread): the pieces in 28 us against 97 us, the gradient and
-Hessian in 75 us against 116 us, the gradient alone in 6 us against 17 us.
+one BLAS thread): the pieces in 49-64 us against 97-107 us, the gradient
+alone in 6 us against 17 us.
 """
 
 from __future__ import annotations
 
+import contextlib
 import importlib.util
 import math
 import os
 
 import numpy as np
 
-__all__ = ["available", "enabled"]
+__all__ = ["available", "enabled", "compiled", "mode"]
 
 # numba is imported, and the loops compiled or read from numba's cache, at
-# the first call: about 0.3-0.7 s of import that processes which fit no
-# model (most record stages) do not pay.
+# the first call inside a compiled() block.
 _AVAILABLE = importlib.util.find_spec("numba") is not None
-_ENABLED = _AVAILABLE and os.environ.get("RISKVET_KERNELS", "").strip().lower() != "numpy"
+_ALLOWED = _AVAILABLE and os.environ.get("RISKVET_KERNELS", "").strip().lower() != "numpy"
+_ENABLED = False
 
 
 def available() -> bool:
@@ -45,8 +56,29 @@ def available() -> bool:
 
 
 def enabled() -> bool:
-    """True when the compiled loops are in use in this process."""
+    """True when the compiled loops are in use here and now."""
     return _ENABLED
+
+
+def mode() -> str:
+    """Where the compiled loops run in this process, in words (for the record's manifest)."""
+    if not _AVAILABLE:
+        return "numpy everywhere (numba is not installed)"
+    if not _ALLOWED:
+        return "numpy everywhere (RISKVET_KERNELS=numpy)"
+    return "numpy; compiled loops (numba) in bootstrap replicates"
+
+
+@contextlib.contextmanager
+def compiled():
+    """Run the block on the compiled loops (when numba is installed and not switched off)."""
+    global _ENABLED
+    before = _ENABLED
+    _ENABLED = _ALLOWED
+    try:
+        yield
+    finally:
+        _ENABLED = before
 
 
 _PYTHON = {}

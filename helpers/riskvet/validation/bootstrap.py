@@ -53,6 +53,7 @@ import pandas as pd
 
 from .._jsonable import to_jsonable
 from ..errors import DataError, DesignError, FitError, RiskvetError, RiskvetWarning, StudyError, problem
+from ..modelling import kernels
 from ..modelling.folds import cluster_codes, cluster_members, draw_clusters
 from ..measures.summary import average_summaries
 
@@ -1469,7 +1470,9 @@ def _replicate(payload: _Payload, item: tuple[int, np.random.SeedSequence]) -> d
     idx, sel_seed = _draw(child, len(payload.frame), payload.members)
     record: dict[str, Any] = {"replicate": i, "selection_seed": sel_seed}
     try:
-        record.update(_replicate_values(payload, idx, sel_seed))
+        # every replicate on the compiled loops, whichever worker runs it (see riskvet.modelling.kernels)
+        with kernels.compiled():
+            record.update(_replicate_values(payload, idx, sel_seed))
     except _ReplicateFailed as exc:
         record.update(status="failed", reason=exc.reason, message=exc.message)
     except _PROPAGATE:
