@@ -170,9 +170,10 @@ def test_bootstrap_replicates_run_compiled_and_match_the_numpy_path(monkeypatch,
     monkeypatch.setattr(bootstrap, "_replicate_values", spy)
     payload = bootstrap._Payload(study=study, frame=frame[list(study.predictors.in_analysis)], y=y, K=3, link="logit")
     child = np.random.SeedSequence(5)
-    on = bootstrap._replicate(payload, (0, child))
+    # as validate_internally runs every replicate, in one process or in workers
+    on, = bootstrap._run_batch(bootstrap._replicate, payload, [(0, child)])
     monkeypatch.setattr(kernels, "_ALLOWED", False)
-    off = bootstrap._replicate(payload, (0, child))
+    off, = bootstrap._run_batch(bootstrap._replicate, payload, [(0, child)])
     assert seen == [True, False]
     assert not kernels.enabled()
     assert on["status"] == off["status"] == "ok"

@@ -243,7 +243,7 @@ def main() -> None:
         times = {True: [], False: []}
         records = {True: [], False: []}
         allowed = kernels._ALLOWED
-        with _one_thread():
+        with _one_thread(), kernels.compiled():  # as validate_internally runs every replicate
             _replicate(payload, (0, children[0]))  # numba's import and cache read, once per process
             for i, child in enumerate(children[1:], 1):
                 for compiled in (True, False):  # alternated, so that other load falls on both alike

@@ -249,7 +249,9 @@ def main() -> None:
         payload = _Payload(study=study, frame=frame[columns], y=y, K=3, link="logit", completed=completed, m=m)
         children = np.random.SeedSequence(99).spawn(max(n_package, args.sm_replicates))
         parts, whole = [], []
-        with _one_thread():
+        from riskvet.modelling import kernels
+
+        with _one_thread(), kernels.compiled():  # as validate_internally runs every replicate
             for i, child in enumerate(children[:n_package]):
                 parts.append(_package_replicate(payload, child))
                 t0 = time.perf_counter()

@@ -8,15 +8,17 @@ the gradient and Hessian another 15 (:func:`riskvet.modelling.fitter._grad_hess`
 The loops here do the same arithmetic in one pass over the rows each,
 compiled by numba.
 
-They run only inside :func:`compiled` blocks: the bootstrap replicates of
-:func:`riskvet.validation.bootstrap.validate_internally`, thousands of small
-fits in each worker process.  Everywhere else the numpy code runs.  The
+They run only inside :func:`compiled` blocks: every resampling item
+(bootstrap replicate, cross-validation fold, left-out cluster, external or
+updating replicate) that ``riskvet.validation.bootstrap._execute`` runs,
+thousands of small fits in each worker process.  Everywhere else the numpy
+code runs.  The
 reason is measured: importing numba and reading the compiled loops from its
 cache costs 0.5-0.7 s in every new process, more than a record stage that
 fits a handful of models saves, while a bootstrap replicate of the
 benchmark's forward selection takes 0.29 s instead of 0.35 s (17 % less;
-``tests/benchmarks/bench_bootstrap.py`` prints both).  Every replicate runs
-on the same path whatever the number of workers, so results stay identical
+``tests/benchmarks/bench_bootstrap.py`` prints both).  Every item runs on
+the same path whatever the number of workers, so results stay identical
 across worker counts and the Dask cluster.  ``RISKVET_KERNELS=numpy`` in the
 environment keeps the numpy path everywhere (the reference).
 
@@ -66,7 +68,7 @@ def mode() -> str:
         return "numpy everywhere (numba is not installed)"
     if not _ALLOWED:
         return "numpy everywhere (RISKVET_KERNELS=numpy)"
-    return "numpy; compiled loops (numba) in bootstrap replicates"
+    return "numpy; compiled loops (numba) in resampling replicates, folds and left-out clusters"
 
 
 @contextlib.contextmanager

@@ -1124,7 +1124,10 @@ def _one_thread():
 
 
 def _run_batch(worker: Callable, payload: Any, batch: Sequence[Any]) -> list[Any]:
-    with _one_thread():
+    # Every resampling item (bootstrap replicate, cross-validation fold, left-out
+    # cluster, external or updating replicate) runs on the compiled loops,
+    # whichever process runs it (see riskvet.modelling.kernels).
+    with _one_thread(), kernels.compiled():
         return [worker(payload, item) for item in batch]
 
 
@@ -1470,9 +1473,7 @@ def _replicate(payload: _Payload, item: tuple[int, np.random.SeedSequence]) -> d
     idx, sel_seed = _draw(child, len(payload.frame), payload.members)
     record: dict[str, Any] = {"replicate": i, "selection_seed": sel_seed}
     try:
-        # every replicate on the compiled loops, whichever worker runs it (see riskvet.modelling.kernels)
-        with kernels.compiled():
-            record.update(_replicate_values(payload, idx, sel_seed))
+        record.update(_replicate_values(payload, idx, sel_seed))
     except _ReplicateFailed as exc:
         record.update(status="failed", reason=exc.reason, message=exc.message)
     except _PROPAGATE:
