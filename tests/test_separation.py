@@ -170,3 +170,31 @@ def test_one_column_binary_separation_is_decided_exactly_without_the_programme()
         d = _make_design(x[order, None], y[order], 2, np.ones(40), None, "logit", True, True)
         assert _separation_check(d) == _separated_columns(d), case
         assert bool(_separation_check(d)) == (case != "overlap"), case
+
+
+@pytest.mark.parametrize("K", [2, 3, 4])
+@pytest.mark.parametrize("proportional", [True, False])
+def test_one_column_separation_rule_agrees_with_the_programme(K, proportional):
+    """The one-column rule (every calibration and recalibration fit) gives the linear programme's answer on
+    overlapping, touching and apart levels, upwards, downwards and mixed, for 2 to 4 levels, proportional and
+    not (invented test data; the programme is the reference)."""
+    from riskvet.modelling.fitter import _make_design, _one_column_separated, _separated_columns
+
+    rng = np.random.default_rng(40 + K)
+    n_per = 12
+    seen = set()
+    for trial in range(60):
+        y = np.repeat(np.arange(K), n_per)
+        # levels on disjoint, touching or overlapping ranges, in a random order of the ranges
+        centres = rng.permutation(K) if trial % 3 else np.arange(K)
+        spread = rng.choice([0.2, 0.5, 0.8])  # 0.5 touches (quasi-complete), 0.8 overlaps
+        x = np.concatenate([c + spread * np.linspace(-1.0, 1.0, n_per) for c in centres])
+        if trial % 5 == 0:
+            x[rng.integers(len(x))] += rng.normal()  # one stray row
+        if trial % 7 == 0:
+            x[y == 0] = x[y == 0][0]  # a level with one value
+        d = _make_design(x[:, None], y, K, np.ones(len(y)), None, "logit", proportional, True)
+        expected = _separated_columns(d)
+        assert _one_column_separated(d) == expected, (trial, centres, spread)
+        seen.add(bool(expected))
+    assert seen == {True, False}  # both answers were met
