@@ -243,14 +243,18 @@ def main() -> None:
         times = {True: [], False: []}
         records = {True: [], False: []}
         allowed = kernels._ALLOWED
-        with _one_thread(), kernels.compiled():  # as validate_internally runs every replicate
-            _replicate(payload, (0, children[0]))  # numba's import and cache read, once per process
+        with _one_thread():
+            with kernels.compiled():  # as validate_internally runs every replicate
+                _replicate(payload, (0, children[0]))  # numba's import and cache read, once per process
             for i, child in enumerate(children[1:], 1):
                 for compiled in (True, False):  # alternated, so that other load falls on both alike
+                    # compiled() reads the switch when the block is entered
                     kernels._ALLOWED = allowed and compiled
-                    t0 = time.perf_counter()
-                    records[compiled].append(_replicate(payload, (i, child)))
-                    times[compiled].append(time.perf_counter() - t0)
+                    with kernels.compiled():
+                        assert kernels.enabled() == (allowed and compiled)
+                        t0 = time.perf_counter()
+                        records[compiled].append(_replicate(payload, (i, child)))
+                        times[compiled].append(time.perf_counter() - t0)
         kernels._ALLOWED = allowed
         ours = float(np.median(times[True]))
         reference = float(np.median(times[False]))
