@@ -448,3 +448,23 @@ def test_entirely_missing_column_unsupported_dtype_and_missing_outcome_are_refus
     for bad in (2, -1, 1.0, True):
         with pytest.raises(DataError, match=r"completed\(j=\)"):
             imp.completed(bad)
+
+
+def test_least_squares_equals_numpy_lstsq_full_rank_rank_deficient_and_ill_conditioned():
+    """The normal-equations shortcut of predictive mean matching gives numpy's SVD least-squares solution
+    (numpy.linalg.lstsq, numpy 2.x) to rounding on a well-conditioned design, and numpy's own minimum-norm
+    solution where the design is rank deficient (a level absent from a resample) or nearly collinear
+    (invented test data)."""
+    from riskvet.imputation import chained
+
+    rng = np.random.default_rng(8)
+    n = 400
+    Z = np.c_[np.ones(n), rng.normal(size=(n, 5)), rng.binomial(1, 0.3, size=(n, 2))]
+    y = Z @ rng.normal(size=Z.shape[1]) + rng.normal(size=n)
+    reference = np.linalg.lstsq(Z, y, rcond=None)[0]
+    assert np.allclose(chained._least_squares(Z, y), reference, rtol=1e-12, atol=1e-13)
+    deficient = Z.copy()
+    deficient[:, 6] = 0.0  # an indicator with no row at its level
+    assert np.array_equal(chained._least_squares(deficient, y), np.linalg.lstsq(deficient, y, rcond=None)[0])
+    collinear = np.c_[Z, Z[:, 1] + 1e-7 * rng.normal(size=n)]
+    assert np.array_equal(chained._least_squares(collinear, y), np.linalg.lstsq(collinear, y, rcond=None)[0])
