@@ -198,3 +198,22 @@ def test_one_column_separation_rule_agrees_with_the_programme(K, proportional):
         assert _one_column_separated(d) == expected, (trial, centres, spread)
         seen.add(bool(expected))
     assert seen == {True, False}  # both answers were met
+
+
+def test_public_fit_skips_the_screen_but_still_finds_separation():
+    """fit_cumulative runs the separation programme after every fit, so it skips the cheap screen; the separation is
+    still named, and the lean entry still screens (invented test data)."""
+    from riskvet.modelling.fitter import _fit_arrays
+
+    rng = np.random.default_rng(12)
+    x = rng.normal(size=300)
+    y = np.searchsorted([-0.3, 0.8], x + rng.logistic(size=300))
+    X = np.c_[x, (y == 2).astype(float)]  # the second column separates the top level
+    with pytest.warns(SeparationWarning):
+        fit = fit_cumulative(pd.DataFrame(X, columns=["x", "top"]), y)
+    assert fit.separation == ("top",)
+    assert _fit_arrays(X, y, 3).suspect_separation
+    assert _fit_arrays(X, y, 3, screen_separation=False).suspect_separation
+    clean = _fit_arrays(X[:, :1], y, 3)
+    assert not clean.suspect_separation
+    assert _fit_arrays(X[:, :1], y, 3, screen_separation=False).suspect_separation
